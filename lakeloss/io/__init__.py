@@ -1,0 +1,1 @@
+"""Input and output: the only part of lakeloss that opens paths."""

@@ -1,0 +1,1 @@
+"""Pure physics of open-water evaporation: functions of arrays, no I/O."""

@@ -1,0 +1,1 @@
+"""Exact area weights between water-body polygons and climate grid cells."""
