@@ -1,0 +1,249 @@
+"""OutputDirectory: outputs appear complete under the final name or not at all.
+
+Fixtures are tiny directories of a few text files under pytest's tmp_path. The disk-full case
+runs on a real 64 KiB tmpfs when this process may mount one (it runs as root in CI) and falls
+back to an ENOSPC raised from inside the block otherwise; both paths assert the same outcome.
+"""
+
+from __future__ import annotations
+
+import errno
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from lakeloss.errors import OutputError
+from lakeloss.io.atomic import OutputDirectory, clean_stale
+
+
+def _snapshot(directory: Path) -> dict[str, bytes]:
+    """Relative path -> bytes of every file below ``directory``."""
+    return {
+        str(p.relative_to(directory)): p.read_bytes()
+        for p in sorted(directory.rglob("*"))
+        if p.is_file()
+    }
+
+
+def _leftovers(parent: Path) -> list[str]:
+    return sorted(p.name for p in parent.iterdir() if ".lakeloss-" in p.name)
+
+
+@pytest.fixture
+def previous_run(tmp_path: Path) -> Path:
+    """An output directory left by an earlier, successful run."""
+    target = tmp_path / "out"
+    target.mkdir()
+    (target / "run.json").write_text('{"run": 1}\n')
+    (target / "tables").mkdir()
+    (target / "tables" / "evaporation.csv").write_bytes(b"id,evap_mm\n1,2.5\n")
+    return target
+
+
+def _dead_pid() -> int:
+    """Id of a process that has already exited."""
+    proc = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    return int(proc.stdout)
+
+
+def test_success_moves_into_place(tmp_path):
+    target = tmp_path / "out"
+    with OutputDirectory(target, overwrite=False) as staging:
+        assert staging.parent == tmp_path
+        assert staging.name.startswith(f".out.lakeloss-partial-{os.getpid()}-")
+        (staging / "run.json").write_text("{}\n")
+        assert not target.exists()
+    assert (target / "run.json").read_text() == "{}\n"
+    assert _leftovers(tmp_path) == []
+
+
+def test_missing_parents_are_created(tmp_path):
+    target = tmp_path / "a" / "b" / "out"
+    with OutputDirectory(target, overwrite=False) as staging:
+        (staging / "x.txt").write_text("x")
+    assert (target / "x.txt").read_text() == "x"
+
+
+def test_existing_target_refused_without_overwrite(previous_run):
+    before = _snapshot(previous_run)
+    out = OutputDirectory(previous_run, overwrite=False)
+    with pytest.raises(OutputError, match="exists; pass --overwrite to replace it"):
+        out.check()
+    with pytest.raises(OutputError, match="exists; pass --overwrite"):
+        with out:
+            raise AssertionError("the block must not run")
+    assert _snapshot(previous_run) == before
+    assert _leftovers(previous_run.parent) == []
+
+
+def test_overwrite_replaces_whole_directory(previous_run):
+    with OutputDirectory(previous_run, overwrite=True) as staging:
+        (staging / "run.json").write_text('{"run": 2}\n')
+    assert _snapshot(previous_run) == {"run.json": b'{"run": 2}\n'}
+    assert _leftovers(previous_run.parent) == []
+
+
+def test_exception_mid_write_keeps_previous_output(previous_run):
+    before = _snapshot(previous_run)
+    with pytest.raises(ZeroDivisionError):
+        with OutputDirectory(previous_run, overwrite=True) as staging:
+            (staging / "run.json").write_text('{"run": 2}\n')
+            _ = 1 / 0
+    assert not staging.exists()
+    assert _snapshot(previous_run) == before
+    assert _leftovers(previous_run.parent) == []
+
+
+def test_simulated_disk_full_becomes_output_error(previous_run):
+    before = _snapshot(previous_run)
+    with pytest.raises(OutputError, match="disk full while writing outputs") as info:
+        with OutputDirectory(previous_run, overwrite=True) as staging:
+            (staging / "part.bin").write_bytes(b"0" * 10)
+            raise OSError(errno.ENOSPC, "No space left on device")
+    assert "earlier outputs were left untouched" in str(info.value)
+    assert "\n" not in str(info.value)
+    assert isinstance(info.value.__cause__, OSError)
+    assert _snapshot(previous_run) == before
+    assert _leftovers(previous_run.parent) == []
+
+
+@pytest.fixture
+def tiny_disk(tmp_path: Path):
+    """A 64 KiB tmpfs if this process can mount one, else None (simulated case is used)."""
+    mount_point = tmp_path / "tiny"
+    mount_point.mkdir()
+    try:
+        proc = subprocess.run(
+            ["mount", "-t", "tmpfs", "-o", "size=64k", "tmpfs", str(mount_point)],
+            capture_output=True,
+            timeout=10,
+        )
+    except (OSError, subprocess.TimeoutExpired):
+        proc = None
+    if proc is None or proc.returncode != 0:
+        yield None
+        return
+    try:
+        yield mount_point
+    finally:
+        subprocess.run(["umount", str(mount_point)], capture_output=True, timeout=10)
+
+
+def test_disk_full_real_or_simulated(tiny_disk, tmp_path):
+    disk = tiny_disk if tiny_disk is not None else tmp_path / "fallback"
+    disk.mkdir(exist_ok=True)
+    target = disk / "out"
+    target.mkdir()
+    (target / "run.json").write_text('{"run": 1}\n')
+    before = _snapshot(target)
+    with pytest.raises(OutputError, match="disk full while writing outputs"):
+        with OutputDirectory(target, overwrite=True) as staging:
+            if tiny_disk is None:
+                raise OSError(errno.ENOSPC, "No space left on device (simulated)")
+            with open(staging / "big.bin", "wb") as fh:
+                for _ in range(64):  # 256 KiB into 64 KiB: must fail with ENOSPC
+                    fh.write(b"\0" * 4096)
+                    fh.flush()
+    assert _snapshot(target) == before
+    assert _leftovers(disk) == []
+
+
+def test_target_is_a_file(tmp_path):
+    target = tmp_path / "out"
+    target.write_text("not a directory")
+    with pytest.raises(OutputError, match="is a file, expected a directory"):
+        OutputDirectory(target, overwrite=True).check()
+    assert target.read_text() == "not a directory"
+
+
+def test_parent_is_a_file(tmp_path):
+    blocker = tmp_path / "plain_file"
+    blocker.write_text("x")
+    with pytest.raises(OutputError, match="is not a directory"):
+        OutputDirectory(blocker / "sub" / "out", overwrite=False).check()
+
+
+def test_parent_not_writable(tmp_path):
+    # Root ignores permission bits, so only assert the refusal where os.access agrees.
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    locked.chmod(0o500)
+    try:
+        out = OutputDirectory(locked / "out", overwrite=False)
+        if os.access(locked, os.W_OK):
+            out.check()  # writable for this user (root): no refusal expected
+        else:
+            with pytest.raises(OutputError, match="is not writable"):
+                out.check()
+    finally:
+        locked.chmod(0o700)
+
+
+def test_clean_stale_removes_dead_and_keeps_live(tmp_path):
+    target = tmp_path / "out"
+    target.mkdir()
+    dead = _dead_pid()
+    dead_partial = tmp_path / f".out.lakeloss-partial-{dead}-abc123"
+    dead_old = tmp_path / f".out.lakeloss-old-{dead}"
+    live_partial = tmp_path / f".out.lakeloss-partial-{os.getppid()}-xyz"
+    other_target = tmp_path / f".other.lakeloss-partial-{dead}-abc"
+    for d in (dead_partial, dead_old, live_partial, other_target):
+        d.mkdir()
+    removed = clean_stale(target)
+    assert sorted(removed) == sorted([dead_partial, dead_old])
+    assert not dead_partial.exists() and not dead_old.exists()
+    assert live_partial.exists() and other_target.exists()
+
+
+def test_clean_stale_restores_output_lost_between_renames(tmp_path):
+    target = tmp_path / "out"
+    aside = tmp_path / f".out.lakeloss-old-{_dead_pid()}"
+    aside.mkdir()
+    (aside / "run.json").write_text('{"run": 1}\n')
+    clean_stale(target)
+    assert (target / "run.json").read_text() == '{"run": 1}\n'
+    assert not aside.exists()
+
+
+_KILLED_WRITER = textwrap.dedent(
+    """
+    import sys, time
+    from lakeloss.io.atomic import OutputDirectory
+    with OutputDirectory(sys.argv[1], overwrite=True) as staging:
+        (staging / "run.json").write_text('{"run": 2}')
+        print(staging, flush=True)
+        time.sleep(60)
+    """
+)
+
+
+def test_sigkill_mid_write_leaves_old_target_and_is_cleaned(previous_run):
+    before = _snapshot(previous_run)
+    proc = subprocess.Popen(
+        [sys.executable, "-c", _KILLED_WRITER, str(previous_run)], stdout=subprocess.PIPE, text=True
+    )
+    try:
+        staging = Path(proc.stdout.readline().strip())
+        assert staging.is_dir() and (staging / "run.json").exists()
+    finally:
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(timeout=30)
+        proc.stdout.close()
+    assert proc.returncode == -signal.SIGKILL
+    assert _snapshot(previous_run) == before
+    assert staging.exists()  # nothing could clean up after SIGKILL
+    with OutputDirectory(previous_run, overwrite=True) as new_staging:
+        assert not staging.exists()  # the new run removed the dead run's partial directory
+        (new_staging / "run.json").write_text('{"run": 3}')
+    assert _snapshot(previous_run) == {"run.json": b'{"run": 3}'}
+    assert _leftovers(previous_run.parent) == []
