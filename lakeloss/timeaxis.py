@@ -1,0 +1,401 @@
+"""The time axis of a run: steps, their lengths per calendar, and reporting periods.
+
+Pure: takes decoded time stamps (cftime datetimes, so ``noleap`` and ``360_day`` work) and
+returns descriptions of them. A run's variables must share one axis exactly
+(:func:`require_identical`); lakeloss never interpolates or re-aligns in time.
+
+Two step kinds exist: daily (stamps one day apart, all at the same time of day) and monthly
+(one stamp in each consecutive calendar month, on any day). Monthly values are daily
+rates, so a month's total is the rate times that month's calendar days (METHODS §7.6).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import cftime
+import numpy as np
+
+from lakeloss.errors import ConfigError, TimeAxisError
+
+STEPS = ("day", "month")
+PERIODS = ("day", "month", "year")
+
+# Spellings CF allows for the same calendar; the first form is the one lakeloss reports.
+_CALENDAR_ALIASES = {
+    "gregorian": "standard",
+    "standard": "standard",
+    "proleptic_gregorian": "proleptic_gregorian",
+    "noleap": "noleap",
+    "365_day": "noleap",
+    "all_leap": "all_leap",
+    "366_day": "all_leap",
+    "360_day": "360_day",
+    "julian": "julian",
+}
+
+# Before this date the standard (mixed) and proleptic Gregorian calendars disagree.
+_GREGORIAN_REFORM = (1582, 10, 15)
+
+
+@dataclass(frozen=True)
+class TimeAxis:
+    """A regular daily or monthly time axis.
+
+    Attributes
+    ----------
+    times : numpy.ndarray
+        cftime datetimes as stored in the file (object array).
+    calendar : str
+        CF calendar name (aliases resolved: ``gregorian`` -> ``standard``).
+    step : str
+        ``"day"`` or ``"month"``.
+    starts : tuple of str
+        ISO date ``YYYY-MM-DD`` of the first day of each step.
+    days : numpy.ndarray
+        Length of each step [day]: 1 for daily, 28..31 for months (30 in ``360_day``).
+    day_of_year : numpy.ndarray
+        Day of year in the middle of each step (int; the stamp's day for daily steps).
+    hour : float
+        Time of day of the stamps [h] (of the first stamp for monthly axes).
+    """
+
+    times: np.ndarray
+    calendar: str
+    step: str
+    starts: tuple[str, ...]
+    days: np.ndarray
+    day_of_year: np.ndarray
+    hour: float
+
+    def __len__(self) -> int:
+        return len(self.starts)
+
+    @property
+    def ends(self) -> tuple[str, ...]:
+        """ISO date of the last (inclusive) day of each step."""
+        if self.step == "day":
+            return self.starts
+        return tuple(f"{s[:8]}{int(d):02d}" for s, d in zip(self.starts, self.days, strict=True))
+
+    def describe(self) -> str:
+        """One line naming span, step, calendar and stamp time, for messages."""
+        hours, minutes = divmod(round(self.hour * 60.0), 60)
+        kind = "daily" if self.step == "day" else "monthly"
+        return (
+            f"{self.starts[0]}..{self.ends[-1]}, {kind}, calendar {self.calendar}, "
+            f"stamps at {hours:02d}:{minutes:02d}"
+        )
+
+
+def _iso(stamp) -> str:
+    return f"{stamp.year:04d}-{stamp.month:02d}-{stamp.day:02d}"
+
+
+def _hour_of(stamp) -> float:
+    return stamp.hour + stamp.minute / 60.0 + stamp.second / 3600.0
+
+
+def _canonical_calendar(calendar: str, first) -> str:
+    name = _CALENDAR_ALIASES.get(str(calendar).strip().lower())
+    if name is None:
+        known = ", ".join(sorted(_CALENDAR_ALIASES))
+        raise TimeAxisError(
+            f"calendar {calendar!r} is not a CF calendar; expected one of {known}; "
+            "fix the time variable's calendar attribute"
+        )
+    # After the 1582 reform the two Gregorian variants give identical dates; treating them
+    # as one lets files from different producers share an axis.
+    if name == "proleptic_gregorian" and (first.year, first.month, first.day) >= _GREGORIAN_REFORM:
+        return "standard"
+    return name
+
+
+def month_length(year: int, month: int, calendar: str) -> int:
+    """Number of days in a calendar month [day] under a CF calendar."""
+    first = cftime.datetime(year, month, 1, calendar=calendar)
+    following = cftime.datetime(year + month // 12, month % 12 + 1, 1, calendar=calendar)
+    return (following - first).days
+
+
+def _as_cftime(times, calendar: str) -> np.ndarray:
+    values = np.asarray(times)
+    if values.dtype.kind == "M":
+        # numpy datetime64 carries no calendar: it is always the proleptic Gregorian one.
+        stamps = [_dt.datetime.fromisoformat(str(v)[:26]) for v in values.astype("datetime64[us]")]
+        return np.array(
+            [cftime.datetime(*s.timetuple()[:6], calendar=calendar) for s in stamps], dtype=object
+        )
+    return values.astype(object)
+
+
+def from_times(times, calendar: str) -> TimeAxis:
+    """Build a time axis from decoded stamps, inferring a daily or monthly step.
+
+    Parameters
+    ----------
+    times : array_like
+        cftime datetimes (or numpy datetime64), strictly increasing.
+    calendar : str
+        CF calendar of the stamps.
+
+    Returns
+    -------
+    TimeAxis
+
+    Raises
+    ------
+    TimeAxisError
+        No stamps, unknown calendar, or spacing that is neither one day (at a constant time
+        of day) nor one calendar month; the message names the first irregular gap.
+
+    Notes
+    -----
+    A single stamp is taken as one daily step.
+    """
+    stamps = _as_cftime(times, calendar)
+    if stamps.size == 0:
+        raise TimeAxisError("time axis has no time steps; expected at least one; check the file")
+    cal = _canonical_calendar(calendar, stamps[0])
+    if stamps.size == 1 or _gap_days(stamps[0], stamps[1]) == 1.0:
+        _check_daily(stamps)
+        return _daily_axis(stamps, cal)
+    _check_monthly(stamps)
+    return _monthly_axis(stamps, cal)
+
+
+def _gap_days(earlier, later) -> float:
+    return (later - earlier).total_seconds() / 86400.0
+
+
+def _irregular(stamps, index: int, expected: str) -> TimeAxisError:
+    gap = _gap_days(stamps[index - 1], stamps[index])
+    return TimeAxisError(
+        f"time axis is irregular at step {index}: {stamps[index - 1]} -> {stamps[index]} is "
+        f"{gap:g} days, expected {expected}; fill the gap or remove the duplicated stamps"
+    )
+
+
+def _check_daily(stamps: np.ndarray) -> None:
+    for index in range(1, stamps.size):
+        if _gap_days(stamps[index - 1], stamps[index]) != 1.0:
+            raise _irregular(stamps, index, "1 day (daily) at a constant time of day")
+
+
+def _check_monthly(stamps: np.ndarray) -> None:
+    for index in range(1, stamps.size):
+        before, after = stamps[index - 1], stamps[index]
+        months = (after.year - before.year) * 12 + after.month - before.month
+        if months != 1:
+            raise _irregular(stamps, index, "1 day (daily) or the next calendar month (monthly)")
+
+
+def _daily_axis(stamps: np.ndarray, calendar: str) -> TimeAxis:
+    return TimeAxis(
+        times=stamps,
+        calendar=calendar,
+        step="day",
+        starts=tuple(_iso(s) for s in stamps),
+        days=np.ones(stamps.size),
+        day_of_year=np.array([s.dayofyr for s in stamps], dtype=int),
+        hour=_hour_of(stamps[0]),
+    )
+
+
+def _monthly_axis(stamps: np.ndarray, calendar: str) -> TimeAxis:
+    days = np.array([month_length(s.year, s.month, calendar) for s in stamps], dtype=float)
+    firsts = [cftime.datetime(s.year, s.month, 1, calendar=calendar) for s in stamps]
+    # Mid-month by this calendar's month lengths (FAO-56 approximates it as int(30.4M - 15)).
+    mid = np.array([f.dayofyr for f in firsts], dtype=int) + (days // 2).astype(int)
+    return TimeAxis(
+        times=stamps,
+        calendar=calendar,
+        step="month",
+        starts=tuple(_iso(f) for f in firsts),
+        days=days,
+        day_of_year=mid,
+        hour=_hour_of(stamps[0]),
+    )
+
+
+def from_start(start: str, step: str, count: int, calendar: str = "standard") -> TimeAxis:
+    """Build a time axis of ``count`` steps from a start date, for files without time stamps.
+
+    Parameters
+    ----------
+    start : str
+        ISO date of the first stamp, ``YYYY-MM-DD`` (optionally ``THH:MM``). Monthly stamps
+        repeat its day of month, which must therefore be 1..28.
+    step : str
+        ``"day"`` or ``"month"``.
+    count : int
+        Number of steps (>= 1).
+    calendar : str
+        CF calendar.
+
+    Returns
+    -------
+    TimeAxis
+
+    Raises
+    ------
+    ConfigError
+        Unknown step or a count below 1.
+    TimeAxisError
+        Start not an ISO date, invalid in the calendar, or a monthly start after day 28.
+    """
+    if step not in STEPS:
+        raise ConfigError(f"time step {step!r} is not known; expected one of {', '.join(STEPS)}")
+    if count < 1:
+        raise ConfigError(f"time step count is {count}; expected at least 1 step")
+    first = _parse_start(start, calendar)
+    if step == "day":
+        stamps = [first + _dt.timedelta(days=i) for i in range(count)]
+        return _daily_axis(np.array(stamps, dtype=object), _canonical_calendar(calendar, first))
+    if first.day > 28:
+        raise TimeAxisError(
+            f"monthly start {start!r} is on day {first.day}; expected day 1..28 so that every "
+            "month has that day; set the start to the first of the month"
+        )
+    stamps = []
+    for i in range(count):
+        months = first.month - 1 + i
+        stamps.append(first.replace(year=first.year + months // 12, month=months % 12 + 1))
+    return _monthly_axis(np.array(stamps, dtype=object), _canonical_calendar(calendar, first))
+
+
+def _parse_start(start: str, calendar: str):
+    try:
+        parsed = _dt.datetime.fromisoformat(str(start).strip())
+    except ValueError as err:
+        raise TimeAxisError(
+            f"start date {start!r} is not an ISO date; expected YYYY-MM-DD, e.g. 2021-01-01"
+        ) from err
+    try:
+        return cftime.datetime(*parsed.timetuple()[:6], calendar=calendar)
+    except ValueError as err:
+        raise TimeAxisError(
+            f"start date {start!r} does not exist in calendar {calendar!r} or the calendar is "
+            "unknown; expected a valid date in a CF calendar"
+        ) from err
+
+
+def require_identical(axes: Mapping[str, TimeAxis]) -> TimeAxis:
+    """Return the one time axis all variables share, or explain how they differ.
+
+    Parameters
+    ----------
+    axes : mapping of str to TimeAxis
+        Time axis of each climate variable, by variable (or quantity) name.
+
+    Returns
+    -------
+    TimeAxis
+        The first axis (all are identical).
+
+    Raises
+    ------
+    ConfigError
+        The mapping is empty.
+    TimeAxisError
+        Calendars, steps, stamp times or any step start differ; the message lists every
+        variable's axis.
+    """
+    if not axes:
+        raise ConfigError("no climate variables were given; expected at least one time axis")
+    names = list(axes)
+    reference = axes[names[0]]
+    if all(_same_axis(reference, axes[name]) for name in names[1:]):
+        return reference
+    listing = "; ".join(f"{name}: {axes[name].describe()}" for name in names)
+    raise TimeAxisError(
+        f"climate variables have different time axes ({listing}); expected identical calendar, "
+        "step, stamp time and dates; regrid or subset the files to a common axis"
+    )
+
+
+def _same_axis(one: TimeAxis, other: TimeAxis) -> bool:
+    return (
+        one.calendar == other.calendar
+        and one.step == other.step
+        and one.hour == other.hour
+        and one.starts == other.starts
+    )
+
+
+@dataclass(frozen=True)
+class Periods:
+    """Reporting periods over a time axis.
+
+    Attributes
+    ----------
+    index : numpy.ndarray
+        Period number (0-based, int) of each time step.
+    starts, ends : tuple of str
+        ISO first and last (inclusive) covered day of each period: a period only partly
+        covered by the axis starts or ends where the data does.
+    days : numpy.ndarray
+        Covered days in each period [day] (sum of its step lengths).
+    """
+
+    index: np.ndarray
+    starts: tuple[str, ...]
+    ends: tuple[str, ...]
+    days: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.starts)
+
+
+def periods(axis: TimeAxis, period: str) -> Periods:
+    """Group the steps of ``axis`` into days, calendar months or calendar years.
+
+    Parameters
+    ----------
+    axis : TimeAxis
+        The run's time axis.
+    period : str
+        ``"day"``, ``"month"`` or ``"year"``.
+
+    Returns
+    -------
+    Periods
+
+    Raises
+    ------
+    ConfigError
+        Unknown period, or daily periods asked of a monthly axis.
+    """
+    if period not in PERIODS:
+        raise ConfigError(
+            f"reporting period {period!r} is not known; expected one of {', '.join(PERIODS)}"
+        )
+    if period == "day" and axis.step == "month":
+        raise ConfigError(
+            "daily reporting periods were asked for monthly climate data; expected period "
+            '"month" or "year"; set the period to "month" or supply daily data'
+        )
+    width = {"day": 10, "month": 7, "year": 4}[period]
+    keys = [start[:width] for start in axis.starts]
+    return _group(keys, axis.starts, axis.ends, axis.days)
+
+
+def _group(
+    keys: Sequence[str], starts: Sequence[str], ends: Sequence[str], days: np.ndarray
+) -> Periods:
+    # Steps are in time order, so a period is a run of equal keys.
+    index = np.zeros(len(keys), dtype=int)
+    first_of: list[int] = [0]
+    for i in range(1, len(keys)):
+        index[i] = index[i - 1] + (keys[i] != keys[i - 1])
+        if keys[i] != keys[i - 1]:
+            first_of.append(i)
+    last_of = [i - 1 for i in first_of[1:]] + [len(keys) - 1]
+    return Periods(
+        index=index,
+        starts=tuple(starts[i] for i in first_of),
+        ends=tuple(ends[i] for i in last_of),
+        days=np.bincount(index, weights=days).astype(float),
+    )
