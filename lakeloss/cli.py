@@ -1,0 +1,183 @@
+"""The ``lakeloss`` command line: parse, build the config, make one call, report.
+
+Every :class:`~lakeloss.errors.LakelossError` becomes one line ``error: ...`` on stderr and
+exit code 2 (1 for anything unexpected); a traceback is shown only with ``-v``.
+"""
+
+from __future__ import annotations
+
+import functools
+import logging
+import sys
+import warnings
+from collections.abc import Callable
+from typing import Any
+
+import click
+
+from lakeloss.errors import LakelossError, LakelossWarning
+
+EXIT_USER_ERROR = 2
+EXIT_UNEXPECTED = 1
+
+
+def _configure_logging(verbose: int, quiet: bool) -> None:
+    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 1 else
+                                           logging.INFO if verbose else logging.WARNING)
+    logging.basicConfig(level=level, stream=sys.stderr, format="%(levelname)s: %(message)s")
+
+
+def _show_warning(message: Any, category: Any, *args: Any, **kwargs: Any) -> None:
+    if issubclass(category, LakelossWarning):
+        click.echo(f"warning: {message}", err=True)
+    else:
+        logging.getLogger("py.warnings").debug("%s: %s", category.__name__, message)
+
+
+def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
+    """Turn lakeloss errors into one-line messages; tracebacks only with -v."""
+
+    @functools.wraps(func)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        verbose = kwargs.get("verbose", 0)
+        _configure_logging(verbose, kwargs.get("quiet", False))
+        warnings.showwarning = _show_warning
+        try:
+            return func(*args, **kwargs)
+        except LakelossError as err:
+            if verbose:
+                raise
+            click.echo(f"error: {err}", err=True)
+            sys.exit(EXIT_USER_ERROR)
+        except KeyboardInterrupt:
+            click.echo("error: interrupted; no outputs were written", err=True)
+            sys.exit(130)
+        except Exception as err:  # noqa: BLE001 - last line of defence for users
+            if verbose:
+                raise
+            click.echo(f"error: unexpected {type(err).__name__}: {err} "
+                       "(rerun with -v for the traceback and report it)", err=True)
+            sys.exit(EXIT_UNEXPECTED)
+
+    return wrapper
+
+
+def _verbosity(func: Callable[..., Any]) -> Callable[..., Any]:
+    func = click.option("-q", "--quiet", is_flag=True, help="Only errors and warnings.")(func)
+    return click.option("-v", "--verbose", count=True,
+                        help="More detail on stderr; -v also shows tracebacks.")(func)
+
+
+def _execution(func: Callable[..., Any]) -> Callable[..., Any]:
+    func = click.option("--strict/--lenient", default=None,
+                        help="Refuse (default) or only warn about values that contradict "
+                        "their units.")(func)
+    func = click.option("--chunk-steps", type=click.IntRange(min=1), default=None,
+                        help="Time steps per block (default: sized to memory).")(func)
+    func = click.option("--scheduler", default=None, metavar="ADDRESS",
+                        help="Address or scheduler file of a running dask.distributed "
+                        "cluster.")(func)
+    return click.option("--workers", type=click.IntRange(min=1), default=None,
+                        help="Start a local dask.distributed cluster of N worker "
+                        "processes.")(func)
+
+
+def _progress(quiet: bool) -> Any:
+    if quiet:
+        return None
+    from tqdm import tqdm
+
+    def factory(total: int, label: str) -> Any:
+        return tqdm(total=total, desc=label, unit="step", file=sys.stderr, disable=None,
+                    leave=False)
+
+    return factory
+
+
+def _load(config_path: str, strict: bool | None, workers: int | None, scheduler: str | None,
+          chunk_steps: int | None) -> Any:
+    from lakeloss.config import load_config
+
+    config = load_config(config_path).with_strict(strict)
+    return config.with_overrides(workers=workers, scheduler=scheduler, chunk_steps=chunk_steps)
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(package_name="lakeloss")
+def cli() -> None:
+    """Open-water evaporation for many water bodies from gridded climate.
+
+    Figures are estimates for screening and water accounting, not for design, licensing or
+    dam-safety decisions.
+    """
+
+
+@cli.command()
+@click.argument("config_path", metavar="CONFIG", type=click.Path(dir_okay=False))
+@click.option("--overwrite", is_flag=True, help="Replace an existing output directory.")
+@_execution
+@_verbosity
+@_guarded
+def run(config_path: str, overwrite: bool, workers: int | None, scheduler: str | None,
+        chunk_steps: int | None, strict: bool | None, verbose: int, quiet: bool) -> None:
+    """Compute evaporation for every water body and write the outputs."""
+    from lakeloss.io.atomic import OutputDirectory
+    from lakeloss.pipeline import run_stages
+
+    config = _load(config_path, strict, workers, scheduler, chunk_steps)
+    OutputDirectory(config.output.dir, overwrite=overwrite).check()  # fail before computing
+    result = run_stages(config, progress=_progress(quiet))
+    target = result.write(config.output.dir, overwrite=overwrite)
+    if not quiet:
+        counts = result.provenance["counts"]
+        total = float(result.waterbodies["evap_m3"].sum())
+        click.echo(f"{counts['waterbodies']} water bodies, {counts['periods']} periods, "
+                   f"{total:,.0f} m3 evaporated ({config.method.name}); "
+                   f"{counts['flagged']} flagged; outputs in {target}", err=True)
+
+
+@cli.command()
+@click.argument("config_path", metavar="CONFIG", type=click.Path(dir_okay=False))
+@_execution
+@_verbosity
+@_guarded
+def check(config_path: str, workers: int | None, scheduler: str | None,
+          chunk_steps: int | None, strict: bool | None, verbose: int, quiet: bool) -> None:
+    """Validate every input and print the plan, without computing."""
+    from lakeloss.plan import make_plan
+
+    config = _load(config_path, strict, workers, scheduler, chunk_steps)
+    plan = make_plan(config)
+    click.echo(plan.describe())
+
+
+@cli.command()
+@_verbosity
+@_guarded
+def methods(verbose: int, quiet: bool) -> None:
+    """List the evaporation methods with their inputs, parameters and references."""
+    from lakeloss.physics import registry
+
+    for name in registry.method_names():
+        spec = registry.get(name)
+        click.echo(f"{name}\n  {spec.description}")
+        needs = ["  or  ".join(alt.replace("+", " + ") for alt in group)
+                 for group in spec.requires]
+        click.echo("  needs:    " + ("; ".join(needs) or "nothing"))
+        if spec.optional:
+            click.echo("  optional: " + ", ".join(spec.optional))
+        for param in spec.parameters.values():
+            limits = (f"choices {', '.join(param.choices)}" if param.choices
+                      else f"{param.minimum}..{param.maximum}")
+            unit = f" [{param.unit}]" if param.unit else ""
+            click.echo(f"  {param.name} = {param.default!r}{unit} ({limits})")
+        click.echo(f"  source:   {spec.reference}\n")
+
+
+def main() -> None:
+    """Console-script entry point."""
+    cli(prog_name="lakeloss")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,420 @@
+"""Typed, frozen run configuration, loaded from TOML (or a dict) and validated on load.
+
+Every key a user can write is declared here once, with its type; an unknown key is an error
+that suggests the nearest valid one, a wrong type names the key and the type expected.
+Physics parameters are checked against the method registry's documented ranges.
+
+Relative paths in a configuration are taken relative to the current working directory
+(where ``lakeloss`` is run), not to the configuration file.
+"""
+
+from __future__ import annotations
+
+import difflib
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from lakeloss.errors import ConfigError
+from lakeloss.glossary import ALIASES, QUANTITIES
+
+PERIODS = ("day", "month", "year")
+VOLUME_UNITS = {"ML": 1.0e-3, "acre_ft": 1.0 / 1233.48183754752}
+"""Extra volume units: factor from m3. 1 acre-foot = 1233.48183754752 m3 (exact by definition
+of the international foot and acre)."""
+
+# Parameters the pipeline itself owns; the rest belong to the physics registry.
+PIPELINE_PARAMETERS: dict[str, type] = {"clip_negative": bool}
+
+
+@dataclass(frozen=True)
+class WaterBodiesConfig:
+    """Where the water-body layer is and how to read it."""
+
+    path: Path
+    layer: str | None = None
+    id_field: str | None = None
+    group_by: tuple[str, ...] = ()
+    crs: str | None = None
+    elevation_field: str | None = None
+
+
+@dataclass(frozen=True)
+class ClimateInput:
+    """One climate variable: a config key of ``[climate]`` and where to read it.
+
+    ``key`` is what the user wrote (a CF standard name or alias); ``quantity`` is the
+    glossary name it becomes at ingest (``precipitation_flux`` -> ``precipitation``).
+    """
+
+    key: str
+    quantity: str
+    path: Path
+    format: str
+    variable: str | None = None
+    units: str | None = None
+    height_m: float | None = None
+    start: str | None = None
+    step: str | None = None
+    end: str | None = None
+    calendar: str = "standard"
+    crs: str | None = None
+
+
+@dataclass(frozen=True)
+class MethodConfig:
+    """The primary method and the methods computed beside it."""
+
+    name: str
+    compare: tuple[str, ...] = ()
+
+    @property
+    def all(self) -> tuple[str, ...]:
+        return (self.name, *[m for m in self.compare if m != self.name])
+
+
+@dataclass(frozen=True)
+class OutputConfig:
+    """Where results go and how they are aggregated."""
+
+    dir: Path
+    period: str = "month"
+    extra_volume_units: tuple[str, ...] = ()
+    series: bool = False
+    precipitation: bool = True
+
+
+@dataclass(frozen=True)
+class ComputeConfig:
+    """How the run is executed (issue-level details in the README)."""
+
+    chunk_steps: int = 0
+    workers: int = 0
+    scheduler: str | None = None
+    memory_limit: str = "auto"
+    cache_dir: Path | None = None
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    """The whole run, frozen. ``source`` keeps the configuration as written (for run.json)."""
+
+    waterbodies: WaterBodiesConfig
+    climate: tuple[ClimateInput, ...]
+    method: MethodConfig
+    parameters: Mapping[str, object]
+    output: OutputConfig
+    compute: ComputeConfig = field(default_factory=ComputeConfig)
+    strict: bool = True
+    source: Mapping[str, Any] = field(default_factory=dict)
+    config_path: Path | None = None
+
+    @property
+    def quantities(self) -> tuple[str, ...]:
+        """Glossary names of the configured climate inputs (time series only)."""
+        return tuple(c.quantity for c in self.climate if c.quantity != "elevation")
+
+    def with_overrides(self, **compute: object) -> RunConfig:
+        """A copy with ``[compute]`` settings replaced (used by the command line)."""
+        fields = {k: v for k, v in compute.items() if v is not None}
+        if not fields:
+            return self
+        new_compute = ComputeConfig(**{**self.compute.__dict__, **fields})
+        return RunConfig(**{**self.__dict__, "compute": new_compute})
+
+    def with_strict(self, strict: bool | None) -> RunConfig:
+        if strict is None:
+            return self
+        return RunConfig(**{**self.__dict__, "strict": strict})
+
+
+# --------------------------------------------------------------------------- schema helpers
+
+_SECTIONS = ("waterbodies", "climate", "method", "parameters", "output", "compute", "checks")
+_WATERBODY_KEYS = {
+    "path": str, "layer": str, "id_field": str, "group_by": list, "crs": str,
+    "elevation_field": str,
+}
+_CLIMATE_KEYS = {
+    "path": str, "variable": str, "units": str, "height_m": float, "format": str,
+    "start": str, "step": str, "end": str, "calendar": str, "crs": str,
+}
+_METHOD_KEYS = {"name": str, "compare": list}
+_OUTPUT_KEYS = {
+    "dir": str, "period": str, "extra_volume_units": list, "series": bool,
+    "precipitation": bool,
+}
+_COMPUTE_KEYS = {
+    "chunk_steps": int, "workers": int, "scheduler": str, "memory_limit": str,
+    "cache_dir": str,
+}
+_CHECKS_KEYS = {"strict": bool}
+_CLIMATE_NAMES = tuple(sorted({*QUANTITIES, *ALIASES}))
+
+
+def _suggest(word: str, valid: Any) -> str:
+    close = difflib.get_close_matches(word, list(valid), n=1, cutoff=0.6)
+    return f"; did you mean '{close[0]}'?" if close else ""
+
+
+def _check_keys(table: Mapping[str, Any], valid: Any, where: str) -> None:
+    for key in table:
+        if key not in valid:
+            raise ConfigError(
+                f"unknown key '{key}' in {where}{_suggest(key, valid)} "
+                f"(valid keys: {', '.join(sorted(valid))})"
+            )
+
+
+def _typed(table: Mapping[str, Any], schema: Mapping[str, type], where: str) -> dict[str, Any]:
+    """Check keys and types of one table; ints are accepted where floats are expected."""
+    _check_keys(table, schema, where)
+    out: dict[str, Any] = {}
+    for key, value in table.items():
+        expected = schema[key]
+        ok = isinstance(value, expected) and not (expected is int and isinstance(value, bool))
+        if expected is float and isinstance(value, int) and not isinstance(value, bool):
+            value, ok = float(value), True
+        if not ok:
+            raise ConfigError(
+                f"{where}.{key} must be a {expected.__name__}, got {type(value).__name__} "
+                f"{value!r}"
+            )
+        out[key] = value
+    return out
+
+
+def _table(raw: Mapping[str, Any], name: str, required: bool) -> Mapping[str, Any]:
+    value = raw.get(name)
+    if value is None:
+        if required:
+            raise ConfigError(f"the configuration has no [{name}] section; add it")
+        return {}
+    if not isinstance(value, Mapping):
+        raise ConfigError(f"[{name}] must be a table, got {type(value).__name__}")
+    return value
+
+
+def _require(table: Mapping[str, Any], key: str, where: str) -> Any:
+    if key not in table:
+        raise ConfigError(f"{where} has no '{key}'; add {key} = ... to it")
+    return table[key]
+
+
+def _str_list(values: list, where: str) -> tuple[str, ...]:
+    if not all(isinstance(v, str) for v in values):
+        raise ConfigError(f"{where} must be a list of strings, got {values!r}")
+    return tuple(values)
+
+
+# --------------------------------------------------------------------------- sections
+
+
+def _waterbodies(raw: Mapping[str, Any]) -> WaterBodiesConfig:
+    table = _typed(_table(raw, "waterbodies", True), _WATERBODY_KEYS, "[waterbodies]")
+    path = Path(_require(table, "path", "[waterbodies]"))
+    return WaterBodiesConfig(
+        path=path,
+        layer=table.get("layer"),
+        id_field=table.get("id_field"),
+        group_by=_str_list(table.get("group_by", []), "[waterbodies].group_by"),
+        crs=table.get("crs"),
+        elevation_field=table.get("elevation_field"),
+    )
+
+
+def _climate_format(path: Path, given: str | None, where: str) -> str:
+    if given is not None:
+        if given not in ("netcdf", "geotiff"):
+            raise ConfigError(f"{where}.format must be 'netcdf' or 'geotiff', got '{given}'")
+        return given
+    suffix = path.suffix.lower()
+    if suffix in (".nc", ".nc4", ".cdf", ".netcdf"):
+        return "netcdf"
+    if suffix in (".tif", ".tiff", ".gtiff"):
+        return "geotiff"
+    raise ConfigError(
+        f"{where}: cannot tell the format of '{path}' from its suffix; "
+        "add format = \"netcdf\" or format = \"geotiff\""
+    )
+
+
+def _climate_input(key: str, value: Any) -> ClimateInput:
+    where = f"[climate].{key}"
+    if not isinstance(value, Mapping):
+        raise ConfigError(
+            f"{where} must be a table such as {{ path = \"climate.nc\", variable = \"tas\" }}"
+        )
+    table = _typed(value, _CLIMATE_KEYS, where)
+    path = Path(_require(table, "path", where))
+    fmt = _climate_format(path, table.get("format"), where)
+    if fmt == "netcdf" and "variable" not in table:
+        raise ConfigError(f"{where} reads a NetCDF file and needs variable = \"<name in file>\"")
+    if fmt == "geotiff" and key != "elevation":
+        for needed in ("start", "step"):
+            if needed not in table:
+                raise ConfigError(
+                    f"{where} reads a GeoTIFF stack and needs {needed} = ... "
+                    "(band dates come from start and step)"
+                )
+        if table["step"] not in ("day", "month"):
+            raise ConfigError(f"{where}.step must be 'day' or 'month', got '{table['step']}'")
+    if "height_m" in table and key != "wind_speed":
+        raise ConfigError(f"{where}.height_m only applies to wind_speed")
+    if "height_m" in table and not 0.5 <= table["height_m"] <= 100.0:
+        raise ConfigError(f"{where}.height_m = {table['height_m']} is outside 0.5..100 m")
+    return ClimateInput(
+        key=key,
+        quantity=ALIASES.get(key, key),
+        path=path,
+        format=fmt,
+        variable=table.get("variable"),
+        units=table.get("units"),
+        height_m=table.get("height_m"),
+        start=table.get("start"),
+        step=table.get("step"),
+        end=table.get("end"),
+        calendar=table.get("calendar", "standard"),
+        crs=table.get("crs"),
+    )
+
+
+def _climate(raw: Mapping[str, Any]) -> tuple[ClimateInput, ...]:
+    table = _table(raw, "climate", True)
+    _check_keys(table, _CLIMATE_NAMES, "[climate]")
+    inputs = tuple(_climate_input(key, value) for key, value in table.items())
+    seen: dict[str, str] = {}
+    for item in inputs:
+        if item.quantity in seen:
+            raise ConfigError(
+                f"[climate] gives {item.quantity} twice ('{seen[item.quantity]}' and "
+                f"'{item.key}'); keep one"
+            )
+        seen[item.quantity] = item.key
+    if not any(i.quantity != "elevation" for i in inputs):
+        raise ConfigError("[climate] lists no climate variable; add at least one")
+    return inputs
+
+
+def _method(raw: Mapping[str, Any]) -> MethodConfig:
+    from lakeloss.physics import registry
+
+    table = _typed(_table(raw, "method", True), _METHOD_KEYS, "[method]")
+    name = _require(table, "name", "[method]")
+    compare = _str_list(table.get("compare", []), "[method].compare")
+    for method in (name, *compare):
+        registry.get(method)  # raises UnknownMethodError listing the valid names
+    return MethodConfig(name=name, compare=compare)
+
+
+def _parameters(raw: Mapping[str, Any], climate: tuple[ClimateInput, ...],
+                method: MethodConfig) -> dict[str, object]:
+    from lakeloss.physics import registry
+
+    table = dict(_table(raw, "parameters", False))
+    specs = registry.parameter_specs()
+    _check_keys(table, {*specs, *PIPELINE_PARAMETERS}, "[parameters]")
+    pipeline = _typed({k: table.pop(k) for k in list(table) if k in PIPELINE_PARAMETERS},
+                      PIPELINE_PARAMETERS, "[parameters]")
+    wind = next((c for c in climate if c.quantity == "wind_speed"), None)
+    if wind is not None and wind.height_m is not None:
+        if "wind_height_m" in table and float(table["wind_height_m"]) != wind.height_m:
+            raise ConfigError(
+                "[parameters].wind_height_m disagrees with [climate].wind_speed.height_m; "
+                "give the height once"
+            )
+        table["wind_height_m"] = wind.height_m
+    for name in method.all:
+        registry.validate_parameters(name, table)  # ParameterRangeError names the parameter
+    return {"clip_negative": pipeline.get("clip_negative", True), **table}
+
+
+def _output(raw: Mapping[str, Any]) -> OutputConfig:
+    table = _typed(_table(raw, "output", True), _OUTPUT_KEYS, "[output]")
+    period = table.get("period", "month")
+    if period not in PERIODS:
+        raise ConfigError(f"[output].period must be one of {', '.join(PERIODS)}, got '{period}'")
+    units = _str_list(table.get("extra_volume_units", []), "[output].extra_volume_units")
+    for unit in units:
+        if unit not in VOLUME_UNITS:
+            raise ConfigError(
+                f"[output].extra_volume_units: unknown unit '{unit}'{_suggest(unit, VOLUME_UNITS)}"
+                f" (valid: {', '.join(VOLUME_UNITS)})"
+            )
+    return OutputConfig(
+        dir=Path(_require(table, "dir", "[output]")),
+        period=period,
+        extra_volume_units=units,
+        series=table.get("series", False),
+        precipitation=table.get("precipitation", True),
+    )
+
+
+def _compute(raw: Mapping[str, Any]) -> ComputeConfig:
+    table = _typed(_table(raw, "compute", False), _COMPUTE_KEYS, "[compute]")
+    if table.get("chunk_steps", 0) < 0:
+        raise ConfigError("[compute].chunk_steps must be 0 (automatic) or a positive number")
+    if table.get("workers", 0) < 0:
+        raise ConfigError("[compute].workers must be 0 (no cluster) or a positive number")
+    cache = table.pop("cache_dir", None)
+    return ComputeConfig(**table, cache_dir=Path(cache) if cache else None)
+
+
+def _check_precipitation(climate: tuple[ClimateInput, ...], output: OutputConfig) -> None:
+    has_rain = any(c.quantity == "precipitation" for c in climate)
+    if output.precipitation and not has_rain:
+        raise ConfigError(
+            "no precipitation input: add precipitation_flux or precipitation_amount to "
+            "[climate], or set [output] precipitation = false to report gross evaporation only"
+        )
+
+
+def config_from_mapping(raw: Mapping[str, Any], config_path: Path | None = None) -> RunConfig:
+    """Validate a configuration given as a nested mapping (the parsed TOML)."""
+    _check_keys(raw, _SECTIONS, "the configuration")
+    climate = _climate(raw)
+    method = _method(raw)
+    output = _output(raw)
+    _check_precipitation(climate, output)
+    checks = _typed(_table(raw, "checks", False), _CHECKS_KEYS, "[checks]")
+    return RunConfig(
+        waterbodies=_waterbodies(raw),
+        climate=climate,
+        method=method,
+        parameters=_parameters(raw, climate, method),
+        output=output,
+        compute=_compute(raw),
+        strict=checks.get("strict", True),
+        source=raw,
+        config_path=config_path,
+    )
+
+
+def load_config(config: str | Path | Mapping[str, Any] | RunConfig) -> RunConfig:
+    """Load and validate a run configuration.
+
+    Parameters
+    ----------
+    config : path, mapping or RunConfig
+        A TOML file, an already parsed mapping with the same structure, or a config object
+        (returned unchanged).
+
+    Raises
+    ------
+    ConfigError
+        The file is missing or not TOML, or a key, type or value is wrong.
+    """
+    if isinstance(config, RunConfig):
+        return config
+    if isinstance(config, Mapping):
+        return config_from_mapping(config)
+    path = Path(config)
+    if not path.is_file():
+        raise ConfigError(f"configuration file '{path}' does not exist or is not a file")
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
+        raise ConfigError(f"configuration file '{path}' is not valid TOML: {err}") from err
+    return config_from_mapping(raw, config_path=path)

@@ -1,0 +1,57 @@
+"""Write a run's result as the documented set of output files, all or nothing.
+
+Files (the names are a contract other tools rely on; see README, "Outputs"):
+``waterbodies.gpkg`` (layer ``waterbodies`` and table ``evaporation_by_period``),
+``summary_by_waterbody.csv``, ``summary_by_period.csv``, ``summary_by_group.csv`` (with
+``group_by``), ``series.nc`` (with ``[output] series = true``) and ``run.json``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from lakeloss.io.atomic import OutputDirectory
+from lakeloss.io.gpkg import write_geopackage
+from lakeloss.io.tables import write_csv, write_json
+
+_DECIMALS = {"area_m2": 1, "evap_mm": 3, "evap_m3": 3, "evap_mm_per_year": 2, "precip_mm": 3,
+             "net_mm": 3, "net_m3": 3, "climate_coverage": 4, "precip_m3": 3}
+
+
+def _decimals(columns: Any) -> dict[str, int]:
+    out = {c: d for c, d in _DECIMALS.items() if c in columns}
+    for column in columns:
+        if column.startswith("evap_mm_"):
+            out[column] = 3
+        elif column.startswith(("evap_", "net_")) and column not in out:
+            out[column] = 6
+    return out
+
+
+def _body_csv(result: Any) -> Any:
+    table = result.waterbodies.drop(columns=result.waterbodies.geometry.name)
+    columns = [result.id_field] + [c for c in table.columns if c != result.id_field]
+    return table[columns].sort_values(["loss_rank"], kind="stable")
+
+
+def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
+    """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``."""
+    with OutputDirectory(target, overwrite=overwrite) as staging:
+        write_geopackage(
+            staging / "waterbodies.gpkg",
+            [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
+            fields=result.field_info,
+            metadata=result.provenance,
+        )
+        body = _body_csv(result)
+        write_csv(staging / "summary_by_waterbody.csv", body, decimals=_decimals(body.columns))
+        write_csv(staging / "summary_by_period.csv", result.summary_by_period,
+                  decimals=_decimals(result.summary_by_period.columns))
+        if result.summary_by_group is not None:
+            write_csv(staging / "summary_by_group.csv", result.summary_by_group,
+                      decimals=_decimals(result.summary_by_group.columns))
+        if result.series is not None:
+            result.series.to_netcdf(staging / "series.nc", engine="netcdf4")
+        write_json(staging / "run.json", result.provenance)
+    return Path(target)

@@ -1,0 +1,441 @@
+"""The batch run as named stages.
+
+    load -> weights -> extract -> evaporate -> aggregate -> (write, in results.py)
+
+``load`` asks ``io/`` for the water-body layer and lazy climate fields; ``weights`` builds
+(or loads from the cache) one sparse weight matrix per distinct climate grid; ``extract`` and
+``evaporate`` run block by block along time: each block of every variable is read, turned
+into (time, water body) area-weighted means, fed to the physics methods and summed into the
+reporting periods, so neither the (time, y, x) cube nor the (time, water body) result is ever
+held whole. ``aggregate`` turns the period sums into the result tables.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+import warnings
+from collections.abc import Callable, Iterator, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from lakeloss import timeaxis
+from lakeloss.config import RunConfig, load_config
+from lakeloss.errors import (
+    ConfigError,
+    GridError,
+    ImplausibleValuesError,
+    LakelossWarning,
+    MissingInputError,
+    ValuesAdjustedWarning,
+)
+from lakeloss.io import climate as climate_io
+from lakeloss.io import vector as vector_io
+from lakeloss.physics import registry
+from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights
+
+log = logging.getLogger(__name__)
+
+# Bytes of (time, water body) float64 working arrays held per step of a block: the climate
+# means, their valid fractions, the physics intermediates and one rate per method. A rough
+# but deliberately generous count, used to size blocks.
+_WORKING_ARRAYS = 24
+_BLOCK_BUDGET_BYTES = 1.5e9
+
+
+@dataclass
+class Inputs:
+    """What the load stage found: the layer, the lazy climate fields and the time axis."""
+
+    layer: vector_io.WaterBodyLayer
+    fields: dict[str, climate_io.ClimateField]
+    axis: timeaxis.TimeAxis
+    periods: timeaxis.Periods
+    grids: dict[str, GridSpec]
+    field_grid: dict[str, str]
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def n_waterbodies(self) -> int:
+        return len(self.layer.frame)
+
+
+@dataclass
+class PeriodSums:
+    """Running sums per (period, water body), accumulated block by block."""
+
+    depth: dict[str, np.ndarray]
+    precip: np.ndarray
+    valid_steps: np.ndarray
+    coverage_sum: np.ndarray
+    negatives: dict[str, int]
+    negatives_per_body: np.ndarray
+    steps: int = 0
+
+
+@dataclass
+class Timer:
+    """Wall time of each named stage, in seconds, for run.json."""
+
+    seconds: dict[str, float] = field(default_factory=dict)
+
+    def stage(self, name: str) -> _Stage:
+        return _Stage(self, name)
+
+
+class _Stage:
+    def __init__(self, timer: Timer, name: str) -> None:
+        self.timer, self.name = timer, name
+
+    def __enter__(self) -> None:
+        self.start = time.perf_counter()
+        log.info("stage %s ...", self.name)
+
+    def __exit__(self, *exc: object) -> None:
+        elapsed = time.perf_counter() - self.start
+        self.timer.seconds[self.name] = self.timer.seconds.get(self.name, 0.0) + elapsed
+
+
+# --------------------------------------------------------------------------- load
+
+
+def _open_field(item: Any, step_hint: str | None = None) -> climate_io.ClimateField:
+    if item.format == "netcdf":
+        return climate_io.open_netcdf(
+            item.path, item.variable, item.key, units=item.units, crs=item.crs
+        )
+    return climate_io.open_geotiff_stack(
+        item.path, item.key, start=item.start, step=item.step, units=item.units,
+        calendar=item.calendar, crs=item.crs, end=item.end,
+    )
+
+
+def _check_methods(config: RunConfig) -> None:
+    available = set(config.quantities) | {"latitude", "day_of_year", "area_m2", "elevation"}
+    if {"eastward_wind", "northward_wind"} <= available:
+        available.add("wind_speed")
+    for name in config.method.all:
+        missing = registry.missing_inputs(name, available)
+        if missing:
+            given = ", ".join(sorted(config.quantities)) or "nothing"
+            raise MissingInputError(
+                f"method '{name}' needs {'; '.join(missing)} in [climate], but the "
+                f"configuration gives only: {given}"
+            )
+
+
+def _grid_of(item: climate_io.ClimateField) -> GridSpec:
+    if item.transform is not None:
+        return GridSpec.from_transform(item.transform, len(item.x), len(item.y), item.crs)
+    return GridSpec.from_centres(item.x, item.y, item.crs)
+
+
+def load_inputs(config: RunConfig) -> Inputs:
+    """Read the layer, open every climate field lazily, and join their time axes."""
+    _check_methods(config)
+    wb = config.waterbodies
+    layer = vector_io.read_waterbodies(wb.path, layer=wb.layer, id_field=wb.id_field, crs=wb.crs)
+    _check_attributes(config, layer)
+    caught: list[str] = []
+    fields: dict[str, climate_io.ClimateField] = {}
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always", LakelossWarning)
+        for item in config.climate:
+            if item.quantity == "elevation":
+                continue
+            fields[item.quantity] = _open_field(item)
+    caught.extend(str(w.message) for w in seen if issubclass(w.category, LakelossWarning))
+    axis = timeaxis.require_identical({q: timeaxis.from_times(f.times, f.calendar)
+                                       for q, f in fields.items()})
+    if config.output.period == "day" and axis.step == "month":
+        raise ConfigError("[output].period = 'day' needs daily climate; these inputs are monthly")
+    grids: dict[str, GridSpec] = {}
+    field_grid: dict[str, str] = {}
+    for quantity, item in fields.items():
+        grid = _grid_of(item)
+        grids.setdefault(grid.key(), grid)
+        field_grid[quantity] = grid.key()
+    _check_wind_grids(fields, field_grid)
+    return Inputs(
+        layer=layer, fields=fields, axis=axis,
+        periods=timeaxis.periods(axis, config.output.period),
+        grids=grids, field_grid=field_grid, warnings=caught,
+    )
+
+
+def _check_attributes(config: RunConfig, layer: vector_io.WaterBodyLayer) -> None:
+    columns = list(layer.frame.columns)
+    wanted = list(config.waterbodies.group_by)
+    if config.waterbodies.elevation_field:
+        wanted.append(config.waterbodies.elevation_field)
+    for name in wanted:
+        if name not in columns:
+            raise ConfigError(
+                f"[waterbodies] names attribute '{name}', which the layer does not have "
+                f"(attributes: {', '.join(c for c in columns if c != 'geometry')})"
+            )
+
+
+def _check_wind_grids(fields: Mapping[str, Any], field_grid: Mapping[str, str]) -> None:
+    if "wind_speed" not in fields and {"eastward_wind", "northward_wind"} <= set(fields):
+        if field_grid["eastward_wind"] != field_grid["northward_wind"]:
+            raise GridError("eastward_wind and northward_wind must be on the same grid")
+
+
+def check_values(config: RunConfig, inputs: Inputs) -> list[str]:
+    """Scan every climate field for values that contradict their units.
+
+    Strict runs raise :class:`ImplausibleValuesError`; lenient runs return the reasons,
+    which become warnings in run.json.
+    """
+    reasons = []
+    for item in inputs.fields.values():
+        reason = climate_io.check_values(item, strict=config.strict)
+        if reason:
+            reasons.append(reason)
+    return reasons
+
+
+# --------------------------------------------------------------------------- weights
+
+
+def default_cache_dir() -> Any:
+    import os
+    from pathlib import Path
+
+    root = os.environ.get("LAKELOSS_CACHE_DIR") or os.environ.get("XDG_CACHE_HOME")
+    base = Path(root) if root else Path.home() / ".cache"
+    return base if os.environ.get("LAKELOSS_CACHE_DIR") else base / "lakeloss"
+
+
+def build_weights(config: RunConfig, inputs: Inputs) -> tuple[dict[str, ZonalWeights], bool]:
+    """One weight matrix per distinct climate grid, from the cache where possible."""
+    cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
+    out: dict[str, ZonalWeights] = {}
+    all_cached = True
+    for key, grid in inputs.grids.items():
+        out[key], cached = cache.get_or_build(inputs.layer.frame, grid)
+        all_cached &= cached
+    return out, all_cached
+
+
+# --------------------------------------------------------------------------- extract + evaporate
+
+
+def block_steps(config: RunConfig, inputs: Inputs) -> int:
+    """Time steps per block: from the config, or sized so a block fits the memory budget."""
+    if config.compute.chunk_steps:
+        return config.compute.chunk_steps
+    n = max(inputs.n_waterbodies, 1)
+    cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
+    per_step = 8.0 * (n * (_WORKING_ARRAYS + 2 * len(config.method.all))
+                      + cells * len(inputs.fields))
+    return int(np.clip(_BLOCK_BUDGET_BYTES // per_step, 1, 366))
+
+
+def iter_blocks(n_steps: int, steps: int) -> Iterator[slice]:
+    for start in range(0, n_steps, steps):
+        yield slice(start, min(start + steps, n_steps))
+
+
+def _static_inputs(config: RunConfig, inputs: Inputs,
+                   weights: Mapping[str, ZonalWeights]) -> dict[str, np.ndarray]:
+    """Per-water-body inputs of the physics: latitude, area and elevation, shaped (1, n)."""
+    first = next(iter(weights.values()))
+    static = {
+        "latitude": first.centroid_lat[np.newaxis, :],
+        "area_m2": first.polygon_area_m2[np.newaxis, :],
+    }
+    field_name = config.waterbodies.elevation_field
+    if field_name:
+        values = inputs.layer.frame[field_name].to_numpy(dtype=float)
+        if not np.isfinite(values).all():
+            raise ConfigError(
+                f"elevation attribute '{field_name}' has {int((~np.isfinite(values)).sum())} "
+                "empty or non-numeric values; fill them or use [parameters] elevation_m"
+            )
+        static["elevation"] = values[np.newaxis, :]
+    return static
+
+
+def extract_block(inputs: Inputs, weights: Mapping[str, ZonalWeights],
+                  block: slice) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """Area-weighted means of every variable for one block of time steps.
+
+    Returns the means, shape (time, water body), by glossary name, and the smallest
+    valid-area fraction over the variables (the share of each body with valid climate).
+    """
+    means: dict[str, np.ndarray] = {}
+    valid_min: np.ndarray | None = None
+    grids = _grid_values(inputs, block)
+    for quantity, values in grids.items():
+        mean, valid = weights[inputs.field_grid[quantity]].apply(values)
+        means[quantity] = mean
+        valid_min = valid if valid_min is None else np.minimum(valid_min, valid)
+    assert valid_min is not None  # load_inputs guarantees at least one field
+    return means, valid_min
+
+
+def _grid_values(inputs: Inputs, block: slice) -> dict[str, np.ndarray]:
+    values = {q: np.asarray(f.data.isel(time=block).values, dtype=np.float64)
+              for q, f in inputs.fields.items()}
+    if "wind_speed" not in values and {"eastward_wind", "northward_wind"} <= set(values):
+        # Speed from components on the grid, before averaging: the mean of the speed is
+        # what the wind functions want, not the speed of the mean vector.
+        values["wind_speed"] = np.hypot(values.pop("eastward_wind"),
+                                        values.pop("northward_wind"))
+        inputs.field_grid.setdefault("wind_speed", inputs.field_grid["eastward_wind"])
+    return values
+
+
+def evaporate_block(config: RunConfig, means: Mapping[str, np.ndarray],
+                    static: Mapping[str, np.ndarray],
+                    day_of_year: np.ndarray) -> dict[str, np.ndarray]:
+    """Evaporation rate [mm day-1] of every configured method for one block."""
+    physics_inputs: dict[str, Any] = {**means, **static,
+                                      "day_of_year": day_of_year[:, np.newaxis]}
+    physics_inputs.pop("precipitation", None)
+    params = {k: v for k, v in config.parameters.items() if k != "clip_negative"}
+    rates = {}
+    for name in config.method.all:
+        method_params = {k: v for k, v in params.items() if k in registry.get(name).parameters}
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rate = np.asarray(registry.evaporate(name, physics_inputs, method_params),
+                              dtype=np.float64)
+        rates[name] = np.broadcast_to(rate, next(iter(means.values())).shape)
+    return rates
+
+
+def _segment_sums(values: np.ndarray, period_index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sums over runs of equal period index along axis 0 (the index is non-decreasing)."""
+    starts = np.flatnonzero(np.r_[True, period_index[1:] != period_index[:-1]])
+    return period_index[starts], np.add.reduceat(values, starts, axis=0)
+
+
+def accumulate_block(sums: PeriodSums, config: RunConfig, rates: Mapping[str, np.ndarray],
+                     precip: np.ndarray | None, valid: np.ndarray, days: np.ndarray,
+                     period_index: np.ndarray) -> None:
+    """Add one block's depths [mm] into the running period sums."""
+    clip = bool(config.parameters.get("clip_negative", True))
+    for name, rate in rates.items():
+        negative = rate < 0
+        count = int(negative.sum())
+        sums.negatives[name] = sums.negatives.get(name, 0) + count
+        if name == config.method.name:
+            sums.negatives_per_body += negative.sum(axis=0)
+        if clip and count:
+            rate = np.where(negative, 0.0, rate)
+        periods, depth = _segment_sums(rate * days[:, None], period_index)
+        sums.depth[name][periods] += depth
+    if precip is not None:
+        periods, depth = _segment_sums(precip * days[:, None], period_index)
+        sums.precip[periods] += depth
+    primary = rates[config.method.name]
+    periods, count = _segment_sums(np.isfinite(primary).astype(np.int64), period_index)
+    sums.valid_steps[periods] += count
+    sums.coverage_sum += valid.sum(axis=0)
+    sums.steps += len(days)
+
+
+def new_sums(config: RunConfig, n_periods: int, n: int) -> PeriodSums:
+    return PeriodSums(
+        depth={m: np.zeros((n_periods, n)) for m in config.method.all},
+        precip=np.zeros((n_periods, n)),
+        valid_steps=np.zeros((n_periods, n), dtype=np.int64),
+        coverage_sum=np.zeros(n),
+        negatives={},
+        negatives_per_body=np.zeros(n, dtype=np.int64),
+    )
+
+
+ProgressFactory = Callable[[int, str], Any]
+
+
+def compute_sums(config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights],
+                 progress: ProgressFactory | None = None,
+                 series_sink: Callable[[slice, dict[str, np.ndarray]], None] | None = None,
+                 ) -> PeriodSums:
+    """Extract, evaporate and accumulate every block of the run, in time order."""
+    axis, periods = inputs.axis, inputs.periods
+    static = _static_inputs(config, inputs, weights)
+    sums = new_sums(config, len(periods.starts), inputs.n_waterbodies)
+    steps = block_steps(config, inputs)
+    bar = progress(len(axis.days), "evaporation") if progress else None
+    for block in iter_blocks(len(axis.days), steps):
+        means, valid = extract_block(inputs, weights, block)
+        rates = evaporate_block(config, means, static, axis.day_of_year[block])
+        precip = means.get("precipitation")
+        accumulate_block(sums, config, rates, precip, valid, axis.days[block],
+                         periods.index[block])
+        if series_sink is not None:
+            series_sink(block, {"evaporation_rate": rates[config.method.name],
+                                **({"precipitation_rate": precip} if precip is not None else {})})
+        if bar is not None:
+            bar.update(block.stop - block.start)
+    if bar is not None:
+        bar.close()
+    return sums
+
+
+def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
+    total = sum(sums.negatives.values())
+    if not total:
+        return None
+    verb = "set to zero" if config.parameters.get("clip_negative", True) else "kept"
+    detail = ", ".join(f"{m}: {c}" for m, c in sums.negatives.items() if c)
+    message = (f"{total} negative daily evaporation rates (condensation or negative net "
+               f"radiation) were {verb} ({detail})")
+    warnings.warn(message, ValuesAdjustedWarning, stacklevel=2)
+    return message
+
+
+def run_stages(config: RunConfig | Any, *, progress: ProgressFactory | None = None,
+               series: bool | None = None) -> Any:
+    """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
+    from lakeloss.results import assemble
+
+    config = load_config(config)
+    timer = Timer()
+    with timer.stage("load"):
+        inputs = load_inputs(config)
+        value_warnings = check_values(config, inputs)
+    with timer.stage("weights"):
+        weights, cached = build_weights(config, inputs)
+    keep_series = config.output.series if series is None else series
+    collector = SeriesCollector(inputs) if keep_series else None
+    with timer.stage("evaporate"):
+        sums = compute_sums(config, inputs, weights, progress,
+                            collector.add if collector else None)
+    with timer.stage("aggregate"):
+        run_warnings = [*inputs.warnings, *value_warnings]
+        message = negative_warning(config, sums)
+        if message:
+            run_warnings.append(message)
+        result = assemble(config, inputs, weights, sums, run_warnings, timer.seconds,
+                          series=collector.dataset() if collector else None,
+                          weights_cached=cached)
+    return result
+
+
+class SeriesCollector:
+    """Keeps per-step rates in memory for the result's xarray Dataset."""
+
+    def __init__(self, inputs: Inputs) -> None:
+        self.inputs = inputs
+        self.blocks: dict[str, list[np.ndarray]] = {}
+
+    def add(self, block: slice, values: Mapping[str, np.ndarray]) -> None:
+        for name, value in values.items():
+            self.blocks.setdefault(name, []).append(np.asarray(value, dtype=np.float32))
+
+    def dataset(self) -> Any:
+        from lakeloss.results import series_dataset
+
+        arrays = {k: np.concatenate(v, axis=0) for k, v in self.blocks.items()}
+        return series_dataset(self.inputs, arrays)
+
+
+def plausibility_error(reason: str) -> ImplausibleValuesError:
+    return ImplausibleValuesError(reason)

@@ -1,0 +1,119 @@
+"""``lakeloss check``: validate every input and describe the run without computing it.
+
+Everything that can be known before the heavy stages is checked here, with the same errors
+a run would raise: the layer (CRS, geometry types, ids), every climate field (units, CRS,
+time axis, values against their units), that the layer overlaps each grid, and that the
+methods have their inputs. The memory and time figures are rough, order-of-magnitude
+estimates from this project's own benchmarks (benchmarks/README.md), not promises.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from pyproj import Transformer
+
+from lakeloss.config import RunConfig
+from lakeloss.errors import GridError
+from lakeloss.pipeline import Inputs, block_steps, check_values, load_inputs
+
+# Seconds per unit of work, measured on the 2-core reference machine (benchmarks/README.md).
+_SECONDS_PER_POLYGON = 16e-6        # reprojection + weights build
+_SECONDS_PER_VALUE_APPLY = 1.2e-9   # one water body x one step x one variable
+_SECONDS_PER_VALUE_METHOD = 8e-8    # one water body x one step x one method (physics)
+_SECONDS_PER_TABLE_ROW = 4e-6       # one row of evaporation_by_period written
+
+
+@dataclass
+class Plan:
+    """What a run would do, with rough costs."""
+
+    config: RunConfig
+    inputs: Inputs
+    steps_per_block: int
+    memory_bytes: float
+    seconds: float
+    value_warnings: list[str] = field(default_factory=list)
+
+    def describe(self) -> str:
+        inputs, config = self.inputs, self.config
+        lines = [
+            f"water bodies : {inputs.n_waterbodies} from {config.waterbodies.path} "
+            f"(id field '{inputs.layer.id_field}', CRS {inputs.layer.frame.crs.to_string()})",
+            f"time axis    : {inputs.axis.describe()}",
+            f"periods      : {len(inputs.periods.starts)} x {config.output.period}",
+            f"method       : {config.method.name}"
+            + (f" (compared with {', '.join(config.method.compare)})"
+               if config.method.compare else ""),
+        ]
+        for quantity, item in inputs.fields.items():
+            grid = inputs.grids[inputs.field_grid[quantity]]
+            lines.append(
+                f"climate      : {quantity} <- {item.source_path}:{item.variable} "
+                f"[{item.source_units}] grid {grid.shape[1]} x {grid.shape[0]} "
+                f"({grid.crs.to_string()})"
+            )
+        lines += [
+            f"blocks       : {self.steps_per_block} time steps per block"
+            " (set [compute] chunk_steps or --chunk-steps to change)",
+            f"memory       : about {self.memory_bytes / 2**30:.2f} GiB peak (rough estimate)",
+            f"time         : about {self.seconds:.0f} s on a 2-core machine (rough estimate)",
+        ]
+        lines += [f"warning      : {w}" for w in [*inputs.warnings, *self.value_warnings]]
+        lines.append("all inputs checked: ready to run")
+        return "\n".join(lines)
+
+
+def _check_overlap(inputs: Inputs) -> None:
+    """Refuse a layer whose bounding box misses a climate grid entirely."""
+    frame = inputs.layer.frame
+    nonempty = frame.geometry[~frame.geometry.is_empty]
+    if nonempty.empty:
+        return
+    bounds = nonempty.total_bounds
+    for grid in inputs.grids.values():
+        transformer = Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
+        x0, y0, x1, y1 = transformer.transform_bounds(*bounds, densify_pts=21)
+        gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))
+        gy0, gy1 = float(np.min(grid.y_edges)), float(np.max(grid.y_edges))
+        if grid.is_geographic and gx1 > 180.0 and x1 < 0.0:
+            x0, x1 = x0 + 360.0, x1 + 360.0
+        if x1 < gx0 or x0 > gx1 or y1 < gy0 or y0 > gy1:
+            raise GridError(
+                f"the water-body layer (bounds {x0:.4f}, {y0:.4f}, {x1:.4f}, {y1:.4f} in the "
+                f"grid CRS) does not overlap the climate grid ({gx0:.4f}, {gy0:.4f}, "
+                f"{gx1:.4f}, {gy1:.4f}); check both CRSs and the file paths"
+            )
+
+
+def _memory(config: RunConfig, inputs: Inputs, steps: int) -> float:
+    n = inputs.n_waterbodies
+    n_periods = len(inputs.periods.starts)
+    cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
+    layer = n * 1500.0                                  # geometries and attributes
+    weights = n * 1.5 * 12.0 * 3                        # nnz ~ 1.5 per body; build overhead x3
+    sums = n_periods * n * 8.0 * (len(config.method.all) + 2)
+    block = steps * 8.0 * (n * 24 + cells * len(inputs.fields))
+    tables = n_periods * n * 120.0                      # evaporation_by_period in pandas
+    return layer + weights + sums + block + tables
+
+
+def _seconds(config: RunConfig, inputs: Inputs) -> float:
+    n = inputs.n_waterbodies
+    steps = len(inputs.axis.days)
+    return (n * _SECONDS_PER_POLYGON
+            + n * steps * len(inputs.fields) * _SECONDS_PER_VALUE_APPLY
+            + n * steps * len(config.method.all) * _SECONDS_PER_VALUE_METHOD
+            + n * len(inputs.periods.starts) * _SECONDS_PER_TABLE_ROW)
+
+
+def make_plan(config: RunConfig) -> Plan:
+    """Check every input of ``config`` and return the plan (raises the run's errors)."""
+    inputs = load_inputs(config)
+    _check_overlap(inputs)
+    value_warnings = check_values(config, inputs)
+    steps = block_steps(config, inputs)
+    return Plan(config=config, inputs=inputs, steps_per_block=steps,
+                memory_bytes=_memory(config, inputs, steps), seconds=_seconds(config, inputs),
+                value_warnings=value_warnings)

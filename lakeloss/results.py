@@ -1,0 +1,326 @@
+"""The result of a run: tables with documented columns and units, and how they are written.
+
+:func:`assemble` turns the pipeline's period sums into a :class:`RunResult`;
+:meth:`RunResult.write` writes it atomically through ``io/``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib.metadata
+import platform
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from lakeloss import __version__
+from lakeloss.config import VOLUME_UNITS, RunConfig
+from lakeloss.io.gpkg import FieldInfo
+
+CAUTION = (
+    "Estimates for screening and water accounting only; not for design, licensing, "
+    "allocation or dam-safety decisions. Defer to local codes, the regulator and licensed "
+    "professional practice."
+)
+
+# Result columns of the water-body layer: title, description, unit.
+_BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
+    "area_m2": ("Water-surface area", "true (ellipsoidal) area of the polygon", "m2"),
+    "evap_mm": ("Evaporation depth", "open-water evaporation over the whole run, primary method",
+                "mm"),
+    "evap_m3": ("Evaporation volume", "evap_mm times area_m2", "m3"),
+    "evap_mm_per_year": ("Annual evaporation", "evap_mm scaled to one calendar year", "mm/yr"),
+    "precip_mm": ("Rain on the surface", "precipitation depth over the whole run", "mm"),
+    "net_mm": ("Net loss depth", "evap_mm minus precip_mm (negative: net gain)", "mm"),
+    "net_m3": ("Net loss volume", "net_mm times area_m2", "m3"),
+    "climate_coverage": ("Climate coverage", "share of the polygon with valid climate data, "
+                         "averaged over time", "1"),
+    "loss_rank": ("Loss rank", "rank by evap_m3, 1 = largest loss", None),
+    "qa_flags": ("QA flags", "';'-separated quality flags, empty when clean "
+                 "(see README, 'When inputs are wrong')", None),
+}
+_PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
+    "period_start": ("Period start", "first day of the period (ISO date)", None),
+    "period_end": ("Period end", "last day of the period, inclusive (ISO date)", None),
+    "days": ("Days", "days of climate data in the period", "d"),
+    "evap_mm": _BODY_FIELDS["evap_mm"],
+    "evap_m3": _BODY_FIELDS["evap_m3"],
+    "precip_mm": _BODY_FIELDS["precip_mm"],
+    "net_mm": _BODY_FIELDS["net_mm"],
+    "net_m3": _BODY_FIELDS["net_m3"],
+}
+_DECIMALS = {"area_m2": 1, "evap_mm": 3, "evap_m3": 3, "evap_mm_per_year": 2, "precip_mm": 3,
+             "net_mm": 3, "net_m3": 3, "climate_coverage": 4, "precip_m3": 3, "days": 0}
+
+
+@dataclass
+class RunResult:
+    """Everything a run produced, in memory.
+
+    Attributes
+    ----------
+    waterbodies : geopandas.GeoDataFrame
+        The layer with its original attributes plus the result columns (see README).
+    by_period : pandas.DataFrame
+        One row per water body and period (table ``evaporation_by_period``).
+    summary_by_period : pandas.DataFrame
+        Totals over all water bodies per period.
+    summary_by_group : pandas.DataFrame or None
+        Totals per ``group_by`` attribute value and period.
+    series : xarray.Dataset or None
+        Per-step rates (waterbody x time) when ``[output] series = true``.
+    provenance : dict
+        Config, inputs with sha256, versions, counts, warnings and timings (run.json).
+    """
+
+    waterbodies: Any
+    by_period: pd.DataFrame
+    summary_by_period: pd.DataFrame
+    summary_by_group: pd.DataFrame | None
+    series: Any
+    provenance: dict[str, Any]
+    config: RunConfig
+    id_field: str
+    field_info: dict[str, dict[str, FieldInfo]] = field(default_factory=dict)
+
+    def write(self, directory: str | Path | None = None, *, overwrite: bool = False) -> Path:
+        """Write every output file into ``directory`` (default ``[output] dir``), atomically."""
+        from lakeloss.io.write_run import write_result
+
+        target = Path(directory) if directory is not None else self.config.output.dir
+        return write_result(self, target, overwrite=overwrite)
+
+
+def _sha256(path: Path) -> str | None:
+    digest = hashlib.sha256()
+    try:
+        with open(path, "rb") as handle:
+            for chunk in iter(lambda: handle.read(1 << 20), b""):
+                digest.update(chunk)
+    except OSError:
+        return None
+    return digest.hexdigest()
+
+
+def _versions() -> dict[str, str]:
+    names = ["lakeloss", "numpy", "scipy", "pandas", "geopandas", "shapely", "pyogrio", "pyproj",
+             "rasterio", "xarray", "netCDF4", "pint", "dask"]
+    out = {}
+    for name in names:
+        try:
+            out[name] = importlib.metadata.version(name)
+        except importlib.metadata.PackageNotFoundError:
+            out[name] = "not installed"
+    out["python"] = platform.python_version()
+    return out
+
+
+def _year_length(calendar: str) -> float:
+    return {"noleap": 365.0, "365_day": 365.0, "all_leap": 366.0, "366_day": 366.0,
+            "360_day": 360.0}.get(calendar, 365.2425)
+
+
+def _flags(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> np.ndarray:
+    """Per-body QA flags: geometry flags, then climate-coverage and clipping flags."""
+    first = next(iter(weights.values()))
+    n = inputs.n_waterbodies
+    tokens: list[list[str]] = [[] for _ in range(n)]
+    for source in (inputs.layer.flags, first.flags):
+        for i, text in enumerate(source):
+            if text:
+                tokens[i].extend(t for t in str(text).split(";") if t and t not in tokens[i])
+    valid_steps = sums.valid_steps.sum(axis=0)
+    total = sums.steps
+    for i in range(n):
+        if valid_steps[i] == 0:
+            tokens[i].append("no_valid_climate")
+        elif valid_steps[i] < total:
+            tokens[i].append("climate_gaps")
+        if sums.negatives_per_body[i]:
+            tokens[i].append("negative_rates_clipped" if config.parameters.get(
+                "clip_negative", True) else "negative_rates_kept")
+    return np.array([";".join(t) for t in tokens], dtype=object)
+
+
+def _body_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> Any:
+    first = next(iter(weights.values()))
+    frame = inputs.layer.frame.copy()
+    area = first.polygon_area_m2
+    primary = config.method.name
+    evap = sums.depth[primary].sum(axis=0)
+    precip = sums.precip.sum(axis=0) if config.output.precipitation else np.full(len(area), np.nan)
+    total_days = float(inputs.axis.days.sum())
+    coverage = first.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
+    frame["area_m2"] = area
+    frame["evap_mm"] = evap
+    frame["evap_m3"] = evap * area / 1000.0
+    frame["evap_mm_per_year"] = evap * _year_length(inputs.axis.calendar) / total_days
+    frame["precip_mm"] = precip
+    frame["net_mm"] = evap - precip
+    frame["net_m3"] = (evap - precip) * area / 1000.0
+    frame["climate_coverage"] = np.where(np.isfinite(coverage), coverage, 0.0)
+    for name in config.method.compare:
+        if name != primary:
+            frame[f"evap_mm_{name}"] = sums.depth[name].sum(axis=0)
+    for unit in config.output.extra_volume_units:
+        frame[f"evap_{unit}"] = frame["evap_m3"] * VOLUME_UNITS[unit]
+        frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
+    frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
+    frame["qa_flags"] = _flags(config, inputs, weights, sums)
+    geometry = frame.geometry.name
+    return frame[[c for c in frame.columns if c != geometry] + [geometry]]
+
+
+def _rank(volume: np.ndarray, ids: pd.Series) -> np.ndarray:
+    """Rank 1 = largest loss; ties broken by id so the order is reproducible; NaN last."""
+    key = np.where(np.isfinite(volume), -volume, np.inf)
+    order = np.lexsort((ids.to_numpy(), key))
+    rank = np.empty(len(volume), dtype=np.int64)
+    rank[order] = np.arange(1, len(volume) + 1)
+    return rank
+
+
+def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd.DataFrame:
+    first = next(iter(weights.values()))
+    periods = inputs.periods
+    n_periods, n = sums.depth[config.method.name].shape
+    ids = inputs.layer.frame[inputs.layer.id_field].to_numpy()
+    evap = sums.depth[config.method.name]
+    precip = sums.precip if config.output.precipitation else np.full((n_periods, n), np.nan)
+    area = first.polygon_area_m2[None, :]
+    table = pd.DataFrame({
+        inputs.layer.id_field: np.tile(ids, n_periods),
+        "period_start": np.repeat(np.asarray(periods.starts, dtype=object), n),
+        "period_end": np.repeat(np.asarray(periods.ends, dtype=object), n),
+        "days": np.repeat(periods.days, n),
+        "evap_mm": evap.ravel(),
+        "evap_m3": (evap * area / 1000.0).ravel(),
+        "precip_mm": precip.ravel(),
+        "net_mm": (evap - precip).ravel(),
+        "net_m3": ((evap - precip) * area / 1000.0).ravel(),
+    })
+    order = np.lexsort((np.repeat(np.arange(n_periods), n), np.tile(np.arange(n), n_periods)))
+    return table.iloc[order].reset_index(drop=True)
+
+
+def _summaries(config: RunConfig, bodies: Any, by_period: pd.DataFrame,
+               id_field: str) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+    area = bodies.set_index(id_field)["area_m2"]
+    table = by_period.assign(area_m2=by_period[id_field].map(area))
+    table["precip_m3"] = table["precip_mm"] * table["area_m2"] / 1000.0
+    valid = table["evap_mm"].notna()
+    keys = ["period_start", "period_end", "days"]
+
+    def totals(frame: pd.DataFrame, by: list[str]) -> pd.DataFrame:
+        frame = frame[valid.loc[frame.index]]
+        grouped = frame.groupby(by, sort=True, dropna=False)
+        out = grouped.agg(n_waterbodies=(id_field, "size"), area_m2=("area_m2", "sum"),
+                          evap_m3=("evap_m3", "sum"), precip_m3=("precip_m3", "sum"),
+                          net_m3=("net_m3", "sum"))
+        return out.reset_index()
+
+    by_period_total = totals(table, keys)
+    by_group = None
+    if config.waterbodies.group_by:
+        groups = bodies.set_index(id_field)[list(config.waterbodies.group_by)]
+        grouped = table.join(groups, on=id_field)
+        by_group = totals(grouped, [*config.waterbodies.group_by, *keys])
+    return by_period_total, by_group
+
+
+def series_dataset(inputs: Any, arrays: Mapping[str, np.ndarray]) -> Any:
+    """Per-step rates as an xarray Dataset (waterbody x time) with CF attributes."""
+    import xarray as xr
+
+    ids = inputs.layer.frame[inputs.layer.id_field].to_numpy()
+    long_names = {"evaporation_rate": "open-water evaporation rate, primary method",
+                  "precipitation_rate": "precipitation rate on the water surface"}
+    data = {name: (("waterbody", "time"), values.T,
+                   {"units": "mm day-1", "long_name": long_names.get(name, name)})
+            for name, values in arrays.items()}
+    return xr.Dataset(
+        data,
+        coords={"waterbody_id": ("waterbody", ids), "time": ("time", inputs.axis.times)},
+        attrs={"Conventions": "CF-1.8", "title": "lakeloss per-step evaporation series",
+               "comment": CAUTION},
+    )
+
+
+def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo]]:
+    body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
+    for name in config.method.compare:
+        body[f"evap_mm_{name}"] = FieldInfo(
+            f"Evaporation depth, {name}", f"evaporation over the whole run by method {name}", "mm")
+    for unit in config.output.extra_volume_units:
+        body[f"evap_{unit}"] = FieldInfo("Evaporation volume", "evap_m3 in " + unit, unit)
+        body[f"net_{unit}"] = FieldInfo("Net loss volume", "net_m3 in " + unit, unit)
+    period = {k: FieldInfo(*v) for k, v in _PERIOD_FIELDS.items()}
+    return {"waterbodies": body, "evaporation_by_period": period}
+
+
+def _inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
+    items = [{"role": "waterbodies", "path": str(config.waterbodies.path),
+              "sha256": _sha256(config.waterbodies.path)}]
+    for item in config.climate:
+        items.append({"role": item.key, "path": str(item.path), "variable": item.variable,
+                      "sha256": _sha256(item.path)})
+    return items
+
+
+def assemble(config: RunConfig, inputs: Any, weights: Any, sums: Any, run_warnings: list[str],
+             timings: Mapping[str, float], *, series: Any = None,
+             weights_cached: bool = False) -> RunResult:
+    """Build the result tables and the provenance from the period sums."""
+    bodies = _body_table(config, inputs, weights, sums)
+    by_period = _period_table(config, inputs, weights, sums)
+    summary_period, summary_group = _summaries(config, bodies, by_period, inputs.layer.id_field)
+    flags = bodies["qa_flags"]
+    provenance = {
+        "lakeloss_version": __version__,
+        "created": datetime.now(UTC).isoformat(timespec="seconds"),
+        "caution": CAUTION,
+        "config": _jsonable(config.source),
+        "inputs": _inputs_provenance(config),
+        "versions": _versions(),
+        "method": {"primary": config.method.name, "compare": list(config.method.compare),
+                   "parameters": _jsonable(dict(config.parameters))},
+        "time_axis": inputs.axis.describe(),
+        "counts": {
+            "waterbodies": int(len(bodies)),
+            "periods": int(len(inputs.periods.starts)),
+            "time_steps": int(len(inputs.axis.days)),
+            "flagged": int((flags != "").sum()),
+            "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
+            "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
+            "negative_rates_clipped": int(sum(sums.negatives.values()))
+            if config.parameters.get("clip_negative", True) else 0,
+        },
+        "weights_from_cache": bool(weights_cached),
+        "warnings": list(run_warnings),
+        "timings_s": {k: round(v, 3) for k, v in timings.items()},
+    }
+    return RunResult(
+        waterbodies=bodies, by_period=by_period, summary_by_period=summary_period,
+        summary_by_group=summary_group, series=series, provenance=provenance, config=config,
+        id_field=inputs.layer.id_field, field_info=_field_info(config, bodies),
+    )
+
+
+def _jsonable(value: Any) -> Any:
+    if isinstance(value, Mapping):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, Path):
+        return str(value)
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+DECIMALS = _DECIMALS
