@@ -1,0 +1,372 @@
+"""Reading the layer of water bodies (polygons) from any vector format GDAL reads.
+
+The reader checks identifiers and geometry types up front and leaves geometry repair to the
+zonal engine: invalid and empty polygons are kept as they are. Geometry collections keep
+their polygonal parts, flagged ``collection_polygons_kept``; a null geometry becomes an empty
+polygon, flagged ``geometry_null``.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import geopandas
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyogrio.errors
+import pyproj
+import shapely
+from shapely.geometry import MultiPolygon, Polygon
+
+from lakeloss.errors import ConfigError, CRSError, GeometryError, InputDataError
+
+DEFAULT_ID_FIELD = "waterbody_id"
+"""Name of the identifier column created (1..N in file order) when none is configured."""
+
+_PARQUET_SUFFIXES = (".parquet", ".geoparquet")
+_POLYGONAL = ("Polygon", "MultiPolygon")
+_EXAMPLES = 5
+
+# What GDAL, its drivers and the parquet reader raise for unreadable input.
+_READ_ERRORS = (
+    pyogrio.errors.DataSourceError,
+    pyogrio.errors.DataLayerError,
+    pyogrio.errors.FieldError,
+    pyogrio.errors.FeatureError,
+    pyogrio.errors.GeometryError,
+    pyogrio.errors.CRSError,
+    OSError,
+    ValueError,
+    RuntimeError,
+    TypeError,
+    ImportError,
+)
+
+
+@dataclass(frozen=True)
+class WaterBodyLayer:
+    """The water bodies of a run, as read.
+
+    Attributes
+    ----------
+    frame : geopandas.GeoDataFrame
+        Every original attribute, original CRS, a RangeIndex and the geometry column
+        ``geometry`` (polygons and multipolygons, possibly empty or invalid).
+    id_field : str
+        Column of ``frame`` holding the unique, non-null water-body identifier.
+    flags : numpy.ndarray
+        Per row, ``";"``-joined flag tokens (``""`` when clean).
+    path : str
+        Path the layer was read from.
+    layer : str or None
+        Layer name inside the source (None for single-layer formats such as GeoParquet).
+    crs_assumed : bool
+        True when the CRS came from the configuration because the file had none.
+    """
+
+    frame: geopandas.GeoDataFrame
+    id_field: str
+    flags: np.ndarray
+    path: str
+    layer: str | None
+    crs_assumed: bool
+
+    def __len__(self) -> int:
+        return len(self.frame)
+
+
+def _is_parquet(path: Path) -> bool:
+    return path.suffix.lower() in _PARQUET_SUFFIXES
+
+
+def _check_exists(path: Path) -> None:
+    if not path.exists():
+        raise InputDataError(
+            f"water-body layer {str(path)!r} does not exist; expected a vector file "
+            "(GeoPackage, Shapefile, GeoJSON, GeoParquet); check [waterbodies] path"
+        )
+
+
+def _unreadable(path: Path, err: Exception) -> InputDataError:
+    reason = " ".join(str(err).split()) or type(err).__name__
+    kind = "a directory GDAL cannot open" if path.is_dir() else "unreadable, truncated or corrupt"
+    return InputDataError(
+        f"water-body layer {str(path)!r} is {kind} ({reason}); expected a readable vector "
+        "file; re-export the layer or point [waterbodies] path at the right file"
+    )
+
+
+def _layer_table(path: Path) -> list[tuple[str, str | None]]:
+    _check_exists(path)
+    if _is_parquet(path):
+        return [(path.stem, "Unknown")]
+    try:
+        table = pyogrio.list_layers(os.fspath(path))
+    except _READ_ERRORS as err:
+        raise _unreadable(path, err) from err
+    return [(str(name), None if kind is None else str(kind)) for name, kind in table]
+
+
+def list_layers(path) -> list[str]:
+    """Names of the layers in a vector data source.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Vector file (or a directory GDAL opens as one data source).
+
+    Returns
+    -------
+    list of str
+        Layer names in source order (the file stem for GeoParquet).
+
+    Raises
+    ------
+    InputDataError
+        Missing, unreadable or corrupt source.
+    """
+    return [name for name, _ in _layer_table(Path(path))]
+
+
+def _choose_layer(path: Path, layer: str | None) -> str | None:
+    table = _layer_table(path)
+    names = [name for name, _ in table]
+    listing = ", ".join(repr(n) for n in names)
+    if _is_parquet(path):
+        return None
+    if not table:
+        raise InputDataError(f"water-body layer {str(path)!r} contains no layers; expected one")
+    if layer is not None:
+        if layer not in names:
+            raise ConfigError(
+                f"layer {layer!r} is not in {str(path)!r}; the layers are {listing}; "
+                "set [waterbodies] layer to one of them"
+            )
+        return layer
+    # Attribute-only tables (no geometry type) cannot be the water bodies.
+    spatial = [name for name, kind in table if kind is not None]
+    if len(spatial) == 1:
+        return spatial[0]
+    raise ConfigError(
+        f"{str(path)!r} has {len(names)} layers ({listing}) and none was chosen; "
+        "set [waterbodies] layer to one of them"
+    )
+
+
+def _require_pyarrow(path: Path) -> None:
+    # GeoParquet goes through pyarrow, an optional geopandas dependency lakeloss does not pin.
+    try:
+        import pyarrow.parquet  # noqa: F401
+    except ImportError as err:
+        raise InputDataError(
+            f"water-body layer {str(path)!r} is GeoParquet, which needs the optional package "
+            "pyarrow (not installed); install pyarrow or convert the layer to GeoPackage"
+        ) from err
+
+
+def _read_frame(path: Path, layer: str | None) -> geopandas.GeoDataFrame:
+    try:
+        if _is_parquet(path):
+            _require_pyarrow(path)
+            frame = geopandas.read_parquet(path)
+        else:
+            frame = geopandas.read_file(path, layer=layer, engine="pyogrio")
+    except _READ_ERRORS as err:
+        raise _unreadable(path, err) from err
+    if not isinstance(frame, geopandas.GeoDataFrame) or frame.geometry is None:
+        raise InputDataError(
+            f"water-body layer {str(path)!r} has no geometry column; expected polygons"
+        )
+    frame = frame.reset_index(drop=True)
+    if frame.geometry.name != "geometry":
+        frame = frame.rename_geometry("geometry")
+    return frame
+
+
+def _apply_crs(frame: geopandas.GeoDataFrame, path: Path, crs: str | None):
+    """Return the frame with a CRS and whether it came from the configuration."""
+    override = None
+    if crs is not None:
+        try:
+            override = pyproj.CRS.from_user_input(crs)
+        except pyproj.exceptions.CRSError as err:
+            raise CRSError(
+                f"[waterbodies] crs {crs!r} is not a CRS pyproj understands; expected e.g. "
+                '"EPSG:4326"; fix the crs setting'
+            ) from err
+    if frame.crs is None:
+        if override is None:
+            raise CRSError(
+                f"water-body layer {str(path)!r} has no coordinate reference system; expected "
+                'one in the file; set [waterbodies] crs = "EPSG:...." to the layer\'s CRS'
+            )
+        return frame.set_crs(override), True
+    if override is not None and not pyproj.CRS(frame.crs).equals(override, ignore_axis_order=True):
+        raise ConfigError(
+            f"water-body layer {str(path)!r} declares CRS {frame.crs.to_string()!r} but "
+            f"[waterbodies] crs is {crs!r}; expected them to agree; remove the crs setting "
+            "or reproject the layer"
+        )
+    return frame, False
+
+
+def _id_column(frame: geopandas.GeoDataFrame, path: Path, id_field: str | None) -> str:
+    fields = [c for c in frame.columns if c != "geometry"]
+    if id_field is None:
+        if DEFAULT_ID_FIELD in frame.columns:
+            raise ConfigError(
+                f"water-body layer {str(path)!r} already has a {DEFAULT_ID_FIELD!r} column; "
+                f'expected none when no id field is set; set [waterbodies] id_field = "{DEFAULT_ID_FIELD}"'
+            )
+        frame[DEFAULT_ID_FIELD] = np.arange(1, len(frame) + 1)
+        return DEFAULT_ID_FIELD
+    if id_field not in fields:
+        close = difflib.get_close_matches(id_field, fields, n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise ConfigError(
+            f"id field {id_field!r} is not in {str(path)!r}; {hint}the fields are "
+            f"{', '.join(repr(f) for f in fields) or 'none'}; set [waterbodies] id_field"
+        )
+    _check_ids(frame[id_field], id_field)
+    return id_field
+
+
+def _examples(values) -> str:
+    shown = [repr(v) for v in list(values)[:_EXAMPLES]]
+    return ", ".join(shown) + (", ..." if len(values) > _EXAMPLES else "")
+
+
+def _check_ids(ids: pd.Series, id_field: str) -> None:
+    nulls = ids.isna()
+    if nulls.any():
+        rows = np.flatnonzero(nulls.to_numpy())
+        raise GeometryError(
+            f"id field {id_field!r} is empty in {int(nulls.sum())} features (rows "
+            f"{_examples(rows.tolist())}); expected an id on every feature; fill them in or "
+            "leave id_field unset to number the features"
+        )
+    duplicated = ids[ids.duplicated(keep=False)]
+    if len(duplicated):
+        values = pd.unique(duplicated)
+        raise GeometryError(
+            f"id field {id_field!r} has {len(values)} duplicated values ({_examples(values.tolist())}) "
+            f"on {len(duplicated)} features; expected unique ids; fix them or leave id_field unset"
+        )
+
+
+def _polygonal_part(geometry):
+    """Polygonal content of a (possibly nested) collection, or None when there is none."""
+    parts = [g for g in shapely.get_parts(geometry) if not g.is_empty]
+    polygons: list[Polygon] = []
+    for part in parts:
+        if part.geom_type == "Polygon":
+            polygons.append(part)
+        elif part.geom_type == "MultiPolygon":
+            polygons.extend(part.geoms)
+        elif part.geom_type == "GeometryCollection":
+            inner = _polygonal_part(part)
+            polygons.extend([] if inner is None else shapely.get_parts(inner))
+    if not polygons:
+        return None
+    return polygons[0] if len(polygons) == 1 else MultiPolygon(polygons)
+
+
+def _normalise_geometries(frame: geopandas.GeoDataFrame, id_field: str) -> np.ndarray:
+    """Make every geometry a (multi)polygon in place and return the per-row flags."""
+    flags = np.full(len(frame), "", dtype=object)
+    geometries = frame.geometry.to_numpy().copy()
+    nulls = np.array([g is None for g in geometries])
+    geometries[nulls] = Polygon()
+    flags[nulls] = "geometry_null"
+    kinds = shapely.get_type_id(geometries)
+    collections = np.flatnonzero(kinds == shapely.GeometryType.GEOMETRYCOLLECTION)
+    barren = []
+    for row in collections:
+        if geometries[row].is_empty:
+            geometries[row] = Polygon()
+            continue
+        polygonal = _polygonal_part(geometries[row])
+        if polygonal is None:
+            barren.append(row)
+            continue
+        geometries[row] = polygonal
+        flags[row] = "collection_polygons_kept"
+    if barren:
+        raise GeometryError(
+            f"{len(barren)} geometry collections have no polygon part (ids "
+            f"{_examples(frame[id_field].iloc[barren].tolist())}); expected polygons; "
+            "remove those features or replace them with their outlines as polygons"
+        )
+    _refuse_non_polygons(geometries, frame[id_field])
+    frame["geometry"] = geopandas.GeoSeries(geometries, crs=frame.crs, index=frame.index)
+    return flags
+
+
+def _refuse_non_polygons(geometries: np.ndarray, ids: pd.Series) -> None:
+    types = pd.Series([g.geom_type for g in geometries], index=ids.index)
+    wrong = ~types.isin(_POLYGONAL)
+    if not wrong.any():
+        return
+    counts = types[wrong].value_counts()
+    summary = ", ".join(f"{n} {kind}" for kind, n in counts.items())
+    raise GeometryError(
+        f"water-body layer has {summary} features (ids {_examples(ids[wrong].tolist())}); "
+        "expected polygons or multipolygons; buffer or remove the points and lines"
+    )
+
+
+def read_waterbodies(
+    path, *, layer: str | None = None, id_field: str | None = None, crs: str | None = None
+) -> WaterBodyLayer:
+    """Read and check the layer of water-body polygons.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Any vector source GDAL reads (GeoPackage, Shapefile, GeoJSON, ...) or a GeoParquet
+        file (``.parquet`` / ``.geoparquet``).
+    layer : str, optional
+        Layer to read; required when the source has several spatial layers.
+    id_field : str, optional
+        Attribute holding unique ids; when None, ``waterbody_id`` = 1..N in file order.
+    crs : str, optional
+        CRS to use when the file has none (e.g. ``"EPSG:28355"``).
+
+    Returns
+    -------
+    WaterBodyLayer
+
+    Raises
+    ------
+    InputDataError
+        Missing, unreadable, truncated or corrupt source, or no features.
+    ConfigError
+        Layer not chosen or unknown, id field missing, or ``crs`` contradicting the file.
+    CRSError
+        No CRS in the file and none configured, or an unparseable ``crs``.
+    GeometryError
+        Null or duplicate ids; point or line features; collections without polygons.
+    """
+    source = Path(path)
+    chosen = _choose_layer(source, layer)
+    frame = _read_frame(source, chosen)
+    if len(frame) == 0:
+        raise InputDataError(
+            f"water-body layer {str(source)!r} has no features; expected at least one polygon; "
+            "check the layer name and any filter used to export it"
+        )
+    frame, crs_assumed = _apply_crs(frame, source, crs)
+    chosen_id = _id_column(frame, source, id_field)
+    flags = _normalise_geometries(frame, chosen_id)
+    return WaterBodyLayer(
+        frame=frame,
+        id_field=chosen_id,
+        flags=flags,
+        path=os.fspath(path),
+        layer=chosen,
+        crs_assumed=crs_assumed,
+    )
