@@ -1,1 +1,19 @@
-"""Exact area weights between water-body polygons and climate grid cells."""
+"""Exact area weights between water-body polygons and climate grid cells.
+
+Build once with :func:`build_weights` (or through :class:`WeightsCache`), then apply the
+sparse weights to every variable and time step with :meth:`ZonalWeights.apply`.
+"""
+
+from lakeloss.zonal.cache import WeightsCache, layer_key
+from lakeloss.zonal.geometry import reproject_to_grid
+from lakeloss.zonal.grid import GridSpec
+from lakeloss.zonal.weights import ZonalWeights, build_weights
+
+__all__ = [
+    "GridSpec",
+    "WeightsCache",
+    "ZonalWeights",
+    "build_weights",
+    "layer_key",
+    "reproject_to_grid",
+]

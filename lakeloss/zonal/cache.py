@@ -1,0 +1,111 @@
+"""On-disk cache of zonal weights keyed by layer geometry, layer CRS and grid."""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import shapely
+
+from lakeloss.errors import InputDataError
+from lakeloss.zonal import weights as _weights
+from lakeloss.zonal.geometry import check_layer
+from lakeloss.zonal.grid import GridSpec
+
+logger = logging.getLogger(__name__)
+
+# Geometries are hashed in slices so the WKB of a million polygons never sits in memory at once.
+_HASH_SLICE = 100_000
+
+
+def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec) -> str:
+    """sha256 of the layer's geometries (WKB, in order), its CRS and the grid key.
+
+    Parameters
+    ----------
+    polygons : geopandas.GeoDataFrame
+        Water bodies.
+    grid : GridSpec
+        Climate grid.
+
+    Returns
+    -------
+    str
+        Hex digest; equal for the same geometries, CRS, grid and save format.
+    """
+    crs = check_layer(polygons)
+    digest = hashlib.sha256()
+    digest.update(f"lakeloss-weights-v{_weights.SAVE_FORMAT_VERSION}|".encode())
+    digest.update(crs.to_wkt().encode())
+    digest.update(grid.key().encode())
+    geometry = np.asarray(polygons.geometry.array, dtype=object)
+    for start in range(0, geometry.size, _HASH_SLICE):
+        chunk = shapely.to_wkb(geometry[start : start + _HASH_SLICE], byte_order=1)
+        for wkb in chunk:
+            # a missing geometry hashes as a marker so its position still counts
+            digest.update(b"\x00" if wkb is None else len(wkb).to_bytes(8, "little") + wkb)
+    return digest.hexdigest()
+
+
+class WeightsCache:
+    """A directory of saved :class:`ZonalWeights`, one ``.npz`` file per layer and grid.
+
+    Parameters
+    ----------
+    directory : pathlib.Path
+        Where entries live; created on first write.
+    """
+
+    def __init__(self, directory: Path) -> None:
+        self.directory = Path(directory)
+
+    def path_for(self, key: str) -> Path:
+        """File of the entry with this key."""
+        return self.directory / f"weights-{key}.npz"
+
+    def get_or_build(
+        self, polygons: gpd.GeoDataFrame, grid: GridSpec, *, reprojected=None
+    ) -> tuple[_weights.ZonalWeights, bool]:
+        """Load the weights of this layer and grid, or build and store them.
+
+        Parameters
+        ----------
+        polygons : geopandas.GeoDataFrame
+            Water bodies.
+        grid : GridSpec
+            Climate grid.
+        reprojected : geopandas.GeoSeries, optional
+            Passed on to :func:`build_weights` when building.
+
+        Returns
+        -------
+        weights : ZonalWeights
+            The weights.
+        loaded : bool
+            True when they came from the cache. An unreadable or mismatching entry is
+            rebuilt and overwritten, never trusted.
+        """
+        key = layer_key(polygons, grid)
+        path = self.path_for(key)
+        if path.exists():
+            cached = self._read(path, grid, len(polygons))
+            if cached is not None:
+                return cached, True
+        built = _weights.build_weights(polygons, grid, reprojected=reprojected)
+        built.save(path)
+        return built, False
+
+    @staticmethod
+    def _read(path: Path, grid: GridSpec, n_waterbodies: int) -> _weights.ZonalWeights | None:
+        try:
+            cached = _weights.ZonalWeights.load(path)
+        except InputDataError as exc:
+            logger.warning("rebuilding weights: %s", exc)
+            return None
+        if cached.grid_key != grid.key() or cached.n_waterbodies != n_waterbodies:
+            logger.warning("rebuilding weights: cache entry %s does not match the layer", path)
+            return None
+        return cached

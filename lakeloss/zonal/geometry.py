@@ -1,0 +1,225 @@
+"""Water-body geometry: input checks, repair, true areas, centroids and reprojection to a grid."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import geopandas as gpd
+import numpy as np
+import shapely
+from pyproj import CRS, Transformer
+from pyproj.crs import ProjectedCRS
+from pyproj.crs.coordinate_operation import LambertAzimuthalEqualAreaConversion
+
+from lakeloss.errors import CRSError, GeometryError
+from lakeloss.zonal.grid import GridSpec
+
+_POLYGONAL = np.array(
+    [shapely.GeometryType.POLYGON, shapely.GeometryType.MULTIPOLYGON], dtype=np.int64
+)
+_COLLECTION = int(shapely.GeometryType.GEOMETRYCOLLECTION)
+
+# Projection methods that preserve area exactly, so planar area in them is true area.
+_EQUAL_AREA_METHODS = (
+    "equal area",
+    "albers",
+    "equal earth",
+    "mollweide",
+    "sinusoidal",
+)
+
+
+@dataclass(frozen=True)
+class RepairedGeometry:
+    """Polygons after the up-front checks and repair.
+
+    Attributes
+    ----------
+    geometry : numpy.ndarray of shapely geometries
+        Polygonal geometry per water body, empty polygons where the input was empty.
+    repaired : numpy.ndarray of bool
+        True where the input was invalid and has been repaired.
+    empty : numpy.ndarray of bool
+        True where the geometry is missing, empty, or lost all its area in the repair.
+    """
+
+    geometry: np.ndarray
+    repaired: np.ndarray
+    empty: np.ndarray
+
+
+def check_layer(polygons: gpd.GeoDataFrame) -> CRS:
+    """Refuse a layer without CRS or with non-polygon geometries; return its CRS."""
+    if polygons.crs is None:
+        raise CRSError(
+            "the water-body layer has no CRS; expected a layer with a defined CRS; "
+            "set it in the source file (e.g. a .prj file) or with GeoDataFrame.set_crs"
+        )
+    geometry = np.asarray(polygons.geometry.array, dtype=object)
+    present = ~(shapely.is_missing(geometry) | shapely.is_empty(geometry))
+    kinds = shapely.get_type_id(geometry)
+    wrong = present & ~np.isin(kinds, _POLYGONAL)
+    if wrong.any():
+        first = int(np.flatnonzero(wrong)[0])
+        kind = shapely.get_type_id(geometry[first])
+        raise GeometryError(
+            f"{int(wrong.sum())} water bodies are not polygons (first at row {first}: "
+            f"{shapely.GeometryType(kind).name.lower()}); expected Polygon or MultiPolygon; "
+            "buffer or drop the point and line features"
+        )
+    return polygons.crs
+
+
+def _polygonal_part(geometry: np.ndarray) -> np.ndarray:
+    """Keep only the polygonal parts of repaired geometries (drop collapsed lines/points)."""
+    out = geometry.copy()
+    for i in np.flatnonzero(shapely.get_type_id(geometry) == _COLLECTION):
+        parts = shapely.get_parts(geometry[i])
+        parts = parts[np.isin(shapely.get_type_id(parts), _POLYGONAL)]
+        out[i] = shapely.union_all(parts) if parts.size else shapely.Polygon()
+    return out
+
+
+def repair_geometry(geometry: np.ndarray) -> RepairedGeometry:
+    """Make invalid polygons valid, keeping their polygonal parts; mark empties.
+
+    Parameters
+    ----------
+    geometry : numpy.ndarray of shapely geometries
+        Polygons or multipolygons (missing and empty allowed).
+
+    Returns
+    -------
+    RepairedGeometry
+        Repaired geometry and the repaired / empty masks.
+    """
+    geometry = np.asarray(geometry, dtype=object).copy()
+    missing = shapely.is_missing(geometry)
+    geometry[missing] = shapely.Polygon()
+    empty = shapely.is_empty(geometry)
+    repaired = ~empty & ~shapely.is_valid(geometry)
+    if repaired.any():
+        fixed = shapely.make_valid(geometry[repaired], method="structure", keep_collapsed=False)
+        geometry[repaired] = _polygonal_part(fixed)
+    empty = shapely.is_empty(geometry) | (shapely.area(geometry) == 0)
+    return RepairedGeometry(geometry=geometry, repaired=repaired, empty=empty)
+
+
+def is_equal_area(crs: CRS) -> bool:
+    """True when ``crs`` is a projection that preserves area (so planar area is true area)."""
+    if not crs.is_projected or crs.coordinate_operation is None:
+        return False
+    method = crs.coordinate_operation.method_name.lower()
+    return any(word in method for word in _EQUAL_AREA_METHODS)
+
+
+def local_equal_area_crs(polygons_crs: CRS, total_bounds: np.ndarray) -> CRS:
+    """A Lambert azimuthal equal-area CRS centred on the layer, on the layer's own datum."""
+    geodetic = polygons_crs.geodetic_crs
+    to_lonlat = Transformer.from_crs(polygons_crs, geodetic, always_xy=True)
+    xmin, ymin, xmax, ymax = total_bounds
+    lon, lat = to_lonlat.transform(0.5 * (xmin + xmax), 0.5 * (ymin + ymax))
+    conversion = LambertAzimuthalEqualAreaConversion(
+        latitude_natural_origin=float(lat), longitude_natural_origin=float(lon)
+    )
+    return ProjectedCRS(conversion=conversion, geodetic_crs=geodetic)
+
+
+def to_equal_area(geometry: np.ndarray, crs: CRS) -> tuple[np.ndarray, CRS, float]:
+    """Geometries in a CRS where planar area is true area (the input itself if it is one).
+
+    Returns
+    -------
+    geometry : numpy.ndarray of shapely geometries
+        The geometries in the equal-area CRS.
+    crs : pyproj.CRS
+        That CRS: the layer's own when it preserves area, else a Lambert azimuthal
+        equal-area projection centred on the layer (exact on the ellipsoid).
+    metres_per_unit : float
+        Length of one CRS unit. [m]
+    """
+    if is_equal_area(crs):
+        unit = crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
+        return geometry, crs, float(unit)
+    present = ~shapely.is_empty(geometry)
+    if not present.any():
+        return geometry, crs, 1.0
+    bounds = shapely.total_bounds(geometry[present])
+    target = local_equal_area_crs(crs, bounds)
+    return transform_geometry(geometry, crs, target), target, 1.0
+
+
+def transform_geometry(geometry: np.ndarray, source: CRS, target: CRS) -> np.ndarray:
+    """Reproject an array of geometries, vectorised over all coordinates at once."""
+    transformer = Transformer.from_crs(source, target, always_xy=True)
+
+    def project(coords: np.ndarray) -> np.ndarray:
+        x, y = transformer.transform(coords[:, 0], coords[:, 1])
+        return np.column_stack([x, y])
+
+    return shapely.transform(geometry, project)
+
+
+def centroid_lonlat(equal_area: np.ndarray, crs: CRS) -> tuple[np.ndarray, np.ndarray]:
+    """Centroid of each geometry in WGS84 longitude and latitude (NaN when empty). [degrees]"""
+    centroid = shapely.centroid(equal_area)
+    xy = shapely.get_coordinates(centroid)
+    has_point = ~shapely.is_empty(centroid)
+    lon = np.full(centroid.size, np.nan)
+    lat = np.full(centroid.size, np.nan)
+    if has_point.any():
+        to_wgs84 = Transformer.from_crs(crs, CRS.from_epsg(4326), always_xy=True)
+        lon[has_point], lat[has_point] = to_wgs84.transform(xy[:, 0], xy[:, 1])
+    return lon, lat
+
+
+def _shift_longitudes(geometry: np.ndarray, grid: GridSpec) -> np.ndarray:
+    """Move polygons by whole turns of longitude to the copy nearest the grid's centre.
+
+    A grid stored in 0..360 receives polygons in -180..180 (and the reverse). A polygon that
+    straddles the grid's seam keeps its far part outside and is flagged partly outside.
+    """
+    centre = 0.5 * (float(grid.x_edges.min()) + float(grid.x_edges.max()))
+    bounds = shapely.bounds(geometry)
+    turns = np.round((0.5 * (bounds[:, 0] + bounds[:, 2]) - centre) / 360.0)
+    turns[~np.isfinite(turns)] = 0.0
+    moving = turns != 0
+    if not moving.any():
+        return geometry
+    shifted = geometry.copy()
+    offsets = -360.0 * turns[moving]
+    counts = shapely.get_num_coordinates(geometry[moving])
+    per_coordinate = np.repeat(offsets, counts)
+
+    def shift(coords: np.ndarray) -> np.ndarray:
+        return np.column_stack([coords[:, 0] + per_coordinate, coords[:, 1]])
+
+    shifted[moving] = shapely.transform(geometry[moving], shift)
+    return shifted
+
+
+def reproject_to_grid(polygons: gpd.GeoDataFrame, grid: GridSpec) -> gpd.GeoSeries:
+    """Repair the water bodies and reproject them to the grid CRS.
+
+    Parameters
+    ----------
+    polygons : geopandas.GeoDataFrame
+        Water bodies in any CRS.
+    grid : GridSpec
+        Target grid.
+
+    Returns
+    -------
+    geopandas.GeoSeries
+        Repaired polygons in the grid CRS, same index and order as ``polygons``; on a
+        geographic grid shifted by whole turns of longitude into the grid's range (0..360 or
+        -180..180).
+    """
+    crs = check_layer(polygons)
+    repaired = repair_geometry(np.asarray(polygons.geometry.array, dtype=object))
+    geometry = repaired.geometry
+    if not CRS.from_user_input(crs).equals(grid.crs):
+        geometry = transform_geometry(geometry, CRS.from_user_input(crs), grid.crs)
+    if grid.is_geographic:
+        geometry = _shift_longitudes(geometry, grid)
+    return gpd.GeoSeries(geometry, index=polygons.index, crs=grid.crs)

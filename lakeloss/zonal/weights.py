@@ -1,0 +1,507 @@
+"""Sparse (water body x grid cell) area weights: built once, applied to every variable and step."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import scipy.sparse as sp
+import shapely
+from pyproj import CRS
+
+from lakeloss.errors import GeometryError, GeometryRepairedWarning, GridError, InputDataError
+from lakeloss.zonal.geometry import (
+    centroid_lonlat,
+    check_layer,
+    repair_geometry,
+    reproject_to_grid,
+    to_equal_area,
+)
+from lakeloss.zonal.grid import GridSpec, cell_true_area
+
+SAVE_FORMAT_VERSION = 1
+
+# Polygons whose bounding box spans more cells than this first sort the cells into wholly
+# inside / disjoint / on the boundary with a prepared geometry, and clip only the boundary
+# ones: clipping a many-vertex reservoir against every cell of its box is what costs time.
+_PREPARED_MIN_CELLS = 16
+
+# Share of a polygon's planar area that may fall outside the grid through rounding alone.
+_OUTSIDE_TOLERANCE = 1e-9
+
+
+@dataclass
+class ZonalWeights:
+    """Area weights between water bodies (rows) and grid cells (columns).
+
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_matrix
+        ``n_waterbodies x ny*nx``; column ``row * nx + col`` indexes ``values[t, row, col]``
+        as stored; entry = true area of (water body ∩ cell). [m2]
+    polygon_area_m2 : numpy.ndarray
+        True area of each (repaired) polygon; 0 for empty geometry. [m2]
+    grid_area_m2 : numpy.ndarray
+        True area of each polygon inside the grid (= row sum of ``matrix``). [m2]
+    grid_coverage : numpy.ndarray
+        ``grid_area_m2 / polygon_area_m2``; NaN for empty geometry. [1]
+    area_before_repair_m2 : numpy.ndarray
+        True area of the invalid input polygon; NaN where no repair was needed. [m2]
+    flags : numpy.ndarray of str
+        ``;``-joined tokens, ``""`` when clean: ``geometry_repaired``, ``geometry_empty``,
+        ``outside_grid``, ``partly_outside_grid``.
+    centroid_lon, centroid_lat : numpy.ndarray
+        Centroid of each polygon in WGS84; NaN for empty geometry. [degrees]
+    grid_key : str
+        :meth:`GridSpec.key` of the grid the weights were built for.
+    grid : GridSpec or None
+        That grid (kept so a saved file is self-describing).
+    """
+
+    matrix: sp.csr_matrix
+    polygon_area_m2: np.ndarray
+    grid_area_m2: np.ndarray
+    grid_coverage: np.ndarray
+    area_before_repair_m2: np.ndarray
+    flags: np.ndarray
+    centroid_lon: np.ndarray
+    centroid_lat: np.ndarray
+    grid_key: str
+    grid: GridSpec | None = None
+
+    @property
+    def n_waterbodies(self) -> int:
+        """Number of water bodies (rows)."""
+        return int(self.matrix.shape[0])
+
+    def apply(self, values) -> tuple[np.ndarray, np.ndarray]:
+        """Area-weighted mean of gridded values over each water body, per time step.
+
+        Parameters
+        ----------
+        values : array_like
+            ``(time, ny, nx)`` or ``(ny, nx)`` grid values as stored (numpy or one dask
+            chunk); NaN marks missing cells. [any unit]
+
+        Returns
+        -------
+        means : numpy.ndarray
+            ``(time, n_waterbodies)`` float64 means over the valid cells; NaN where a water
+            body has no valid cell. [unit of ``values``]
+        valid_fraction : numpy.ndarray
+            ``(time, n_waterbodies)`` share of ``grid_area_m2`` that had valid data; 0 where
+            the mean is NaN. When the missing-cell mask does not change with time this is a
+            read-only broadcast view of one row. [1]
+
+        Notes
+        -----
+        mean = (W @ where(valid, v, 0)) / (W @ valid) (xarray's weighted mean with weights
+        renormalised over valid cells), done as one sparse-dense product over the cells any
+        water body touches, accumulated in float64.
+        """
+        values = np.asarray(values)
+        if values.ndim == 2:
+            values = values[np.newaxis]
+        ncell = self.matrix.shape[1]
+        if values.ndim != 3 or values.shape[1] * values.shape[2] != ncell:
+            raise InputDataError(
+                f"values of shape {values.shape} do not fit weights built for {ncell} grid "
+                "cells; expected (time, ny, nx) on the same grid; rebuild the weights"
+            )
+        used = np.unique(self.matrix.indices)
+        weights = self.matrix[:, used]
+        # (cells, time) in C order so the sparse product reads each cell's series contiguously
+        series = np.ascontiguousarray(
+            values.reshape(values.shape[0], ncell)[:, used].T, dtype=np.float64
+        )
+        valid = np.isfinite(series)
+        steady = bool(np.array_equal(valid.all(axis=1), valid.any(axis=1)))
+        series[~valid] = 0.0
+        total = weights @ series
+        if steady:
+            valid_area = weights @ valid[:, 0].astype(np.float64)
+            total /= np.where(valid_area > 0, valid_area, np.nan)[:, np.newaxis]
+            fraction = np.broadcast_to(self._valid_fraction(valid_area), total.T.shape)
+            return total.T, fraction
+        valid_area = weights @ valid.astype(np.float64)
+        total /= np.where(valid_area > 0, valid_area, np.nan)
+        return total.T, self._valid_fraction(valid_area.T)
+
+    def _valid_fraction(self, valid_area: np.ndarray) -> np.ndarray:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            fraction = valid_area / self.grid_area_m2
+        return np.where(self.grid_area_m2 > 0, fraction, 0.0)
+
+    def save(self, path) -> None:
+        """Write the weights to one ``.npz`` file atomically (temp file + rename).
+
+        The matrix is stored under the keys of :func:`scipy.sparse.save_npz`, so
+        ``scipy.sparse.load_npz(path)`` reads it too.
+        """
+        path = Path(path)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        arrays = _to_arrays(self)
+        handle, temp = tempfile.mkstemp(dir=path.parent, prefix=path.name, suffix=".part")
+        try:
+            with os.fdopen(handle, "wb") as stream:
+                np.savez(stream, **arrays)
+                stream.flush()
+                os.fsync(stream.fileno())
+            os.replace(temp, path)
+        except BaseException:
+            Path(temp).unlink(missing_ok=True)
+            raise
+
+    @classmethod
+    def load(cls, path) -> ZonalWeights:
+        """Read weights written by :meth:`save`; InputDataError when the file is not one."""
+        try:
+            matrix = sp.load_npz(path)
+            with np.load(path, allow_pickle=False) as stored:
+                version = int(stored["format_version"])
+                if version != SAVE_FORMAT_VERSION:
+                    raise InputDataError(
+                        f"weights file {path} has format version {version}; expected "
+                        f"{SAVE_FORMAT_VERSION}; delete it so it is rebuilt"
+                    )
+                return _from_arrays(sp.csr_matrix(matrix), stored)
+        except InputDataError:
+            raise
+        except (OSError, ValueError, KeyError, EOFError) as exc:
+            raise InputDataError(
+                f"weights file {path} is unreadable ({type(exc).__name__}); expected a file "
+                "written by ZonalWeights.save; delete it so it is rebuilt"
+            ) from exc
+
+
+def _to_arrays(weights: ZonalWeights) -> dict[str, np.ndarray]:
+    matrix = weights.matrix
+    arrays = {
+        "format": np.array(matrix.format.encode("ascii")),
+        "shape": np.array(matrix.shape),
+        "data": matrix.data,
+        "indices": matrix.indices,
+        "indptr": matrix.indptr,
+        "format_version": np.array(SAVE_FORMAT_VERSION),
+        "polygon_area_m2": weights.polygon_area_m2,
+        "grid_area_m2": weights.grid_area_m2,
+        "grid_coverage": weights.grid_coverage,
+        "area_before_repair_m2": weights.area_before_repair_m2,
+        "flags": np.asarray(weights.flags, dtype=str),
+        "centroid_lon": weights.centroid_lon,
+        "centroid_lat": weights.centroid_lat,
+        "grid_key": np.array(weights.grid_key),
+    }
+    if weights.grid is not None:
+        arrays["grid_crs_wkt"] = np.array(weights.grid.crs.to_wkt())
+        arrays["grid_x_edges"] = weights.grid.x_edges
+        arrays["grid_y_edges"] = weights.grid.y_edges
+    return arrays
+
+
+def _from_arrays(matrix: sp.csr_matrix, stored) -> ZonalWeights:
+    grid = None
+    if "grid_crs_wkt" in stored:
+        grid = GridSpec(
+            CRS.from_wkt(str(stored["grid_crs_wkt"])),
+            stored["grid_x_edges"],
+            stored["grid_y_edges"],
+        )
+    return ZonalWeights(
+        matrix=matrix,
+        polygon_area_m2=stored["polygon_area_m2"],
+        grid_area_m2=stored["grid_area_m2"],
+        grid_coverage=stored["grid_coverage"],
+        area_before_repair_m2=stored["area_before_repair_m2"],
+        flags=stored["flags"].astype(object),
+        centroid_lon=stored["centroid_lon"],
+        centroid_lat=stored["centroid_lat"],
+        grid_key=str(stored["grid_key"]),
+        grid=grid,
+    )
+
+
+# ---------------------------------------------------------------------------------------
+# building
+
+
+@dataclass(frozen=True)
+class _Axis:
+    """Cell edges of one grid axis in ascending order, and how to map back to storage."""
+
+    edges: np.ndarray
+    flipped: bool
+
+    @classmethod
+    def of(cls, stored_edges: np.ndarray) -> _Axis:
+        if stored_edges[-1] < stored_edges[0]:
+            return cls(stored_edges[::-1].copy(), True)
+        return cls(np.asarray(stored_edges), False)
+
+    @property
+    def size(self) -> int:
+        return self.edges.size - 1
+
+    def span(self, low: np.ndarray, high: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """First and last ascending cell index touched by [low, high], clipped to the grid."""
+        first = np.searchsorted(self.edges, low, side="right") - 1
+        last = np.searchsorted(self.edges, high, side="left") - 1
+        return np.clip(first, 0, self.size - 1), np.clip(last, 0, self.size - 1)
+
+    def stored(self, index: np.ndarray) -> np.ndarray:
+        return self.size - 1 - index if self.flipped else index
+
+
+@dataclass(frozen=True)
+class _LayerAreas:
+    """True-area facts about the repaired polygons, from an equal-area CRS."""
+
+    area: np.ndarray
+    area_before_repair: np.ndarray
+    repaired: np.ndarray
+    empty: np.ndarray
+    centroid_lon: np.ndarray
+    centroid_lat: np.ndarray
+
+
+def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS) -> _LayerAreas:
+    original = np.asarray(polygons.geometry.array, dtype=object)
+    repaired = repair_geometry(original)
+    equal_area, area_crs, unit = to_equal_area(repaired.geometry, crs)
+    area = shapely.area(equal_area) * unit * unit
+    area[repaired.empty] = 0.0
+    before = np.full(area.size, np.nan)
+    if repaired.repaired.any():
+        invalid, _, invalid_unit = to_equal_area(original[repaired.repaired], crs)
+        before[repaired.repaired] = shapely.area(invalid) * invalid_unit * invalid_unit
+    lon, lat = centroid_lonlat(equal_area, area_crs)
+    lon[repaired.empty] = np.nan
+    lat[repaired.empty] = np.nan
+    return _LayerAreas(area, before, repaired.repaired, repaired.empty, lon, lat)
+
+
+@dataclass
+class _Pairs:
+    """(water body, stored cell) pairs with their raw, not yet rescaled, weights."""
+
+    body: np.ndarray
+    row: np.ndarray
+    col: np.ndarray
+    raw: np.ndarray
+
+    @classmethod
+    def empty(cls) -> _Pairs:
+        none = np.empty(0, dtype=np.int64)
+        return cls(none, none, none, np.empty(0))
+
+
+def _expand_boxes(first_col, last_col, first_row, last_row):
+    """Every (body, row, col) inside each body's box of cells, vectorised."""
+    ncols = last_col - first_col + 1
+    counts = ncols * (last_row - first_row + 1)
+    body = np.repeat(np.arange(counts.size), counts)
+    start = np.cumsum(counts) - counts
+    local = np.arange(body.size) - start[body]
+    return body, first_row[body] + local // ncols[body], first_col[body] + local % ncols[body]
+
+
+def _clip_areas(geometry: np.ndarray, boxes: np.ndarray, prepared: np.ndarray) -> np.ndarray:
+    """Planar area of geometry ∩ box per pair; prepared pairs skip clipping where they can."""
+    area = np.zeros(boxes.size)
+    box_area = shapely.area(boxes)
+    to_clip = ~prepared
+    if prepared.any():
+        inside = shapely.contains_properly(geometry[prepared], boxes[prepared])
+        touches = shapely.intersects(geometry[prepared], boxes[prepared])
+        where = np.flatnonzero(prepared)
+        area[where[inside]] = box_area[where[inside]]
+        to_clip[where[touches & ~inside]] = True
+    if to_clip.any():
+        area[to_clip] = shapely.area(shapely.intersection(geometry[to_clip], boxes[to_clip]))
+    return area
+
+
+def _valid_for_clipping(geometry: np.ndarray) -> np.ndarray:
+    """Reprojection can nudge a vertex across an edge; re-repair so GEOS can clip."""
+    broken = ~shapely.is_valid(geometry)
+    if broken.any():
+        geometry = geometry.copy()
+        geometry[broken] = repair_geometry(geometry[broken]).geometry
+    return geometry
+
+
+def _clipped_pairs(geometry: np.ndarray, x: _Axis, y: _Axis, bounds: np.ndarray):
+    """Pairs for polygons that cross cell edges, plus each one's planar area inside the grid."""
+    geometry = _valid_for_clipping(geometry)
+    first_col, last_col = x.span(bounds[:, 0], bounds[:, 2])
+    first_row, last_row = y.span(bounds[:, 1], bounds[:, 3])
+    body, row, col = _expand_boxes(first_col, last_col, first_row, last_row)
+    boxes = shapely.box(x.edges[col], y.edges[row], x.edges[col + 1], y.edges[row + 1])
+    n_cells = (last_col - first_col + 1) * (last_row - first_row + 1)
+    big = n_cells >= _PREPARED_MIN_CELLS
+    if big.any():
+        shapely.prepare(geometry[big])
+    pieces = _clip_areas(geometry[body], boxes, big[body])
+    shapely.destroy_prepared(geometry[big])
+    keep = pieces > 0
+    body, row, col, pieces = body[keep], row[keep], col[keep], pieces[keep]
+    coverage = pieces / shapely.area(boxes[keep])
+    inside_planar = np.bincount(body, weights=pieces, minlength=geometry.size)
+    return _Pairs(body, y.stored(row), x.stored(col), coverage), inside_planar
+
+
+def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray):
+    """All (body, cell) pairs and the planar share of each polygon inside the grid."""
+    x, y = _Axis.of(grid.x_edges), _Axis.of(grid.y_edges)
+    bounds = shapely.bounds(in_grid)
+    with np.errstate(invalid="ignore"):
+        within = (
+            (bounds[:, 0] >= x.edges[0])
+            & (bounds[:, 2] <= x.edges[-1])
+            & (bounds[:, 1] >= y.edges[0])
+            & (bounds[:, 3] <= y.edges[-1])
+            & present
+        )
+        overlaps = (
+            (bounds[:, 2] > x.edges[0])
+            & (bounds[:, 0] < x.edges[-1])
+            & (bounds[:, 3] > y.edges[0])
+            & (bounds[:, 1] < y.edges[-1])
+            & present
+        )
+    first_col, last_col = x.span(bounds[:, 0], bounds[:, 2])
+    first_row, last_row = y.span(bounds[:, 1], bounds[:, 3])
+    one_cell = within & (first_col == last_col) & (first_row == last_row)
+    share = np.where(within, 1.0, 0.0)
+    single = np.flatnonzero(one_cell)
+    pairs = _Pairs(
+        single, y.stored(first_row[single]), x.stored(first_col[single]), np.ones(single.size)
+    )
+    crossing = np.flatnonzero(overlaps & ~one_cell)
+    if crossing.size:
+        clipped, inside_planar = _clipped_pairs(in_grid[crossing], x, y, bounds[crossing])
+        partial = ~within[crossing]
+        share[crossing[partial]] = np.clip(
+            inside_planar[partial] / shapely.area(in_grid[crossing[partial]]), 0.0, 1.0
+        )
+        pairs = _Pairs(
+            np.concatenate([pairs.body, crossing[clipped.body]]),
+            np.concatenate([pairs.row, clipped.row]),
+            np.concatenate([pairs.col, clipped.col]),
+            np.concatenate([pairs.raw, clipped.raw]),
+        )
+    return pairs, share, within
+
+
+def _flags(areas: _LayerAreas, share: np.ndarray) -> np.ndarray:
+    tokens = (
+        (areas.repaired, "geometry_repaired"),
+        (areas.empty, "geometry_empty"),
+        (~areas.empty & (share == 0), "outside_grid"),
+        (~areas.empty & (share > 0) & (share < 1.0), "partly_outside_grid"),
+    )
+    flags = np.full(share.size, "", dtype=object)
+    for mask, token in tokens:
+        flags[mask] = np.where(flags[mask] == "", token, flags[mask] + ";" + token)
+    return flags
+
+
+def _warn_about_repairs(areas: _LayerAreas) -> None:
+    n_repaired, n_empty = int(areas.repaired.sum()), int(areas.empty.sum())
+    if n_repaired or n_empty:
+        warnings.warn(
+            f"{n_repaired} invalid water-body polygons were repaired and {n_empty} are empty "
+            "(flagged geometry_repaired / geometry_empty; empty ones get NaN results)",
+            GeometryRepairedWarning,
+            stacklevel=3,
+        )
+
+
+def build_weights(
+    polygons: gpd.GeoDataFrame,
+    grid: GridSpec,
+    *,
+    reprojected: gpd.GeoSeries | None = None,
+) -> ZonalWeights:
+    """Build the exact (water body x cell) area weights.
+
+    Parameters
+    ----------
+    polygons : geopandas.GeoDataFrame
+        Water bodies (Polygon / MultiPolygon, any CRS); row order is kept.
+    grid : GridSpec
+        The climate grid.
+    reprojected : geopandas.GeoSeries, optional
+        ``reproject_to_grid(polygons, grid)`` if already computed (it is shared with other
+        stages, so the caller may pass it in rather than pay for it twice).
+
+    Returns
+    -------
+    ZonalWeights
+        The weights, true areas, coverage and flags.
+
+    Notes
+    -----
+    A polygon whose bounding box lies within one cell goes to that cell with its full area,
+    without clipping. Others are clipped against the cells of their box in grid coordinates;
+    each piece's coverage fraction of its cell times the cell's true area is the raw weight,
+    and each row is then rescaled to the polygon's true area inside the grid (its true area
+    times the planar share inside the grid). Means from these weights equal exactextract's
+    means weighted by cell area, and row sums stay exact. Holes are excluded and the parts of
+    a multipolygon summed because clipping works on the whole geometry.
+    """
+    crs = CRS.from_user_input(check_layer(polygons))
+    areas = _layer_areas(polygons, crs)
+    if areas.empty.all():
+        raise GeometryError(
+            f"all {areas.empty.size} water-body geometries are empty; expected at least one "
+            "polygon with area; check the layer"
+        )
+    if reprojected is None:
+        reprojected = reproject_to_grid(polygons, grid)
+    if len(reprojected) != len(polygons):
+        raise GeometryError(
+            f"reprojected layer has {len(reprojected)} rows but the layer {len(polygons)}; "
+            "expected reproject_to_grid(polygons, grid) of the same layer"
+        )
+    in_grid = np.asarray(reprojected.array, dtype=object)
+    pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty)
+    if not pairs.body.size:
+        raise GridError(
+            f"none of the {int((~areas.empty).sum())} water bodies overlaps the climate grid "
+            f"(grid bounds {tuple(round(b, 4) for b in grid.bounds)} in {grid.crs.name}); "
+            "expected overlapping data; check the climate file's extent and CRS"
+        )
+    _warn_about_repairs(areas)
+    return _assemble(pairs, share, areas, grid)
+
+
+def _assemble(pairs: _Pairs, share: np.ndarray, areas: _LayerAreas, grid: GridSpec):
+    n = share.size
+    raw = pairs.raw * cell_true_area(grid, pairs.row, pairs.col)
+    raw_total = np.bincount(pairs.body, weights=raw, minlength=n)
+    grid_area = areas.area * share
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scale = np.where(raw_total > 0, grid_area / raw_total, 0.0)
+        coverage = np.where(areas.empty, np.nan, grid_area / areas.area)
+    ny, nx = grid.shape
+    matrix = sp.csr_matrix(
+        (raw * scale[pairs.body], (pairs.body, pairs.row * nx + pairs.col)), shape=(n, ny * nx)
+    )
+    return ZonalWeights(
+        matrix=matrix,
+        polygon_area_m2=areas.area,
+        grid_area_m2=grid_area,
+        grid_coverage=coverage,
+        area_before_repair_m2=areas.area_before_repair,
+        flags=_flags(areas, share),
+        centroid_lon=areas.centroid_lon,
+        centroid_lat=areas.centroid_lat,
+        grid_key=grid.key(),
+        grid=grid,
+    )
