@@ -1,0 +1,210 @@
+"""Deterministic CSV tables and the ``run.json`` writer.
+
+Identical inputs give byte-identical files: columns in the frame's order, rows in the
+frame's order (the caller sorts), a fixed number of decimals per float column where given and
+the shortest round-trip form otherwise, ``\\n`` line endings, UTF-8, no index and no time
+stamps. Missing values are empty fields. There is deliberately no header comment, because
+comment lines break ordinary CSV readers; cautions belong in ``run.json`` and the README.
+
+The CSV writer formats column by column in blocks of rows: pandas' own ``to_csv`` is about
+twice as slow on wide float tables and cannot take a per-column number of decimals.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime
+import json
+import math
+from collections.abc import Iterable, Mapping
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+_BLOCK_ROWS = 200_000
+_NEEDS_QUOTES = frozenset(',"\n\r')
+
+
+def write_csv(
+    path: str | Path, frame: pd.DataFrame, *, decimals: Mapping[str, int] | None = None
+) -> None:
+    """Write a table as deterministic CSV.
+
+    Parameters
+    ----------
+    path : str or Path
+        File to create (replaced if it exists).
+    frame : pandas.DataFrame
+        Table in its final column and row order; the index is not written.
+    decimals : mapping of str to int, optional
+        Number of decimals for numeric columns, e.g. ``{"evap_mm": 2, "evap_m3": 1}``.
+        Other float columns use the shortest representation that reads back exactly.
+
+    Raises
+    ------
+    ValueError
+        If ``decimals`` names a column the frame does not have, or a negative count.
+
+    Notes
+    -----
+    Dates are written as ``YYYY-MM-DD`` when every value of the column falls on midnight and
+    as ``YYYY-MM-DDTHH:MM:SS`` otherwise; this holds for numpy datetimes and for cftime dates
+    of any calendar alike. Booleans are written ``true``/``false``.
+    """
+    decimals = dict(decimals or {})
+    _check_decimals(frame, decimals)
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(",".join(_quote(str(name)) for name in frame.columns) + "\n")
+        for start in range(0, len(frame), _BLOCK_ROWS):
+            block = frame.iloc[start : start + _BLOCK_ROWS]
+            columns = [
+                _format_column(block.iloc[:, i], decimals.get(name))
+                for i, name in enumerate(frame.columns)
+            ]
+            fh.write("".join(",".join(row) + "\n" for row in zip(*columns, strict=True)))
+
+
+def write_json(path: str | Path, obj: object) -> None:
+    """Write ``obj`` as JSON with sorted keys, two-space indent and NaN as ``null``.
+
+    Parameters
+    ----------
+    path : str or Path
+        File to create (replaced if it exists).
+    obj : object
+        Mappings, sequences, strings, numbers, booleans and None; also numpy scalars and
+        arrays, paths, dates, sets (sorted) and dataclass instances.
+
+    Raises
+    ------
+    TypeError
+        If ``obj`` holds a value of a type with no JSON form.
+
+    Notes
+    -----
+    JSON has no NaN or infinity; both become ``null``. Mapping keys become strings.
+    """
+    text = json.dumps(
+        to_jsonable(obj), sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False
+    )
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(text + "\n")
+
+
+def to_jsonable(obj: object) -> object:
+    """Convert ``obj`` to plain JSON types (see :func:`write_json`)."""
+    if obj is None or isinstance(obj, bool | str | int):
+        return obj
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, np.generic | np.ndarray):
+        return to_jsonable(obj.tolist())
+    if isinstance(obj, Mapping):
+        return {str(key): to_jsonable(value) for key, value in obj.items()}
+    if isinstance(obj, set | frozenset):
+        return [to_jsonable(v) for v in sorted(obj, key=str)]
+    if isinstance(obj, list | tuple):
+        return [to_jsonable(v) for v in obj]
+    if isinstance(obj, Path):
+        return str(obj)
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return to_jsonable(dataclasses.asdict(obj))
+    if _is_date(obj):
+        return obj.isoformat()  # type: ignore[attr-defined]
+    raise TypeError(
+        f"cannot write a {type(obj).__name__} to JSON; expected mappings, sequences, "
+        "strings, numbers, booleans or None; convert it before writing"
+    )
+
+
+def _check_decimals(frame: pd.DataFrame, decimals: Mapping[str, int]) -> None:
+    unknown = sorted(set(decimals) - {str(c) for c in frame.columns})
+    if unknown:
+        raise ValueError(
+            f"decimals given for columns {unknown} that the table does not have; "
+            f"expected some of {[str(c) for c in frame.columns]}"
+        )
+    negative = sorted(name for name, count in decimals.items() if int(count) < 0)
+    if negative:
+        raise ValueError(f"negative decimals for columns {negative}; expected counts >= 0")
+
+
+def _format_column(series: pd.Series, decimals: int | None) -> list[str]:
+    """Text of each value of one column, missing values as empty strings."""
+    kind = series.dtype.kind
+    if kind == "f" and decimals is None and series.dtype.itemsize == 4:
+        # Shortest text of the float32 value itself, not of its float64 widening.
+        return [
+            "" if v != v else str(v) for v in series.to_numpy(dtype=np.float32, na_value=np.nan)
+        ]
+    if kind in "fiu" and (decimals is not None or kind == "f"):
+        values = series.to_numpy(dtype=float, na_value=np.nan)
+        return _format_floats(values, decimals)
+    if kind in "iu" and not series.hasnans:
+        return [str(v) for v in series.to_numpy().tolist()]
+    if kind == "M" and getattr(series.dtype, "tz", None) is None:
+        return _format_datetime64(series.to_numpy(dtype="datetime64[s]"))
+    values = series.to_numpy(dtype=object, na_value=None).tolist()
+    if any(_is_date(v) for v in values):
+        return _format_dates(values)
+    return [_format_scalar(v, decimals) for v in values]
+
+
+def _format_floats(values: np.ndarray, decimals: int | None) -> list[str]:
+    if decimals is None:
+        return ["" if v != v else repr(v) for v in values.tolist()]
+    template = f"{{:.{int(decimals)}f}}".format
+    # "-0.00" for a tiny negative is noise that differs between otherwise equal runs.
+    negative_zero = template(-0.0)
+    zero = template(0.0)
+    texts = ["" if v != v else template(v) for v in values.tolist()]
+    return [zero if t == negative_zero else t for t in texts]
+
+
+def _format_scalar(value: object, decimals: int | None) -> str:
+    if value is None or value is pd.NaT or (isinstance(value, float) and value != value):
+        return ""
+    if isinstance(value, bool | np.bool_):
+        return "true" if value else "false"
+    if isinstance(value, float | np.floating):
+        return _format_floats(np.array([value], dtype=float), decimals)[0]
+    return _quote(str(value))
+
+
+def _format_datetime64(values: np.ndarray) -> list[str]:
+    """Vectorised form of :func:`_format_dates` for naive numpy datetimes."""
+    present = values[~np.isnat(values)]
+    date_only = bool(np.all(present == present.astype("datetime64[D]")))
+    texts = np.datetime_as_string(values, unit="D" if date_only else "s").tolist()
+    return ["" if t == "NaT" else t for t in texts]
+
+
+def _format_dates(values: Iterable[object]) -> list[str]:
+    values = list(values)
+    present = [v for v in values if v is not None and v is not pd.NaT]
+    date_only = all(
+        (v.hour, v.minute, v.second, getattr(v, "microsecond", 0)) == (0, 0, 0, 0)  # type: ignore[attr-defined]
+        if hasattr(v, "hour")
+        else True
+        for v in present
+    )
+    pattern = "%Y-%m-%d" if date_only else "%Y-%m-%dT%H:%M:%S"
+    return [
+        "" if v is None or v is pd.NaT else v.strftime(pattern)  # type: ignore[attr-defined]
+        for v in values
+    ]
+
+
+def _is_date(value: object) -> bool:
+    """Whether a value is a date or date-time (datetime, pandas, numpy or cftime)."""
+    if isinstance(value, datetime.date):
+        return True
+    return hasattr(value, "strftime") and hasattr(value, "calendar")
+
+
+def _quote(text: str) -> str:
+    """Quote a field the way RFC 4180 asks, only when it has to be."""
+    if _NEEDS_QUOTES.isdisjoint(text):
+        return text
+    return '"' + text.replace('"', '""') + '"'
