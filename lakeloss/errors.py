@@ -81,3 +81,7 @@ class AssumedCRSWarning(LakelossWarning):
 
 class ValuesAdjustedWarning(LakelossWarning):
     """Values were adjusted, e.g. negative evaporation clipped to zero."""
+
+
+class ClusterError(LakelossError, RuntimeError):
+    """A dask.distributed cluster could not be reached, or lost part of the run."""

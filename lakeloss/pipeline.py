@@ -26,7 +26,6 @@ from lakeloss.config import RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
     GridError,
-    ImplausibleValuesError,
     LakelossWarning,
     MissingInputError,
     ValuesAdjustedWarning,
@@ -260,7 +259,52 @@ def _static_inputs(config: RunConfig, inputs: Inputs,
     return static
 
 
-def extract_block(inputs: Inputs, weights: Mapping[str, ZonalWeights],
+@dataclass(frozen=True)
+class BlockContext:
+    """What one block's computation needs: light enough to send to a cluster worker.
+
+    The lazy climate fields travel by reference (xarray reopens the files on the worker);
+    the weights and the per-body inputs are passed separately so a cluster can scatter them
+    once.
+    """
+
+    fields: Mapping[str, Any]
+    field_grid: Mapping[str, str]
+    methods: tuple[str, ...]
+    primary: str
+    parameters: Mapping[str, object]
+    day_of_year: np.ndarray
+    days: np.ndarray
+    period_index: np.ndarray
+    keep_series: bool = False
+
+
+@dataclass
+class BlockResult:
+    """One block's contribution to the period sums (only the periods it touches)."""
+
+    block: slice
+    periods: np.ndarray
+    depth: dict[str, np.ndarray]
+    precip: np.ndarray | None
+    valid_steps: np.ndarray
+    coverage_sum: np.ndarray
+    negatives: dict[str, int]
+    negatives_per_body: np.ndarray
+    steps: int
+    series: dict[str, np.ndarray] | None = None
+
+
+def block_context(config: RunConfig, inputs: Inputs, keep_series: bool = False) -> BlockContext:
+    return BlockContext(
+        fields=inputs.fields, field_grid=dict(inputs.field_grid), methods=config.method.all,
+        primary=config.method.name, parameters=dict(config.parameters),
+        day_of_year=inputs.axis.day_of_year, days=inputs.axis.days,
+        period_index=inputs.periods.index, keep_series=keep_series,
+    )
+
+
+def extract_block(context: BlockContext, weights: Mapping[str, ZonalWeights],
                   block: slice) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Area-weighted means of every variable for one block of time steps.
 
@@ -269,42 +313,45 @@ def extract_block(inputs: Inputs, weights: Mapping[str, ZonalWeights],
     """
     means: dict[str, np.ndarray] = {}
     valid_min: np.ndarray | None = None
-    grids = _grid_values(inputs, block)
-    for quantity, values in grids.items():
-        mean, valid = weights[inputs.field_grid[quantity]].apply(values)
+    for quantity, (values, grid_key) in _grid_values(context, block).items():
+        mean, valid = weights[grid_key].apply(values)
         means[quantity] = mean
         valid_min = valid if valid_min is None else np.minimum(valid_min, valid)
     assert valid_min is not None  # load_inputs guarantees at least one field
     return means, valid_min
 
 
-def _grid_values(inputs: Inputs, block: slice) -> dict[str, np.ndarray]:
-    values = {q: np.asarray(f.data.isel(time=block).values, dtype=np.float64)
-              for q, f in inputs.fields.items()}
+def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndarray, str]]:
+    # The synchronous scheduler: the block is already the unit of parallel work, and a
+    # cluster worker must not hand its reads back to the cluster.
+    values = {q: (np.asarray(f.data.isel(time=block).compute(scheduler="synchronous").values,
+                             dtype=np.float64), context.field_grid[q])
+              for q, f in context.fields.items()}
     if "wind_speed" not in values and {"eastward_wind", "northward_wind"} <= set(values):
         # Speed from components on the grid, before averaging: the mean of the speed is
         # what the wind functions want, not the speed of the mean vector.
-        values["wind_speed"] = np.hypot(values.pop("eastward_wind"),
-                                        values.pop("northward_wind"))
-        inputs.field_grid.setdefault("wind_speed", inputs.field_grid["eastward_wind"])
+        east, key = values.pop("eastward_wind")
+        north, _ = values.pop("northward_wind")
+        values["wind_speed"] = (np.hypot(east, north), key)
     return values
 
 
-def evaporate_block(config: RunConfig, means: Mapping[str, np.ndarray],
+def evaporate_block(context: BlockContext, means: Mapping[str, np.ndarray],
                     static: Mapping[str, np.ndarray],
                     day_of_year: np.ndarray) -> dict[str, np.ndarray]:
     """Evaporation rate [mm day-1] of every configured method for one block."""
     physics_inputs: dict[str, Any] = {**means, **static,
                                       "day_of_year": day_of_year[:, np.newaxis]}
     physics_inputs.pop("precipitation", None)
-    params = {k: v for k, v in config.parameters.items() if k != "clip_negative"}
+    params = {k: v for k, v in context.parameters.items() if k != "clip_negative"}
+    shape = next(iter(means.values())).shape
     rates = {}
-    for name in config.method.all:
+    for name in context.methods:
         method_params = {k: v for k, v in params.items() if k in registry.get(name).parameters}
         with np.errstate(invalid="ignore", divide="ignore"):
             rate = np.asarray(registry.evaporate(name, physics_inputs, method_params),
                               dtype=np.float64)
-        rates[name] = np.broadcast_to(rate, next(iter(means.values())).shape)
+        rates[name] = np.broadcast_to(rate, shape)
     return rates
 
 
@@ -314,29 +361,56 @@ def _segment_sums(values: np.ndarray, period_index: np.ndarray) -> tuple[np.ndar
     return period_index[starts], np.add.reduceat(values, starts, axis=0)
 
 
-def accumulate_block(sums: PeriodSums, config: RunConfig, rates: Mapping[str, np.ndarray],
-                     precip: np.ndarray | None, valid: np.ndarray, days: np.ndarray,
-                     period_index: np.ndarray) -> None:
-    """Add one block's depths [mm] into the running period sums."""
-    clip = bool(config.parameters.get("clip_negative", True))
+def compute_block(context: BlockContext, weights: Mapping[str, ZonalWeights],
+                  static: Mapping[str, np.ndarray], block: slice) -> BlockResult:
+    """Extract, evaporate and sum one block of time steps into its periods.
+
+    A pure function of its arguments: the same block gives the same numbers wherever it
+    runs, which is what makes local and cluster runs identical.
+    """
+    means, valid = extract_block(context, weights, block)
+    rates = evaporate_block(context, means, static, context.day_of_year[block])
+    days = context.days[block][:, None]
+    index = context.period_index[block]
+    clip = bool(context.parameters.get("clip_negative", True))
+    depth, negatives = {}, {}
+    negatives_per_body = np.zeros(valid.shape[1], dtype=np.int64)
+    periods = np.empty(0, dtype=np.int64)
     for name, rate in rates.items():
         negative = rate < 0
-        count = int(negative.sum())
-        sums.negatives[name] = sums.negatives.get(name, 0) + count
-        if name == config.method.name:
-            sums.negatives_per_body += negative.sum(axis=0)
-        if clip and count:
+        negatives[name] = int(negative.sum())
+        if name == context.primary:
+            negatives_per_body = negative.sum(axis=0)
+        if clip and negatives[name]:
             rate = np.where(negative, 0.0, rate)
-        periods, depth = _segment_sums(rate * days[:, None], period_index)
-        sums.depth[name][periods] += depth
-    if precip is not None:
-        periods, depth = _segment_sums(precip * days[:, None], period_index)
-        sums.precip[periods] += depth
-    primary = rates[config.method.name]
-    periods, count = _segment_sums(np.isfinite(primary).astype(np.int64), period_index)
-    sums.valid_steps[periods] += count
-    sums.coverage_sum += valid.sum(axis=0)
-    sums.steps += len(days)
+        periods, depth[name] = _segment_sums(rate * days, index)
+    precip = means.get("precipitation")
+    precip_sums = _segment_sums(precip * days, index)[1] if precip is not None else None
+    finite = np.isfinite(rates[context.primary]).astype(np.int64)
+    series = None
+    if context.keep_series:
+        series = {"evaporation_rate": np.asarray(rates[context.primary], dtype=np.float32)}
+        if precip is not None:
+            series["precipitation_rate"] = precip.astype(np.float32)
+    return BlockResult(
+        block=block, periods=periods, depth=depth, precip=precip_sums,
+        valid_steps=_segment_sums(finite, index)[1], coverage_sum=valid.sum(axis=0),
+        negatives=negatives, negatives_per_body=negatives_per_body,
+        steps=block.stop - block.start, series=series,
+    )
+
+
+def merge_block(sums: PeriodSums, part: BlockResult) -> None:
+    """Add one block's result into the running sums (always in block order)."""
+    for name, depth in part.depth.items():
+        sums.depth[name][part.periods] += depth
+        sums.negatives[name] = sums.negatives.get(name, 0) + part.negatives[name]
+    if part.precip is not None:
+        sums.precip[part.periods] += part.precip
+    sums.valid_steps[part.periods] += part.valid_steps
+    sums.coverage_sum += part.coverage_sum
+    sums.negatives_per_body += part.negatives_per_body
+    sums.steps += part.steps
 
 
 def new_sums(config: RunConfig, n_periods: int, n: int) -> PeriodSums:
@@ -351,29 +425,26 @@ def new_sums(config: RunConfig, n_periods: int, n: int) -> PeriodSums:
 
 
 ProgressFactory = Callable[[int, str], Any]
+SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 
 
 def compute_sums(config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights],
                  progress: ProgressFactory | None = None,
-                 series_sink: Callable[[slice, dict[str, np.ndarray]], None] | None = None,
-                 ) -> PeriodSums:
-    """Extract, evaporate and accumulate every block of the run, in time order."""
-    axis, periods = inputs.axis, inputs.periods
+                 series_sink: SeriesSink | None = None) -> PeriodSums:
+    """Run every block (locally or on a cluster) and merge the results in time order."""
+    from lakeloss.execution import run_blocks
+
+    context = block_context(config, inputs, keep_series=series_sink is not None)
     static = _static_inputs(config, inputs, weights)
-    sums = new_sums(config, len(periods.starts), inputs.n_waterbodies)
-    steps = block_steps(config, inputs)
-    bar = progress(len(axis.days), "evaporation") if progress else None
-    for block in iter_blocks(len(axis.days), steps):
-        means, valid = extract_block(inputs, weights, block)
-        rates = evaporate_block(config, means, static, axis.day_of_year[block])
-        precip = means.get("precipitation")
-        accumulate_block(sums, config, rates, precip, valid, axis.days[block],
-                         periods.index[block])
-        if series_sink is not None:
-            series_sink(block, {"evaporation_rate": rates[config.method.name],
-                                **({"precipitation_rate": precip} if precip is not None else {})})
+    sums = new_sums(config, len(inputs.periods.starts), inputs.n_waterbodies)
+    blocks = list(iter_blocks(len(inputs.axis.days), block_steps(config, inputs)))
+    bar = progress(len(inputs.axis.days), "evaporation") if progress else None
+    for part in run_blocks(config.compute, context, weights, static, blocks):
+        merge_block(sums, part)
+        if series_sink is not None and part.series is not None:
+            series_sink(part.block, part.series)
         if bar is not None:
-            bar.update(block.stop - block.start)
+            bar.update(part.steps)
     if bar is not None:
         bar.close()
     return sums
@@ -436,6 +507,3 @@ class SeriesCollector:
         arrays = {k: np.concatenate(v, axis=0) for k, v in self.blocks.items()}
         return series_dataset(self.inputs, arrays)
 
-
-def plausibility_error(reason: str) -> ImplausibleValuesError:
-    return ImplausibleValuesError(reason)
