@@ -19,6 +19,7 @@ import shutil
 import tempfile
 from pathlib import Path
 from types import TracebackType
+from typing import Literal
 
 from lakeloss.errors import OutputError
 
@@ -97,7 +98,7 @@ class OutputDirectory:
         exc_type: type[BaseException] | None,
         exc: BaseException | None,
         traceback: TracebackType | None,
-    ) -> bool:
+    ) -> Literal[False]:
         staging = self.staging
         if staging is None:
             return False
@@ -166,7 +167,7 @@ def clean_stale(target: str | Path) -> list[Path]:
     pattern = re.compile(
         rf"^\.{re.escape(target.name)}\.(?P<kind>{_PARTIAL}|{_OLD})-(?P<pid>\d+)(?:-.*)?$"
     )
-    handled = []
+    handled: list[Path] = []
     if not target.parent.is_dir():
         return handled
     for entry in sorted(target.parent.iterdir()):
