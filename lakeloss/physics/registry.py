@@ -1,0 +1,537 @@
+"""Registry of evaporation methods: what each needs, its parameters, and how to run it.
+
+Each method is a :class:`MethodSpec` naming its required inputs (groups of alternatives, each
+alternative a '+'-joined set of glossary names), its optional inputs, its parameters with
+defaults and valid ranges, a one-line description and its reference. :func:`evaporate`
+prepares the forcing from whatever inputs are given (:mod:`lakeloss.physics.forcing`) and
+returns the rate in mm day-1 as a numpy array.
+"""
+
+from __future__ import annotations
+
+import difflib
+import itertools
+import math
+from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import Any
+
+import numpy as np
+
+from lakeloss.errors import ConfigError, MissingInputError, ParameterRangeError, UnknownMethodError
+from lakeloss.physics import atmosphere as atm
+from lakeloss.physics import forcing as frc
+from lakeloss.physics import methods as mth
+from lakeloss.physics import windfunctions as wf
+
+from lakeloss.physics._types import ArrayLike
+
+_Checked = Mapping[str, Any]
+"""Parameters after :func:`validate_parameters`: floats and strings, every key present."""
+
+
+@dataclass(frozen=True)
+class ParameterSpec:
+    """One tunable parameter shared by the methods that use it.
+
+    Attributes
+    ----------
+    name : str
+        Parameter name as written in the run configuration.
+    default : float or str
+        Value used when the configuration does not set it.
+    minimum, maximum : float or None
+        Inclusive valid range for numeric parameters; None for string parameters.
+    unit : str
+        Unit of the value (pint syntax; "1" for dimensionless).
+    description : str
+        One line for humans, with the source of the default.
+    choices : tuple of str or None
+        Allowed values of a string parameter.
+    """
+
+    name: str
+    default: float | str
+    minimum: float | None
+    maximum: float | None
+    unit: str
+    description: str
+    choices: tuple[str, ...] | None = None
+
+
+@dataclass(frozen=True)
+class MethodSpec:
+    """What an evaporation method needs and how it is parameterised.
+
+    Attributes
+    ----------
+    name : str
+        Registry name.
+    description : str
+        One line.
+    reference : str
+        Published source of the method.
+    requires : tuple of tuple of str
+        Each entry is one need; its items are alternatives, each a '+'-joined set of glossary
+        names that together satisfy the need.
+    optional : tuple of str
+        Inputs used when present.
+    parameters : Mapping[str, ParameterSpec]
+        Parameters of this method, by name.
+    """
+
+    name: str
+    description: str
+    reference: str
+    requires: tuple[tuple[str, ...], ...]
+    optional: tuple[str, ...]
+    parameters: Mapping[str, ParameterSpec]
+    compute: Callable[[frc.Inputs, _Checked], ArrayLike] = field(repr=False, compare=False)
+
+
+_PARAMETERS: dict[str, ParameterSpec] = {
+    spec.name: spec
+    for spec in (
+        ParameterSpec("albedo", 0.08, 0.0, 0.3, "1",
+                      "shortwave albedo of the water (0.08, Shuttleworth 1993; 0.05-0.08 usual)"),
+        ParameterSpec("roughness_length_m", 0.0003, 1.0e-5, 0.01, "m",
+                      "roughness length over water (0.03 cm, common practice; 1e-4 to 1e-3 usual)"),
+        ParameterSpec("wind_height_m", 10.0, 0.5, 100.0, "m",
+                      "height of the wind_speed input above the surface"),
+        ParameterSpec("wind_profile", "fao56", None, None, "1",
+                      "moving wind to 2 m: fao56 (FAO-56 eq. 47, land wind) or log (log law, z0)",
+                      ("fao56", "log")),
+        ParameterSpec("von_karman", 0.4, 0.35, 0.43, "1",
+                      "von Karman constant (0.4, Chow et al. 1988; FAO-56 uses 0.41)"),
+        ParameterSpec("priestley_taylor_alpha", 1.26, 1.0, 1.5, "1",
+                      "Priestley-Taylor coefficient (1.26, Priestley & Taylor 1972)"),
+        ParameterSpec("pan_coefficient", 0.7, 0.5, 1.0, "1",
+                      "pan-to-lake coefficient (0.7 for Class A pans, common practice)"),
+        ParameterSpec("elevation_m", 0.0, -450.0, 9000.0, "m",
+                      "water-surface elevation used when no elevation input is supplied"),
+        ParameterSpec("small_water_body_wind_form", "mcjannet_length", None, None, "1",
+                      "area-dependent wind function: (2.33+1.65u2)L^-0.1 or (2.36+1.67u2)A^-0.05",
+                      tuple(wf.SMALL_WATER_BODY_FORMS)),
+    )
+}  # fmt: skip
+
+
+def _params(*names: str) -> Mapping[str, ParameterSpec]:
+    return MappingProxyType({name: _PARAMETERS[name] for name in names})
+
+
+def _cross(*groups: tuple[str, ...]) -> tuple[str, ...]:
+    """Every way to satisfy all groups at once, as '+'-joined name sets without repeats."""
+    combos = []
+    for parts in itertools.product(*groups):
+        names = dict.fromkeys(name for part in parts for name in part.split("+"))
+        combos.append("+".join(names))
+    return tuple(combos)
+
+
+# Net radiation from shortwave needs humidity for the longwave term; methods that need
+# humidity anyway list the two needs separately, the others need the combined alternatives.
+_RADIATION_ALONE = (
+    frc.RADIATION_ALTERNATIVES[0],
+    *_cross((frc.RADIATION_ALTERNATIVES[1],), frc.HUMIDITY_ALTERNATIVES),
+)
+_TURBULENT_NEEDS = (
+    frc.TEMPERATURE_ALTERNATIVES,
+    frc.HUMIDITY_ALTERNATIVES,
+    frc.WIND_ALTERNATIVES,
+)
+_PRESSURE_OPTIONAL = ("surface_air_pressure", "elevation")
+_RADIATION_OPTIONAL = (
+    "air_temperature_max",
+    "air_temperature_min",
+    "elevation",
+    "heat_storage_flux",
+)
+
+
+# ---------------------------------------------------------------------------------------
+# Shared preparation of the thermodynamic state
+# ---------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _State:
+    temperature: ArrayLike  # [°C]
+    vapour_pressure: ArrayLike  # [Pa]
+    deficit: ArrayLike  # [Pa]
+    pressure: ArrayLike  # [Pa]
+    latent_heat: ArrayLike  # [J kg-1]
+    slope: ArrayLike  # [Pa K-1]
+    gamma: ArrayLike  # [Pa K-1]
+
+
+def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _State:
+    temperature = frc.mean_temperature(inputs)
+    latent_heat = atm.latent_heat_of_vaporisation(temperature)
+    pressure = frc.surface_pressure(inputs, float(params.get("elevation_m", 0.0)))
+    ea = frc.vapour_pressure(inputs) if humidity else math.nan
+    return _State(
+        temperature=temperature,
+        vapour_pressure=ea,
+        deficit=frc.saturation_vapour_pressure(inputs) - ea if humidity else math.nan,
+        pressure=pressure,
+        latent_heat=latent_heat,
+        slope=atm.saturation_vapour_pressure_slope(temperature),
+        gamma=atm.psychrometric_constant(pressure, latent_heat),
+    )
+
+
+def _net_radiation(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    if "surface_net_downward_radiative_flux" in inputs:
+        return inputs["surface_net_downward_radiative_flux"]
+    return frc.net_radiation(
+        inputs, frc.vapour_pressure(inputs), float(params["albedo"]), float(params["elevation_m"])
+    )
+
+
+def _wind_2m(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    return frc.wind_speed_2m(
+        inputs,
+        float(params["wind_height_m"]),
+        str(params["wind_profile"]),
+        float(params["roughness_length_m"]),
+    )
+
+
+# ---------------------------------------------------------------------------------------
+# One compute function per method: inputs + validated parameters -> mm day-1
+# ---------------------------------------------------------------------------------------
+
+
+def _energy_balance(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    latent_heat = atm.latent_heat_of_vaporisation(frc.mean_temperature(inputs))
+    return mth.energy_balance_evaporation(
+        _net_radiation(inputs, params), latent_heat, frc.heat_storage_flux(inputs)
+    )
+
+
+def _aerodynamic_rate(inputs: frc.Inputs, params: _Checked, state: _State) -> ArrayLike:
+    deficit = state.deficit
+    if "water_surface_temperature" in inputs:
+        deficit = (
+            atm.saturation_vapour_pressure(inputs["water_surface_temperature"])
+            - state.vapour_pressure
+        )
+    coefficient = wf.mass_transfer_coefficient(
+        _wind_2m(inputs, params),
+        atm.air_density(state.temperature, state.pressure, state.vapour_pressure),
+        state.pressure,
+        2.0,
+        float(params["roughness_length_m"]),
+        float(params["von_karman"]),
+    )
+    return mth.aerodynamic_evaporation(deficit, coefficient)
+
+
+def _aerodynamic(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    return _aerodynamic_rate(inputs, params, _state(inputs, params))
+
+
+def _combination(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    state = _state(inputs, params)
+    energy = mth.energy_balance_evaporation(
+        _net_radiation(inputs, params), state.latent_heat, frc.heat_storage_flux(inputs)
+    )
+    return mth.combination_evaporation(
+        energy, _aerodynamic_rate(inputs, params, state), state.slope, state.gamma
+    )
+
+
+def _priestley_taylor(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    state = _state(inputs, params, humidity=False)
+    return mth.priestley_taylor_evaporation(
+        _net_radiation(inputs, params),
+        state.slope,
+        state.gamma,
+        state.latent_heat,
+        frc.heat_storage_flux(inputs),
+        float(params["priestley_taylor_alpha"]),
+    )
+
+
+def _penman_with(
+    inputs: frc.Inputs, params: _Checked, wind_function: ArrayLike, state: _State
+) -> ArrayLike:
+    return mth.penman_evaporation(
+        _net_radiation(inputs, params),
+        state.deficit,
+        wind_function,
+        state.slope,
+        state.gamma,
+        state.latent_heat,
+        frc.heat_storage_flux(inputs),
+    )
+
+
+def _penman_open_water(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    state = _state(inputs, params)
+    wind_function = wf.shuttleworth_wind_function(_wind_2m(inputs, params), state.latent_heat)
+    return _penman_with(inputs, params, wind_function, state)
+
+
+def _penman_small_water_body(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    state = _state(inputs, params)
+    wind_function = wf.small_water_body_wind_function(
+        _wind_2m(inputs, params), inputs["area_m2"], str(params["small_water_body_wind_form"])
+    )
+    return _penman_with(inputs, params, wind_function, state)
+
+
+def _penman_monteith(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    state = _state(inputs, params)
+    resistance = wf.aerodynamic_resistance(
+        _wind_2m(inputs, params), 2.0, float(params["roughness_length_m"]),
+        float(params["von_karman"]),
+    )  # fmt: skip
+    return mth.penman_monteith_open_water_evaporation(
+        _net_radiation(inputs, params),
+        state.deficit,
+        resistance,
+        atm.air_density(state.temperature, state.pressure, state.vapour_pressure),
+        state.slope,
+        state.gamma,
+        state.latent_heat,
+        frc.heat_storage_flux(inputs),
+    )
+
+
+def _pan(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+    return mth.pan_coefficient_evaporation(
+        inputs["pan_evaporation"], float(params["pan_coefficient"])
+    )
+
+
+_WIND_PARAMS = ("wind_height_m", "wind_profile", "roughness_length_m")
+
+_METHODS: dict[str, MethodSpec] = {
+    spec.name: spec
+    for spec in (
+        MethodSpec(
+            "energy_balance",
+            "all available energy (Rn - G) evaporates; no sensible heat",
+            "Chow, Maidment & Mays (1988) Applied Hydrology, section 3.5",
+            (frc.TEMPERATURE_ALTERNATIVES, _RADIATION_ALONE),
+            _RADIATION_OPTIONAL,
+            _params("albedo", "elevation_m"),
+            _energy_balance,
+        ),
+        MethodSpec(
+            "aerodynamic",
+            "mass transfer B(es - ea), B from the neutral log wind profile over water",
+            "Chow, Maidment & Mays (1988) Applied Hydrology, section 3.5",
+            _TURBULENT_NEEDS,
+            (*_PRESSURE_OPTIONAL, "water_surface_temperature"),
+            _params(*_WIND_PARAMS, "von_karman", "elevation_m"),
+            _aerodynamic,
+        ),
+        MethodSpec(
+            "combination",
+            "energy-balance and aerodynamic rates weighted by D/(D+g) and g/(D+g)",
+            "Chow, Maidment & Mays (1988) Applied Hydrology, section 3.5",
+            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
+            (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL[:2], "heat_storage_flux",
+             "water_surface_temperature"),
+            _params("albedo", *_WIND_PARAMS, "von_karman", "elevation_m"),
+            _combination,
+        ),
+        MethodSpec(
+            "priestley_taylor",
+            "alpha times the equilibrium (radiation-driven) evaporation",
+            "Priestley & Taylor (1972) Mon. Weather Rev. 100, 81-92",
+            (frc.TEMPERATURE_ALTERNATIVES, _RADIATION_ALONE),
+            (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
+            _params("albedo", "priestley_taylor_alpha", "elevation_m"),
+            _priestley_taylor,
+        ),
+        MethodSpec(
+            "penman_open_water",
+            "Penman combination with the open-water wind function 6.43(1 + 0.536 u2)/lambda",
+            "Shuttleworth (1993) Evaporation, Handbook of Hydrology ch. 4, eq. 4.2.30",
+            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
+            (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
+            _params("albedo", *_WIND_PARAMS, "elevation_m"),
+            _penman_open_water,
+        ),
+        MethodSpec(
+            "penman_monteith_open_water",
+            "Penman-Monteith with zero surface resistance and ra from the water roughness",
+            "Allen et al. (1998) FAO-56 eqs. 3-4, with rs = 0 and z0 of water",
+            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
+            (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
+            _params("albedo", *_WIND_PARAMS, "von_karman", "elevation_m"),
+            _penman_monteith,
+        ),
+        MethodSpec(
+            "penman_small_water_body",
+            "Penman combination with an area-dependent wind function for small water bodies",
+            "McJannet, Webster & Cook (2012) Environ. Model. Softw. 31, 76-83",
+            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES, ("area_m2",)),
+            (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
+            _params("albedo", *_WIND_PARAMS, "small_water_body_wind_form", "elevation_m"),
+            _penman_small_water_body,
+        ),
+        MethodSpec(
+            "pan_coefficient",
+            "pan evaporation times a pan-to-lake coefficient",
+            "Kohler, Nordenson & Fox (1955) US Weather Bureau Research Paper 38",
+            (("pan_evaporation",),),
+            (),
+            _params("pan_coefficient"),
+            _pan,
+        ),
+    )
+}  # fmt: skip
+
+
+# ---------------------------------------------------------------------------------------
+# Public interface
+# ---------------------------------------------------------------------------------------
+
+
+def method_names() -> tuple[str, ...]:
+    """Names of all registered methods, in registry order."""
+    return tuple(_METHODS)
+
+
+def get(name: str) -> MethodSpec:
+    """The :class:`MethodSpec` of ``name``; :class:`UnknownMethodError` if there is none."""
+    try:
+        return _METHODS[name]
+    except (KeyError, TypeError):
+        raise UnknownMethodError(_unknown_message("evaporation method", name, _METHODS)) from None
+
+
+def _unknown_message(kind: str, name: object, known: Iterable[str]) -> str:
+    known = list(known)
+    close = difflib.get_close_matches(str(name), known, n=1)
+    hint = f" (did you mean {close[0]!r}?)" if close else ""
+    return f"unknown {kind} {name!r}{hint}; expected one of: {', '.join(known)}"
+
+
+def _satisfied(alternative: str, available: set[str]) -> bool:
+    return all(part in available for part in alternative.split("+"))
+
+
+def missing_inputs(name: str, available: Iterable[str]) -> list[str]:
+    """What ``name`` still needs, given the ``available`` input names; [] when runnable.
+
+    Each item is one unmet need: a glossary name, or ``"one of: a | b+c | ..."`` listing the
+    alternatives that would satisfy it.
+    """
+    spec = get(name)
+    have = set(available)
+    missing = []
+    for group in spec.requires:
+        if any(_satisfied(alternative, have) for alternative in group):
+            continue
+        missing.append(group[0] if len(group) == 1 else "one of: " + " | ".join(group))
+    return missing
+
+
+def runnable(available: Iterable[str]) -> list[str]:
+    """Names of the methods that can run with the ``available`` input names."""
+    have = set(available)
+    return [name for name in _METHODS if not missing_inputs(name, have)]
+
+
+def parameter_specs() -> dict[str, ParameterSpec]:
+    """Every parameter of every method, by name (a name means the same thing everywhere)."""
+    return dict(_PARAMETERS)
+
+
+def _check_value(spec: ParameterSpec, value: object) -> float | str:
+    if spec.choices is not None:
+        if value not in spec.choices:
+            raise ParameterRangeError(
+                f"parameter {spec.name!r} is {value!r}; expected one of: "
+                f"{', '.join(spec.choices)}; set it to one of those"
+            )
+        return str(value)
+    if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
+        raise ConfigError(
+            f"parameter {spec.name!r} is {value!r} of type {type(value).__name__}; "
+            f"expected a number in [{spec.minimum}, {spec.maximum}] {spec.unit}"
+        )
+    number = float(value)
+    assert spec.minimum is not None and spec.maximum is not None
+    if not spec.minimum <= number <= spec.maximum:
+        raise ParameterRangeError(
+            f"parameter {spec.name!r} is {number:g}; expected {spec.minimum:g} to "
+            f"{spec.maximum:g} {spec.unit}; set a value within that range"
+        )
+    return number
+
+
+def validate_parameters(name: str, params: Mapping[str, object]) -> dict[str, object]:
+    """The parameters of method ``name`` with defaults filled in and values checked.
+
+    Names that belong to other methods are ignored (one configuration feeds several
+    methods); names that belong to no method raise :class:`ConfigError`. Numbers outside
+    their range, or strings outside their choices, raise :class:`ParameterRangeError`.
+    """
+    spec = get(name)
+    for key in params:
+        if key not in _PARAMETERS:
+            raise ConfigError(_unknown_message("parameter", key, _PARAMETERS))
+    return {
+        key: _check_value(param, params.get(key, param.default))
+        for key, param in spec.parameters.items()
+    }
+
+
+def _used_shapes(spec: MethodSpec, inputs: Mapping[str, np.ndarray]) -> list[tuple[int, ...]]:
+    names = {part for group in spec.requires for alt in group for part in alt.split("+")}
+    names.update(spec.optional)
+    return [inputs[key].shape for key in names if key in inputs]
+
+
+def evaporate(
+    name: str,
+    inputs: Mapping[str, ArrayLike],
+    params: Mapping[str, object] | None = None,
+) -> np.ndarray:
+    """Evaporation rate of method ``name`` for one or many time steps.
+
+    Parameters
+    ----------
+    name : str
+        Registered method name.
+    inputs : Mapping[str, array_like]
+        Glossary-named inputs in glossary units, broadcastable to one another.
+    params : Mapping[str, object], optional
+        Parameter values; missing ones take their defaults.
+
+    Returns
+    -------
+    numpy.ndarray
+        Evaporation rate, broadcast over the inputs the method uses; NaN where an input is
+        NaN; negative values as computed. [mm day-1]
+
+    Raises
+    ------
+    UnknownMethodError
+        ``name`` is not registered.
+    MissingInputError
+        ``inputs`` cannot satisfy a requirement of the method.
+    ParameterRangeError, ConfigError
+        A parameter is out of range, of the wrong type, or unknown.
+    """
+    spec = get(name)
+    checked = validate_parameters(name, params or {})
+    missing = missing_inputs(name, inputs)
+    if missing:
+        raise MissingInputError(
+            f"method {name!r} lacks inputs: {'; '.join(missing)}; "
+            "add them to the configuration or choose another method"
+        )
+    arrays = {key: np.asarray(value, dtype=float) for key, value in inputs.items()}
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        rate = np.asarray(spec.compute(arrays, checked), dtype=float)
+    shape = np.broadcast_shapes(rate.shape, *_used_shapes(spec, arrays))
+    return np.array(np.broadcast_to(rate, shape))
