@@ -24,7 +24,6 @@ from lakeloss.physics import atmosphere as atm
 from lakeloss.physics import forcing as frc
 from lakeloss.physics import methods as mth
 from lakeloss.physics import windfunctions as wf
-
 from lakeloss.physics._types import ArrayLike
 
 _Checked = Mapping[str, Any]
