@@ -22,8 +22,11 @@ EXIT_UNEXPECTED = 1
 
 
 def _configure_logging(verbose: int, quiet: bool) -> None:
-    level = logging.WARNING if quiet else (logging.DEBUG if verbose > 1 else
-                                           logging.INFO if verbose else logging.WARNING)
+    level = (
+        logging.WARNING
+        if quiet
+        else (logging.DEBUG if verbose > 1 else logging.INFO if verbose else logging.WARNING)
+    )
     logging.basicConfig(level=level, stream=sys.stderr, format="%(levelname)s: %(message)s")
 
 
@@ -55,8 +58,11 @@ def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
         except Exception as err:  # noqa: BLE001 - last line of defence for users
             if verbose:
                 raise
-            click.echo(f"error: unexpected {type(err).__name__}: {err} "
-                       "(rerun with -v for the traceback and report it)", err=True)
+            click.echo(
+                f"error: unexpected {type(err).__name__}: {err} "
+                "(rerun with -v for the traceback and report it)",
+                err=True,
+            )
             sys.exit(EXIT_UNEXPECTED)
 
     return wrapper
@@ -64,22 +70,35 @@ def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
 
 def _verbosity(func: Callable[..., Any]) -> Callable[..., Any]:
     func = click.option("-q", "--quiet", is_flag=True, help="Only errors and warnings.")(func)
-    return click.option("-v", "--verbose", count=True,
-                        help="More detail on stderr; -v also shows tracebacks.")(func)
+    return click.option(
+        "-v", "--verbose", count=True, help="More detail on stderr; -v also shows tracebacks."
+    )(func)
 
 
 def _execution(func: Callable[..., Any]) -> Callable[..., Any]:
-    func = click.option("--strict/--lenient", default=None,
-                        help="Refuse (default) or only warn about values that contradict "
-                        "their units.")(func)
-    func = click.option("--chunk-steps", type=click.IntRange(min=1), default=None,
-                        help="Time steps per block (default: sized to memory).")(func)
-    func = click.option("--scheduler", default=None, metavar="ADDRESS",
-                        help="Address or scheduler file of a running dask.distributed "
-                        "cluster.")(func)
-    return click.option("--workers", type=click.IntRange(min=1), default=None,
-                        help="Start a local dask.distributed cluster of N worker "
-                        "processes.")(func)
+    func = click.option(
+        "--strict/--lenient",
+        default=None,
+        help="Refuse (default) or only warn about values that contradict their units.",
+    )(func)
+    func = click.option(
+        "--chunk-steps",
+        type=click.IntRange(min=1),
+        default=None,
+        help="Time steps per block (default: sized to memory).",
+    )(func)
+    func = click.option(
+        "--scheduler",
+        default=None,
+        metavar="ADDRESS",
+        help="Address or scheduler file of a running dask.distributed cluster.",
+    )(func)
+    return click.option(
+        "--workers",
+        type=click.IntRange(min=1),
+        default=None,
+        help="Start a local dask.distributed cluster of N worker processes.",
+    )(func)
 
 
 def _progress(quiet: bool) -> Any:
@@ -88,14 +107,20 @@ def _progress(quiet: bool) -> Any:
     from tqdm import tqdm
 
     def factory(total: int, label: str) -> Any:
-        return tqdm(total=total, desc=label, unit="step", file=sys.stderr, disable=None,
-                    leave=False)
+        return tqdm(
+            total=total, desc=label, unit="step", file=sys.stderr, disable=None, leave=False
+        )
 
     return factory
 
 
-def _load(config_path: str, strict: bool | None, workers: int | None, scheduler: str | None,
-          chunk_steps: int | None) -> Any:
+def _load(
+    config_path: str,
+    strict: bool | None,
+    workers: int | None,
+    scheduler: str | None,
+    chunk_steps: int | None,
+) -> Any:
     from lakeloss.config import load_config
 
     config = load_config(config_path).with_strict(strict)
@@ -118,8 +143,16 @@ def cli() -> None:
 @_execution
 @_verbosity
 @_guarded
-def run(config_path: str, overwrite: bool, workers: int | None, scheduler: str | None,
-        chunk_steps: int | None, strict: bool | None, verbose: int, quiet: bool) -> None:
+def run(
+    config_path: str,
+    overwrite: bool,
+    workers: int | None,
+    scheduler: str | None,
+    chunk_steps: int | None,
+    strict: bool | None,
+    verbose: int,
+    quiet: bool,
+) -> None:
     """Compute evaporation for every water body and write the outputs."""
     from lakeloss.io.atomic import OutputDirectory
     from lakeloss.pipeline import run_stages
@@ -131,9 +164,12 @@ def run(config_path: str, overwrite: bool, workers: int | None, scheduler: str |
     if not quiet:
         counts = result.provenance["counts"]
         total = float(result.waterbodies["evap_m3"].sum())
-        click.echo(f"{counts['waterbodies']} water bodies, {counts['periods']} periods, "
-                   f"{total:,.0f} m3 evaporated ({config.method.name}); "
-                   f"{counts['flagged']} flagged; outputs in {target}", err=True)
+        click.echo(
+            f"{counts['waterbodies']} water bodies, {counts['periods']} periods, "
+            f"{total:,.0f} m3 evaporated ({config.method.name}); "
+            f"{counts['flagged']} flagged; outputs in {target}",
+            err=True,
+        )
 
 
 @cli.command()
@@ -141,8 +177,15 @@ def run(config_path: str, overwrite: bool, workers: int | None, scheduler: str |
 @_execution
 @_verbosity
 @_guarded
-def check(config_path: str, workers: int | None, scheduler: str | None,
-          chunk_steps: int | None, strict: bool | None, verbose: int, quiet: bool) -> None:
+def check(
+    config_path: str,
+    workers: int | None,
+    scheduler: str | None,
+    chunk_steps: int | None,
+    strict: bool | None,
+    verbose: int,
+    quiet: bool,
+) -> None:
     """Validate every input and print the plan, without computing."""
     from lakeloss.plan import make_plan
 
@@ -161,14 +204,16 @@ def methods(verbose: int, quiet: bool) -> None:
     for name in registry.method_names():
         spec = registry.get(name)
         click.echo(f"{name}\n  {spec.description}")
-        needs = ["  or  ".join(alt.replace("+", " + ") for alt in group)
-                 for group in spec.requires]
+        needs = ["  or  ".join(alt.replace("+", " + ") for alt in group) for group in spec.requires]
         click.echo("  needs:    " + ("; ".join(needs) or "nothing"))
         if spec.optional:
             click.echo("  optional: " + ", ".join(spec.optional))
         for param in spec.parameters.values():
-            limits = (f"choices {', '.join(param.choices)}" if param.choices
-                      else f"{param.minimum}..{param.maximum}")
+            limits = (
+                f"choices {', '.join(param.choices)}"
+                if param.choices
+                else f"{param.minimum}..{param.maximum}"
+            )
             unit = f" [{param.unit}]" if param.unit else ""
             click.echo(f"  {param.name} = {param.default!r}{unit} ({limits})")
         click.echo(f"  source:   {spec.reference}\n")

@@ -134,20 +134,38 @@ class RunConfig:
 
 _SECTIONS = ("waterbodies", "climate", "method", "parameters", "output", "compute", "checks")
 _WATERBODY_KEYS = {
-    "path": str, "layer": str, "id_field": str, "group_by": list, "crs": str,
+    "path": str,
+    "layer": str,
+    "id_field": str,
+    "group_by": list,
+    "crs": str,
     "elevation_field": str,
 }
 _CLIMATE_KEYS = {
-    "path": str, "variable": str, "units": str, "height_m": float, "format": str,
-    "start": str, "step": str, "end": str, "calendar": str, "crs": str,
+    "path": str,
+    "variable": str,
+    "units": str,
+    "height_m": float,
+    "format": str,
+    "start": str,
+    "step": str,
+    "end": str,
+    "calendar": str,
+    "crs": str,
 }
 _METHOD_KEYS = {"name": str, "compare": list}
 _OUTPUT_KEYS = {
-    "dir": str, "period": str, "extra_volume_units": list, "series": bool,
+    "dir": str,
+    "period": str,
+    "extra_volume_units": list,
+    "series": bool,
     "precipitation": bool,
 }
 _COMPUTE_KEYS = {
-    "chunk_steps": int, "workers": int, "scheduler": str, "memory_limit": str,
+    "chunk_steps": int,
+    "workers": int,
+    "scheduler": str,
+    "memory_limit": str,
     "cache_dir": str,
 }
 _CHECKS_KEYS = {"strict": bool}
@@ -179,8 +197,7 @@ def _typed(table: Mapping[str, Any], schema: Mapping[str, type], where: str) -> 
             value, ok = float(value), True
         if not ok:
             raise ConfigError(
-                f"{where}.{key} must be a {expected.__name__}, got {type(value).__name__} "
-                f"{value!r}"
+                f"{where}.{key} must be a {expected.__name__}, got {type(value).__name__} {value!r}"
             )
         out[key] = value
     return out
@@ -237,7 +254,7 @@ def _climate_format(path: Path, given: str | None, where: str) -> str:
         return "geotiff"
     raise ConfigError(
         f"{where}: cannot tell the format of '{path}' from its suffix; "
-        "add format = \"netcdf\" or format = \"geotiff\""
+        'add format = "netcdf" or format = "geotiff"'
     )
 
 
@@ -245,13 +262,13 @@ def _climate_input(key: str, value: Any) -> ClimateInput:
     where = f"[climate].{key}"
     if not isinstance(value, Mapping):
         raise ConfigError(
-            f"{where} must be a table such as {{ path = \"climate.nc\", variable = \"tas\" }}"
+            f'{where} must be a table such as {{ path = "climate.nc", variable = "tas" }}'
         )
     table = _typed(value, _CLIMATE_KEYS, where)
     path = Path(_require(table, "path", where))
     fmt = _climate_format(path, table.get("format"), where)
     if fmt == "netcdf" and "variable" not in table:
-        raise ConfigError(f"{where} reads a NetCDF file and needs variable = \"<name in file>\"")
+        raise ConfigError(f'{where} reads a NetCDF file and needs variable = "<name in file>"')
     if fmt == "geotiff" and key != "elevation":
         for needed in ("start", "step"):
             if needed not in table:
@@ -309,15 +326,19 @@ def _method(raw: Mapping[str, Any]) -> MethodConfig:
     return MethodConfig(name=name, compare=compare)
 
 
-def _parameters(raw: Mapping[str, Any], climate: tuple[ClimateInput, ...],
-                method: MethodConfig) -> dict[str, object]:
+def _parameters(
+    raw: Mapping[str, Any], climate: tuple[ClimateInput, ...], method: MethodConfig
+) -> dict[str, object]:
     from lakeloss.physics import registry
 
     table = dict(_table(raw, "parameters", False))
     specs = registry.parameter_specs()
     _check_keys(table, {*specs, *PIPELINE_PARAMETERS}, "[parameters]")
-    pipeline = _typed({k: table.pop(k) for k in list(table) if k in PIPELINE_PARAMETERS},
-                      PIPELINE_PARAMETERS, "[parameters]")
+    pipeline = _typed(
+        {k: table.pop(k) for k in list(table) if k in PIPELINE_PARAMETERS},
+        PIPELINE_PARAMETERS,
+        "[parameters]",
+    )
     wind = next((c for c in climate if c.quantity == "wind_speed"), None)
     if wind is not None and wind.height_m is not None:
         if "wind_height_m" in table and float(table["wind_height_m"]) != wind.height_m:

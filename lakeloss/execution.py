@@ -35,8 +35,7 @@ def _local_threads() -> int:
     return max(1, min(2, os.cpu_count() or 1))
 
 
-def _run_local(context: Any, weights: Any, static: Any,
-               blocks: Sequence[slice]) -> Iterator[Any]:
+def _run_local(context: Any, weights: Any, static: Any, blocks: Sequence[slice]) -> Iterator[Any]:
     from lakeloss.pipeline import compute_block
 
     threads = _local_threads()
@@ -45,15 +44,15 @@ def _run_local(context: Any, weights: Any, static: Any,
             yield compute_block(context, weights, static, block)
         return
     with ThreadPoolExecutor(max_workers=threads) as pool:
-        pending = [pool.submit(compute_block, context, weights, static, b)
-                   for b in blocks[:threads]]
+        pending = [
+            pool.submit(compute_block, context, weights, static, b) for b in blocks[:threads]
+        ]
         for i in range(len(blocks)):
             part = pending[i].result()
             pending[i] = None  # release the block once merged
             nxt = i + threads
             if nxt < len(blocks):
-                pending.append(pool.submit(compute_block, context, weights, static,
-                                           blocks[nxt]))
+                pending.append(pool.submit(compute_block, context, weights, static, blocks[nxt]))
             yield part
 
 
@@ -77,15 +76,20 @@ def _client(compute: ComputeConfig) -> Iterator[Any]:
             yield client
         return
     cluster = LocalCluster(
-        n_workers=compute.workers, threads_per_worker=1, processes=True,
-        memory_limit=compute.memory_limit, host="127.0.0.1", dashboard_address=None,
+        n_workers=compute.workers,
+        threads_per_worker=1,
+        processes=True,
+        memory_limit=compute.memory_limit,
+        host="127.0.0.1",
+        dashboard_address=None,
     )
     with cluster, Client(cluster) as client:
         yield client
 
 
-def _run_cluster(compute: ComputeConfig, context: Any, weights: Any, static: Any,
-                 blocks: Sequence[slice]) -> Iterator[Any]:
+def _run_cluster(
+    compute: ComputeConfig, context: Any, weights: Any, static: Any, blocks: Sequence[slice]
+) -> Iterator[Any]:
     from distributed.client import FutureCancelledError
     from distributed.scheduler import KilledWorker
 
@@ -94,12 +98,14 @@ def _run_cluster(compute: ComputeConfig, context: Any, weights: Any, static: Any
     with _client(compute) as client:
         n_workers = max(1, len(client.scheduler_info().get("workers", {})) or compute.workers)
         [context_f, weights_f, static_f] = client.scatter(
-            [context, dict(weights), dict(static)], broadcast=True)
+            [context, dict(weights), dict(static)], broadcast=True
+        )
         window = 2 * n_workers
 
         def submit(block: slice) -> Any:
-            return client.submit(compute_block, context_f, weights_f, static_f, block,
-                                 retries=2, pure=False)
+            return client.submit(
+                compute_block, context_f, weights_f, static_f, block, retries=2, pure=False
+            )
 
         futures = [submit(b) for b in blocks[:window]]
         for i in range(len(blocks)):
@@ -116,8 +122,13 @@ def _run_cluster(compute: ComputeConfig, context: Any, weights: Any, static: Any
             yield part
 
 
-def run_blocks(compute: ComputeConfig, context: Any, weights: Mapping[str, Any],
-               static: Mapping[str, Any], blocks: Sequence[slice]) -> Iterator[Any]:
+def run_blocks(
+    compute: ComputeConfig,
+    context: Any,
+    weights: Mapping[str, Any],
+    static: Mapping[str, Any],
+    blocks: Sequence[slice],
+) -> Iterator[Any]:
     """Compute every block and yield the results in block order."""
     if compute.workers or compute.scheduler:
         yield from _run_cluster(compute, context, weights, static, blocks)

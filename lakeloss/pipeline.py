@@ -106,8 +106,14 @@ def _open_field(item: Any, step_hint: str | None = None) -> climate_io.ClimateFi
             item.path, item.variable, item.key, units=item.units, crs=item.crs
         )
     return climate_io.open_geotiff_stack(
-        item.path, item.key, start=item.start, step=item.step, units=item.units,
-        calendar=item.calendar, crs=item.crs, end=item.end,
+        item.path,
+        item.key,
+        start=item.start,
+        step=item.step,
+        units=item.units,
+        calendar=item.calendar,
+        crs=item.crs,
+        end=item.end,
     )
 
 
@@ -146,8 +152,9 @@ def load_inputs(config: RunConfig) -> Inputs:
                 continue
             fields[item.quantity] = _open_field(item)
     caught.extend(str(w.message) for w in seen if issubclass(w.category, LakelossWarning))
-    axis = timeaxis.require_identical({q: timeaxis.from_times(f.times, f.calendar)
-                                       for q, f in fields.items()})
+    axis = timeaxis.require_identical(
+        {q: timeaxis.from_times(f.times, f.calendar) for q, f in fields.items()}
+    )
     if config.output.period == "day" and axis.step == "month":
         raise ConfigError("[output].period = 'day' needs daily climate; these inputs are monthly")
     grids: dict[str, GridSpec] = {}
@@ -158,9 +165,13 @@ def load_inputs(config: RunConfig) -> Inputs:
         field_grid[quantity] = grid.key()
     _check_wind_grids(fields, field_grid)
     return Inputs(
-        layer=layer, fields=fields, axis=axis,
+        layer=layer,
+        fields=fields,
+        axis=axis,
         periods=timeaxis.periods(axis, config.output.period),
-        grids=grids, field_grid=field_grid, warnings=caught,
+        grids=grids,
+        field_grid=field_grid,
+        warnings=caught,
     )
 
 
@@ -229,8 +240,9 @@ def block_steps(config: RunConfig, inputs: Inputs) -> int:
         return config.compute.chunk_steps
     n = max(inputs.n_waterbodies, 1)
     cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
-    per_step = 8.0 * (n * (_WORKING_ARRAYS + 2 * len(config.method.all))
-                      + cells * len(inputs.fields))
+    per_step = 8.0 * (
+        n * (_WORKING_ARRAYS + 2 * len(config.method.all)) + cells * len(inputs.fields)
+    )
     return int(np.clip(_BLOCK_BUDGET_BYTES // per_step, 1, 366))
 
 
@@ -239,8 +251,9 @@ def iter_blocks(n_steps: int, steps: int) -> Iterator[slice]:
         yield slice(start, min(start + steps, n_steps))
 
 
-def _static_inputs(config: RunConfig, inputs: Inputs,
-                   weights: Mapping[str, ZonalWeights]) -> dict[str, np.ndarray]:
+def _static_inputs(
+    config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights]
+) -> dict[str, np.ndarray]:
     """Per-water-body inputs of the physics: latitude, area and elevation, shaped (1, n)."""
     first = next(iter(weights.values()))
     static = {
@@ -297,15 +310,21 @@ class BlockResult:
 
 def block_context(config: RunConfig, inputs: Inputs, keep_series: bool = False) -> BlockContext:
     return BlockContext(
-        fields=inputs.fields, field_grid=dict(inputs.field_grid), methods=config.method.all,
-        primary=config.method.name, parameters=dict(config.parameters),
-        day_of_year=inputs.axis.day_of_year, days=inputs.axis.days,
-        period_index=inputs.periods.index, keep_series=keep_series,
+        fields=inputs.fields,
+        field_grid=dict(inputs.field_grid),
+        methods=config.method.all,
+        primary=config.method.name,
+        parameters=dict(config.parameters),
+        day_of_year=inputs.axis.day_of_year,
+        days=inputs.axis.days,
+        period_index=inputs.periods.index,
+        keep_series=keep_series,
     )
 
 
-def extract_block(context: BlockContext, weights: Mapping[str, ZonalWeights],
-                  block: slice) -> tuple[dict[str, np.ndarray], np.ndarray]:
+def extract_block(
+    context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Area-weighted means of every variable for one block of time steps.
 
     Returns the means, shape (time, water body), by glossary name, and the smallest
@@ -324,9 +343,15 @@ def extract_block(context: BlockContext, weights: Mapping[str, ZonalWeights],
 def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndarray, str]]:
     # The synchronous scheduler: the block is already the unit of parallel work, and a
     # cluster worker must not hand its reads back to the cluster.
-    values = {q: (np.asarray(f.data.isel(time=block).compute(scheduler="synchronous").values,
-                             dtype=np.float64), context.field_grid[q])
-              for q, f in context.fields.items()}
+    values = {
+        q: (
+            np.asarray(
+                f.data.isel(time=block).compute(scheduler="synchronous").values, dtype=np.float64
+            ),
+            context.field_grid[q],
+        )
+        for q, f in context.fields.items()
+    }
     if "wind_speed" not in values and {"eastward_wind", "northward_wind"} <= set(values):
         # Speed from components on the grid, before averaging: the mean of the speed is
         # what the wind functions want, not the speed of the mean vector.
@@ -336,12 +361,14 @@ def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndar
     return values
 
 
-def evaporate_block(context: BlockContext, means: Mapping[str, np.ndarray],
-                    static: Mapping[str, np.ndarray],
-                    day_of_year: np.ndarray) -> dict[str, np.ndarray]:
+def evaporate_block(
+    context: BlockContext,
+    means: Mapping[str, np.ndarray],
+    static: Mapping[str, np.ndarray],
+    day_of_year: np.ndarray,
+) -> dict[str, np.ndarray]:
     """Evaporation rate [mm day-1] of every configured method for one block."""
-    physics_inputs: dict[str, Any] = {**means, **static,
-                                      "day_of_year": day_of_year[:, np.newaxis]}
+    physics_inputs: dict[str, Any] = {**means, **static, "day_of_year": day_of_year[:, np.newaxis]}
     physics_inputs.pop("precipitation", None)
     params = {k: v for k, v in context.parameters.items() if k != "clip_negative"}
     shape = next(iter(means.values())).shape
@@ -349,8 +376,9 @@ def evaporate_block(context: BlockContext, means: Mapping[str, np.ndarray],
     for name in context.methods:
         method_params = {k: v for k, v in params.items() if k in registry.get(name).parameters}
         with np.errstate(invalid="ignore", divide="ignore"):
-            rate = np.asarray(registry.evaporate(name, physics_inputs, method_params),
-                              dtype=np.float64)
+            rate = np.asarray(
+                registry.evaporate(name, physics_inputs, method_params), dtype=np.float64
+            )
         rates[name] = np.broadcast_to(rate, shape)
     return rates
 
@@ -361,8 +389,12 @@ def _segment_sums(values: np.ndarray, period_index: np.ndarray) -> tuple[np.ndar
     return period_index[starts], np.add.reduceat(values, starts, axis=0)
 
 
-def compute_block(context: BlockContext, weights: Mapping[str, ZonalWeights],
-                  static: Mapping[str, np.ndarray], block: slice) -> BlockResult:
+def compute_block(
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    static: Mapping[str, np.ndarray],
+    block: slice,
+) -> BlockResult:
     """Extract, evaporate and sum one block of time steps into its periods.
 
     A pure function of its arguments: the same block gives the same numbers wherever it
@@ -393,10 +425,16 @@ def compute_block(context: BlockContext, weights: Mapping[str, ZonalWeights],
         if precip is not None:
             series["precipitation_rate"] = precip.astype(np.float32)
     return BlockResult(
-        block=block, periods=periods, depth=depth, precip=precip_sums,
-        valid_steps=_segment_sums(finite, index)[1], coverage_sum=valid.sum(axis=0),
-        negatives=negatives, negatives_per_body=negatives_per_body,
-        steps=block.stop - block.start, series=series,
+        block=block,
+        periods=periods,
+        depth=depth,
+        precip=precip_sums,
+        valid_steps=_segment_sums(finite, index)[1],
+        coverage_sum=valid.sum(axis=0),
+        negatives=negatives,
+        negatives_per_body=negatives_per_body,
+        steps=block.stop - block.start,
+        series=series,
     )
 
 
@@ -428,9 +466,13 @@ ProgressFactory = Callable[[int, str], Any]
 SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 
 
-def compute_sums(config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights],
-                 progress: ProgressFactory | None = None,
-                 series_sink: SeriesSink | None = None) -> PeriodSums:
+def compute_sums(
+    config: RunConfig,
+    inputs: Inputs,
+    weights: Mapping[str, ZonalWeights],
+    progress: ProgressFactory | None = None,
+    series_sink: SeriesSink | None = None,
+) -> PeriodSums:
     """Run every block (locally or on a cluster) and merge the results in time order."""
     from lakeloss.execution import run_blocks
 
@@ -456,14 +498,17 @@ def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
         return None
     verb = "set to zero" if config.parameters.get("clip_negative", True) else "kept"
     detail = ", ".join(f"{m}: {c}" for m, c in sums.negatives.items() if c)
-    message = (f"{total} negative daily evaporation rates (condensation or negative net "
-               f"radiation) were {verb} ({detail})")
+    message = (
+        f"{total} negative daily evaporation rates (condensation or negative net "
+        f"radiation) were {verb} ({detail})"
+    )
     warnings.warn(message, ValuesAdjustedWarning, stacklevel=2)
     return message
 
 
-def run_stages(config: RunConfig | Any, *, progress: ProgressFactory | None = None,
-               series: bool | None = None) -> Any:
+def run_stages(
+    config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
+) -> Any:
     """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
     from lakeloss.results import assemble
 
@@ -477,16 +522,22 @@ def run_stages(config: RunConfig | Any, *, progress: ProgressFactory | None = No
     keep_series = config.output.series if series is None else series
     collector = SeriesCollector(inputs) if keep_series else None
     with timer.stage("evaporate"):
-        sums = compute_sums(config, inputs, weights, progress,
-                            collector.add if collector else None)
+        sums = compute_sums(config, inputs, weights, progress, collector.add if collector else None)
     with timer.stage("aggregate"):
         run_warnings = [*inputs.warnings, *value_warnings]
         message = negative_warning(config, sums)
         if message:
             run_warnings.append(message)
-        result = assemble(config, inputs, weights, sums, run_warnings, timer.seconds,
-                          series=collector.dataset() if collector else None,
-                          weights_cached=cached)
+        result = assemble(
+            config,
+            inputs,
+            weights,
+            sums,
+            run_warnings,
+            timer.seconds,
+            series=collector.dataset() if collector else None,
+            weights_cached=cached,
+        )
     return result
 
 
@@ -506,4 +557,3 @@ class SeriesCollector:
 
         arrays = {k: np.concatenate(v, axis=0) for k, v in self.blocks.items()}
         return series_dataset(self.inputs, arrays)
-

@@ -19,10 +19,10 @@ from lakeloss.errors import GridError
 from lakeloss.pipeline import Inputs, block_steps, check_values, load_inputs
 
 # Seconds per unit of work, measured on the 2-core reference machine (benchmarks/README.md).
-_SECONDS_PER_POLYGON = 16e-6        # reprojection + weights build
-_SECONDS_PER_VALUE_APPLY = 1.2e-9   # one water body x one step x one variable
-_SECONDS_PER_VALUE_METHOD = 8e-8    # one water body x one step x one method (physics)
-_SECONDS_PER_TABLE_ROW = 4e-6       # one row of evaporation_by_period written
+_SECONDS_PER_POLYGON = 16e-6  # reprojection + weights build
+_SECONDS_PER_VALUE_APPLY = 1.2e-9  # one water body x one step x one variable
+_SECONDS_PER_VALUE_METHOD = 8e-8  # one water body x one step x one method (physics)
+_SECONDS_PER_TABLE_ROW = 4e-6  # one row of evaporation_by_period written
 
 
 @dataclass
@@ -44,8 +44,11 @@ class Plan:
             f"time axis    : {inputs.axis.describe()}",
             f"periods      : {len(inputs.periods.starts)} x {config.output.period}",
             f"method       : {config.method.name}"
-            + (f" (compared with {', '.join(config.method.compare)})"
-               if config.method.compare else ""),
+            + (
+                f" (compared with {', '.join(config.method.compare)})"
+                if config.method.compare
+                else ""
+            ),
         ]
         for quantity, item in inputs.fields.items():
             grid = inputs.grids[inputs.field_grid[quantity]]
@@ -91,21 +94,23 @@ def _memory(config: RunConfig, inputs: Inputs, steps: int) -> float:
     n = inputs.n_waterbodies
     n_periods = len(inputs.periods.starts)
     cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
-    layer = n * 1500.0                                  # geometries and attributes
-    weights = n * 1.5 * 12.0 * 3                        # nnz ~ 1.5 per body; build overhead x3
+    layer = n * 1500.0  # geometries and attributes
+    weights = n * 1.5 * 12.0 * 3  # nnz ~ 1.5 per body; build overhead x3
     sums = n_periods * n * 8.0 * (len(config.method.all) + 2)
     block = steps * 8.0 * (n * 24 + cells * len(inputs.fields))
-    tables = n_periods * n * 120.0                      # evaporation_by_period in pandas
+    tables = n_periods * n * 120.0  # evaporation_by_period in pandas
     return layer + weights + sums + block + tables
 
 
 def _seconds(config: RunConfig, inputs: Inputs) -> float:
     n = inputs.n_waterbodies
     steps = len(inputs.axis.days)
-    return (n * _SECONDS_PER_POLYGON
-            + n * steps * len(inputs.fields) * _SECONDS_PER_VALUE_APPLY
-            + n * steps * len(config.method.all) * _SECONDS_PER_VALUE_METHOD
-            + n * len(inputs.periods.starts) * _SECONDS_PER_TABLE_ROW)
+    return (
+        n * _SECONDS_PER_POLYGON
+        + n * steps * len(inputs.fields) * _SECONDS_PER_VALUE_APPLY
+        + n * steps * len(config.method.all) * _SECONDS_PER_VALUE_METHOD
+        + n * len(inputs.periods.starts) * _SECONDS_PER_TABLE_ROW
+    )
 
 
 def make_plan(config: RunConfig) -> Plan:
@@ -114,6 +119,11 @@ def make_plan(config: RunConfig) -> Plan:
     _check_overlap(inputs)
     value_warnings = check_values(config, inputs)
     steps = block_steps(config, inputs)
-    return Plan(config=config, inputs=inputs, steps_per_block=steps,
-                memory_bytes=_memory(config, inputs, steps), seconds=_seconds(config, inputs),
-                value_warnings=value_warnings)
+    return Plan(
+        config=config,
+        inputs=inputs,
+        steps_per_block=steps,
+        memory_bytes=_memory(config, inputs, steps),
+        seconds=_seconds(config, inputs),
+        value_warnings=value_warnings,
+    )

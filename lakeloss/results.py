@@ -31,18 +31,27 @@ CAUTION = (
 # Result columns of the water-body layer: title, description, unit.
 _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
     "area_m2": ("Water-surface area", "true (ellipsoidal) area of the polygon", "m2"),
-    "evap_mm": ("Evaporation depth", "open-water evaporation over the whole run, primary method",
-                "mm"),
+    "evap_mm": (
+        "Evaporation depth",
+        "open-water evaporation over the whole run, primary method",
+        "mm",
+    ),
     "evap_m3": ("Evaporation volume", "evap_mm times area_m2", "m3"),
     "evap_mm_per_year": ("Annual evaporation", "evap_mm scaled to one calendar year", "mm/yr"),
     "precip_mm": ("Rain on the surface", "precipitation depth over the whole run", "mm"),
     "net_mm": ("Net loss depth", "evap_mm minus precip_mm (negative: net gain)", "mm"),
     "net_m3": ("Net loss volume", "net_mm times area_m2", "m3"),
-    "climate_coverage": ("Climate coverage", "share of the polygon with valid climate data, "
-                         "averaged over time", "1"),
+    "climate_coverage": (
+        "Climate coverage",
+        "share of the polygon with valid climate data, averaged over time",
+        "1",
+    ),
     "loss_rank": ("Loss rank", "rank by evap_m3, 1 = largest loss", None),
-    "qa_flags": ("QA flags", "';'-separated quality flags, empty when clean "
-                 "(see README, 'When inputs are wrong')", None),
+    "qa_flags": (
+        "QA flags",
+        "';'-separated quality flags, empty when clean (see README, 'When inputs are wrong')",
+        None,
+    ),
 }
 _PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
     "period_start": ("Period start", "first day of the period (ISO date)", None),
@@ -54,8 +63,18 @@ _PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
     "net_mm": _BODY_FIELDS["net_mm"],
     "net_m3": _BODY_FIELDS["net_m3"],
 }
-_DECIMALS = {"area_m2": 1, "evap_mm": 3, "evap_m3": 3, "evap_mm_per_year": 2, "precip_mm": 3,
-             "net_mm": 3, "net_m3": 3, "climate_coverage": 4, "precip_m3": 3, "days": 0}
+_DECIMALS = {
+    "area_m2": 1,
+    "evap_mm": 3,
+    "evap_m3": 3,
+    "evap_mm_per_year": 2,
+    "precip_mm": 3,
+    "net_mm": 3,
+    "net_m3": 3,
+    "climate_coverage": 4,
+    "precip_m3": 3,
+    "days": 0,
+}
 
 
 @dataclass
@@ -108,8 +127,21 @@ def _sha256(path: Path) -> str | None:
 
 
 def _versions() -> dict[str, str]:
-    names = ["lakeloss", "numpy", "scipy", "pandas", "geopandas", "shapely", "pyogrio", "pyproj",
-             "rasterio", "xarray", "netCDF4", "pint", "dask"]
+    names = [
+        "lakeloss",
+        "numpy",
+        "scipy",
+        "pandas",
+        "geopandas",
+        "shapely",
+        "pyogrio",
+        "pyproj",
+        "rasterio",
+        "xarray",
+        "netCDF4",
+        "pint",
+        "dask",
+    ]
     out = {}
     for name in names:
         try:
@@ -121,8 +153,13 @@ def _versions() -> dict[str, str]:
 
 
 def _year_length(calendar: str) -> float:
-    return {"noleap": 365.0, "365_day": 365.0, "all_leap": 366.0, "366_day": 366.0,
-            "360_day": 360.0}.get(calendar, 365.2425)
+    return {
+        "noleap": 365.0,
+        "365_day": 365.0,
+        "all_leap": 366.0,
+        "366_day": 366.0,
+        "360_day": 360.0,
+    }.get(calendar, 365.2425)
 
 
 def _flags(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> np.ndarray:
@@ -142,8 +179,11 @@ def _flags(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> np.ndarra
         elif valid_steps[i] < total:
             tokens[i].append("climate_gaps")
         if sums.negatives_per_body[i]:
-            tokens[i].append("negative_rates_clipped" if config.parameters.get(
-                "clip_negative", True) else "negative_rates_kept")
+            tokens[i].append(
+                "negative_rates_clipped"
+                if config.parameters.get("clip_negative", True)
+                else "negative_rates_kept"
+            )
     return np.array([";".join(t) for t in tokens], dtype=object)
 
 
@@ -193,23 +233,26 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     evap = sums.depth[config.method.name]
     precip = sums.precip if config.output.precipitation else np.full((n_periods, n), np.nan)
     area = first.polygon_area_m2[None, :]
-    table = pd.DataFrame({
-        inputs.layer.id_field: np.tile(ids, n_periods),
-        "period_start": np.repeat(np.asarray(periods.starts, dtype=object), n),
-        "period_end": np.repeat(np.asarray(periods.ends, dtype=object), n),
-        "days": np.repeat(periods.days, n),
-        "evap_mm": evap.ravel(),
-        "evap_m3": (evap * area / 1000.0).ravel(),
-        "precip_mm": precip.ravel(),
-        "net_mm": (evap - precip).ravel(),
-        "net_m3": ((evap - precip) * area / 1000.0).ravel(),
-    })
+    table = pd.DataFrame(
+        {
+            inputs.layer.id_field: np.tile(ids, n_periods),
+            "period_start": np.repeat(np.asarray(periods.starts, dtype=object), n),
+            "period_end": np.repeat(np.asarray(periods.ends, dtype=object), n),
+            "days": np.repeat(periods.days, n),
+            "evap_mm": evap.ravel(),
+            "evap_m3": (evap * area / 1000.0).ravel(),
+            "precip_mm": precip.ravel(),
+            "net_mm": (evap - precip).ravel(),
+            "net_m3": ((evap - precip) * area / 1000.0).ravel(),
+        }
+    )
     order = np.lexsort((np.repeat(np.arange(n_periods), n), np.tile(np.arange(n), n_periods)))
     return table.iloc[order].reset_index(drop=True)
 
 
-def _summaries(config: RunConfig, bodies: Any, by_period: pd.DataFrame,
-               id_field: str) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+def _summaries(
+    config: RunConfig, bodies: Any, by_period: pd.DataFrame, id_field: str
+) -> tuple[pd.DataFrame, pd.DataFrame | None]:
     area = bodies.set_index(id_field)["area_m2"]
     table = by_period.assign(area_m2=by_period[id_field].map(area))
     table["precip_m3"] = table["precip_mm"] * table["area_m2"] / 1000.0
@@ -219,9 +262,13 @@ def _summaries(config: RunConfig, bodies: Any, by_period: pd.DataFrame,
     def totals(frame: pd.DataFrame, by: list[str]) -> pd.DataFrame:
         frame = frame[valid.loc[frame.index]]
         grouped = frame.groupby(by, sort=True, dropna=False)
-        out = grouped.agg(n_waterbodies=(id_field, "size"), area_m2=("area_m2", "sum"),
-                          evap_m3=("evap_m3", "sum"), precip_m3=("precip_m3", "sum"),
-                          net_m3=("net_m3", "sum"))
+        out = grouped.agg(
+            n_waterbodies=(id_field, "size"),
+            area_m2=("area_m2", "sum"),
+            evap_m3=("evap_m3", "sum"),
+            precip_m3=("precip_m3", "sum"),
+            net_m3=("net_m3", "sum"),
+        )
         return out.reset_index()
 
     by_period_total = totals(table, keys)
@@ -238,16 +285,26 @@ def series_dataset(inputs: Any, arrays: Mapping[str, np.ndarray]) -> Any:
     import xarray as xr
 
     ids = inputs.layer.frame[inputs.layer.id_field].to_numpy()
-    long_names = {"evaporation_rate": "open-water evaporation rate, primary method",
-                  "precipitation_rate": "precipitation rate on the water surface"}
-    data = {name: (("waterbody", "time"), values.T,
-                   {"units": "mm day-1", "long_name": long_names.get(name, name)})
-            for name, values in arrays.items()}
+    long_names = {
+        "evaporation_rate": "open-water evaporation rate, primary method",
+        "precipitation_rate": "precipitation rate on the water surface",
+    }
+    data = {
+        name: (
+            ("waterbody", "time"),
+            values.T,
+            {"units": "mm day-1", "long_name": long_names.get(name, name)},
+        )
+        for name, values in arrays.items()
+    }
     return xr.Dataset(
         data,
         coords={"waterbody_id": ("waterbody", ids), "time": ("time", inputs.axis.times)},
-        attrs={"Conventions": "CF-1.8", "title": "lakeloss per-step evaporation series",
-               "comment": CAUTION},
+        attrs={
+            "Conventions": "CF-1.8",
+            "title": "lakeloss per-step evaporation series",
+            "comment": CAUTION,
+        },
     )
 
 
@@ -255,7 +312,8 @@ def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
     for name in config.method.compare:
         body[f"evap_mm_{name}"] = FieldInfo(
-            f"Evaporation depth, {name}", f"evaporation over the whole run by method {name}", "mm")
+            f"Evaporation depth, {name}", f"evaporation over the whole run by method {name}", "mm"
+        )
     for unit in config.output.extra_volume_units:
         body[f"evap_{unit}"] = FieldInfo("Evaporation volume", "evap_m3 in " + unit, unit)
         body[f"net_{unit}"] = FieldInfo("Net loss volume", "net_m3 in " + unit, unit)
@@ -264,17 +322,36 @@ def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo
 
 
 def _inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
-    items = [{"role": "waterbodies", "path": str(config.waterbodies.path),
-              "sha256": _sha256(config.waterbodies.path)}]
+    items = [
+        {
+            "role": "waterbodies",
+            "path": str(config.waterbodies.path),
+            "sha256": _sha256(config.waterbodies.path),
+        }
+    ]
     for item in config.climate:
-        items.append({"role": item.key, "path": str(item.path), "variable": item.variable,
-                      "sha256": _sha256(item.path)})
+        items.append(
+            {
+                "role": item.key,
+                "path": str(item.path),
+                "variable": item.variable,
+                "sha256": _sha256(item.path),
+            }
+        )
     return items
 
 
-def assemble(config: RunConfig, inputs: Any, weights: Any, sums: Any, run_warnings: list[str],
-             timings: Mapping[str, float], *, series: Any = None,
-             weights_cached: bool = False) -> RunResult:
+def assemble(
+    config: RunConfig,
+    inputs: Any,
+    weights: Any,
+    sums: Any,
+    run_warnings: list[str],
+    timings: Mapping[str, float],
+    *,
+    series: Any = None,
+    weights_cached: bool = False,
+) -> RunResult:
     """Build the result tables and the provenance from the period sums."""
     bodies = _body_table(config, inputs, weights, sums)
     by_period = _period_table(config, inputs, weights, sums)
@@ -287,8 +364,11 @@ def assemble(config: RunConfig, inputs: Any, weights: Any, sums: Any, run_warnin
         "config": _jsonable(config.source),
         "inputs": _inputs_provenance(config),
         "versions": _versions(),
-        "method": {"primary": config.method.name, "compare": list(config.method.compare),
-                   "parameters": _jsonable(dict(config.parameters))},
+        "method": {
+            "primary": config.method.name,
+            "compare": list(config.method.compare),
+            "parameters": _jsonable(dict(config.parameters)),
+        },
         "time_axis": inputs.axis.describe(),
         "counts": {
             "waterbodies": int(len(bodies)),
@@ -298,16 +378,23 @@ def assemble(config: RunConfig, inputs: Any, weights: Any, sums: Any, run_warnin
             "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
             "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
             "negative_rates_clipped": int(sum(sums.negatives.values()))
-            if config.parameters.get("clip_negative", True) else 0,
+            if config.parameters.get("clip_negative", True)
+            else 0,
         },
         "weights_from_cache": bool(weights_cached),
         "warnings": list(run_warnings),
         "timings_s": {k: round(v, 3) for k, v in timings.items()},
     }
     return RunResult(
-        waterbodies=bodies, by_period=by_period, summary_by_period=summary_period,
-        summary_by_group=summary_group, series=series, provenance=provenance, config=config,
-        id_field=inputs.layer.id_field, field_info=_field_info(config, bodies),
+        waterbodies=bodies,
+        by_period=by_period,
+        summary_by_period=summary_period,
+        summary_by_group=summary_group,
+        series=series,
+        provenance=provenance,
+        config=config,
+        id_field=inputs.layer.id_field,
+        field_info=_field_info(config, bodies),
     )
 
 

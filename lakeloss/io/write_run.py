@@ -15,8 +15,17 @@ from lakeloss.io.atomic import OutputDirectory
 from lakeloss.io.gpkg import write_geopackage
 from lakeloss.io.tables import write_csv, write_json
 
-_DECIMALS = {"area_m2": 1, "evap_mm": 3, "evap_m3": 3, "evap_mm_per_year": 2, "precip_mm": 3,
-             "net_mm": 3, "net_m3": 3, "climate_coverage": 4, "precip_m3": 3}
+_DECIMALS = {
+    "area_m2": 1,
+    "evap_mm": 3,
+    "evap_m3": 3,
+    "evap_mm_per_year": 2,
+    "precip_mm": 3,
+    "net_mm": 3,
+    "net_m3": 3,
+    "climate_coverage": 4,
+    "precip_m3": 3,
+}
 
 
 def _decimals(columns: Any) -> dict[str, int]:
@@ -46,11 +55,17 @@ def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
         )
         body = _body_csv(result)
         write_csv(staging / "summary_by_waterbody.csv", body, decimals=_decimals(body.columns))
-        write_csv(staging / "summary_by_period.csv", result.summary_by_period,
-                  decimals=_decimals(result.summary_by_period.columns))
+        write_csv(
+            staging / "summary_by_period.csv",
+            result.summary_by_period,
+            decimals=_decimals(result.summary_by_period.columns),
+        )
         if result.summary_by_group is not None:
-            write_csv(staging / "summary_by_group.csv", result.summary_by_group,
-                      decimals=_decimals(result.summary_by_group.columns))
+            write_csv(
+                staging / "summary_by_group.csv",
+                result.summary_by_group,
+                decimals=_decimals(result.summary_by_group.columns),
+            )
         if result.series is not None:
             result.series.to_netcdf(staging / "series.nc", engine="netcdf4")
         write_json(staging / "run.json", result.provenance)

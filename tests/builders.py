@@ -1,0 +1,140 @@
+"""Builders of tiny, synthetic, real input files for the tests.
+
+``make_case`` (the fixture in conftest.py) writes a small water-body layer (GeoPackage, UTM zone 55 south, metres) and a
+climate NetCDF on a 0.05 degree lat/lon grid that covers it, and returns a config mapping
+ready for :func:`lakeloss.load_config`. Everything is invented test data.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import shapely
+import xarray as xr
+from pyproj import Transformer
+
+LAYER_CRS = "EPSG:32755"
+# Grid: 8 x 6 cells of 0.05 degrees, north-up (latitudes descending, as many products store).
+LON = 146.0 + 0.05 * (np.arange(8) + 0.5)
+LAT = -30.0 - 0.05 * (np.arange(6) + 0.5)
+
+
+def pond_layer(n_ponds: int = 12, seed: int = 3) -> gpd.GeoDataFrame:
+    """Ponds of 0.1 to 5 ha, one crossing a cell corner, and a reservoir with an island."""
+    rng = np.random.default_rng(seed)
+    to_utm = Transformer.from_crs("EPSG:4326", LAYER_CRS, always_xy=True)
+    lon = rng.uniform(LON[1], LON[-2], n_ponds)
+    lat = rng.uniform(LAT[-2], LAT[1], n_ponds)
+    lon[0], lat[0] = 146.15, -30.10  # exactly on a cell corner
+    x, y = to_utm.transform(lon, lat)
+    radius = np.sqrt(rng.uniform(1e3, 5e4, n_ponds) / np.pi)
+    ponds = list(shapely.buffer(shapely.points(x, y), radius, quad_segs=8))
+    cx, cy = to_utm.transform(146.2, -30.15)
+    reservoir = shapely.Polygon(
+        shapely.buffer(shapely.Point(cx, cy), 3000.0).exterior.coords,
+        [shapely.buffer(shapely.Point(cx + 500, cy), 600.0).exterior.coords[::-1]],
+    )
+    geoms = [*ponds, reservoir]
+    n = len(geoms)
+    return gpd.GeoDataFrame(
+        {
+            "pond_id": np.arange(101, 101 + n),
+            "name": [f"pond {i}" for i in range(n - 1)] + ["reservoir"],
+            "zone": ["east" if g.centroid.x > cx else "west" for g in geoms],
+        },
+        geometry=geoms,
+        crs=LAYER_CRS,
+    )
+
+
+def climate_dataset(
+    times: pd.DatetimeIndex | np.ndarray,
+    fields: dict[str, tuple],
+    lat: np.ndarray = LAT,
+    lon: np.ndarray = LON,
+) -> xr.Dataset:
+    """A CF dataset; ``fields[name] = (values (t, y, x) or scalar, units, standard_name)``."""
+    shape = (len(times), len(lat), len(lon))
+    data = {}
+    for name, (values, units, standard_name) in fields.items():
+        array = np.broadcast_to(np.asarray(values, dtype=np.float64), shape).astype(np.float32)
+        data[name] = (
+            ("time", "lat", "lon"),
+            array,
+            {"units": units, "standard_name": standard_name, "grid_mapping": "crs"},
+        )
+    ds = xr.Dataset(
+        data,
+        coords={
+            "time": ("time", times),
+            "lat": ("lat", lat, {"units": "degrees_north", "standard_name": "latitude"}),
+            "lon": ("lon", lon, {"units": "degrees_east", "standard_name": "longitude"}),
+        },
+        attrs={"Conventions": "CF-1.8"},
+    )
+    ds["crs"] = xr.DataArray(
+        0,
+        attrs={
+            "grid_mapping_name": "latitude_longitude",
+            "semi_major_axis": 6378137.0,
+            "inverse_flattening": 298.257223563,
+        },
+    )
+    return ds
+
+
+def write_netcdf(ds: xr.Dataset, path: Path) -> Path:
+    ds.to_netcdf(path, engine="netcdf4")
+    return path
+
+
+# Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 conditions (from memory, METHODS.md §5.4):
+# net radiation 200 W m-2, air at 25 °C, RH 40 %, pressure 101.3 kPa, wind 3 m s-1 at 2 m.
+CHOW_FIELDS = {
+    "rnet": (200.0, "W m-2", "surface_net_downward_radiative_flux"),
+    "tas": (298.15, "K", "air_temperature"),
+    "hurs": (40.0, "%", "relative_humidity"),
+    "wind": (3.0, "m s-1", "wind_speed"),
+    "ps": (101300.0, "Pa", "surface_air_pressure"),
+    "pr": (1.0 / 86400.0, "kg m-2 s-1", "precipitation_flux"),
+}
+CHOW_CLIMATE = {
+    "surface_net_downward_radiative_flux": "rnet",
+    "air_temperature": "tas",
+    "relative_humidity": "hurs",
+    "wind_speed": "wind",
+    "surface_air_pressure": "ps",
+    "precipitation_flux": "pr",
+}
+
+
+def case_config(
+    layer_path: Path,
+    climate_path: Path,
+    out_dir: Path,
+    method: str,
+    climate: dict[str, str],
+    **sections: dict,
+) -> dict:
+    config = {
+        "waterbodies": {
+            "path": str(layer_path),
+            "layer": "ponds",
+            "id_field": "pond_id",
+            "group_by": ["zone"],
+        },
+        "climate": {
+            key: {"path": str(climate_path), "variable": var} for key, var in climate.items()
+        },
+        "method": {"name": method},
+        "output": {"dir": str(out_dir), "period": "month"},
+        "compute": {"cache_dir": str(out_dir.parent / "cache")},
+    }
+    if "wind_speed" in climate:
+        config["climate"]["wind_speed"]["height_m"] = 2.0
+    for name, table in sections.items():
+        config.setdefault(name, {}).update(table)
+    return config
