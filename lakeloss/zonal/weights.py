@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import tempfile
 import warnings
+import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -31,8 +32,10 @@ SAVE_FORMAT_VERSION = 1
 # ones: clipping a many-vertex reservoir against every cell of its box is what costs time.
 _PREPARED_MIN_CELLS = 16
 
-# Share of a polygon's planar area that may fall outside the grid through rounding alone.
-_OUTSIDE_TOLERANCE = 1e-9
+# Share of a polygon's area that may seem to fall outside the grid when the polygon is in
+# fact inside: its area inside is measured on a densified copy, which differs from the
+# polygon's own area by far less than this.
+_OUTSIDE_TOLERANCE = 1e-6
 
 
 @dataclass
@@ -172,7 +175,7 @@ class ZonalWeights:
                 return _from_arrays(sp.csr_matrix(matrix), stored)
         except InputDataError:
             raise
-        except (OSError, ValueError, KeyError, EOFError) as exc:
+        except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile) as exc:
             raise InputDataError(
                 f"weights file {path} is unreadable ({type(exc).__name__}); expected a file "
                 "written by ZonalWeights.save; delete it so it is rebuilt"
@@ -355,8 +358,8 @@ def _clipped_pairs(geometry: np.ndarray, x: _Axis, y: _Axis, bounds: np.ndarray)
     return _Pairs(body, y.stored(row), x.stored(col), coverage), inside_planar
 
 
-def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray):
-    """All (body, cell) pairs and the planar share of each polygon inside the grid."""
+def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygon_area):
+    """All (body, cell) pairs and the share of each polygon's true area inside the grid."""
     x, y = _Axis.of(grid.x_edges), _Axis.of(grid.y_edges)
     bounds = shapely.bounds(in_grid)
     with np.errstate(invalid="ignore"):
@@ -385,10 +388,10 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray):
     crossing = np.flatnonzero(overlaps & ~one_cell)
     if crossing.size:
         clipped, inside_planar = _clipped_pairs(in_grid[crossing], x, y, bounds[crossing])
-        partial = ~within[crossing]
-        share[crossing[partial]] = np.clip(
-            inside_planar[partial] / shapely.area(in_grid[crossing[partial]]), 0.0, 1.0
-        )
+        partial = crossing[~within[crossing] & (inside_planar > 0)]
+        inside = _true_area_inside(in_grid[partial], grid) / polygon_area[partial]
+        # below the tolerance the difference is the two area computations, not real overhang
+        share[partial] = np.where(inside > 1.0 - _OUTSIDE_TOLERANCE, 1.0, inside)
         pairs = _Pairs(
             np.concatenate([pairs.body, crossing[clipped.body]]),
             np.concatenate([pairs.row, clipped.row]),
@@ -396,6 +399,22 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray):
             np.concatenate([pairs.raw, clipped.raw]),
         )
     return pairs, share, within
+
+
+def _true_area_inside(geometry: np.ndarray, grid: GridSpec) -> np.ndarray:
+    """True area of each polygon's part inside the grid's outline. [m2]
+
+    Only the few polygons that hang over the grid's edge come here. The cut edge runs along
+    a grid line (a parallel or meridian on a geographic grid), so the part is densified to a
+    quarter cell before it goes to the equal-area CRS, where straight chords would cut
+    corners.
+    """
+    xmin, ymin, xmax, ymax = grid.bounds
+    part = shapely.intersection(_valid_for_clipping(geometry), shapely.box(xmin, ymin, xmax, ymax))
+    step = 0.25 * min(np.abs(np.diff(grid.x_edges)).min(), np.abs(np.diff(grid.y_edges)).min())
+    part = shapely.segmentize(part, step)
+    equal_area, _, unit = to_equal_area(part, grid.crs)
+    return shapely.area(equal_area) * unit * unit
 
 
 def _flags(areas: _LayerAreas, share: np.ndarray) -> np.ndarray:
@@ -450,8 +469,8 @@ def build_weights(
     A polygon whose bounding box lies within one cell goes to that cell with its full area,
     without clipping. Others are clipped against the cells of their box in grid coordinates;
     each piece's coverage fraction of its cell times the cell's true area is the raw weight,
-    and each row is then rescaled to the polygon's true area inside the grid (its true area
-    times the planar share inside the grid). Means from these weights equal exactextract's
+    and each row is then rescaled to the polygon's true area inside the grid (measured in an
+    equal-area CRS after cutting the polygon at the grid's outline). Means from these weights equal exactextract's
     means weighted by cell area, and row sums stay exact. Holes are excluded and the parts of
     a multipolygon summed because clipping works on the whole geometry.
     """
@@ -470,7 +489,7 @@ def build_weights(
             "expected reproject_to_grid(polygons, grid) of the same layer"
         )
     in_grid = np.asarray(reprojected.array, dtype=object)
-    pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty)
+    pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty, areas.area)
     if not pairs.body.size:
         raise GridError(
             f"none of the {int((~areas.empty).sum())} water bodies overlaps the climate grid "
