@@ -320,7 +320,9 @@ def relative_shortwave_radiation(
     from earlier periods, which a per-step pure function cannot do.
     """
     with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = np.where(clear_sky_radiation == 0, 1.0, shortwave_radiation / clear_sky_radiation)
+        ratio = np.where(
+            clear_sky_radiation == 0, 1.0, np.divide(shortwave_radiation, clear_sky_radiation)
+        )
         return np.clip(ratio, 0.3, 1.0)
 
 
