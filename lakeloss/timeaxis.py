@@ -266,6 +266,32 @@ def from_start(start: str, step: str, count: int, calendar: str = "standard") ->
     return _monthly_axis(np.array(stamps, dtype=object), _canonical_calendar(calendar, first))
 
 
+def count_steps(start: str, end: str, step: str, calendar: str = "standard") -> int:
+    """Number of steps from ``start`` to ``end`` inclusive.
+
+    Parameters
+    ----------
+    start, end : str
+        ISO dates of the first and last step; for monthly steps any day of the end month
+        counts as that month.
+    step : str
+        ``"day"`` or ``"month"``.
+    calendar : str
+        CF calendar (a day count depends on it).
+
+    Returns
+    -------
+    int
+        Step count (0 or negative when ``end`` precedes ``start``).
+    """
+    if step not in STEPS:
+        raise ConfigError(f"time step {step!r} is not known; expected one of {', '.join(STEPS)}")
+    first, last = _parse_start(start, calendar), _parse_start(end, calendar)
+    if step == "day":
+        return int((last - first).total_seconds() // 86400) + 1
+    return (last.year - first.year) * 12 + last.month - first.month + 1
+
+
 def _parse_start(start: str, calendar: str):
     try:
         parsed = _dt.datetime.fromisoformat(str(start).strip())

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 import rasterio
 import xarray as xr
-from rasterio.transform import from_origin
+from affine import Affine
 from shapely.geometry import box
 
 PROJECTED_CRS = "EPSG:32755"
@@ -99,7 +99,7 @@ def write_geotiff(
         "height": height,
         "count": count,
         "dtype": "float32",
-        "transform": from_origin(500_000, 6_005_000, 1000, 1000),
+        "transform": Affine(1000.0, 0.0, 500_000.0, 0.0, -1000.0, 6_005_000.0),
         "nodata": nodata,
     }
     if crs is not None:

@@ -1,0 +1,615 @@
+"""Opening gridded climate inputs (CF NetCDF, GeoTIFF band stacks) as lazy fields.
+
+Each reader returns a :class:`ClimateField`: one glossary quantity on a (time, y, x) grid,
+dask-backed and already converted to the glossary unit (the conversion is part of the lazy
+graph, so nothing is read until the pipeline asks for a block of time steps). Coordinates are
+cell centres in stored order: a south-up grid stays south-up, 0..360 longitudes stay 0..360;
+the zonal engine handles both.
+"""
+
+from __future__ import annotations
+
+import os
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import affine
+import cftime
+import dask
+import dask.array as da
+import numpy as np
+import pyproj
+import rasterio
+import rasterio.errors
+import xarray as xr
+
+from lakeloss import timeaxis
+from lakeloss.errors import (
+    AssumedCRSWarning,
+    ConfigError,
+    CRSError,
+    GridError,
+    ImplausibleValuesError,
+    InputDataError,
+    TimeAxisError,
+    UnitsError,
+)
+from lakeloss.glossary import ALIASES, QUANTITIES
+from lakeloss.io import units as units_io
+
+DIMS = ("time", "y", "x")
+
+# How CF files name or mark each role; matched case-insensitively on names, exactly on attrs.
+_ROLE_NAMES = {
+    "time": ("time", "t", "valid_time", "date"),
+    "y": ("y", "lat", "latitude", "rlat", "northing", "south_north"),
+    "x": ("x", "lon", "longitude", "rlon", "easting", "west_east"),
+}
+_ROLE_STANDARD_NAMES = {
+    "time": ("time",),
+    "y": ("latitude", "projection_y_coordinate", "grid_latitude"),
+    "x": ("longitude", "projection_x_coordinate", "grid_longitude"),
+}
+_ROLE_AXIS = {"time": "T", "y": "Y", "x": "X"}
+_GEOGRAPHIC_UNITS = {
+    "y": ("degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN", "degreesN"),
+    "x": ("degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE", "degreesE"),
+}
+
+# What netCDF4/HDF5 and xarray raise on missing, truncated or foreign files.
+_OPEN_ERRORS = (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError)
+
+
+@dataclass
+class ClimateField:
+    """One climate quantity on a grid, lazily loaded, in glossary units.
+
+    Attributes
+    ----------
+    quantity : str
+        Glossary name (aliases resolved: ``precipitation_flux`` -> ``precipitation``).
+    data : xarray.DataArray
+        Dims exactly ``("time", "y", "x")``, dask-backed, chunked along time, values in
+        ``QUANTITIES[quantity].unit``.
+    times : numpy.ndarray
+        cftime datetimes of the steps.
+    calendar : str
+        CF calendar of ``times`` (aliases resolved).
+    x, y : numpy.ndarray
+        Cell-centre coordinates in stored order [CRS units].
+    crs : pyproj.CRS
+        Coordinate reference system of ``x`` and ``y``.
+    transform : affine.Affine or None
+        Pixel-to-CRS transform (GeoTIFF inputs), None for NetCDF.
+    source_path : str
+        File the field was read from.
+    variable : str
+        Variable name in the file (file stem for GeoTIFF stacks).
+    source_units : str
+        Unit the values were declared in before conversion.
+    crs_assumed : bool
+        True when the CRS did not come from the file (lat/lon default or config override).
+    """
+
+    quantity: str
+    data: xr.DataArray
+    times: np.ndarray
+    calendar: str
+    x: np.ndarray
+    y: np.ndarray
+    crs: pyproj.CRS
+    transform: affine.Affine | None
+    source_path: str
+    variable: str
+    source_units: str
+    crs_assumed: bool
+
+    @property
+    def time_axis(self) -> timeaxis.TimeAxis:
+        """The field's time axis (steps, lengths, day of year)."""
+        return timeaxis.from_times(self.times, self.calendar)
+
+    def describe(self) -> str:
+        """Short name for messages: file and variable."""
+        return f"{self.source_path!r} variable {self.variable!r}"
+
+
+def _glossary_name(quantity: str) -> str:
+    name = ALIASES.get(quantity, quantity)
+    if name not in QUANTITIES:
+        known = ", ".join(sorted(set(QUANTITIES) | set(ALIASES)))
+        raise ConfigError(f"climate quantity {quantity!r} is not known; expected one of {known}")
+    return name
+
+
+def _check_file(path: Path, kind: str) -> None:
+    if not path.exists():
+        raise InputDataError(
+            f"climate file {str(path)!r} does not exist; expected a {kind} file; "
+            "check the path in [climate]"
+        )
+    if path.is_dir():
+        raise InputDataError(
+            f"climate path {str(path)!r} is a directory; expected a {kind} file; "
+            "name the file itself in [climate]"
+        )
+
+
+def _unreadable(path: Path, kind: str, err: Exception) -> InputDataError:
+    reason = " ".join(str(err).split()) or type(err).__name__
+    return InputDataError(
+        f"climate file {str(path)!r} is unreadable, truncated or not {kind} ({reason}); "
+        f"expected a readable {kind} file; re-download or re-export it"
+    )
+
+
+# ----------------------------------------------------------------------------- NetCDF
+
+
+def _open_dataset(path: Path) -> xr.Dataset:
+    _check_file(path, "NetCDF")
+    try:
+        # Times are decoded here with cftime so that every calendar works the same way.
+        return xr.open_dataset(path, engine="netcdf4", decode_times=False, cache=False)
+    except _OPEN_ERRORS as err:
+        raise _unreadable(path, "NetCDF", err) from err
+
+
+def _has_role(dataset: xr.Dataset, dim: str, role: str) -> bool:
+    if dim.lower() in _ROLE_NAMES[role]:
+        return True
+    if dim not in dataset.variables:
+        return False
+    attrs = dataset[dim].attrs
+    if attrs.get("standard_name") in _ROLE_STANDARD_NAMES[role]:
+        return True
+    if str(attrs.get("axis", "")).upper() == _ROLE_AXIS[role]:
+        return True
+    if role == "time":
+        return " since " in str(attrs.get("units", ""))
+    return attrs.get("units") in _GEOGRAPHIC_UNITS[role]
+
+
+def _dim_roles(dataset: xr.Dataset, data: xr.DataArray, variable: str) -> dict[str, str]:
+    """Map role (time, y, x) -> dimension name of ``data``."""
+    roles: dict[str, str] = {}
+    for dim in data.dims:
+        matches = [role for role in DIMS if _has_role(dataset, str(dim), role)]
+        if len(matches) == 1 and matches[0] not in roles:
+            roles[matches[0]] = str(dim)
+        elif data.sizes[dim] != 1:
+            raise GridError(
+                f"variable {variable!r} has dimensions {tuple(data.dims)}; expected time, y (lat) "
+                f"and x (lon) only, but {dim!r} is not recognisable as one of them; "
+                "name the dimensions time/lat/lon or time/y/x"
+            )
+    missing = [role for role in DIMS if role not in roles]
+    if missing:
+        raise GridError(
+            f"variable {variable!r} has dimensions {tuple(data.dims)}; expected a time, a y "
+            f"(lat) and an x (lon) dimension but found no {'/'.join(missing)}; "
+            "give the variable (time, y, x) dimensions with CF names or attributes"
+        )
+    return roles
+
+
+def _to_time_y_x(dataset: xr.Dataset, variable: str) -> tuple[xr.DataArray, dict[str, str]]:
+    data = dataset[variable]
+    roles = _dim_roles(dataset, data, variable)
+    extra = [d for d in data.dims if d not in roles.values()]
+    data = data.isel({d: 0 for d in extra}, drop=True)
+    data = data.transpose(*(roles[r] for r in DIMS))
+    for role in ("y", "x"):
+        if roles[role] not in dataset.coords:
+            raise GridError(
+                f"variable {variable!r}: dimension {roles[role]!r} has no coordinate values; "
+                "expected 1-D cell-centre coordinates; add the coordinate variable to the file"
+            )
+    renamed = data.rename({roles[r]: r for r in DIMS if roles[r] != r})
+    return renamed.reset_coords(drop=True), roles
+
+
+def _decode_times(dataset: xr.Dataset, time_dim: str, path: Path) -> tuple[np.ndarray, str]:
+    if time_dim not in dataset.variables:
+        raise TimeAxisError(
+            f"climate file {str(path)!r}: time dimension {time_dim!r} has no coordinate "
+            "values; expected CF time stamps ('days since ...'); add the time variable"
+        )
+    attrs = dataset[time_dim].attrs
+    calendar = str(attrs.get("calendar", "standard"))
+    try:
+        stamps = cftime.num2date(
+            np.asarray(dataset[time_dim].values),
+            str(attrs["units"]),
+            calendar=calendar,
+            only_use_cftime_datetimes=True,
+        )
+    except (KeyError, ValueError, TypeError) as err:
+        raise TimeAxisError(
+            f"climate file {str(path)!r}: time units {attrs.get('units')!r} with calendar "
+            f"{calendar!r} cannot be decoded; expected e.g. 'days since 2000-01-01' and a CF "
+            "calendar; fix the time variable's attributes"
+        ) from err
+    return np.asarray(stamps, dtype=object).reshape(-1), calendar
+
+
+def _probe(data: xr.DataArray, path: Path) -> None:
+    # Reading the very last value finds most truncated files now rather than mid-run.
+    try:
+        data[-1, -1, -1].values  # noqa: B018
+    except _OPEN_ERRORS as err:
+        raise _unreadable(path, "NetCDF", err) from err
+
+
+def _crs_from_attrs(attrs: dict) -> pyproj.CRS:
+    for key in ("crs_wkt", "spatial_ref"):
+        if attrs.get(key):
+            return pyproj.CRS.from_wkt(str(attrs[key]))
+    return pyproj.CRS.from_cf(dict(attrs))
+
+
+def _file_crs(dataset: xr.Dataset, variable: str, path: Path) -> pyproj.CRS | None:
+    data_attrs = dataset[variable].attrs
+    mapping = data_attrs.get("grid_mapping") or dataset[variable].encoding.get("grid_mapping")
+    if mapping:
+        name = str(mapping).split(":")[0].strip()
+        if name not in dataset.variables:
+            raise CRSError(
+                f"{str(path)!r} variable {variable!r} names grid_mapping {name!r}, which is not "
+                "in the file; expected the grid-mapping variable; add it or set crs in [climate]"
+            )
+        try:
+            return _crs_from_attrs(dataset[name].attrs)
+        except pyproj.exceptions.CRSError as err:
+            raise CRSError(
+                f"{str(path)!r} grid mapping {name!r} cannot be read as a CRS ({err}); expected "
+                "CF grid-mapping attributes or crs_wkt; set crs in [climate]"
+            ) from err
+    for attrs in (data_attrs, dataset.attrs):
+        if attrs.get("crs_wkt") or attrs.get("spatial_ref"):
+            try:
+                return _crs_from_attrs(attrs)
+            except pyproj.exceptions.CRSError as err:
+                raise CRSError(
+                    f"{str(path)!r}: crs_wkt/spatial_ref attribute is not a CRS ({err}); "
+                    "set crs in [climate]"
+                ) from err
+    return None
+
+
+def _is_geographic(dataset: xr.Dataset, roles: dict[str, str]) -> bool:
+    return all(
+        roles[role].lower() in _ROLE_NAMES[role][1:3]
+        or dataset[roles[role]].attrs.get("standard_name") in _ROLE_STANDARD_NAMES[role][:1]
+        or dataset[roles[role]].attrs.get("units") in _GEOGRAPHIC_UNITS[role]
+        for role in ("y", "x")
+    )
+
+
+def _parse_override(crs: str) -> pyproj.CRS:
+    try:
+        return pyproj.CRS.from_user_input(crs)
+    except pyproj.exceptions.CRSError as err:
+        raise CRSError(
+            f'climate crs {crs!r} is not a CRS pyproj understands; expected e.g. "EPSG:4326"; '
+            "fix the crs setting in [climate]"
+        ) from err
+
+
+def _resolve_crs(found: pyproj.CRS | None, geographic: bool, crs: str | None, where: str):
+    """Return (CRS, assumed) from the file's CRS, the lat/lon default and the override."""
+    override = None if crs is None else _parse_override(crs)
+    if found is not None:
+        if override is not None and not found.equals(override, ignore_axis_order=True):
+            raise ConfigError(
+                f"{where} declares CRS {found.to_string()!r} but [climate] crs is {crs!r}; "
+                "expected them to agree; remove the crs setting or fix the file"
+            )
+        return found, False
+    if override is not None:
+        return override, True
+    if geographic:
+        warnings.warn(
+            f"{where} has latitude/longitude coordinates but no grid_mapping; assumed EPSG:4326",
+            AssumedCRSWarning,
+            stacklevel=3,
+        )
+        return pyproj.CRS.from_epsg(4326), True
+    raise CRSError(
+        f"{where} has no CRS (no grid_mapping, crs_wkt or lat/lon coordinates); expected one; "
+        'set crs = "EPSG:...." for this input in [climate]'
+    )
+
+
+def _source_units(declared, override: str | None, where: str, quantity: str) -> str:
+    if override is not None:
+        return override
+    if declared is None:
+        raise UnitsError(
+            f"{where} has no units attribute; expected units convertible to "
+            f"{QUANTITIES[quantity].unit}; set units for this input in [climate]"
+        )
+    return str(declared)
+
+
+def _check_coordinates(values: np.ndarray, name: str, where: str) -> np.ndarray:
+    values = np.asarray(values, dtype=float)
+    steps = np.diff(values)
+    if values.ndim != 1 or values.size == 0 or not (np.all(steps > 0) or np.all(steps < 0)):
+        raise GridError(
+            f"{where}: {name} coordinates are not strictly monotonic 1-D values; expected a "
+            "regular grid of cell centres; regrid the file"
+        )
+    return values
+
+
+def open_netcdf(
+    path,
+    variable: str,
+    quantity: str,
+    *,
+    units: str | None = None,
+    crs: str | None = None,
+    chunk_steps: int = 64,
+) -> ClimateField:
+    """Open one variable of a CF NetCDF file as a lazy field in glossary units.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        NetCDF file.
+    variable : str
+        Variable to read.
+    quantity : str
+        Glossary name or alias (``precipitation_amount``, ``precipitation_flux`` ...).
+    units : str, optional
+        Unit to use instead of the variable's ``units`` attribute.
+    crs : str, optional
+        CRS for a file that has none (must agree with the file's when it has one).
+    chunk_steps : int
+        Time steps per dask chunk.
+
+    Returns
+    -------
+    ClimateField
+
+    Raises
+    ------
+    InputDataError
+        Missing, truncated, corrupt or non-NetCDF file, or a directory.
+    ConfigError
+        Variable not in the file (the message lists the variables), unknown quantity.
+    GridError
+        Dimensions not recognisable as time, y and x; coordinates missing or not monotonic.
+    CRSError
+        No CRS, no lat/lon coordinates and no override.
+    UnitsError
+        No units, or units that cannot express the quantity.
+    TimeAxisError
+        Time stamps undecodable or irregular.
+
+    Warns
+    -----
+    AssumedCRSWarning
+        EPSG:4326 was assumed for lat/lon coordinates without a grid mapping.
+    """
+    source = Path(path)
+    name = _glossary_name(quantity)
+    dataset = _open_dataset(source)
+    where = f"{str(source)!r} variable {variable!r}"
+    if variable not in dataset.data_vars:
+        listing = ", ".join(repr(v) for v in dataset.data_vars) or "none"
+        raise ConfigError(
+            f"variable {variable!r} is not in {str(source)!r}; the variables are {listing}; "
+            "set variable for this input in [climate]"
+        )
+    data, roles = _to_time_y_x(dataset, variable)
+    times, calendar = _decode_times(dataset, roles["time"], source)
+    axis = timeaxis.from_times(times, calendar)
+    found = _file_crs(dataset, variable, source)
+    field_crs, assumed = _resolve_crs(found, _is_geographic(dataset, roles), crs, where)
+    declared = _source_units(data.attrs.get("units"), units, where, name)
+    _probe(data, source)
+    lazy = data.chunk({"time": max(1, int(chunk_steps)), "y": -1, "x": -1})
+    converted = units_io.convert(lazy, declared, quantity, step_days=axis.days, variable=variable)
+    return ClimateField(
+        quantity=name,
+        data=converted.rename(name),
+        times=axis.times,
+        calendar=axis.calendar,
+        x=_check_coordinates(dataset[roles["x"]].values, "x", where),
+        y=_check_coordinates(dataset[roles["y"]].values, "y", where),
+        crs=field_crs,
+        transform=None,
+        source_path=os.fspath(path),
+        variable=variable,
+        source_units=declared,
+        crs_assumed=assumed,
+    )
+
+
+# ----------------------------------------------------------------------------- GeoTIFF
+
+
+def _read_bands(path: str, first: int, last: int, nodata, dtype: str) -> np.ndarray:
+    # One task reads bands first..last (1-based, inclusive); runs inside the dask graph.
+    with rasterio.open(path) as src:
+        block = src.read(list(range(first, last + 1)))
+    # Compare in the stored type: a float32 nodata such as 1e20 is not 1e20 in float64.
+    missing = None if nodata is None else block == np.asarray(nodata).astype(block.dtype)
+    block = block.astype(dtype)
+    if missing is not None:
+        block[missing] = np.nan
+    return block
+
+
+def _lazy_stack(
+    path: str, count: int, shape: tuple[int, int], nodata, dtype: str, chunk_steps: int
+):
+    chunks = []
+    for first in range(1, count + 1, chunk_steps):
+        last = min(count, first + chunk_steps - 1)
+        task = dask.delayed(_read_bands, pure=True)(path, first, last, nodata, dtype)
+        chunks.append(da.from_delayed(task, shape=(last - first + 1, *shape), dtype=dtype))
+    return da.concatenate(chunks, axis=0)
+
+
+def _declared_units(src) -> str | None:
+    band_units = src.units[0] if src.units else None
+    return src.tags().get("units") or src.tags(1).get("units") or band_units or None
+
+
+def _geotiff_axis(start: str, step: str, count: int, calendar: str, end: str | None, where: str):
+    axis = timeaxis.from_start(start, step, count, calendar)
+    if end is not None:
+        implied = timeaxis.count_steps(start, end, step, calendar)
+        if implied != count:
+            raise TimeAxisError(
+                f"{where} has {count} bands but start {start} and end {end} imply {implied} "
+                f"{step} steps; expected one band per step; fix start/end or the band count"
+            )
+    return axis
+
+
+def _cell_centres(transform: affine.Affine, width: int, height: int, where: str):
+    if transform.b != 0 or transform.d != 0:
+        raise GridError(
+            f"{where} has a rotated or sheared geotransform; expected a north-up or south-up "
+            "grid; warp it to an axis-aligned grid"
+        )
+    x = transform.c + transform.a * (np.arange(width) + 0.5)
+    y = transform.f + transform.e * (np.arange(height) + 0.5)
+    return x, y
+
+
+def open_geotiff_stack(
+    path,
+    quantity: str,
+    *,
+    start: str,
+    step: str,
+    units: str | None,
+    calendar: str = "standard",
+    crs: str | None = None,
+    end: str | None = None,
+    chunk_steps: int = 64,
+) -> ClimateField:
+    """Open a GeoTIFF with one band per time step as a lazy field in glossary units.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        GeoTIFF (or any single-file raster GDAL reads) with bands in time order.
+    quantity : str
+        Glossary name or alias.
+    start : str
+        ISO date of the first band.
+    step : str
+        ``"day"`` or ``"month"``; the band count gives the number of steps.
+    units : str or None
+        Unit of the values; None reads the ``units`` tag of the file or first band.
+    calendar : str
+        CF calendar of the band dates.
+    crs : str, optional
+        CRS for a file that has none (must agree with the file's when it has one).
+    end : str, optional
+        ISO date of the last band, checked against the band count.
+    chunk_steps : int
+        Bands per dask chunk.
+
+    Returns
+    -------
+    ClimateField
+
+    Raises
+    ------
+    InputDataError
+        Missing, unreadable or corrupt file, or a directory.
+    TimeAxisError
+        ``end`` inconsistent with the band count, or an invalid start.
+    CRSError
+        No CRS in the file and none configured.
+    UnitsError
+        No units anywhere, or units that cannot express the quantity.
+    GridError
+        Rotated geotransform.
+    """
+    source = Path(path)
+    name = _glossary_name(quantity)
+    _check_file(source, "GeoTIFF")
+    where = f"GeoTIFF {str(source)!r}"
+    try:
+        with rasterio.open(source) as src:
+            count, height, width = src.count, src.height, src.width
+            transform, nodata = src.transform, src.nodata
+            dtype = np.result_type(src.dtypes[0], np.float32).name
+            file_crs = None if src.crs is None else pyproj.CRS.from_wkt(src.crs.to_wkt())
+            tagged = _declared_units(src)
+    except (rasterio.errors.RasterioError, OSError, ValueError) as err:
+        raise _unreadable(source, "GeoTIFF", err) from err
+    declared = _source_units(tagged, units, where, name)
+    axis = _geotiff_axis(start, step, count, calendar, end, where)
+    field_crs, assumed = _resolve_crs(file_crs, False, crs, where)
+    x, y = _cell_centres(transform, width, height, where)
+    stack = _lazy_stack(
+        os.fspath(source), count, (height, width), nodata, dtype, max(1, chunk_steps)
+    )
+    data = xr.DataArray(stack, dims=DIMS, coords={"time": axis.times, "y": y, "x": x})
+    converted = units_io.convert(
+        data, declared, quantity, step_days=axis.days, variable=source.stem
+    )
+    return ClimateField(
+        quantity=name,
+        data=converted.rename(name),
+        times=axis.times,
+        calendar=axis.calendar,
+        x=x,
+        y=y,
+        crs=field_crs,
+        transform=transform,
+        source_path=os.fspath(path),
+        variable=source.stem,
+        source_units=declared,
+        crs_assumed=assumed,
+    )
+
+
+# ----------------------------------------------------------------------------- checks
+
+
+def check_values(field: ClimateField, *, strict: bool) -> str | None:
+    """Scan a whole field for values that contradict their declared unit.
+
+    Parameters
+    ----------
+    field : ClimateField
+        An opened field (values already in glossary units).
+    strict : bool
+        Raise instead of returning the reason.
+
+    Returns
+    -------
+    str or None
+        One-line reason naming the file and variable, or None when plausible (or all NaN).
+
+    Raises
+    ------
+    ImplausibleValuesError
+        When ``strict`` and the values are implausible.
+    """
+    # One pass over the chunks for both extremes; NaN (nodata) is ignored.
+    low, high = dask.compute(field.data.min(skipna=True), field.data.max(skipna=True))
+    low, high = float(low), float(high)
+    if not (np.isfinite(low) and np.isfinite(high)):
+        return None
+    reason = units_io.diagnose_range(field.quantity, low, high, field.source_units)
+    if reason is None:
+        return None
+    message = (
+        f"{field.describe()}: {reason}; expected values in the declared unit; "
+        "fix the units in the file or set units for this input in [climate]"
+    )
+    if strict:
+        raise ImplausibleValuesError(message)
+    return message
