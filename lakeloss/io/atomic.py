@@ -26,6 +26,7 @@ from lakeloss.errors import OutputError
 _PARTIAL = "lakeloss-partial"
 _OLD = "lakeloss-old"
 _DISK_FULL_ERRNOS = frozenset({errno.ENOSPC, errno.EDQUOT})
+_NEARLY_FULL = 1 << 20  # [bytes] free space below which a failed write counts as disk full
 
 
 class OutputDirectory:
@@ -106,7 +107,7 @@ class OutputDirectory:
         if exc is not None:
             disk_full = _is_disk_full(exc, staging)
             shutil.rmtree(staging, ignore_errors=True)
-            if disk_full and not isinstance(exc, OutputError):
+            if disk_full and not str(exc).startswith("disk full"):
                 raise OutputError(
                     f"disk full while writing outputs for {self.target} ({exc}); "
                     "earlier outputs were left untouched; free some space or choose another "
@@ -205,9 +206,11 @@ def _pid_alive(pid: int) -> bool:
 def _is_disk_full(exc: BaseException, staging: Path) -> bool:
     """Whether a failure was caused by a full disk or an exhausted quota.
 
-    Libraries such as netCDF4 or GDAL report a full disk in their own exception types, so
-    besides the errno anywhere in the exception chain, a file system with no block left for
-    the staging directory also counts.
+    Libraries such as netCDF4 or GDAL report a full disk in their own exception types and
+    words (GDAL may even say "no such table" after SQLite failed to grow the file), so besides
+    the errno anywhere in the exception chain, a failure on a file system with less than
+    ``_NEARLY_FULL`` bytes left also counts. The margin is needed because a library removes
+    its journal or partial file after failing, which frees a little space again.
     """
     seen: set[int] = set()
     current: BaseException | None = exc
@@ -217,9 +220,10 @@ def _is_disk_full(exc: BaseException, staging: Path) -> bool:
             return True
         current = current.__cause__ or current.__context__
     try:
-        return os.statvfs(staging).f_bavail == 0
+        usage = os.statvfs(staging)
     except OSError:
         return False
+    return usage.f_bavail * usage.f_frsize < _NEARLY_FULL
 
 
 def _as_output_error(exc: OSError, target: Path) -> OutputError:

@@ -110,7 +110,7 @@ def to_jsonable(obj: object) -> object:
         return str(obj)
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
         return to_jsonable(dataclasses.asdict(obj))
-    if _is_date(obj):
+    if is_date(obj):
         return obj.isoformat()  # type: ignore[attr-defined]
     raise TypeError(
         f"cannot write a {type(obj).__name__} to JSON; expected mappings, sequences, "
@@ -146,8 +146,8 @@ def _format_column(series: pd.Series, decimals: int | None) -> list[str]:
     if kind == "M" and getattr(series.dtype, "tz", None) is None:
         return _format_datetime64(series.to_numpy(dtype="datetime64[s]"))
     values = series.to_numpy(dtype=object, na_value=None).tolist()
-    if any(_is_date(v) for v in values):
-        return _format_dates(values)
+    if any(is_date(v) for v in values):
+        return iso_dates(values)
     return [_format_scalar(v, decimals) for v in values]
 
 
@@ -180,7 +180,19 @@ def _format_datetime64(values: np.ndarray) -> list[str]:
     return ["" if t == "NaT" else t for t in texts]
 
 
-def _format_dates(values: Iterable[object]) -> list[str]:
+def iso_dates(values: Iterable[object]) -> list[str]:
+    """ISO 8601 text of dates of any calendar, missing values as empty strings.
+
+    Parameters
+    ----------
+    values : iterable
+        ``datetime``, pandas ``Timestamp`` or cftime dates, or None / NaT.
+
+    Returns
+    -------
+    list of str
+        ``YYYY-MM-DD`` for every value if all fall on midnight, else ``YYYY-MM-DDTHH:MM:SS``.
+    """
     values = list(values)
     present = [v for v in values if v is not None and v is not pd.NaT]
     date_only = all(
@@ -196,7 +208,7 @@ def _format_dates(values: Iterable[object]) -> list[str]:
     ]
 
 
-def _is_date(value: object) -> bool:
+def is_date(value: object) -> bool:
     """Whether a value is a date or date-time (datetime, pandas, numpy or cftime)."""
     if isinstance(value, datetime.date):
         return True

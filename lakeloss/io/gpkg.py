@@ -1,0 +1,385 @@
+"""GeoPackage output: layers written by GDAL, field descriptions and provenance added after.
+
+GDAL (through pyogrio) writes every layer, so the file is exactly what GIS software expects:
+the first layer is a feature layer in its own CRS, later ones may be attribute tables
+(``gpkg_contents.data_type = 'attributes'``). pyogrio also sets GDAL dataset and layer
+metadata, which ``ogrinfo`` and :func:`pyogrio.read_info` show. When GDAL has closed the file,
+two OGC GeoPackage extensions are filled in with plain SQLite:
+
+* ``gpkg_schema``: one ``gpkg_data_columns`` row per documented column; ``name`` and
+  ``title`` read ``"<title> [<unit>]"`` so the unit is visible wherever the alias is shown,
+  and ``description`` holds the description.
+* ``gpkg_metadata``: the run's provenance as one JSON document (``mime_type``
+  ``application/json``) referenced at ``geopackage`` scope, next to the XML rows GDAL itself
+  keeps there.
+
+Attribute tables go through GDAL as well. For 10^6 rows x 9 columns GDAL took 4.4 s and a
+hand-written ``sqlite3.executemany`` in one transaction 3.5-3.7 s (measured on the 2-core
+development machine, pyogrio 0.13 / GDAL 3.12, no pyarrow): too small a gain to justify
+maintaining GeoPackage bookkeeping (``gpkg_contents``, ``gpkg_ogr_contents``) by hand.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import os
+import re
+import sqlite3
+from collections.abc import Mapping, Sequence
+from contextlib import closing
+from dataclasses import dataclass
+from pathlib import Path
+
+import geopandas
+import pandas as pd
+import pyogrio
+import pyogrio.errors
+
+from lakeloss.errors import CRSError, InputDataError, OutputError
+from lakeloss.io.tables import is_date, iso_dates, to_jsonable
+
+PROVENANCE_URI = "urn:lakeloss:run-provenance"
+"""``gpkg_metadata.md_standard_uri`` of the provenance document lakeloss writes."""
+
+_SCHEMA_DEFINITION = "http://www.geopackage.org/spec/#extension_schema"
+_METADATA_DEFINITION = "http://www.geopackage.org/spec/#extension_metadata"
+_SQLITE_FULL = 13  # SQLITE_FULL result code: database or disk is full
+_UNIT_IN_TITLE = re.compile(r"^(?P<title>.*) \[(?P<unit>[^\[\]]+)\]$", re.DOTALL)
+
+# Table definitions as given in the GeoPackage 1.2+ specification (schema and metadata
+# extensions). IF NOT EXISTS because GDAL may have created some of them already.
+_DDL = (
+    """CREATE TABLE IF NOT EXISTS gpkg_data_columns (
+        table_name TEXT NOT NULL, column_name TEXT NOT NULL, name TEXT, title TEXT,
+        description TEXT, mime_type TEXT, constraint_name TEXT,
+        CONSTRAINT pk_gdc PRIMARY KEY (table_name, column_name),
+        CONSTRAINT gdc_tn UNIQUE (table_name, name))""",
+    """CREATE TABLE IF NOT EXISTS gpkg_data_column_constraints (
+        constraint_name TEXT NOT NULL, constraint_type TEXT NOT NULL, value TEXT,
+        min NUMERIC, min_is_inclusive BOOLEAN, max NUMERIC, max_is_inclusive BOOLEAN,
+        description TEXT,
+        CONSTRAINT gdcc_ntv UNIQUE (constraint_name, constraint_type, value))""",
+    """CREATE TABLE IF NOT EXISTS gpkg_metadata (
+        id INTEGER CONSTRAINT m_pk PRIMARY KEY ASC NOT NULL,
+        md_scope TEXT NOT NULL DEFAULT 'dataset', md_standard_uri TEXT NOT NULL,
+        mime_type TEXT NOT NULL DEFAULT 'text/xml', metadata TEXT NOT NULL DEFAULT '')""",
+    """CREATE TABLE IF NOT EXISTS gpkg_metadata_reference (
+        reference_scope TEXT NOT NULL, table_name TEXT, column_name TEXT,
+        row_id_value INTEGER,
+        timestamp DATETIME NOT NULL DEFAULT (strftime('%Y-%m-%dT%H:%M:%fZ','now')),
+        md_file_id INTEGER NOT NULL, md_parent_id INTEGER,
+        CONSTRAINT crmr_mfi_fk FOREIGN KEY (md_file_id) REFERENCES gpkg_metadata(id),
+        CONSTRAINT crmr_mpi_fk FOREIGN KEY (md_parent_id) REFERENCES gpkg_metadata(id))""",
+    """CREATE TABLE IF NOT EXISTS gpkg_extensions (
+        table_name TEXT, column_name TEXT, extension_name TEXT NOT NULL,
+        definition TEXT NOT NULL, scope TEXT NOT NULL,
+        CONSTRAINT ge_tce UNIQUE (table_name, column_name, extension_name))""",
+)
+
+_EXTENSIONS = (
+    ("gpkg_data_columns", "gpkg_schema", _SCHEMA_DEFINITION),
+    ("gpkg_data_column_constraints", "gpkg_schema", _SCHEMA_DEFINITION),
+    ("gpkg_metadata", "gpkg_metadata", _METADATA_DEFINITION),
+    ("gpkg_metadata_reference", "gpkg_metadata", _METADATA_DEFINITION),
+)
+
+
+@dataclass(frozen=True)
+class FieldInfo:
+    """What one output column holds, for the GeoPackage's data-columns table.
+
+    Attributes
+    ----------
+    title : str
+        Short human label, e.g. ``"Evaporation depth"``; must not itself end in ``[...]``.
+    description : str
+        One or two sentences: what the value is and how it was obtained.
+    unit : str or None
+        Unit of the values, e.g. ``"mm"`` or ``"m3"``; None for unitless columns.
+    """
+
+    title: str
+    description: str
+    unit: str | None = None
+
+    @property
+    def label(self) -> str:
+        """Title with the unit in brackets, as stored in ``name`` and ``title``."""
+        return self.title if self.unit is None else f"{self.title} [{self.unit}]"
+
+
+def write_geopackage(
+    path: str | Path,
+    layers: Sequence[tuple[str, geopandas.GeoDataFrame | pd.DataFrame]],
+    *,
+    fields: Mapping[str, Mapping[str, FieldInfo]],
+    metadata: Mapping[str, object],
+) -> None:
+    """Write layers, field descriptions and provenance to one GeoPackage.
+
+    Parameters
+    ----------
+    path : str or Path
+        GeoPackage to create (an existing file is replaced).
+    layers : sequence of (str, GeoDataFrame or DataFrame)
+        Layer name and content, in order. The first is a feature layer with a CRS; later
+        ones may be plain DataFrames, written as attribute tables.
+    fields : mapping
+        ``fields[layer_name][column] -> FieldInfo`` for the columns to document; columns
+        without an entry get no description.
+    metadata : mapping
+        JSON-serialisable provenance of the run (NaN becomes null).
+
+    Raises
+    ------
+    ValueError
+        If the layer list or field descriptions are inconsistent (a caller's mistake).
+    CRSError
+        If the first layer has no CRS.
+    OutputError
+        If GDAL or SQLite cannot write the file.
+    """
+    _check_layers(layers, fields)
+    provenance = to_jsonable(dict(metadata))
+    path = Path(path)
+    if path.exists():
+        path.unlink()
+    for name, frame in layers:
+        _write_layer(path, name, frame, fields.get(name, {}), provenance)
+    try:
+        with closing(sqlite3.connect(os.fspath(path))) as con, con:
+            _add_extensions(con, fields)
+            _add_provenance(con, provenance)
+    except sqlite3.Error as exc:
+        raise _write_error(exc, f"cannot add field descriptions or provenance to {path}") from exc
+
+
+def read_field_descriptions(path: str | Path, table: str) -> dict[str, FieldInfo]:
+    """Field descriptions of one table of a GeoPackage written by :func:`write_geopackage`.
+
+    Parameters
+    ----------
+    path : str or Path
+        GeoPackage.
+    table : str
+        Layer or attribute-table name.
+
+    Returns
+    -------
+    dict of str to FieldInfo
+        Column name to its description, in the order they were written; empty if the
+        table has none.
+    """
+    with closing(_open_read_only(path)) as con:
+        if not _has_table(con, "gpkg_data_columns"):
+            return {}
+        rows = con.execute(
+            "SELECT column_name, title, description FROM gpkg_data_columns "
+            "WHERE table_name = ? ORDER BY rowid",
+            (table,),
+        ).fetchall()
+    return {
+        column: _parse_field(title or "", description or "") for column, title, description in rows
+    }
+
+
+def read_metadata(path: str | Path) -> dict:
+    """The provenance document stored by :func:`write_geopackage`.
+
+    Parameters
+    ----------
+    path : str or Path
+        GeoPackage.
+
+    Returns
+    -------
+    dict
+        The provenance, as JSON types.
+
+    Raises
+    ------
+    InputDataError
+        If the file holds no lakeloss provenance.
+    """
+    with closing(_open_read_only(path)) as con:
+        row = None
+        if _has_table(con, "gpkg_metadata"):
+            row = con.execute(
+                "SELECT metadata FROM gpkg_metadata WHERE md_standard_uri = ? "
+                "AND mime_type = 'application/json' ORDER BY id DESC LIMIT 1",
+                (PROVENANCE_URI,),
+            ).fetchone()
+    if row is None:
+        raise InputDataError(
+            f"{path} holds no lakeloss provenance metadata; expected a GeoPackage written "
+            "by lakeloss"
+        )
+    return json.loads(row[0])
+
+
+def _check_layers(
+    layers: Sequence[tuple[str, pd.DataFrame]], fields: Mapping[str, Mapping[str, FieldInfo]]
+) -> None:
+    """Refuse inconsistent arguments before anything is written."""
+    if not layers:
+        raise ValueError("no layers given; expected at least the water-body feature layer")
+    names = [name for name, _ in layers]
+    if len(set(names)) != len(names):
+        raise ValueError(f"layer names repeat in {names}; expected unique names")
+    first_name, first = layers[0]
+    geometry = getattr(first, "active_geometry_name", None)
+    if not isinstance(first, geopandas.GeoDataFrame) or geometry not in first.columns:
+        raise ValueError(f"first layer {first_name!r} has no geometry; expected a GeoDataFrame")
+    if first.crs is None:
+        raise CRSError(
+            f"layer {first_name!r} has no CRS; expected the water-body layer's own CRS; "
+            "set it on the GeoDataFrame before writing"
+        )
+    frames = dict(layers)
+    unknown_layers = sorted(set(fields) - set(frames))
+    if unknown_layers:
+        raise ValueError(
+            f"field descriptions for unknown layers {unknown_layers}; expected {names}"
+        )
+    for name, infos in fields.items():
+        _check_fields(name, frames[name], infos)
+
+
+def _check_fields(name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]) -> None:
+    missing = sorted(set(infos) - {str(c) for c in frame.columns})
+    if missing:
+        raise ValueError(f"layer {name!r} has no columns {missing} to describe")
+    labels = [info.label for info in infos.values()]
+    if len(set(labels)) != len(labels):
+        raise ValueError(f"layer {name!r} field labels repeat in {labels}; expected unique ones")
+    ambiguous = [info.title for info in infos.values() if _UNIT_IN_TITLE.match(info.title)]
+    if ambiguous:
+        raise ValueError(
+            f"field titles {ambiguous} end in a bracketed part; put the unit in FieldInfo.unit"
+        )
+
+
+def _write_layer(
+    path: Path,
+    name: str,
+    frame: pd.DataFrame,
+    infos: Mapping[str, FieldInfo],
+    provenance: object,
+) -> None:
+    """Write one layer through GDAL with GDAL-visible dataset and layer metadata."""
+    layer_metadata = {column: _gdal_text(info) for column, info in infos.items()} or None
+    try:
+        pyogrio.write_dataframe(
+            _gdal_ready(frame),
+            path,
+            layer=name,
+            driver="GPKG",
+            dataset_metadata=_flatten(provenance),
+            layer_metadata=layer_metadata,
+        )
+    except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
+        raise _write_error(exc, f"GDAL could not write layer {name!r} to {path}") from exc
+
+
+def _gdal_ready(frame: pd.DataFrame) -> pd.DataFrame:
+    """Dates of non-standard calendars (cftime objects) as ISO text; GDAL has no type for them."""
+    date_columns = [
+        column
+        for column in frame.columns
+        if frame[column].dtype == object and any(is_date(v) for v in frame[column].head(100))
+    ]
+    if not date_columns:
+        return frame
+    frame = frame.copy()
+    for column in date_columns:
+        texts = iso_dates(frame[column].to_numpy(dtype=object, na_value=None).tolist())
+        frame[column] = pd.Series([t or None for t in texts], index=frame.index, dtype=object)
+    return frame
+
+
+def _flatten(provenance: object) -> dict[str, str]:
+    """Top-level provenance keys as GDAL metadata items (nested values as compact JSON)."""
+    if not isinstance(provenance, dict):
+        return {}
+    items = {}
+    for key, value in sorted(provenance.items()):
+        text = value if isinstance(value, str) else json.dumps(value, sort_keys=True)
+        items[key.replace("=", "_")] = text
+    return items
+
+
+def _gdal_text(info: FieldInfo) -> str:
+    return f"{info.label}: {info.description}" if info.description else info.label
+
+
+def _add_extensions(con: sqlite3.Connection, fields: Mapping[str, Mapping[str, FieldInfo]]) -> None:
+    for statement in _DDL:
+        con.execute(statement)
+    con.executemany(
+        "INSERT OR IGNORE INTO gpkg_extensions "
+        "(table_name, column_name, extension_name, definition, scope) "
+        "VALUES (?, NULL, ?, ?, 'read-write')",
+        _EXTENSIONS,
+    )
+    con.executemany(
+        "INSERT OR REPLACE INTO gpkg_data_columns "
+        "(table_name, column_name, name, title, description, mime_type, constraint_name) "
+        "VALUES (?, ?, ?, ?, ?, NULL, NULL)",
+        [
+            (table, column, info.label, info.label, info.description)
+            for table, infos in fields.items()
+            for column, info in infos.items()
+        ],
+    )
+
+
+def _add_provenance(con: sqlite3.Connection, provenance: object) -> None:
+    document = json.dumps(provenance, sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False)
+    cursor = con.execute(
+        "INSERT INTO gpkg_metadata (md_scope, md_standard_uri, mime_type, metadata) "
+        "VALUES ('dataset', ?, 'application/json', ?)",
+        (PROVENANCE_URI, document),
+    )
+    con.execute(
+        "INSERT INTO gpkg_metadata_reference (reference_scope, md_file_id) "
+        "VALUES ('geopackage', ?)",
+        (cursor.lastrowid,),
+    )
+
+
+def _parse_field(title: str, description: str) -> FieldInfo:
+    match = _UNIT_IN_TITLE.match(title)
+    if match is None:
+        return FieldInfo(title=title, description=description)
+    return FieldInfo(title=match["title"], description=description, unit=match["unit"])
+
+
+def _write_error(exc: Exception, what: str) -> OSError:
+    """A full disk as ``OSError(ENOSPC)`` (the output directory reports it), else OutputError.
+
+    GDAL and SQLite report a full disk in their own exception types and words.
+    """
+    full = getattr(exc, "sqlite_errorcode", None) == _SQLITE_FULL or any(
+        phrase in str(exc).lower() for phrase in ("disk is full", "no space left")
+    )
+    if full:
+        return OSError(errno.ENOSPC, f"{what}: {exc}")
+    return OutputError(
+        f"{what}: {exc}; expected columns of numbers, text, booleans or dates and a file "
+        "not open elsewhere"
+    )
+
+
+def _open_read_only(path: str | Path) -> sqlite3.Connection:
+    path = Path(path)
+    if not path.is_file():
+        raise InputDataError(
+            f"GeoPackage {path} does not exist; expected a file written by lakeloss"
+        )
+    return sqlite3.connect(f"{path.absolute().as_uri()}?mode=ro", uri=True)
+
+
+def _has_table(con: sqlite3.Connection, name: str) -> bool:
+    row = con.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?", (name,))
+    return row.fetchone() is not None

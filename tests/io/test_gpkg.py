@@ -1,0 +1,282 @@
+"""GeoPackage writer, checked by reading the file back with GDAL (pyogrio) and with sqlite3.
+
+Fixture: three invented rectangular ponds in a projected CRS with two original attributes and
+two result columns, plus a six-row per-period attribute table. No mocks: GDAL writes and
+reads real files.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import shutil
+import sqlite3
+import subprocess
+
+import cftime
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyproj
+import pytest
+from shapely.geometry import box
+
+from lakeloss.errors import CRSError, InputDataError, OutputError
+from lakeloss.io.atomic import OutputDirectory
+from lakeloss.io.gpkg import FieldInfo, read_field_descriptions, read_metadata, write_geopackage
+
+# An Albers equal-area CRS with made-up parameters: not an EPSG code, so the round trip
+# shows the layer's own definition is kept rather than a look-up.
+OWN_CRS = pyproj.CRS.from_proj4(
+    "+proj=aea +lat_0=40 +lon_0=12 +lat_1=38 +lat_2=46 +x_0=500000 +y_0=0 "
+    "+ellps=GRS80 +units=m +no_defs"
+)
+
+
+@pytest.fixture(scope="module")
+def ponds() -> gpd.GeoDataFrame:
+    return gpd.GeoDataFrame(
+        {
+            "id": [10, 11, 12],
+            "name": ["Heron pond", "Mill pool", "Öd lake"],
+            "evap_mm": [512.25, 498.0, np.nan],
+            "evap_m3": [5122.5, 99600.0, np.nan],
+        },
+        geometry=[box(0, 0, 100, 100), box(500, 0, 1000, 400), box(0, 2000, 50, 2050)],
+        crs=OWN_CRS,
+    )
+
+
+@pytest.fixture(scope="module")
+def by_period() -> pd.DataFrame:
+    return pd.DataFrame(
+        {
+            "id": [10, 10, 11, 11, 12, 12],
+            "period_start": pd.to_datetime(["2001-01-01", "2001-02-01"] * 3),
+            "days": [31, 28] * 3,
+            "evap_mm": [20.5, 25.0, 19.0, 24.5, np.nan, np.nan],
+        }
+    )
+
+
+FIELDS = {
+    "waterbodies": {
+        "evap_mm": FieldInfo(
+            "Evaporation depth", "Open-water evaporation summed over the run.", "mm"
+        ),
+        "evap_m3": FieldInfo("Evaporation volume", "Depth times the ellipsoidal area.", "m3"),
+        "name": FieldInfo("Name", "Name from the input layer."),
+    },
+    "evaporation_by_period": {
+        "evap_mm": FieldInfo("Evaporation depth", "Evaporation in the period.", "mm"),
+        "days": FieldInfo("Days", "Days in the period.", "d"),
+    },
+}
+
+PROVENANCE = {
+    "lakeloss_version": "0.1.0",
+    "method": "penman_open_water",
+    "inputs": {"climate": "demo_climate.nc", "layer": "demo_ponds.gpkg"},
+    "albedo": 0.08,
+    "missing_share": float("nan"),
+}
+
+
+@pytest.fixture(scope="module")
+def written(tmp_path_factory, ponds, by_period):
+    """The GeoPackage written once for the read-only tests of this module."""
+    path = tmp_path_factory.mktemp("gpkg") / "waterbodies.gpkg"
+    write_geopackage(
+        path,
+        [("waterbodies", ponds), ("evaporation_by_period", by_period)],
+        fields=FIELDS,
+        metadata=PROVENANCE,
+    )
+    return path
+
+
+def test_layers_crs_and_values_round_trip(written, ponds):
+    layers = pyogrio.list_layers(written)
+    assert layers.tolist() == [["waterbodies", "Polygon"], ["evaporation_by_period", None]]
+    back = gpd.read_file(written, layer="waterbodies")
+    assert pyproj.CRS(back.crs).equals(OWN_CRS)
+    pd.testing.assert_frame_equal(
+        pd.DataFrame(back.drop(columns="geometry")), pd.DataFrame(ponds.drop(columns="geometry"))
+    )
+    assert back.geometry.geom_equals(ponds.geometry).all()
+
+
+def test_attribute_table_readable(written, by_period):
+    info = pyogrio.read_info(written, layer="evaporation_by_period")
+    assert info["geometry_type"] is None and info["features"] == 6
+    back = pyogrio.read_dataframe(written, layer="evaporation_by_period")
+    assert not isinstance(back, gpd.GeoDataFrame) or "geometry" not in back
+    assert back["id"].tolist() == by_period["id"].tolist()
+    np.testing.assert_array_equal(back["evap_mm"].to_numpy(), by_period["evap_mm"].to_numpy())
+    assert back["period_start"].dt.strftime("%Y-%m-%d").tolist() == ["2001-01-01", "2001-02-01"] * 3
+    with sqlite3.connect(written) as con:
+        kind = con.execute(
+            "SELECT data_type FROM gpkg_contents WHERE table_name = 'evaporation_by_period'"
+        ).fetchone()
+    con.close()
+    assert kind == ("attributes",)
+
+
+def test_data_columns_and_extensions_in_sqlite(written):
+    with sqlite3.connect(written) as con:
+        columns = con.execute(
+            "SELECT table_name, column_name, name, title, description FROM gpkg_data_columns "
+            "ORDER BY table_name, column_name"
+        ).fetchall()
+        extensions = set(
+            con.execute("SELECT table_name, extension_name, scope FROM gpkg_extensions").fetchall()
+        )
+    con.close()
+    assert (
+        "waterbodies",
+        "evap_mm",
+        "Evaporation depth [mm]",
+        "Evaporation depth [mm]",
+        "Open-water evaporation summed over the run.",
+    ) in columns
+    assert (
+        "evaporation_by_period",
+        "days",
+        "Days [d]",
+        "Days [d]",
+        "Days in the period.",
+    ) in columns
+    assert ("waterbodies", "name", "Name", "Name", "Name from the input layer.") in columns
+    assert len(columns) == 5
+    assert {
+        ("gpkg_data_columns", "gpkg_schema", "read-write"),
+        ("gpkg_data_column_constraints", "gpkg_schema", "read-write"),
+        ("gpkg_metadata", "gpkg_metadata", "read-write"),
+        ("gpkg_metadata_reference", "gpkg_metadata", "read-write"),
+    } <= extensions
+
+
+def test_field_descriptions_round_trip(written):
+    assert read_field_descriptions(written, "waterbodies") == FIELDS["waterbodies"]
+    assert (
+        read_field_descriptions(written, "evaporation_by_period") == FIELDS["evaporation_by_period"]
+    )
+    assert read_field_descriptions(written, "no_such_table") == {}
+
+
+def test_provenance_in_gpkg_metadata_and_gdal_metadata(written):
+    expected = {**PROVENANCE, "missing_share": None}
+    assert read_metadata(written) == expected
+    info = pyogrio.read_info(written, layer="waterbodies")
+    assert info["dataset_metadata"]["method"] == "penman_open_water"
+    assert json.loads(info["dataset_metadata"]["inputs"]) == PROVENANCE["inputs"]
+    assert info["layer_metadata"]["evap_mm"].startswith("Evaporation depth [mm]")
+    with sqlite3.connect(written) as con:
+        refs = con.execute(
+            "SELECT r.reference_scope, m.mime_type FROM gpkg_metadata_reference r "
+            "JOIN gpkg_metadata m ON m.id = r.md_file_id WHERE m.mime_type = 'application/json'"
+        ).fetchall()
+    con.close()
+    assert refs == [("geopackage", "application/json")]
+    ogrinfo = shutil.which("ogrinfo")
+    if ogrinfo is not None:  # extra check with the GDAL command line where it is installed
+        out = subprocess.run(
+            [ogrinfo, "-so", "-al", str(written)], capture_output=True, text=True, check=True
+        ).stdout
+        assert "method=penman_open_water" in out
+
+
+def test_existing_file_replaced(tmp_path, written, ponds):
+    path = tmp_path / "again.gpkg"
+    shutil.copyfile(written, path)
+    write_geopackage(path, [("waterbodies", ponds.iloc[:1])], fields={}, metadata={"run": 2})
+    assert pyogrio.list_layers(path).tolist() == [["waterbodies", "Polygon"]]
+    assert read_metadata(path) == {"run": 2}
+    assert read_field_descriptions(path, "waterbodies") == {}
+
+
+def test_cftime_dates_become_iso_text(tmp_path, ponds):
+    table = pd.DataFrame(
+        {
+            "id": [10, 10],
+            "period_end": [cftime.DatetimeNoLeap(2001, 2, 28), cftime.DatetimeNoLeap(2001, 3, 31)],
+        }
+    )
+    path = tmp_path / "w.gpkg"
+    write_geopackage(path, [("waterbodies", ponds), ("periods", table)], fields={}, metadata={})
+    back = pyogrio.read_dataframe(path, layer="periods")
+    assert back["period_end"].tolist() == ["2001-02-28", "2001-03-31"]
+
+
+def test_inconsistent_arguments_refused(tmp_path, ponds, by_period):
+    path = tmp_path / "w.gpkg"
+    with pytest.raises(CRSError, match="has no CRS"):
+        write_geopackage(
+            path,
+            [("waterbodies", ponds.set_crs(None, allow_override=True))],
+            fields={},
+            metadata={},
+        )
+    with pytest.raises(ValueError, match="has no geometry"):
+        write_geopackage(path, [("t", by_period)], fields={}, metadata={})
+    with pytest.raises(ValueError, match=r"no columns \['evap_m3'\]"):
+        write_geopackage(
+            path,
+            [("waterbodies", ponds), ("evaporation_by_period", by_period)],
+            fields={"evaporation_by_period": {"evap_m3": FieldInfo("V", "v", "m3")}},
+            metadata={},
+        )
+    with pytest.raises(ValueError, match="put the unit in FieldInfo.unit"):
+        write_geopackage(
+            path,
+            [("waterbodies", ponds)],
+            fields={"waterbodies": {"evap_mm": FieldInfo("Depth [mm]", "d")}},
+            metadata={},
+        )
+    with pytest.raises(ValueError, match="unknown layers"):
+        write_geopackage(path, [("waterbodies", ponds)], fields={"other": {}}, metadata={})
+    assert not path.exists()
+
+
+def test_read_metadata_of_foreign_file(tmp_path, ponds):
+    path = tmp_path / "plain.gpkg"
+    ponds.to_file(path, layer="waterbodies", driver="GPKG")
+    with pytest.raises(InputDataError, match="holds no lakeloss provenance"):
+        read_metadata(path)
+    with pytest.raises(InputDataError, match="does not exist"):
+        read_metadata(tmp_path / "missing.gpkg")
+
+
+@pytest.fixture
+def tiny_disk(tmp_path):
+    """A 64 KiB tmpfs if this process can mount one, else None (simulated case is used)."""
+    mount_point = tmp_path / "tiny"
+    mount_point.mkdir()
+    try:
+        proc = subprocess.run(
+            ["mount", "-t", "tmpfs", "-o", "size=64k", "tmpfs", str(mount_point)],
+            capture_output=True,
+            timeout=10,
+        )
+    except (OSError, subprocess.TimeoutExpired):
+        proc = None
+    if proc is None or proc.returncode != 0:
+        yield None
+        return
+    try:
+        yield mount_point
+    finally:
+        subprocess.run(["umount", str(mount_point)], capture_output=True, timeout=10)
+
+
+def test_gdal_on_full_disk_reports_disk_full(tiny_disk, tmp_path, ponds):
+    # An empty GeoPackage alone is larger than 64 KiB, so GDAL fails part-way through.
+    disk = tiny_disk if tiny_disk is not None else tmp_path / "fallback"
+    disk.mkdir(exist_ok=True)
+    with pytest.raises(OutputError, match="disk full while writing outputs"):
+        with OutputDirectory(disk / "out", overwrite=False) as staging:
+            if tiny_disk is None:
+                raise OSError(errno.ENOSPC, "No space left on device (simulated)")
+            write_geopackage(staging / "w.gpkg", [("waterbodies", ponds)], fields={}, metadata={})
+    assert sorted(p.name for p in disk.iterdir()) == []
