@@ -162,7 +162,14 @@ def _year_length(calendar: str) -> float:
     }.get(calendar, 365.2425)
 
 
-def _flags(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> np.ndarray:
+# Below this share of valid climate a body is flagged even when it lies inside the grid
+# (nodata cells under part of it); common practice, no source.
+_COVERAGE_FLAG_BELOW = 0.995
+
+
+def _flags(
+    config: RunConfig, inputs: Any, weights: Any, sums: Any, coverage: np.ndarray
+) -> np.ndarray:
     """Per-body QA flags: geometry flags, then climate-coverage and clipping flags."""
     first = next(iter(weights.values()))
     n = inputs.n_waterbodies
@@ -178,6 +185,8 @@ def _flags(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> np.ndarra
             tokens[i].append("no_valid_climate")
         elif valid_steps[i] < total:
             tokens[i].append("climate_gaps")
+        if 0.0 < coverage[i] < _COVERAGE_FLAG_BELOW and "partly_outside_grid" not in tokens[i]:
+            tokens[i].append("partial_climate_coverage")
         if sums.negatives_per_body[i]:
             tokens[i].append(
                 "negative_rates_clipped"
@@ -211,7 +220,7 @@ def _body_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> Any:
         frame[f"evap_{unit}"] = frame["evap_m3"] * VOLUME_UNITS[unit]
         frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
     frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
-    frame["qa_flags"] = _flags(config, inputs, weights, sums)
+    frame["qa_flags"] = _flags(config, inputs, weights, sums, frame["climate_coverage"].to_numpy())
     geometry = frame.geometry.name
     return frame[[c for c in frame.columns if c != geometry] + [geometry]]
 
@@ -238,7 +247,7 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
             inputs.layer.id_field: np.tile(ids, n_periods),
             "period_start": np.repeat(np.asarray(periods.starts, dtype=object), n),
             "period_end": np.repeat(np.asarray(periods.ends, dtype=object), n),
-            "days": np.repeat(periods.days, n),
+            "days": np.repeat(np.rint(periods.days).astype(np.int64), n),
             "evap_mm": evap.ravel(),
             "evap_m3": (evap * area / 1000.0).ravel(),
             "precip_mm": precip.ravel(),
