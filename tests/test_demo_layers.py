@@ -183,13 +183,14 @@ def test_nodata_cells_same_in_every_variable_and_step(climate):
         assert (climate[name].isnull() == reference).all()
 
 
-def test_a_small_pond_lies_partly_on_a_nodata_cell(layer, cells):
+def test_small_ponds_lie_partly_and_wholly_on_nodata_cells(layer, cells):
     boxes, nodata = cells
     small = layer[layer["kind"] != "reservoir"].to_crs(4326)
     body, cell = shapely.STRtree(boxes).query(small.geometry.values, predicate="intersects")
     on_nodata = np.bincount(body[nodata[cell]], minlength=len(small))
     on_valid = np.bincount(body[~nodata[cell]], minlength=len(small))
-    assert ((on_nodata > 0) & (on_valid > 0)).any()
+    assert ((on_nodata > 0) & (on_valid > 0)).any()  # partly covered: coverage flag
+    assert ((on_nodata > 0) & (on_valid == 0)).any()  # no valid cell at all: NaN and flag
 
 
 def test_values_within_plausible_ranges(climate):
