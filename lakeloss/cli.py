@@ -52,6 +52,9 @@ def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
                 raise
             click.echo(f"error: {err}", err=True)
             sys.exit(EXIT_USER_ERROR)
+        except BrokenPipeError:  # output piped into `head` and closed: not an error
+            sys.stderr.close()
+            sys.exit(0)
         except KeyboardInterrupt:
             click.echo("error: interrupted; no outputs were written", err=True)
             sys.exit(130)
@@ -204,10 +207,9 @@ def methods(verbose: int, quiet: bool) -> None:
     for name in registry.method_names():
         spec = registry.get(name)
         click.echo(f"{name}\n  {spec.description}")
-        needs = ["  or  ".join(alt.replace("+", " + ") for alt in group) for group in spec.requires]
-        click.echo("  needs:    " + ("; ".join(needs) or "nothing"))
+        click.echo("  needs:    " + ("; ".join(_needs(spec.requires)) or "nothing"))
         if spec.optional:
-            click.echo("  optional: " + ", ".join(spec.optional))
+            click.echo("  optional: " + ", ".join(dict.fromkeys(spec.optional)))
         for param in spec.parameters.values():
             limits = (
                 f"choices {', '.join(param.choices)}"
@@ -217,6 +219,23 @@ def methods(verbose: int, quiet: bool) -> None:
             unit = f" [{param.unit}]" if param.unit else ""
             click.echo(f"  {param.name} = {param.default!r}{unit} ({limits})")
         click.echo(f"  source:   {spec.reference}\n")
+
+
+# Inputs every run derives itself (from the layer and the time axis), not shown as needs.
+_ALWAYS_DERIVED = {"latitude", "day_of_year", "area_m2"}
+
+
+def _needs(requires: Any) -> list[str]:
+    out = []
+    for group in requires:
+        alternatives: list[str] = []
+        for alternative in group:
+            names = [n for n in alternative.split("+") if n not in _ALWAYS_DERIVED]
+            text = " + ".join(names) or "the water-body area (always given)"
+            if text not in alternatives:
+                alternatives.append(text)
+        out.append(" | ".join(alternatives))
+    return out
 
 
 def main() -> None:
