@@ -12,6 +12,7 @@ rates, so a month's total is the rate times that month's calendar days (METHODS 
 from __future__ import annotations
 
 import datetime as _dt
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -292,18 +293,23 @@ def count_steps(start: str, end: str, step: str, calendar: str = "standard") -> 
     return (last.year - first.year) * 12 + last.month - first.month + 1
 
 
+# ISO 8601 calendar date with an optional time; parsed by hand because datetime rejects
+# dates that exist only in other calendars (2021-02-30 is a valid 360_day date).
+_ISO_DATE = re.compile(r"^(\d{4})-(\d{2})-(\d{2})(?:[T ](\d{2}):(\d{2})(?::(\d{2}))?)?$")
+
+
 def _parse_start(start: str, calendar: str):
+    match = _ISO_DATE.match(str(start).strip())
+    if match is None:
+        raise TimeAxisError(
+            f"date {start!r} is not an ISO date; expected YYYY-MM-DD, e.g. 2021-01-01"
+        )
+    fields = [int(part) for part in match.groups(default="0")]
     try:
-        parsed = _dt.datetime.fromisoformat(str(start).strip())
+        return cftime.datetime(*fields, calendar=calendar)
     except ValueError as err:
         raise TimeAxisError(
-            f"start date {start!r} is not an ISO date; expected YYYY-MM-DD, e.g. 2021-01-01"
-        ) from err
-    try:
-        return cftime.datetime(*parsed.timetuple()[:6], calendar=calendar)
-    except ValueError as err:
-        raise TimeAxisError(
-            f"start date {start!r} does not exist in calendar {calendar!r} or the calendar is "
+            f"date {start!r} does not exist in calendar {calendar!r} or the calendar is "
             "unknown; expected a valid date in a CF calendar"
         ) from err
 

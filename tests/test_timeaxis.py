@@ -1,0 +1,220 @@
+"""Time axes: step inference, calendars, month lengths, exact joins and reporting periods."""
+
+from __future__ import annotations
+
+import cftime
+import numpy as np
+import pytest
+
+from lakeloss import timeaxis
+from lakeloss.errors import ConfigError, TimeAxisError
+
+
+def _daily(count, calendar="standard", start="2021-01-01", hour=0.0):
+    return cftime.num2date(np.arange(count) + hour / 24.0, f"days since {start}", calendar=calendar)
+
+
+def _monthly(year, months, calendar="standard", day=15, hour=0):
+    return [
+        cftime.datetime(year + (m - 1) // 12, (m - 1) % 12 + 1, day, hour, calendar=calendar)
+        for m in months
+    ]
+
+
+@pytest.mark.parametrize(
+    ("calendar", "days"), [("standard", 365), ("noleap", 365), ("360_day", 360), ("all_leap", 366)]
+)
+def test_daily_axis_over_a_year(calendar, days):
+    axis = timeaxis.from_times(_daily(days, calendar, hour=12.0), calendar)
+    assert axis.step == "day" and len(axis) == days
+    assert axis.starts[0] == "2021-01-01"
+    assert axis.day_of_year[-1] == days
+    np.testing.assert_array_equal(axis.days, 1.0)
+    assert axis.hour == 12.0
+    last = {"360_day": "2021-12-30"}.get(calendar, "2021-12-31")
+    assert axis.describe() == f"2021-01-01..{last}, daily, calendar {calendar}, stamps at 12:00"
+
+
+def test_360_day_calendar_has_february_30():
+    axis = timeaxis.from_times(_daily(60, "360_day"), "360_day")
+    assert "2021-02-30" in axis.starts and axis.starts[-1] == "2021-02-30"
+
+
+@pytest.mark.parametrize(
+    ("calendar", "year", "february"),
+    [
+        ("standard", 2020, 29.0),
+        ("standard", 2021, 28.0),
+        ("noleap", 2020, 28.0),
+        ("all_leap", 2021, 29.0),
+        ("360_day", 2021, 30.0),
+        ("proleptic_gregorian", 2000, 29.0),
+        ("standard", 1900, 28.0),
+    ],
+)
+def test_monthly_days_follow_the_calendar(calendar, year, february):
+    axis = timeaxis.from_times(_monthly(year, range(1, 13), calendar), calendar)
+    assert axis.step == "month"
+    assert axis.days[1] == february
+    expected_year = 360.0 if calendar == "360_day" else 337.0 + february
+    assert axis.days.sum() == expected_year
+    assert axis.starts[:2] == (f"{year:04d}-01-01", f"{year:04d}-02-01")
+    assert axis.ends[1] == f"{year:04d}-02-{int(february):02d}"
+
+
+def test_monthly_stamps_on_any_day_and_mid_month_day_of_year():
+    # Month-centre stamps as CF files write them: 16th of long months, 15th of short ones.
+    stamps = [
+        cftime.DatetimeNoLeap(2021, 1, 16, 12),
+        cftime.DatetimeNoLeap(2021, 2, 15),
+        cftime.DatetimeNoLeap(2021, 3, 16, 12),
+    ]
+    axis = timeaxis.from_times(stamps, "365_day")
+    assert axis.calendar == "noleap" and axis.step == "month"
+    # Mid-month: first day of month + floor(days/2); FAO-56 writes int(30.4 M - 15), which
+    # gives 15, 45, 76 (from memory, METHODS §7.6): within 1 day of these.
+    np.testing.assert_array_equal(axis.day_of_year, [16, 46, 75])
+    assert np.all(np.abs(axis.day_of_year - (30.4 * np.arange(1, 4) - 15).astype(int)) <= 1)
+
+
+def test_monthly_across_a_year_boundary():
+    axis = timeaxis.from_times(_monthly(2020, [11, 12, 13, 14]), "standard")
+    assert axis.starts == ("2020-11-01", "2020-12-01", "2021-01-01", "2021-02-01")
+
+
+def test_numpy_datetimes_are_accepted():
+    axis = timeaxis.from_times(
+        np.array(["2021-03-01", "2021-03-02"], dtype="datetime64[ns]"), "standard"
+    )
+    assert axis.starts == ("2021-03-01", "2021-03-02")
+    assert isinstance(axis.times[0], cftime.datetime)
+
+
+@pytest.mark.parametrize(
+    ("stamps", "words"),
+    [
+        (
+            [(2021, 1, 1), (2021, 1, 2), (2021, 1, 4)],
+            "step 2: 2021-01-02 00:00:00 -> 2021-01-04 00:00:00 is 2 days",
+        ),
+        ([(2021, 1, 1), (2021, 1, 2), (2021, 1, 2)], "step 2"),
+        ([(2021, 1, 15), (2021, 2, 15), (2021, 4, 15)], "step 2"),
+        ([(2021, 1, 1), (2021, 1, 8), (2021, 1, 15)], "step 1"),  # weekly
+    ],
+)
+def test_irregular_axes_name_the_first_gap(stamps, words):
+    times = [cftime.DatetimeGregorian(*s) for s in stamps]
+    with pytest.raises(TimeAxisError, match=words.replace("(", r"\(")):
+        timeaxis.from_times(times, "standard")
+
+
+def test_unknown_calendar_and_empty_axis():
+    with pytest.raises(TimeAxisError, match="not a CF calendar"):
+        timeaxis.from_times(_daily(2), "lunar")
+    with pytest.raises(TimeAxisError, match="no time steps"):
+        timeaxis.from_times(np.array([], dtype=object), "standard")
+
+
+def test_from_start_daily_and_monthly():
+    daily = timeaxis.from_start("2020-02-27", "day", 4, "noleap")
+    assert daily.starts == ("2020-02-27", "2020-02-28", "2020-03-01", "2020-03-02")
+    monthly = timeaxis.from_start("2020-11-01", "month", 4)
+    assert monthly.starts == ("2020-11-01", "2020-12-01", "2021-01-01", "2021-02-01")
+    np.testing.assert_array_equal(monthly.days, [30, 31, 31, 28])
+    # an axis built from a start equals one decoded from equivalent stamps
+    decoded = timeaxis.from_times(_monthly(2020, [11, 12, 13, 14], day=1), "standard")
+    assert timeaxis.require_identical({"a": monthly, "b": decoded}) is monthly
+
+
+def test_from_start_refusals():
+    with pytest.raises(TimeAxisError, match="day 1..28"):
+        timeaxis.from_start("2021-01-31", "month", 3)
+    with pytest.raises(TimeAxisError, match="not an ISO date"):
+        timeaxis.from_start("1/2/2021", "day", 3)
+    with pytest.raises(TimeAxisError, match="does not exist in calendar"):
+        timeaxis.from_start("2021-02-29", "day", 3, "noleap")
+    assert timeaxis.from_start("2021-02-30", "day", 2, "360_day").starts[1] == "2021-03-01"
+    with pytest.raises(ConfigError, match="'week'"):
+        timeaxis.from_start("2021-01-01", "week", 3)
+    with pytest.raises(ConfigError, match="at least 1"):
+        timeaxis.from_start("2021-01-01", "day", 0)
+
+
+def test_count_steps():
+    assert timeaxis.count_steps("2021-01-01", "2021-12-31", "day") == 365
+    assert timeaxis.count_steps("2021-01-01", "2021-12-30", "day", "360_day") == 360
+    assert timeaxis.count_steps("2021-01-01", "2021-12-01", "month") == 12
+
+
+def test_require_identical_refuses_midnight_against_noon():
+    midnight = timeaxis.from_times(_daily(3, hour=0.0), "standard")
+    noon = timeaxis.from_times(_daily(3, hour=12.0), "standard")
+    with pytest.raises(TimeAxisError) as info:
+        timeaxis.require_identical({"air_temperature": midnight, "wind_speed": noon})
+    message = str(info.value)
+    assert (
+        "air_temperature: 2021-01-01..2021-01-03, daily, calendar standard, stamps at 00:00"
+        in message
+    )
+    assert (
+        "wind_speed: 2021-01-01..2021-01-03, daily, calendar standard, stamps at 12:00" in message
+    )
+    assert "\n" not in message
+
+
+@pytest.mark.parametrize(
+    "other",
+    [
+        timeaxis.from_start("2021-01-01", "day", 3, "noleap"),  # calendar
+        timeaxis.from_start("2021-01-02", "day", 3),  # dates
+        timeaxis.from_start("2021-01-01", "day", 4),  # length
+        timeaxis.from_start("2021-01-01", "month", 3),  # step
+    ],
+)
+def test_require_identical_refuses_any_difference(other):
+    reference = timeaxis.from_start("2021-01-01", "day", 3)
+    with pytest.raises(TimeAxisError, match="different time axes"):
+        timeaxis.require_identical({"a": reference, "b": other})
+
+
+def test_gregorian_aliases_join():
+    standard = timeaxis.from_times(_daily(3, "standard"), "gregorian")
+    proleptic = timeaxis.from_times(_daily(3, "proleptic_gregorian"), "proleptic_gregorian")
+    assert timeaxis.require_identical({"a": standard, "b": proleptic}).calendar == "standard"
+
+
+def test_require_identical_needs_an_axis():
+    with pytest.raises(ConfigError):
+        timeaxis.require_identical({})
+
+
+def test_monthly_periods_of_a_partial_daily_year():
+    axis = timeaxis.from_start("2021-01-30", "day", 33)  # Jan 30 .. Mar 3
+    result = timeaxis.periods(axis, "month")
+    assert result.starts == ("2021-01-30", "2021-02-01", "2021-03-01")
+    assert result.ends == ("2021-01-31", "2021-02-28", "2021-03-03")
+    np.testing.assert_array_equal(result.days, [2, 28, 3])
+    np.testing.assert_array_equal(np.bincount(result.index), [2, 28, 3])
+
+
+def test_yearly_periods_of_monthly_steps():
+    axis = timeaxis.from_start("2020-07-01", "month", 12)
+    result = timeaxis.periods(axis, "year")
+    assert result.starts == ("2020-07-01", "2021-01-01")
+    assert result.ends == ("2020-12-31", "2021-06-30")
+    np.testing.assert_array_equal(result.days, [184, 181])
+    np.testing.assert_array_equal(result.index, [0] * 6 + [1] * 6)
+
+
+def test_daily_periods():
+    axis = timeaxis.from_start("2021-01-01", "day", 3, "360_day")
+    result = timeaxis.periods(axis, "day")
+    np.testing.assert_array_equal(result.index, [0, 1, 2])
+    assert result.starts == result.ends == axis.starts
+
+
+def test_daily_periods_of_monthly_steps_are_refused():
+    with pytest.raises(ConfigError, match='"month" or "year"'):
+        timeaxis.periods(timeaxis.from_start("2021-01-01", "month", 2), "day")
+    with pytest.raises(ConfigError, match="'decade'"):
+        timeaxis.periods(timeaxis.from_start("2021-01-01", "month", 2), "decade")
