@@ -272,22 +272,30 @@ def grid_points_in_layer_crs(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
     return np.column_stack([x, y])
 
 
+# Ponds placed on purpose: (kind, longitude, latitude [degree], area [ha]). They exercise
+# the cell-edge, cell-corner and no-data handling of the zonal weights.
+SPECIAL_SITES = (
+    ("stock_pond", 140.70, -30.437, 1.2),  # on the 140.70 E cell edge
+    ("farm_dam", 140.85, -30.712, 0.6),  # on the 140.85 E cell edge
+    ("stock_pond", 141.05, -30.362, 0.8),  # on the 141.05 E cell edge
+    ("farm_dam", 141.20, -30.512, 0.4),  # on the 141.20 E cell edge
+    ("stock_pond", 140.95, -30.40, 1.5),  # on a cell corner: four cells
+    ("farm_dam", 141.10, -30.65, 0.9),  # on a cell corner: four cells
+    ("stock_pond", 140.90, -30.58, 0.7),  # on the west edge of the data gap: partly covered
+    ("farm_dam", 140.93, -30.60, 0.5),  # on the south edge of the data gap: partly covered
+    ("farm_dam", 140.9125, -30.575, 0.3),  # wholly inside the data gap: no valid climate
+)
+
+
 def special_sites() -> list[tuple[str, tuple[float, float], float]]:
-    """Ponds placed on purpose on cell edges, a cell corner and the data gap.
+    """The SPECIAL_SITES with their centres projected to LAYER_CRS.
 
     Returns
     -------
     list of (kind, centre, area_ha)
-        Centre in LAYER_CRS [m]. Sites on the edge of a gap cell show the coverage flag of a
-        partly covered pond; the last site lies wholly inside a gap cell (no valid data).
+        Kind, centre in LAYER_CRS [m] and surface area [ha] of each site.
     """
-    (gap_j, gap_i), _ = GAP_CELLS
-    gap_west, gap_south = LON_WEST + gap_i * CELL_DEG, LAT_SOUTH + gap_j * CELL_DEG
-    lon = [140.70, 140.85, 141.05, 141.20, 140.95, 141.10, gap_west, gap_west + 0.03, 140.9125]
-    lat = [-30.437, -30.712, -30.362, -30.512, -30.40, -30.65, gap_south + 0.02, gap_south]
-    lat.append(gap_south + 0.025)
-    kinds = ["stock_pond", "farm_dam"] * 4 + ["farm_dam"]
-    areas = [1.2, 0.6, 0.8, 0.4, 1.5, 0.9, 0.7, 0.5, 0.3]
+    kinds, lon, lat, areas = zip(*SPECIAL_SITES, strict=True)
     centres = grid_points_in_layer_crs(np.array(lon), np.array(lat))
     return [
         (k, (float(c[0]), float(c[1])), a) for k, c, a in zip(kinds, centres, areas, strict=True)
@@ -308,7 +316,9 @@ def _small_body(rng: np.random.Generator, kind: SmallKind, area_ha: float) -> Po
     return perturbed_ellipse(rng, area_ha * 1e4, rng.uniform(1.0, 2.2), 0.3, 32)
 
 
-def _site_centre(rng: np.random.Generator, kind: SmallKind, blocks: np.ndarray) -> tuple:
+def _site_centre(
+    rng: np.random.Generator, kind: SmallKind, blocks: np.ndarray
+) -> tuple[float, float]:
     """Draw a centre [m] for a small body: near the township, the mine, or a grazing block."""
     if kind.kind == "detention_pond":
         _, (cx, cy), spread = TOWNSHIP
@@ -333,7 +343,8 @@ def draw_small_bodies(rng: np.random.Generator, taken: list[Polygon]) -> list[di
     Returns
     -------
     list of dict
-        One record per body with ``kind``, ``depth_m``, ``geometry`` and a ``site`` key.
+        One record per body with keys ``kind``, ``depth_m`` [m] and ``geometry``; the
+        SPECIAL_SITES come first (placed as they are: the default seed leaves them disjoint).
     """
     xmin, ymin, xmax, ymax = EXTENT
     blocks = np.column_stack(
@@ -360,7 +371,7 @@ def draw_small_bodies(rng: np.random.Generator, taken: list[Polygon]) -> list[di
 
 
 def _invented_names(records: list[dict]) -> list[str]:
-    """Name each body after its kind and site: '<district> Block 07 Dam 2' and the like."""
+    """Name each body after its site and kind: 'Orvenna Block 076 Dam 2' and the like."""
     label = {k.kind: k.label for k in SMALL_KINDS}
     counts: dict[str, int] = {}
     names = []
@@ -479,11 +490,37 @@ def _rain_days(rng: np.random.Generator, season_winter: np.ndarray) -> np.ndarra
     return wet
 
 
-def _rainfall(rng, wet, season_summer, lon2d, lat2d, relief) -> np.ndarray:
-    """Daily rain depth [mm d-1] per cell: a storm footprint of random centre and size per wet day."""
+def _rainfall(
+    rng: np.random.Generator,
+    wet: np.ndarray,
+    season_summer: np.ndarray,
+    lon2d: np.ndarray,
+    lat2d: np.ndarray,
+    relief: np.ndarray,
+) -> np.ndarray:
+    """Daily rain depth per cell: one storm footprint of random centre and size per wet day.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator
+        Random stream.
+    wet : numpy.ndarray of bool
+        Wet-day occurrence, one per day.
+    season_summer : numpy.ndarray
+        Seasonal index, +1 at the height of summer, -1 in winter. [1]
+    lon2d, lat2d : numpy.ndarray
+        Cell-centre longitude and latitude on (lat, lon). [degree]
+    relief : numpy.ndarray
+        Height of the cell above the plain, which adds orographic rain. [m]
+
+    Returns
+    -------
+    numpy.ndarray
+        Rain on (time, lat, lon); amounts below 0.2 mm d-1 set to 0. [mm d-1]
+    """
     rain = np.zeros((wet.size, *lon2d.shape))
     for t in np.flatnonzero(wet):
-        # Summer storms are fewer but heavier than winter frontal rain.
+        # Summer storms are fewer (see _rain_days) but heavier than winter frontal rain.
         depth = rng.gamma(0.8, 13.0 + 5.0 * season_summer[t])
         clon = rng.uniform(lon2d.min() - 0.3, lon2d.max() + 0.3)
         clat = rng.uniform(lat2d.min() - 0.3, lat2d.max() + 0.3)
@@ -493,8 +530,40 @@ def _rainfall(rng, wet, season_summer, lon2d, lat2d, relief) -> np.ndarray:
     return np.where(rain < 0.2, 0.0, rain)
 
 
-def _smooth_anomaly(rng, n, xn, yn, persistence, spread, tilt) -> np.ndarray:
-    """Daily anomaly field: an AR(1) domain value plus AR(1) west-east and south-north tilts."""
+def _smooth_anomaly(
+    rng: np.random.Generator,
+    n: int,
+    xn: np.ndarray,
+    yn: np.ndarray,
+    persistence: float,
+    spread: float,
+    tilt: float,
+) -> np.ndarray:
+    """Daily anomaly field: an AR(1) domain value plus AR(1) west-east and south-north tilts.
+
+    Smooth in space on purpose: real daily anomalies are large-scale at 0.05 degree, and
+    smooth fields pack and compress far better than cell-by-cell noise.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator
+        Random stream.
+    n : int
+        Number of days.
+    xn, yn : numpy.ndarray
+        Position across the grid, -1 (west, south) to +1 (east, north), on (lat, lon). [1]
+    persistence : float
+        Lag-1 autocorrelation of every component. [1]
+    spread : float
+        Standard deviation of the domain value. [unit of the field]
+    tilt : float
+        Standard deviation of each tilt, edge to centre. [unit of the field]
+
+    Returns
+    -------
+    numpy.ndarray
+        Anomaly on (time, lat, lon).
+    """
     level = _ar1(rng, n, persistence, spread)[:, None, None]
     east = _ar1(rng, n, persistence, tilt)[:, None, None]
     north = _ar1(rng, n, persistence, tilt)[:, None, None]
@@ -611,7 +680,9 @@ PACKING = {
 }
 
 
-def _as_dataset(fields: dict, time: pd.DatetimeIndex, lon: np.ndarray, lat: np.ndarray):
+def _as_dataset(
+    fields: dict[str, np.ndarray], time: pd.DatetimeIndex, lon: np.ndarray, lat: np.ndarray
+) -> xr.Dataset:
     """Wrap the physical fields with CF coordinates, bounds, the CRS variable and no-data cells."""
     nodata = np.zeros((lat.size, lon.size), dtype=bool)
     for j, i in SEA_CELLS + GAP_CELLS:
