@@ -1,0 +1,279 @@
+"""Per-step series of every water body as a CF NetCDF file, written block by block.
+
+The pipeline computes time blocks of ``(time_block, n_waterbodies)`` values and hands them to
+:class:`SeriesWriter` one at a time, so the full ``(time, n)`` array is never in memory.
+
+On disk each variable is ``float32 (waterbody, time)``, zlib level 1, chunked along the water
+body axis (a chunk holds a run of steps for a group of water bodies, so one body's series
+reads from few chunks). Blocks seldom line up with chunk boundaries; writing a compressed
+chunk piecemeal would make HDF5 decompress and recompress it for every block. The writer
+therefore collects each row of chunks (one chunk length of steps for all water bodies) in
+memory and writes it once it is complete, holding at most a couple of such rows per variable.
+"""
+
+from __future__ import annotations
+
+import datetime
+from collections.abc import Mapping
+from pathlib import Path
+from types import TracebackType
+from typing import Literal
+
+import cftime
+import netCDF4
+import numpy as np
+import pandas as pd
+
+_CHUNK_VALUES = 1 << 18  # values per chunk: 1 MiB of float32, a common HDF5 sweet spot
+_DEFAULT_CHUNK_TIMES = 366  # one year of daily steps per chunk row
+_REQUIRED_ATTRS = ("units", "long_name")
+
+
+class SeriesWriter:
+    """Stream ``(time, waterbody)`` blocks of named variables into one CF-1.8 NetCDF file.
+
+    Parameters
+    ----------
+    path : str or Path
+        File to create (replaced if it exists).
+    waterbody_ids : numpy.ndarray
+        Identifier of each water body, integers or strings, in column order of the blocks.
+    times : numpy.ndarray
+        Time stamp of each step: cftime dates, ``datetime`` objects or ``datetime64``.
+    calendar : str
+        CF calendar of ``times``, e.g. ``"standard"`` or ``"noleap"``.
+    variables : mapping of str to mapping of str to str
+        Variable name to its CF attributes; ``units`` and ``long_name`` are required,
+        ``standard_name`` where one applies.
+    global_attrs : mapping of str to str
+        Global attributes such as ``title``, ``source``, ``history`` and a caution in
+        ``comment``; ``Conventions`` is set to ``"CF-1.8"``.
+    chunk_waterbodies, chunk_times : int, optional
+        Chunk shape along the water-body and time axes; by default about 1 MiB per chunk
+        with up to a year of daily steps.
+
+    Examples
+    --------
+    >>> with SeriesWriter(path, waterbody_ids=ids, times=times, calendar="noleap",
+    ...                   variables={"evap_mm": {"units": "mm", "long_name": "evaporation"}},
+    ...                   global_attrs={"title": "demo"}) as series:  # doctest: +SKIP
+    ...     series.write("evap_mm", slice(0, 31), january)  # shape (31, n)
+    """
+
+    def __init__(
+        self,
+        path: str | Path,
+        *,
+        waterbody_ids: np.ndarray,
+        times: np.ndarray,
+        calendar: str,
+        variables: Mapping[str, Mapping[str, str]],
+        global_attrs: Mapping[str, str],
+        chunk_waterbodies: int | None = None,
+        chunk_times: int | None = None,
+    ) -> None:
+        ids = np.asarray(waterbody_ids)
+        if ids.ndim != 1:
+            raise ValueError(f"waterbody_ids has shape {ids.shape}; expected one dimension")
+        _check_variables(variables)
+        self.n_waterbodies = len(ids)
+        self.n_times = len(times)
+        self.chunk_times = max(1, min(self.n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
+        default_bodies = max(1, _CHUNK_VALUES // self.chunk_times)
+        self.chunk_waterbodies = max(
+            1, min(self.n_waterbodies, chunk_waterbodies or default_bodies)
+        )
+        self._rows: dict[tuple[str, int], _ChunkRow] = {}
+        self._flushed: set[tuple[str, int]] = set()
+        self._dataset = netCDF4.Dataset(Path(path), mode="w", format="NETCDF4")
+        try:
+            self._define(ids, times, calendar, variables, global_attrs)
+        except BaseException:
+            self._dataset.close()
+            raise
+
+    def write(self, name: str, time_slice: slice, values: np.ndarray) -> None:
+        """Store one block of a variable.
+
+        Parameters
+        ----------
+        name : str
+            Variable name, one of ``variables``.
+        time_slice : slice
+            Steps the block covers, e.g. ``slice(31, 59)``; step 1 only.
+        values : numpy.ndarray
+            Block of shape ``(len(time_slice), n_waterbodies)`` in the variable's units.
+
+        Raises
+        ------
+        ValueError
+            If the name is unknown or the slice or shape do not fit the file.
+        """
+        start, stop = self._check_block(name, time_slice, values)
+        block = np.asarray(values, dtype=np.float32)
+        first_row, last_row = start // self.chunk_times, (stop - 1) // self.chunk_times
+        for row_index in range(first_row, last_row + 1):
+            row_start = row_index * self.chunk_times
+            row_stop = min(row_start + self.chunk_times, self.n_times)
+            lo, hi = max(start, row_start), min(stop, row_stop)
+            row = self._row(name, row_index, row_start, row_stop)
+            row.put(lo - row_start, block[lo - start : hi - start])
+            if row.complete:
+                self._flush(name, row_index)
+
+    def close(self) -> None:
+        """Write what is still collected and close the file."""
+        if not self._dataset.isopen():
+            return
+        try:
+            for key in sorted(self._rows):
+                self._flush(*key)
+        finally:
+            self._dataset.close()
+
+    def __enter__(self) -> SeriesWriter:
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        traceback: TracebackType | None,
+    ) -> Literal[False]:
+        if exc is None:
+            self.close()
+        else:
+            # A failed run's file is discarded with its staging directory; just release it.
+            self._rows.clear()
+            self._dataset.close()
+        return False
+
+    def _define(
+        self,
+        ids: np.ndarray,
+        times: np.ndarray,
+        calendar: str,
+        variables: Mapping[str, Mapping[str, str]],
+        global_attrs: Mapping[str, str],
+    ) -> None:
+        ds = self._dataset
+        ds.setncatts({**dict(global_attrs), "Conventions": "CF-1.8"})
+        ds.createDimension("waterbody", self.n_waterbodies)
+        ds.createDimension("time", self.n_times)
+        if ids.dtype.kind in "iu":
+            id_var = ds.createVariable("waterbody_id", "i8", ("waterbody",))
+            id_var[:] = ids.astype(np.int64)
+        else:
+            id_var = ds.createVariable("waterbody_id", str, ("waterbody",))
+            id_var[:] = ids.astype(str).astype(object)
+        id_var.long_name = "water body identifier"
+        dates = _as_dates(times)
+        units = _time_units(dates)
+        time_var = ds.createVariable("time", "f8", ("time",))
+        time_var.setncatts(
+            {
+                "standard_name": "time",
+                "long_name": "time",
+                "units": units,
+                "calendar": calendar,
+                "axis": "T",
+            }
+        )
+        if self.n_times:
+            time_var[:] = cftime.date2num(dates, units, calendar=calendar)
+        for name, attrs in variables.items():
+            var = ds.createVariable(
+                name,
+                "f4",
+                ("waterbody", "time"),
+                zlib=True,
+                complevel=1,
+                chunksizes=(self.chunk_waterbodies, self.chunk_times),
+                fill_value=np.float32(np.nan),
+            )
+            var.setncatts({**dict(attrs), "coordinates": "waterbody_id"})
+
+    def _check_block(self, name: str, time_slice: slice, values: np.ndarray) -> tuple[int, int]:
+        if name not in self._dataset.variables or name in ("time", "waterbody_id"):
+            known = sorted(set(self._dataset.variables) - {"time", "waterbody_id"})
+            raise ValueError(f"unknown series variable {name!r}; expected one of {known}")
+        start, stop, step = time_slice.indices(self.n_times)
+        if step != 1 or stop <= start:
+            raise ValueError(f"time slice {time_slice} is empty or strided; expected a step of 1")
+        expected = (stop - start, self.n_waterbodies)
+        if np.shape(values) != expected:
+            raise ValueError(
+                f"block for {name!r} has shape {np.shape(values)}; expected {expected} "
+                "(steps of the slice, water bodies)"
+            )
+        return start, stop
+
+    def _row(self, name: str, index: int, row_start: int, row_stop: int) -> _ChunkRow:
+        key = (name, index)
+        row = self._rows.get(key)
+        if row is None:
+            # A row written before is read back, so rewriting part of it keeps the rest.
+            initial = None
+            if key in self._flushed:
+                initial = self._dataset.variables[name][:, row_start:row_stop].T
+            row = _ChunkRow(row_start, row_stop - row_start, self.n_waterbodies, initial)
+            self._rows[key] = row
+        return row
+
+    def _flush(self, name: str, index: int) -> None:
+        row = self._rows.pop((name, index))
+        variable = self._dataset.variables[name]
+        variable[:, row.start : row.start + row.length] = row.values.T
+        self._flushed.add((name, index))
+
+
+class _ChunkRow:
+    """One chunk length of steps for all water bodies, collected before it is written."""
+
+    def __init__(self, start: int, length: int, n: int, initial: np.ndarray | None) -> None:
+        self.start = start
+        self.length = length
+        if initial is None:
+            self.values = np.full((length, n), np.nan, dtype=np.float32)
+        else:
+            self.values = np.ma.filled(initial, np.nan).astype(np.float32)
+        self.filled = np.zeros(length, dtype=bool)  # steps given since the row was opened
+
+    def put(self, offset: int, block: np.ndarray) -> None:
+        self.values[offset : offset + len(block)] = block
+        self.filled[offset : offset + len(block)] = True
+
+    @property
+    def complete(self) -> bool:
+        return bool(self.filled.all())
+
+
+def _check_variables(variables: Mapping[str, Mapping[str, str]]) -> None:
+    if not variables:
+        raise ValueError("no series variables given; expected at least one")
+    for name, attrs in variables.items():
+        missing = [key for key in _REQUIRED_ATTRS if not attrs.get(key)]
+        if missing:
+            raise ValueError(f"series variable {name!r} lacks CF attributes {missing}")
+        if name in ("time", "waterbody_id", "waterbody"):
+            raise ValueError(f"series variable name {name!r} is reserved for a coordinate")
+
+
+def _as_dates(times: np.ndarray) -> list:
+    """Times as objects cftime can encode (cftime or ``datetime``)."""
+    values = np.asarray(times)
+    if values.dtype.kind == "M":
+        return list(pd.DatetimeIndex(values).to_pydatetime())
+    return list(values.tolist() if values.dtype.kind != "O" else values)
+
+
+def _time_units(dates: list) -> str:
+    """CF time units counted in days from the first step's midnight."""
+    if not dates:
+        return "days since 1970-01-01 00:00:00"
+    first = dates[0]
+    if isinstance(first, datetime.datetime | cftime.datetime):
+        return f"days since {first.year:04d}-{first.month:02d}-{first.day:02d} 00:00:00"
+    raise ValueError(
+        f"times hold {type(first).__name__} values; expected cftime dates, datetime or datetime64"
+    )
