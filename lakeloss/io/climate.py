@@ -397,6 +397,22 @@ def open_netcdf(
     source = Path(path)
     name = _glossary_name(quantity)
     dataset = _open_dataset(source)
+    try:
+        return _netcdf_field(dataset, source, variable, name, units, crs, chunk_steps)
+    except BaseException:
+        dataset.close()  # the lazy field keeps the file open only when it is returned
+        raise
+
+
+def _netcdf_field(
+    dataset: xr.Dataset,
+    source: Path,
+    variable: str,
+    name: str,
+    units: str | None,
+    crs: str | None,
+    chunk_steps: int,
+) -> ClimateField:
     where = f"{str(source)!r} variable {variable!r}"
     if variable not in dataset.data_vars:
         listing = ", ".join(repr(v) for v in dataset.data_vars) or "none"
@@ -412,7 +428,7 @@ def open_netcdf(
     declared = _source_units(data.attrs.get("units"), units, where, name)
     _probe(data, source)
     lazy = data.chunk({"time": max(1, int(chunk_steps)), "y": -1, "x": -1})
-    converted = units_io.convert(lazy, declared, quantity, step_days=axis.days, variable=variable)
+    converted = units_io.convert(lazy, declared, name, step_days=axis.days, variable=variable)
     return ClimateField(
         quantity=name,
         data=converted.rename(name),
@@ -422,7 +438,7 @@ def open_netcdf(
         y=_check_coordinates(dataset[roles["y"]].values, "y", where),
         crs=field_crs,
         transform=None,
-        source_path=os.fspath(path),
+        source_path=os.fspath(source),
         variable=variable,
         source_units=declared,
         crs_assumed=assumed,

@@ -316,3 +316,51 @@ def test_geotiff_unreadable_is_input_data_error(tmp_path):
     path.write_bytes(b"II*\x00 nonsense" * 20)
     with pytest.raises(InputDataError, match="unreadable"):
         open_geotiff_stack(path, "air_temperature", start="2021-01-01", step="day", units="degC")
+
+
+def test_roles_by_standard_name_and_singleton_height_dimension(tmp_path, build):
+    # A 2 m temperature stored (time, height, row, col) with CF attributes on odd names.
+    values = _kelvin_cube()[:, np.newaxis]
+    stored = xr.DataArray(
+        values,
+        dims=("time", "height", "row", "col"),
+        coords={
+            "time": build.daily_times(4),
+            "height": [2.0],
+            "row": ("row", [-30.0, -30.5, -31.0], {"standard_name": "latitude"}),
+            "col": ("col", [145.0, 146.0], {"units": "degrees_east"}),
+        },
+        attrs={"units": "K"},
+    )
+    path = build.write_netcdf(stored.to_dataset(name="t2"), tmp_path / "t2.nc")
+    field = _open_assuming_latlon(path, "t2", "air_temperature")
+    assert field.data.dims == ("time", "y", "x")
+    np.testing.assert_allclose(field.data.values, _kelvin_cube() - 273.15, atol=1e-9)
+
+
+def test_spatial_ref_attribute_gives_crs(tmp_path, build):
+    dataset = _projected_dataset(build, _kelvin_cube(), grid_mapping=False)
+    dataset["tas"].attrs["spatial_ref"] = UTM.to_wkt()
+    field = open_netcdf(build.write_netcdf(dataset, tmp_path / "utm.nc"), "tas", "air_temperature")
+    assert field.crs.to_epsg() == 32755 and not field.crs_assumed
+
+
+def test_grid_mapping_naming_absent_variable_is_crs_error(tmp_path, build):
+    dataset = _projected_dataset(build, _kelvin_cube(), grid_mapping=False)
+    dataset["tas"].attrs["grid_mapping"] = "transverse_mercator"
+    with pytest.raises(CRSError, match="'transverse_mercator', which is not in the file"):
+        open_netcdf(build.write_netcdf(dataset, tmp_path / "utm.nc"), "tas", "air_temperature")
+
+
+def test_geotiff_chunks_follow_chunk_steps(tmp_path, build):
+    path = build.write_geotiff(tmp_path / "rs.tif", np.full((5, 2, 2), 200.0))
+    field = open_geotiff_stack(
+        path,
+        "surface_downwelling_shortwave_flux_in_air",
+        start="2021-01-01",
+        step="day",
+        units="W m-2",
+        chunk_steps=2,
+    )
+    assert field.data.chunks[0] == (2, 2, 1)
+    assert check_values(field, strict=True) is None
