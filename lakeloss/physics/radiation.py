@@ -26,7 +26,11 @@ STEFAN_BOLTZMANN_FAO = 4.903e-9 * 1.0e6 / SECONDS_PER_DAY
 """FAO-56 σ = 4.903e-9 MJ K-4 m-2 day-1 in W m-2 K-4 (5.6748e-8). ASCE-EWRI writes 4.901e-9."""
 
 WATER_ALBEDO = 0.08
-"""Default shortwave albedo of open water [-] (Shuttleworth 1993, from memory; METHODS §2.12)."""
+"""Default shortwave albedo of open water [-] (Shuttleworth 1993, from memory; METHODS §2.12).
+
+Daily means of 0.06 (Cogley 1979; Finch & Hall 2001, from memory) and 0.05 (source not
+verified, METHODS §8) are also in use; the choice moves Rn by about 2-3 % of Rs.
+"""
 
 
 def w_m2_to_mj_m2_day(flux: ArrayLike) -> ArrayLike:

@@ -506,6 +506,18 @@ def evaporate(
     params : Mapping[str, object], optional
         Parameter values; missing ones take their defaults.
 
+    Notes
+    -----
+    Forcing is prepared by :mod:`lakeloss.physics.forcing`: mean temperature from
+    ``air_temperature`` or (Tmax + Tmin)/2; es by FAO-56 eq. 12 when Tmax/Tmin are given;
+    actual vapour pressure from the first available of vapour pressure, dew point, specific
+    humidity with pressure, RHmax/RHmin (eq. 17), RHmax (eq. 18), mean RH (eq. 19); pressure
+    from ``surface_air_pressure``, else eq. 7 at ``elevation`` or the ``elevation_m``
+    parameter; wind moved from ``wind_height_m`` to 2 m by ``wind_profile``; net radiation
+    from ``surface_net_downward_radiative_flux``, else from shortwave with the water albedo,
+    eq. 39 longwave and eq. 37 clear-sky radiation; G from ``heat_storage_flux``, else 0.
+    Latent heat is λ(T) at the mean air temperature (Chow eq. 2.7.6) and γ = cp P/(0.622 λ).
+
     Returns
     -------
     numpy.ndarray

@@ -121,7 +121,10 @@ def small_water_body_wind_function(
     land wind rises as the area falls. Known uncertainty (METHODS §3.6, §8): the constants
     are from memory, the prefactors differ by 2.5 % between the two quoted forms, and the
     unit (mm day-1 kPa-1 rather than an energy unit) is inferred from the magnitudes, which
-    match Harbeck's (1962) area relation at 1 ha within 5 %. At u2 = 2 m s-1 the length form
+    match Harbeck's (1962) area relation at 1 ha within 5 %. Read as MJ m-2 day-1 kPa-1 (that
+    is, with λ multiplying f(u) in the combination equation, the other reading of the
+    McJannet et al. 2008 form, METHODS §8) the rates would be 2.45 times smaller than every
+    other open-water wind function at 1 ha, which is implausible for a short-fetch body. At u2 = 2 m s-1 the length form
     gives 3.51 (1 ha) and 2.49 (10 km²).
 
     References
