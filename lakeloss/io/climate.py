@@ -9,6 +9,8 @@ the zonal engine handles both.
 
 from __future__ import annotations
 
+import functools
+import json
 import os
 import warnings
 from dataclasses import dataclass
@@ -246,7 +248,19 @@ def _crs_from_attrs(attrs: dict) -> pyproj.CRS:
     for key in ("crs_wkt", "spatial_ref"):
         if attrs.get(key):
             return pyproj.CRS.from_wkt(str(attrs[key]))
-    return pyproj.CRS.from_cf(dict(attrs))
+    # Attribute values may be numpy scalars or arrays: a JSON text of them is the cache key.
+    return _crs_from_cf(json.dumps(dict(attrs), sort_keys=True, default=_plain))
+
+
+def _plain(value):
+    return value.tolist() if hasattr(value, "tolist") else str(value)
+
+
+@functools.lru_cache(maxsize=64)
+def _crs_from_cf(attrs_json: str) -> pyproj.CRS:
+    # pyproj needs most of a second to build a datum from bare ellipsoid parameters, and
+    # every variable of a file names the same grid mapping: parse each mapping once.
+    return pyproj.CRS.from_cf(json.loads(attrs_json))
 
 
 def _file_crs(dataset: xr.Dataset, variable: str, path: Path) -> pyproj.CRS | None:
