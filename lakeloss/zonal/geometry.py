@@ -19,6 +19,9 @@ _POLYGONAL = np.array(
 )
 _COLLECTION = int(shapely.GeometryType.GEOMETRYCOLLECTION)
 
+#: Key in ``reproject_to_grid(...).attrs`` recording which rows were repaired / are empty.
+REPAIR_ATTRS = "lakeloss_repair"
+
 # Projection methods that preserve area exactly, so planar area in them is true area.
 _EQUAL_AREA_METHODS = (
     "equal area",
@@ -103,6 +106,23 @@ def repair_geometry(geometry: np.ndarray) -> RepairedGeometry:
         geometry[repaired] = _polygonal_part(fixed)
     empty = shapely.is_empty(geometry) | (shapely.area(geometry) == 0)
     return RepairedGeometry(geometry=geometry, repaired=repaired, empty=empty)
+
+
+def repeat_repair(geometry: np.ndarray, repaired: np.ndarray, empty: np.ndarray):
+    """Redo a repair whose outcome is known, touching only the rows it changed.
+
+    :func:`reproject_to_grid` records which rows it repaired and which are empty
+    (:data:`REPAIR_ATTRS` in the returned series' ``attrs``); the weights builder then needs
+    the same repair in the layer's own CRS without checking a million polygons' validity
+    again.
+    """
+    geometry = np.asarray(geometry, dtype=object).copy()
+    fixable = repaired & ~empty
+    if fixable.any():
+        fixed = shapely.make_valid(geometry[fixable], method="structure", keep_collapsed=False)
+        geometry[fixable] = _polygonal_part(fixed)
+    geometry[empty] = shapely.Polygon()
+    return RepairedGeometry(geometry=geometry, repaired=repaired.copy(), empty=empty.copy())
 
 
 def is_equal_area(crs: CRS) -> bool:
@@ -222,4 +242,6 @@ def reproject_to_grid(polygons: gpd.GeoDataFrame, grid: GridSpec) -> gpd.GeoSeri
         geometry = transform_geometry(geometry, CRS.from_user_input(crs), grid.crs)
     if grid.is_geographic:
         geometry = _shift_longitudes(geometry, grid)
-    return gpd.GeoSeries(geometry, index=polygons.index, crs=grid.crs)
+    series = gpd.GeoSeries(geometry, index=polygons.index, crs=grid.crs)
+    series.attrs[REPAIR_ATTRS] = {"repaired": repaired.repaired, "empty": repaired.empty}
+    return series

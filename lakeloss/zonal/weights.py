@@ -16,10 +16,13 @@ import shapely
 from pyproj import CRS
 
 from lakeloss.errors import GeometryError, GeometryRepairedWarning, GridError, InputDataError
+from lakeloss.zonal.clip import clipped_areas
 from lakeloss.zonal.geometry import (
+    REPAIR_ATTRS,
     centroid_lonlat,
     check_layer,
     repair_geometry,
+    repeat_repair,
     reproject_to_grid,
     to_equal_area,
 )
@@ -31,6 +34,10 @@ SAVE_FORMAT_VERSION = 1
 # inside / disjoint / on the boundary with a prepared geometry, and clip only the boundary
 # ones: clipping a many-vertex reservoir against every cell of its box is what costs time.
 _PREPARED_MIN_CELLS = 16
+
+# Pieces smaller than this share of their cell are rounding noise of an edge that only
+# touches the cell (the exact clip gives ~1e-15 there).
+_NOISE_AREA = 1e-12
 
 # Share of a polygon's area that may seem to fall outside the grid when the polygon is in
 # fact inside: its area inside is measured on a densified copy, which differs from the
@@ -272,9 +279,17 @@ class _LayerAreas:
     centroid_lat: np.ndarray
 
 
-def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS) -> _LayerAreas:
+def _repair_layer(original: np.ndarray, reprojected: gpd.GeoSeries | None):
+    """The layer repaired in its own CRS, reusing what reproject_to_grid found out."""
+    known = None if reprojected is None else reprojected.attrs.get(REPAIR_ATTRS)
+    if known is not None and known["repaired"].size == original.size:
+        return repeat_repair(original, known["repaired"], known["empty"])
+    return repair_geometry(original)
+
+
+def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS, reprojected) -> _LayerAreas:
     original = np.asarray(polygons.geometry.array, dtype=object)
-    repaired = repair_geometry(original)
+    repaired = _repair_layer(original, reprojected)
     equal_area, area_crs, unit = to_equal_area(repaired.geometry, crs)
     area = shapely.area(equal_area) * unit * unit
     area[repaired.empty] = 0.0
@@ -313,24 +328,33 @@ def _expand_boxes(first_col, last_col, first_row, last_row):
     return body, first_row[body] + local // ncols[body], first_col[body] + local % ncols[body]
 
 
-def _clip_areas(geometry: np.ndarray, boxes: np.ndarray, prepared: np.ndarray) -> np.ndarray:
-    """Planar area of geometry ∩ box per pair; prepared pairs skip clipping where they can."""
-    area = np.zeros(boxes.size)
-    box_area = shapely.area(boxes)
-    to_clip = ~prepared
-    if prepared.any():
-        inside = shapely.contains_properly(geometry[prepared], boxes[prepared])
-        touches = shapely.intersects(geometry[prepared], boxes[prepared])
-        where = np.flatnonzero(prepared)
-        area[where[inside]] = box_area[where[inside]]
-        to_clip[where[touches & ~inside]] = True
-    if to_clip.any():
-        area[to_clip] = shapely.area(shapely.intersection(geometry[to_clip], boxes[to_clip]))
-    return area
+def _clip_areas(geometry: np.ndarray, body: np.ndarray, cells: np.ndarray, big: np.ndarray):
+    """Planar area of geometry[body] ∩ cell per pair; big polygons skip what they can.
+
+    For a polygon spanning many cells, a prepared geometry first finds the cells wholly
+    inside (area = cell area) and the disjoint ones (dropped); only the cells on its
+    boundary are clipped.
+    """
+    cell_area = (cells[:, 2] - cells[:, 0]) * (cells[:, 3] - cells[:, 1])
+    area = np.zeros(body.size)
+    to_clip = ~big[body]
+    sorted_out = np.flatnonzero(big[body])
+    if sorted_out.size:
+        owners = geometry[body[sorted_out]]
+        shapely.prepare(geometry[big])
+        boxes = shapely.box(*cells[sorted_out].T)
+        inside = shapely.contains_properly(owners, boxes)
+        touches = shapely.intersects(owners, boxes)
+        shapely.destroy_prepared(geometry[big])
+        area[sorted_out[inside]] = cell_area[sorted_out[inside]]
+        to_clip[sorted_out[touches & ~inside]] = True
+    clip = np.flatnonzero(to_clip)
+    area[clip] = clipped_areas(geometry, body[clip], cells[clip])
+    return area, cell_area
 
 
 def _valid_for_clipping(geometry: np.ndarray) -> np.ndarray:
-    """Reprojection can nudge a vertex across an edge; re-repair so GEOS can clip."""
+    """Reprojection can nudge a vertex across an edge; re-repair so clipping stays exact."""
     broken = ~shapely.is_valid(geometry)
     if broken.any():
         geometry = geometry.copy()
@@ -344,17 +368,14 @@ def _clipped_pairs(geometry: np.ndarray, x: _Axis, y: _Axis, bounds: np.ndarray)
     first_col, last_col = x.span(bounds[:, 0], bounds[:, 2])
     first_row, last_row = y.span(bounds[:, 1], bounds[:, 3])
     body, row, col = _expand_boxes(first_col, last_col, first_row, last_row)
-    boxes = shapely.box(x.edges[col], y.edges[row], x.edges[col + 1], y.edges[row + 1])
+    cells = np.column_stack([x.edges[col], y.edges[row], x.edges[col + 1], y.edges[row + 1]])
     n_cells = (last_col - first_col + 1) * (last_row - first_row + 1)
-    big = n_cells >= _PREPARED_MIN_CELLS
-    if big.any():
-        shapely.prepare(geometry[big])
-    pieces = _clip_areas(geometry[body], boxes, big[body])
-    shapely.destroy_prepared(geometry[big])
-    keep = pieces > 0
-    body, row, col, pieces = body[keep], row[keep], col[keep], pieces[keep]
-    coverage = pieces / shapely.area(boxes[keep])
-    inside_planar = np.bincount(body, weights=pieces, minlength=geometry.size)
+    pieces, cell_area = _clip_areas(geometry, body, cells, n_cells >= _PREPARED_MIN_CELLS)
+    # pieces of a cell the polygon only touches come out as rounding noise around zero
+    keep = pieces > _NOISE_AREA * cell_area
+    body, row, col = body[keep], row[keep], col[keep]
+    coverage = pieces[keep] / cell_area[keep]
+    inside_planar = np.bincount(body, weights=pieces[keep], minlength=geometry.size)
     return _Pairs(body, y.stored(row), x.stored(col), coverage), inside_planar
 
 
@@ -475,18 +496,18 @@ def build_weights(
     a multipolygon summed because clipping works on the whole geometry.
     """
     crs = CRS.from_user_input(check_layer(polygons))
-    areas = _layer_areas(polygons, crs)
-    if areas.empty.all():
-        raise GeometryError(
-            f"all {areas.empty.size} water-body geometries are empty; expected at least one "
-            "polygon with area; check the layer"
-        )
     if reprojected is None:
         reprojected = reproject_to_grid(polygons, grid)
     if len(reprojected) != len(polygons):
         raise GeometryError(
             f"reprojected layer has {len(reprojected)} rows but the layer {len(polygons)}; "
             "expected reproject_to_grid(polygons, grid) of the same layer"
+        )
+    areas = _layer_areas(polygons, crs, reprojected)
+    if areas.empty.all():
+        raise GeometryError(
+            f"all {areas.empty.size} water-body geometries are empty; expected at least one "
+            "polygon with area; check the layer"
         )
     in_grid = np.asarray(reprojected.array, dtype=object)
     pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty, areas.area)
