@@ -31,6 +31,7 @@ from lakeloss.errors import (
     ValuesAdjustedWarning,
 )
 from lakeloss.io import climate as climate_io
+from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.physics import registry
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights
@@ -55,6 +56,7 @@ class Inputs:
     grids: dict[str, GridSpec]
     field_grid: dict[str, str]
     warnings: list[str] = field(default_factory=list)
+    static_fields: dict[str, tuple[Any, str]] = field(default_factory=dict)
 
     @property
     def n_waterbodies(self) -> int:
@@ -164,6 +166,16 @@ def load_inputs(config: RunConfig) -> Inputs:
         grids.setdefault(grid.key(), grid)
         field_grid[quantity] = grid.key()
     _check_wind_grids(fields, field_grid)
+    static_fields = {}
+    for item in config.climate:
+        if item.quantity == "elevation":
+            raster = static_io.read_static_raster(
+                item.path, "elevation", variable=item.variable, units=item.units, crs=item.crs
+            )
+            height, width = raster.shape
+            grid = GridSpec.from_transform(raster.transform, width, height, raster.crs)
+            grids.setdefault(grid.key(), grid)
+            static_fields["elevation"] = (raster, grid.key())
     return Inputs(
         layer=layer,
         fields=fields,
@@ -172,6 +184,7 @@ def load_inputs(config: RunConfig) -> Inputs:
         grids=grids,
         field_grid=field_grid,
         warnings=caught,
+        static_fields=static_fields,
     )
 
 
@@ -269,6 +282,12 @@ def _static_inputs(
                 "empty or non-numeric values; fill them or use [parameters] elevation_m"
             )
         static["elevation"] = values[np.newaxis, :]
+    if "elevation" in inputs.static_fields:
+        raster, key = inputs.static_fields["elevation"]
+        mean, _ = weights[key].apply(raster.values[np.newaxis])
+        # Bodies off the elevation raster fall back to the configured constant.
+        fallback = float(config.parameters.get("elevation_m", 0.0))  # type: ignore[arg-type]
+        static["elevation"] = np.where(np.isfinite(mean), mean, fallback)
     return static
 
 

@@ -321,3 +321,33 @@ def test_api_result_without_touching_disk(make_case, tmp_path):
     )
     written = result.write(tmp_path / "out")
     assert (written / "series.nc").exists()
+
+
+def test_elevation_from_raster_attribute_or_constant_agree(make_case, tmp_path):
+    # Priestley-Taylor depends on elevation through pressure and gamma (FAO-56 eqs. 7-8):
+    # a uniform 1800 m raster, an attribute of 1800 m and the constant must agree, and differ
+    # from sea level.
+    climate = {"surface_net_downward_radiative_flux": "rnet", "air_temperature": "tas"}
+    config = make_case(
+        "priestley_taylor",
+        climate=climate,
+        output={"precipitation": False},
+        parameters={"elevation_m": 1800.0},
+    )
+    constant = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()
+    dem = np.full((1, len(LAT), len(LON)), 1800.0)
+    _geotiff(tmp_path / "dem.tif", dem, "m")
+    config["parameters"] = {"elevation_m": 0.0}
+    config["climate"]["elevation"] = {"path": str(tmp_path / "dem.tif")}
+    from_raster = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()
+    np.testing.assert_allclose(from_raster, constant, rtol=1e-9)
+    del config["climate"]["elevation"]
+    layer = pyogrio.read_dataframe(config["waterbodies"]["path"], layer="ponds")
+    layer["surface_m"] = 1800.0
+    layer.to_file(config["waterbodies"]["path"], layer="ponds", driver="GPKG")
+    config["waterbodies"]["elevation_field"] = "surface_m"
+    from_attribute = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()
+    np.testing.assert_allclose(from_attribute, constant, rtol=1e-9)
+    config["waterbodies"].pop("elevation_field")
+    sea_level = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()
+    assert np.all(sea_level < constant)  # lower gamma at altitude raises the radiative weight
