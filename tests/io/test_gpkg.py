@@ -280,3 +280,93 @@ def test_gdal_on_full_disk_reports_disk_full(tiny_disk, tmp_path, ponds):
                 raise OSError(errno.ENOSPC, "No space left on device (simulated)")
             write_geopackage(staging / "w.gpkg", [("waterbodies", ponds)], fields={}, metadata={})
     assert sorted(p.name for p in disk.iterdir()) == []
+
+
+def test_attribute_table_types_and_missing_values(tmp_path, ponds):
+    table = pd.DataFrame(
+        {
+            "id": pd.array([10, None, 12], dtype="Int64"),
+            "day": pd.to_datetime(["2001-01-01", None, "2001-01-03"]),
+            "stamp": pd.to_datetime(["2001-01-01 06:30", "2001-01-02 00:00", "2001-01-03 00:00"]),
+            "ok": [True, False, True],
+            "note": ['say "hi"', None, "Öd"],
+            "evap_mm": [1.5, np.nan, -0.25],
+        }
+    )
+    path = tmp_path / "w.gpkg"
+    write_geopackage(
+        path,
+        [("waterbodies", ponds), ("checks", table)],
+        fields={"checks": {"evap_mm": FieldInfo("Evaporation depth", "e.", "mm")}},
+        metadata={},
+    )
+    info = pyogrio.read_info(path, layer="checks")
+    assert info["ogr_types"] == [
+        "OFTInteger64",
+        "OFTDate",
+        "OFTDateTime",
+        "OFTInteger",
+        "OFTString",
+        "OFTReal",
+    ]
+    assert info["layer_metadata"] == {"evap_mm": "Evaporation depth [mm]: e."}
+    back = pyogrio.read_dataframe(path, layer="checks")
+    assert back["ok"].tolist() == [True, False, True]
+    assert back["note"].isna().tolist() == [False, True, False]
+    assert back["note"][[0, 2]].tolist() == ['say "hi"', "Öd"]
+    assert back["evap_mm"].isna().tolist() == [False, True, False]
+    assert back["day"].isna().tolist() == [False, True, False]
+    assert back["stamp"].dt.strftime("%Y-%m-%d %H:%M").tolist() == [
+        "2001-01-01 06:30",
+        "2001-01-02 00:00",
+        "2001-01-03 00:00",
+    ]
+    with sqlite3.connect(path) as con:
+        raw = con.execute("SELECT id, day, stamp, note FROM checks ORDER BY fid").fetchall()
+    con.close()
+    assert raw[0] == (10, "2001-01-01", "2001-01-01T06:30:00.000Z", 'say "hi"')
+    assert raw[1] == (None, None, "2001-01-02T00:00:00.000Z", None)
+
+
+def test_attribute_table_in_many_statements_and_blocks(tmp_path, ponds, monkeypatch):
+    import lakeloss.io.gpkg as gpkg
+
+    monkeypatch.setattr(gpkg, "_BLOCK_ROWS", 4_000)  # several blocks, each several INSERTs
+    n = 10_001
+    table = pd.DataFrame({"id": np.arange(n), "evap_mm": np.arange(n) * 0.5})
+    path = tmp_path / "w.gpkg"
+    write_geopackage(path, [("waterbodies", ponds), ("t", table)], fields={}, metadata={})
+    back = pyogrio.read_dataframe(path, layer="t", fid_as_index=True)
+    assert back.index.tolist() == list(range(1, n + 1))
+    pd.testing.assert_frame_equal(back.reset_index(drop=True), table)
+
+
+def test_attribute_table_fid_column_refused(tmp_path, ponds):
+    with pytest.raises(ValueError, match="column 'fid'"):
+        write_geopackage(
+            tmp_path / "w.gpkg",
+            [("waterbodies", ponds), ("t", pd.DataFrame({"fid": [1]}))],
+            fields={},
+            metadata={},
+        )
+
+
+@pytest.mark.slow
+def test_million_row_attribute_table(tmp_path, ponds):
+    n = 1_000_000
+    rng = np.random.default_rng(7)
+    table = pd.DataFrame(
+        {
+            "id": np.arange(n) % 1000,
+            "period_start": np.repeat(pd.date_range("2001-01-01", periods=1000, freq="D"), 1000),
+            "days": np.ones(n, dtype=np.int64),
+            "evap_mm": rng.random(n),
+        }
+    )
+    path = tmp_path / "big.gpkg"
+    write_geopackage(
+        path, [("waterbodies", ponds), ("evaporation_by_period", table)], fields={}, metadata={}
+    )
+    assert pyogrio.read_info(path, layer="evaporation_by_period")["features"] == n
+    tail = pyogrio.read_dataframe(path, layer="evaporation_by_period", skip_features=n - 2)
+    np.testing.assert_array_equal(tail["evap_mm"].to_numpy(), table["evap_mm"].to_numpy()[-2:])
