@@ -421,9 +421,12 @@ def _sql_type(series: pd.Series) -> str:
 def _sql_values(series: pd.Series, sql_type: str) -> list:
     """Column values as Python objects SQLite binds; missing values as None."""
     if sql_type in ("DATE", "DATETIME"):
-        unit, suffix = ("D", "") if sql_type == "DATE" else ("ms", "Z")
-        texts = np.datetime_as_string(series.to_numpy(dtype="datetime64[ms]"), unit=unit)
-        return [None if t == "NaT" else t + suffix for t in texts.tolist()]
+        stamps = series.to_numpy(dtype="datetime64[ms]")
+        if sql_type == "DATE":
+            texts = np.datetime_as_string(stamps, unit="D").tolist()
+        else:  # GeoPackage DATETIME is ISO 8601 in UTC with milliseconds
+            texts = [t + "Z" for t in np.datetime_as_string(stamps, unit="ms").tolist()]
+        return [None if t.startswith("NaT") else t for t in texts]
     if sql_type == "REAL":
         return series.to_numpy(dtype=float, na_value=np.nan).tolist()  # SQLite binds NaN as NULL
     if sql_type in ("INTEGER", "BOOLEAN") and not series.hasnans:
