@@ -317,8 +317,8 @@ class BlockResult:
 
     block: slice
     periods: np.ndarray
-    depth: dict[str, np.ndarray]
-    precip: np.ndarray | None
+    depth: dict[str, FixedSums]
+    precip: FixedSums | None
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
     negatives: dict[str, int]
@@ -408,6 +408,47 @@ def _segment_sums(values: np.ndarray, period_index: np.ndarray) -> tuple[np.ndar
     return period_index[starts], np.add.reduceat(values, starts, axis=0)
 
 
+# Amounts are summed in fixed point: each per-step value is rounded to a multiple of 2**-32
+# (2.3e-10 mm, or of a valid-area fraction) and added as int64. Integer addition is exact and
+# associative, so the totals are bit-identical however the time axis is cut into blocks and
+# whichever scheduler ran them; float sums would differ in the last bits. Range: 2.1e9 mm.
+_FIXED_POINT_SCALE = 2.0**32
+
+
+def _to_fixed(values: np.ndarray) -> np.ndarray:
+    return np.rint(np.asarray(values, dtype=np.float64) * _FIXED_POINT_SCALE).astype(np.int64)
+
+
+@dataclass
+class FixedSums:
+    """Sums per (period, water body) in fixed point, and where a missing value was met."""
+
+    total: np.ndarray
+    missing: np.ndarray
+
+    @classmethod
+    def zeros(cls, n_periods: int, n: int) -> FixedSums:
+        return cls(np.zeros((n_periods, n), dtype=np.int64), np.zeros((n_periods, n), bool))
+
+    @classmethod
+    def of_segments(
+        cls, values: np.ndarray, period_index: np.ndarray
+    ) -> tuple[np.ndarray, FixedSums]:
+        """The periods a block touches and its sums over each (NaN makes a sum missing)."""
+        missing = ~np.isfinite(values)
+        periods, total = _segment_sums(_to_fixed(np.where(missing, 0.0, values)), period_index)
+        starts = np.flatnonzero(np.r_[True, period_index[1:] != period_index[:-1]])
+        return periods, cls(total, np.logical_or.reduceat(missing, starts, axis=0))
+
+    def add(self, periods: np.ndarray, part: FixedSums) -> None:
+        self.total[periods] += part.total
+        self.missing[periods] |= part.missing
+
+    def value(self) -> np.ndarray:
+        """The sums as float64, NaN where a missing value was met. [unit of the values]"""
+        return np.where(self.missing, np.nan, self.total / _FIXED_POINT_SCALE)
+
+
 def compute_block(
     context: BlockContext,
     weights: Mapping[str, ZonalWeights],
@@ -434,9 +475,9 @@ def compute_block(
             negatives_per_body = negative.sum(axis=0)
         if clip and negatives[name]:
             rate = np.where(negative, 0.0, rate)
-        periods, depth[name] = _segment_sums(rate * days, index)
+        periods, depth[name] = FixedSums.of_segments(rate * days, index)
     precip = means.get("precipitation")
-    precip_sums = _segment_sums(precip * days, index)[1] if precip is not None else None
+    precip_sums = FixedSums.of_segments(precip * days, index)[1] if precip is not None else None
     finite = np.isfinite(rates[context.primary]).astype(np.int64)
     series = None
     if context.keep_series:
@@ -449,7 +490,7 @@ def compute_block(
         depth=depth,
         precip=precip_sums,
         valid_steps=_segment_sums(finite, index)[1],
-        coverage_sum=valid.sum(axis=0),
+        coverage_sum=_to_fixed(valid).sum(axis=0),
         negatives=negatives,
         negatives_per_body=negatives_per_body,
         steps=block.stop - block.start,
@@ -457,25 +498,50 @@ def compute_block(
     )
 
 
-def merge_block(sums: PeriodSums, part: BlockResult) -> None:
-    """Add one block's result into the running sums (always in block order)."""
+@dataclass
+class RunningSums:
+    """The period sums while blocks are merged: amounts in fixed point, counts as integers."""
+
+    depth: dict[str, FixedSums]
+    precip: FixedSums
+    valid_steps: np.ndarray
+    coverage_sum: np.ndarray
+    negatives: dict[str, int]
+    negatives_per_body: np.ndarray
+    steps: int = 0
+
+    def finish(self) -> PeriodSums:
+        """The merged sums as float64 :class:`PeriodSums`."""
+        return PeriodSums(
+            depth={name: sums.value() for name, sums in self.depth.items()},
+            precip=self.precip.value(),
+            valid_steps=self.valid_steps,
+            coverage_sum=self.coverage_sum / _FIXED_POINT_SCALE,
+            negatives=self.negatives,
+            negatives_per_body=self.negatives_per_body,
+            steps=self.steps,
+        )
+
+
+def merge_block(sums: RunningSums, part: BlockResult) -> None:
+    """Add one block's result into the running sums (in block order, though exact in any)."""
     for name, depth in part.depth.items():
-        sums.depth[name][part.periods] += depth
+        sums.depth[name].add(part.periods, depth)
         sums.negatives[name] = sums.negatives.get(name, 0) + part.negatives[name]
     if part.precip is not None:
-        sums.precip[part.periods] += part.precip
+        sums.precip.add(part.periods, part.precip)
     sums.valid_steps[part.periods] += part.valid_steps
     sums.coverage_sum += part.coverage_sum
     sums.negatives_per_body += part.negatives_per_body
     sums.steps += part.steps
 
 
-def new_sums(config: RunConfig, n_periods: int, n: int) -> PeriodSums:
-    return PeriodSums(
-        depth={m: np.zeros((n_periods, n)) for m in config.method.all},
-        precip=np.zeros((n_periods, n)),
+def new_sums(config: RunConfig, n_periods: int, n: int) -> RunningSums:
+    return RunningSums(
+        depth={m: FixedSums.zeros(n_periods, n) for m in config.method.all},
+        precip=FixedSums.zeros(n_periods, n),
         valid_steps=np.zeros((n_periods, n), dtype=np.int64),
-        coverage_sum=np.zeros(n),
+        coverage_sum=np.zeros(n, dtype=np.int64),
         negatives={},
         negatives_per_body=np.zeros(n, dtype=np.int64),
     )
@@ -508,7 +574,7 @@ def compute_sums(
             bar.update(part.steps)
     if bar is not None:
         bar.close()
-    return sums
+    return sums.finish()
 
 
 def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
