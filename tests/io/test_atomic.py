@@ -1,8 +1,9 @@
 """OutputDirectory: outputs appear complete under the final name or not at all.
 
-Fixtures are tiny directories of a few text files under pytest's tmp_path. The disk-full case
-runs on a real 64 KiB tmpfs when this process may mount one (it runs as root in CI) and falls
-back to an ENOSPC raised from inside the block otherwise; both paths assert the same outcome.
+Fixtures are tiny directories of a few text files under pytest's tmp_path. The disk-full cases
+run on a real 64 KiB tmpfs when this process may mount one (it runs as root in CI), filled by
+a plain file, by GDAL and by netCDF4 (whose errors carry no errno), and fall back to an ENOSPC
+raised from inside the block otherwise; both paths assert the same outcome.
 """
 
 from __future__ import annotations
@@ -15,10 +16,16 @@ import sys
 import textwrap
 from pathlib import Path
 
+import geopandas as gpd
+import numpy as np
 import pytest
+from shapely.geometry import box
 
 from lakeloss.errors import OutputError
+from lakeloss.io import atomic
 from lakeloss.io.atomic import OutputDirectory, clean_stale
+from lakeloss.io.gpkg import write_geopackage
+from lakeloss.io.series import SeriesWriter
 
 
 def _snapshot(directory: Path) -> dict[str, bytes]:
@@ -139,23 +146,70 @@ def tiny_disk(tmp_path: Path):
         subprocess.run(["umount", str(mount_point)], capture_output=True, timeout=10)
 
 
-def test_disk_full_real_or_simulated(tiny_disk, tmp_path):
+def _fill_with_plain_file(staging: Path) -> None:
+    with open(staging / "big.bin", "wb") as fh:
+        for _ in range(64):  # 256 KiB into 64 KiB: must fail with ENOSPC
+            fh.write(b"\0" * 4096)
+            fh.flush()
+
+
+def _fill_with_geopackage(staging: Path) -> None:
+    # An empty GeoPackage alone is larger than 64 KiB; GDAL fails in its own words.
+    ponds = gpd.GeoDataFrame({"id": [1]}, geometry=[box(0, 0, 10, 10)], crs="EPSG:32633")
+    write_geopackage(staging / "w.gpkg", [("waterbodies", ponds)], fields={}, metadata={})
+
+
+def _fill_with_series(staging: Path) -> None:
+    # 200 x 400 random float32 values (~320 KiB, barely compressible); netCDF4 raises
+    # RuntimeError, not OSError, when HDF5 cannot write.
+    rng = np.random.default_rng(1)
+    times = np.arange("2001-01-01", "2002-02-05", dtype="datetime64[D]")
+    with SeriesWriter(
+        staging / "s.nc",
+        waterbody_ids=np.arange(200),
+        times=times,
+        calendar="standard",
+        variables={"e": {"units": "mm", "long_name": "e"}},
+        global_attrs={"title": "t"},
+        chunk_times=100,
+    ) as series:
+        for start in range(0, 400, 100):
+            series.write("e", slice(start, start + 100), rng.random((100, 200)))
+
+
+@pytest.mark.parametrize("fill", [_fill_with_plain_file, _fill_with_geopackage, _fill_with_series])
+def test_disk_full_real_or_simulated(tiny_disk, tmp_path, fill):
     disk = tiny_disk if tiny_disk is not None else tmp_path / "fallback"
     disk.mkdir(exist_ok=True)
     target = disk / "out"
     target.mkdir()
     (target / "run.json").write_text('{"run": 1}\n')
     before = _snapshot(target)
-    with pytest.raises(OutputError, match="disk full while writing outputs"):
+    with pytest.raises(OutputError, match="disk full while writing outputs") as info:
         with OutputDirectory(target, overwrite=True) as staging:
             if tiny_disk is None:
                 raise OSError(errno.ENOSPC, "No space left on device (simulated)")
-            with open(staging / "big.bin", "wb") as fh:
-                for _ in range(64):  # 256 KiB into 64 KiB: must fail with ENOSPC
-                    fh.write(b"\0" * 4096)
-                    fh.flush()
+            fill(staging)
+    assert "earlier outputs were left untouched" in str(info.value)
     assert _snapshot(target) == before
     assert _leftovers(disk) == []
+
+
+def test_failed_final_rename_restores_previous_output(previous_run, monkeypatch):
+    before = _snapshot(previous_run)
+    real_rename = os.rename
+
+    def rename_failing_into_target(src, dst):
+        if Path(dst) == previous_run and ".lakeloss-partial-" in str(src):
+            raise PermissionError(errno.EACCES, "rename refused (simulated)")
+        real_rename(src, dst)
+
+    monkeypatch.setattr(atomic.os, "rename", rename_failing_into_target)
+    with pytest.raises(OutputError, match="cannot write output directory"):
+        with OutputDirectory(previous_run, overwrite=True) as staging:
+            (staging / "run.json").write_text('{"run": 2}\n')
+    assert _snapshot(previous_run) == before
+    assert _leftovers(previous_run.parent) == []
 
 
 def test_target_is_a_file(tmp_path):

@@ -7,7 +7,6 @@ reads real files.
 
 from __future__ import annotations
 
-import errno
 import json
 import shutil
 import sqlite3
@@ -22,8 +21,7 @@ import pyproj
 import pytest
 from shapely.geometry import box
 
-from lakeloss.errors import CRSError, InputDataError, OutputError
-from lakeloss.io.atomic import OutputDirectory
+from lakeloss.errors import CRSError, InputDataError
 from lakeloss.io.gpkg import FieldInfo, read_field_descriptions, read_metadata, write_geopackage
 
 # An Albers equal-area CRS with made-up parameters: not an EPSG code, so the round trip
@@ -246,40 +244,6 @@ def test_read_metadata_of_foreign_file(tmp_path, ponds):
         read_metadata(path)
     with pytest.raises(InputDataError, match="does not exist"):
         read_metadata(tmp_path / "missing.gpkg")
-
-
-@pytest.fixture
-def tiny_disk(tmp_path):
-    """A 64 KiB tmpfs if this process can mount one, else None (simulated case is used)."""
-    mount_point = tmp_path / "tiny"
-    mount_point.mkdir()
-    try:
-        proc = subprocess.run(
-            ["mount", "-t", "tmpfs", "-o", "size=64k", "tmpfs", str(mount_point)],
-            capture_output=True,
-            timeout=10,
-        )
-    except (OSError, subprocess.TimeoutExpired):
-        proc = None
-    if proc is None or proc.returncode != 0:
-        yield None
-        return
-    try:
-        yield mount_point
-    finally:
-        subprocess.run(["umount", str(mount_point)], capture_output=True, timeout=10)
-
-
-def test_gdal_on_full_disk_reports_disk_full(tiny_disk, tmp_path, ponds):
-    # An empty GeoPackage alone is larger than 64 KiB, so GDAL fails part-way through.
-    disk = tiny_disk if tiny_disk is not None else tmp_path / "fallback"
-    disk.mkdir(exist_ok=True)
-    with pytest.raises(OutputError, match="disk full while writing outputs"):
-        with OutputDirectory(disk / "out", overwrite=False) as staging:
-            if tiny_disk is None:
-                raise OSError(errno.ENOSPC, "No space left on device (simulated)")
-            write_geopackage(staging / "w.gpkg", [("waterbodies", ponds)], fields={}, metadata={})
-    assert sorted(p.name for p in disk.iterdir()) == []
 
 
 def test_attribute_table_types_and_missing_values(tmp_path, ponds):
