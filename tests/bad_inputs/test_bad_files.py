@@ -1,0 +1,192 @@
+"""Missing, unreadable, truncated and corrupt input files; directories given as files; CRS
+and extent problems. Each is refused by ``check`` and ``run`` with one line.
+
+The tests run as any user (often root in containers, who can read a file of mode 000), so
+"unreadable" is made with content no reader accepts: an empty file and foreign bytes.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+import rasterio
+import xarray as xr
+from affine import Affine
+from bad_inputs.corpus import BASE_FIELDS, TIMES, refused_everywhere
+from builders import LAT, LON, climate_dataset, pond_layer
+
+# Bytes that are neither a GeoPackage, a NetCDF nor a GeoTIFF (a few lines of CSV).
+FOREIGN_BYTES = b"pond,area\n1,200\n2,300\n"
+
+
+def _truncated(path, keep: float = 0.4) -> None:
+    data = path.read_bytes()
+    path.write_bytes(data[: int(len(data) * keep)])
+
+
+# --------------------------------------------------------------------------- vector layer
+
+
+def test_missing_layer_file(case):
+    case.config["waterbodies"]["path"] = str(case.tmp / "no_such_ponds.gpkg")
+    refused_everywhere(case, "no_such_ponds.gpkg", "does not exist", "[waterbodies] path")
+
+
+def test_layer_path_is_a_directory(case):
+    (case.tmp / "ponds_dir.gpkg").mkdir()
+    case.config["waterbodies"]["path"] = str(case.tmp / "ponds_dir.gpkg")
+    refused_everywhere(case, "ponds_dir.gpkg", "directory")
+
+
+@pytest.mark.parametrize(
+    "damage",
+    [
+        pytest.param(lambda p: _truncated(p), id="truncated"),
+        pytest.param(lambda p: p.write_bytes(b""), id="empty"),
+        pytest.param(lambda p: p.write_bytes(FOREIGN_BYTES), id="foreign-bytes"),
+        pytest.param(
+            lambda p: p.write_bytes(p.read_bytes()[:100] + b"\0" * 4096), id="corrupt-pages"
+        ),
+    ],
+)
+def test_damaged_layer_file(case, damage):
+    damage(case.tmp / "ponds.gpkg")
+    refused_everywhere(case, "ponds.gpkg", "water-body layer")
+
+
+# --------------------------------------------------------------------------- climate files
+
+
+def test_missing_climate_file(case):
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "no_such_climate.nc")
+    refused_everywhere(case, "no_such_climate.nc", "does not exist", "[climate]")
+
+
+def test_climate_path_is_a_directory(case):
+    (case.tmp / "climate_dir.nc").mkdir()
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "climate_dir.nc")
+    refused_everywhere(case, "climate_dir.nc", "is a directory")
+
+
+@pytest.mark.parametrize(
+    "damage",
+    [
+        pytest.param(lambda p: _truncated(p), id="truncated"),
+        pytest.param(lambda p: p.write_bytes(b""), id="empty"),
+        pytest.param(lambda p: p.write_bytes(FOREIGN_BYTES), id="foreign-bytes"),
+        pytest.param(lambda p: _truncated(p, keep=0.95), id="truncated-tail"),
+    ],
+)
+def test_damaged_netcdf(case, damage):
+    damage(case.tmp / "climate.nc")
+    refused_everywhere(case, "climate.nc", "unreadable, truncated or not NetCDF")
+
+
+def _write_geotiff(path, bands: int = 4, crs: str | None = "EPSG:4326") -> None:
+    transform = Affine(0.05, 0.0, LON[0] - 0.025, 0.0, -0.05, LAT[0] + 0.025)
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        width=len(LON),
+        height=len(LAT),
+        count=bands,
+        dtype="float32",
+        crs=crs,
+        transform=transform,
+    ) as dst:
+        dst.write(np.full((bands, len(LAT), len(LON)), 298.15, dtype=np.float32))
+        dst.update_tags(units="K")
+
+
+def _geotiff_temperature(case, path, **extra) -> None:
+    case.config["climate"]["air_temperature"] = {
+        "path": str(path),
+        "start": "2031-01-01",
+        "step": "day",
+        **extra,
+    }
+
+
+@pytest.mark.parametrize("damage", ["truncated", "foreign-bytes"])
+def test_damaged_geotiff(case, damage):
+    path = case.tmp / "tas.tif"
+    _write_geotiff(path)
+    if damage == "truncated":
+        _truncated(path, keep=0.3)
+    else:
+        path.write_bytes(FOREIGN_BYTES)
+    _geotiff_temperature(case, path)
+    refused_everywhere(case, "tas.tif", "GeoTIFF")
+
+
+def test_unknown_climate_variable_lists_those_in_the_file(case):
+    case.climate_entry("air_temperature")["variable"] = "tasmean"
+    refused_everywhere(case, "'tasmean'", "the variables are", "'tas'")
+
+
+# --------------------------------------------------------------------------- CRS and extent
+
+
+def _write_layer_without_crs(case) -> None:
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", "'crs' was not provided", UserWarning)  # pyogrio
+        case.write_layer(pond_layer(n_ponds=3).set_crs(None, allow_override=True))
+
+
+def test_layer_without_crs_is_refused(case):
+    _write_layer_without_crs(case)
+    refused_everywhere(case, "no coordinate reference system", "[waterbodies] crs")
+
+
+def test_layer_without_crs_runs_when_the_config_states_it(case):
+    _write_layer_without_crs(case)
+    case.config["waterbodies"]["crs"] = "EPSG:32755"
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    assert (case.out / "waterbodies.gpkg").is_file()
+
+
+def test_layer_crs_contradicting_the_config(case):
+    case.config["waterbodies"]["crs"] = "EPSG:4326"
+    refused_everywhere(case, "EPSG:32755", "EPSG:4326", "agree")
+
+
+def test_climate_grid_without_crs_or_lat_lon(case):
+    # Projected-looking x/y coordinates in metres, no grid_mapping, no crs_wkt.
+    ds = climate_dataset(TIMES, BASE_FIELDS)
+    ds = ds.drop_vars("crs").rename({"lat": "y", "lon": "x"})
+    ds = ds.assign_coords(x=("x", 500_000.0 + 5000.0 * np.arange(len(LON))))
+    ds = ds.assign_coords(y=("y", 6_700_000.0 - 5000.0 * np.arange(len(LAT))))
+    for name in ds.data_vars:
+        ds[name].attrs.pop("grid_mapping", None)
+    case.write_climate(ds, "projected.nc")
+    for entry in case.config["climate"].values():
+        entry["path"] = str(case.tmp / "projected.nc")
+    refused_everywhere(case, "no CRS", "set crs")
+
+
+def test_layer_that_does_not_overlap_the_grid(case):
+    # The same ponds 3 degrees further north: the grid is 0.4 x 0.3 degrees.
+    ds = climate_dataset(TIMES, BASE_FIELDS, lat=LAT + 3.0)
+    case.write_climate(ds)
+    refused_everywhere(case, "overlap", "climate grid")
+
+
+def test_grid_with_irregular_coordinates(case):
+    ds = climate_dataset(TIMES, BASE_FIELDS)
+    lon = LON.copy()
+    lon[3], lon[4] = lon[4], lon[3]
+    ds = ds.assign_coords(lon=("lon", lon, ds["lon"].attrs))
+    case.write_climate(ds)
+    refused_everywhere(case, "monotonic")
+
+
+def test_variable_with_an_unrecognised_dimension(case):
+    ds = climate_dataset(TIMES, BASE_FIELDS)
+    tas = ds["tas"].expand_dims(member=3, axis=1)
+    case.write_climate(xr.Dataset({"tas": tas, "crs": ds["crs"]}), "members.nc")
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "members.nc")
+    refused_everywhere(case, "'member'", "dimensions")
