@@ -14,6 +14,7 @@ memory and writes it once it is complete, holding at most a couple of such rows 
 from __future__ import annotations
 
 import datetime
+import os
 from collections.abc import Mapping
 from pathlib import Path
 from types import TracebackType
@@ -86,10 +87,12 @@ class SeriesWriter:
         self._rows: dict[tuple[str, int], _ChunkRow] = {}
         self._flushed: set[tuple[str, int]] = set()
         self._dataset = netCDF4.Dataset(Path(path), mode="w", format="NETCDF4")
+        stat = os.stat(path)
+        self._file_identity = (stat.st_dev, stat.st_ino)
         try:
             self._define(ids, times, calendar, variables, global_attrs)
         except BaseException:
-            self._dataset.close()
+            self._close_dataset(quiet=True)
             raise
 
     def write(self, name: str, time_slice: slice, values: np.ndarray) -> None:
@@ -128,8 +131,10 @@ class SeriesWriter:
         try:
             for key in sorted(self._rows):
                 self._flush(*key)
-        finally:
-            self._dataset.close()
+        except BaseException:
+            self._close_dataset(quiet=True)
+            raise
+        self._close_dataset(quiet=False)
 
     def __enter__(self) -> SeriesWriter:
         return self
@@ -145,8 +150,23 @@ class SeriesWriter:
         else:
             # A failed run's file is discarded with its staging directory; just release it.
             self._rows.clear()
-            self._dataset.close()
+            self._close_dataset(quiet=True)
         return False
+
+    def _close_dataset(self, *, quiet: bool) -> None:
+        """Close the file; if HDF5 cannot (e.g. disk full), still give back its descriptor.
+
+        A failed close leaves HDF5 holding the descriptor, which keeps the deleted staging
+        file's space allocated until the process ends.
+        """
+        if not self._dataset.isopen():
+            return
+        try:
+            self._dataset.close()
+        except RuntimeError:
+            _release_descriptors(self._file_identity)
+            if not quiet:
+                raise
 
     def _define(
         self,
@@ -246,6 +266,30 @@ class _ChunkRow:
     @property
     def complete(self) -> bool:
         return bool(self.filled.all())
+
+
+def _release_descriptors(identity: tuple[int, int]) -> None:
+    """Point every descriptor of this process that refers to the given file at /dev/null.
+
+    ``dup2`` keeps each descriptor number occupied, so the library that still owns it can
+    never write into an unrelated file that would otherwise reuse the number. Only where the
+    process's descriptors are listed (``/proc/self/fd`` or ``/dev/fd``); a no-op elsewhere.
+    """
+    listing = next((d for d in ("/proc/self/fd", "/dev/fd") if os.path.isdir(d)), None)
+    if listing is None:
+        return
+    null = os.open(os.devnull, os.O_RDWR)
+    try:
+        for name in os.listdir(listing):
+            fd = int(name)
+            try:
+                stat = os.fstat(fd)
+            except OSError:
+                continue
+            if fd != null and (stat.st_dev, stat.st_ino) == identity:
+                os.dup2(null, fd)
+    finally:
+        os.close(null)
 
 
 def _check_variables(variables: Mapping[str, Mapping[str, str]]) -> None:
