@@ -147,6 +147,13 @@ def write_geopackage(
         If the first layer has no CRS.
     OutputError
         If GDAL or SQLite cannot write the file.
+
+    Notes
+    -----
+    Meant to write into an :class:`~lakeloss.io.atomic.OutputDirectory`: the SQLite part
+    runs without a disk journal (see ``_fast_bulk_settings``), so a crash mid-write leaves a
+    file fit only for the staging directory's clean-up. Feature layers come first in the
+    file, attribute tables after them, whatever their order in ``layers``.
     """
     _check_layers(layers, fields)
     provenance = to_jsonable(dict(metadata))
@@ -158,10 +165,17 @@ def write_geopackage(
     for name, frame in spatial:
         _write_layer(path, name, frame, fields.get(name, {}), provenance)
     try:
-        with closing(sqlite3.connect(os.fspath(path))) as con:
+        # Autocommit mode plus an explicit BEGIN, so CREATE TABLE joins the transaction too.
+        with closing(sqlite3.connect(os.fspath(path), isolation_level=None)) as con:
             _fast_bulk_settings(con)
-            with con:
+            con.execute("BEGIN")
+            try:
                 _write_tables(con, attributes, fields, provenance)
+            except BaseException:
+                if con.in_transaction:
+                    con.execute("ROLLBACK")
+                raise
+            con.execute("COMMIT")
     except sqlite3.Error as exc:
         raise _write_error(
             exc, f"cannot add tables, field descriptions or provenance to {path}"
