@@ -133,8 +133,8 @@ class OutputDirectory:
         old = None
         if target.exists():
             old = target.parent / f".{target.name}.{_OLD}-{os.getpid()}"
-            if old.exists():
-                shutil.rmtree(old)
+            if old.exists() or old.is_symlink():
+                _remove(old)
             os.rename(target, old)
         try:
             os.rename(staging, target)
@@ -144,7 +144,7 @@ class OutputDirectory:
             raise
         _fsync_directory(target.parent)
         if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
+            _remove(old)
 
 
 def clean_stale(target: str | Path) -> list[Path]:
@@ -181,6 +181,14 @@ def clean_stale(target: str | Path) -> list[Path]:
             shutil.rmtree(entry, ignore_errors=True)
         handled.append(entry)
     return handled
+
+
+def _remove(path: Path) -> None:
+    """Delete a set-aside output: a symlinked output loses only the link, not its target."""
+    if path.is_symlink():
+        path.unlink()
+    else:
+        shutil.rmtree(path, ignore_errors=True)
 
 
 def _nearest_existing(path: Path) -> Path:

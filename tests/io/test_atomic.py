@@ -303,3 +303,15 @@ def test_sigkill_mid_write_leaves_old_target_and_is_cleaned(previous_run):
         (new_staging / "run.json").write_text('{"run": 3}')
     assert _snapshot(previous_run) == {"run.json": b'{"run": 3}'}
     assert _leftovers(previous_run.parent) == []
+
+
+def test_overwrite_of_symlinked_output_keeps_link_target(tmp_path, previous_run):
+    # The link is replaced by a real directory; what it pointed to is not deleted.
+    link = tmp_path / "latest"
+    link.symlink_to(previous_run, target_is_directory=True)
+    before = _snapshot(previous_run)
+    with OutputDirectory(link, overwrite=True) as staging:
+        (staging / "run.json").write_text('{"run": 2}\n')
+    assert not link.is_symlink() and (link / "run.json").read_text() == '{"run": 2}\n'
+    assert _snapshot(previous_run) == before
+    assert _leftovers(tmp_path) == []
