@@ -1,7 +1,8 @@
 """GeoPackage output: layers written by GDAL, field descriptions and provenance added after.
 
-Feature layers are written by GDAL (through pyogrio), in their own CRS, with GDAL dataset
-and layer metadata that ``ogrinfo`` and :func:`pyogrio.read_info` show. Attribute tables
+Feature layers are written by GDAL (through pyogrio), in their own CRS, with GDAL layer
+metadata that ``ogrinfo`` and :func:`pyogrio.read_info` show (the provenance reaches them as
+the dataset item ``GPKG_METADATA_ITEM_1``). Attribute tables
 (plain DataFrames, ``gpkg_contents.data_type = 'attributes'``) and two OGC GeoPackage
 extensions are then added with SQLite in one transaction:
 
@@ -163,7 +164,7 @@ def write_geopackage(
     spatial = [(n, f) for n, f in layers if isinstance(f, geopandas.GeoDataFrame)]
     attributes = [(n, f) for n, f in layers if not isinstance(f, geopandas.GeoDataFrame)]
     for name, frame in spatial:
-        _write_layer(path, name, frame, fields.get(name, {}), provenance)
+        _write_layer(path, name, frame, fields.get(name, {}))
     try:
         # Autocommit mode plus an explicit BEGIN, so CREATE TABLE joins the transaction too.
         with closing(sqlite3.connect(os.fspath(path), isolation_level=None)) as con:
@@ -314,13 +315,14 @@ def _check_fields(name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]
 
 
 def _write_layer(
-    path: Path,
-    name: str,
-    frame: pd.DataFrame,
-    infos: Mapping[str, FieldInfo],
-    provenance: object,
+    path: Path, name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]
 ) -> None:
-    """Write one layer through GDAL with GDAL-visible dataset and layer metadata."""
+    """Write one layer through GDAL with GDAL-visible layer metadata.
+
+    No GDAL *dataset* metadata: GDAL then writes a ``.aux.xml`` sidecar beside the file every
+    time a reader opens it. The provenance is in ``gpkg_metadata`` as JSON instead, which
+    GDAL shows as the dataset metadata item ``GPKG_METADATA_ITEM_1``.
+    """
     layer_metadata = _layer_metadata(infos) or None
     try:
         pyogrio.write_dataframe(
@@ -328,7 +330,6 @@ def _write_layer(
             path,
             layer=name,
             driver="GPKG",
-            dataset_metadata=_flatten(provenance),
             layer_metadata=layer_metadata,
         )
     except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
@@ -349,17 +350,6 @@ def _gdal_ready(frame: pd.DataFrame) -> pd.DataFrame:
         texts = iso_dates(frame[column].to_numpy(dtype=object, na_value=None).tolist())
         frame[column] = pd.Series([t or None for t in texts], index=frame.index, dtype=object)
     return frame
-
-
-def _flatten(provenance: object) -> dict[str, str]:
-    """Top-level provenance keys as GDAL metadata items (nested values as compact JSON)."""
-    if not isinstance(provenance, dict):
-        return {}
-    items = {}
-    for key, value in sorted(provenance.items()):
-        text = value if isinstance(value, str) else json.dumps(value, sort_keys=True)
-        items[key.replace("=", "_")] = text
-    return items
 
 
 def _layer_metadata(infos: Mapping[str, FieldInfo]) -> dict[str, str]:
