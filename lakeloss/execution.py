@@ -1,18 +1,24 @@
 """Where the blocks of a run are computed: in this process, or on a dask.distributed cluster.
 
 Every scheduler runs the same pure function, :func:`lakeloss.pipeline.compute_block`, on the
-same blocks, and hands the results back in block order, so the merged sums (and every output
-file) are identical whichever scheduler ran them.
+same blocks, and hands the results back in block order; the pipeline sums them exactly (in
+fixed point), so the merged sums and every output file are identical whichever scheduler ran
+them and however the time axis was cut.
 
 * default: a small thread pool in this process (numpy and the sparse products release the
-  GIL), at most ``window`` blocks in flight;
+  GIL), at most two blocks in flight;
 * ``workers = N``: a :class:`dask.distributed.LocalCluster` of N worker processes on
-  loopback, with a memory limit per worker;
+  loopback, one thread each, with a memory limit per worker (``memory_limit``, default
+  ``"auto"``: the machine's memory shared among the workers);
 * ``scheduler = ADDRESS``: an existing cluster, by address (``tcp://host:8786``) or by the
-  path of a scheduler file.
+  path of a scheduler file (``dask scheduler --scheduler-file``).
 
 On a cluster the weights, the per-body inputs and the block context are scattered to every
-worker once, not copied into each task; only this process merges results and writes files.
+worker once (the tasks refer to them by key, they are not pickled into each task); at most
+``2 x workers`` blocks are in flight, so finished blocks never pile up in memory. Only this
+process merges results and writes files. A block lost with a worker is recomputed by dask
+on another worker (retries); a block that cannot be computed becomes :class:`ClusterError`,
+raised before anything is written.
 """
 
 from __future__ import annotations
@@ -20,15 +26,25 @@ from __future__ import annotations
 import contextlib
 import logging
 import os
+import re
 from collections.abc import Iterator, Mapping, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
 from lakeloss.config import ComputeConfig
-from lakeloss.errors import ClusterError
+from lakeloss.errors import ClusterError, LakelossError
 
 log = logging.getLogger(__name__)
+
+CONNECT_TIMEOUT_S = 20.0
+"""How long to try to reach a scheduler, and to wait for its first worker. [s]"""
+
+# Each block may be retried this often after its worker died or failed (besides dask's own
+# rescheduling of tasks lost with a worker, bounded by distributed.scheduler.allowed-failures).
+_RETRIES = 2
+# Blocks in flight per worker: one running, one queued, so a worker never idles between blocks.
+_IN_FLIGHT_PER_WORKER = 2
 
 
 def _local_threads() -> int:
@@ -44,11 +60,13 @@ def _run_local(context: Any, weights: Any, static: Any, blocks: Sequence[slice])
             yield compute_block(context, weights, static, block)
         return
     with ThreadPoolExecutor(max_workers=threads) as pool:
-        pending = [
+        pending: list[Future[Any] | None] = [
             pool.submit(compute_block, context, weights, static, b) for b in blocks[:threads]
         ]
         for i in range(len(blocks)):
-            part = pending[i].result()
+            future = pending[i]
+            assert future is not None
+            part = future.result()
             pending[i] = None  # release the block once merged
             nxt = i + threads
             if nxt < len(blocks):
@@ -56,35 +74,79 @@ def _run_local(context: Any, weights: Any, static: Any, blocks: Sequence[slice])
             yield part
 
 
+def _one_line(err: BaseException) -> str:
+    text = re.sub(r"\s+", " ", str(err)).strip()
+    return f"{type(err).__name__}: {text}" if text else type(err).__name__
+
+
+def _looks_like_file(target: str) -> bool:
+    return "://" not in target and (target.endswith(".json") or os.sep in target)
+
+
+def _connect(target: str) -> Any:
+    """A client of the running cluster at ``target`` (address or scheduler file)."""
+    from distributed import Client
+
+    timeout = f"{CONNECT_TIMEOUT_S}s"
+    if _looks_like_file(target) and not Path(target).is_file():
+        raise ClusterError(
+            f"the dask scheduler file '{target}' does not exist; give the path the scheduler "
+            "wrote (dask scheduler --scheduler-file PATH) or its address (tcp://host:port)"
+        )
+    try:
+        if Path(target).is_file():
+            return Client(scheduler_file=target, timeout=timeout)
+        return Client(target, timeout=timeout)
+    except (OSError, TimeoutError, ValueError) as err:
+        raise ClusterError(
+            f"cannot connect to the dask scheduler at '{target}' ({_one_line(err)}); check "
+            "the address (tcp://host:port) or scheduler file, and that the cluster is running"
+        ) from err
+
+
+def _wait_for_workers(client: Any, target: str) -> None:
+    try:
+        client.wait_for_workers(1, timeout=CONNECT_TIMEOUT_S)
+    except (OSError, TimeoutError) as err:
+        raise ClusterError(
+            f"the dask scheduler at '{target}' has no workers after {CONNECT_TIMEOUT_S:g} s; "
+            "start workers (dask worker ADDRESS) or use --workers N for a local cluster"
+        ) from err
+
+
 @contextlib.contextmanager
 def _client(compute: ComputeConfig) -> Iterator[Any]:
     from distributed import Client, LocalCluster
 
     if compute.scheduler:
-        target = compute.scheduler
-        try:
-            if Path(target).is_file():
-                client = Client(scheduler_file=target, timeout="20s")
-            else:
-                client = Client(target, timeout="20s")
-        except (OSError, TimeoutError, ValueError) as err:
-            raise ClusterError(
-                f"cannot connect to the dask scheduler at '{target}' ({err}); check the "
-                "address (tcp://host:port) or scheduler file, and that the cluster is running"
-            ) from err
+        client = _connect(compute.scheduler)
         with client:
+            _wait_for_workers(client, compute.scheduler)
             yield client
         return
-    cluster = LocalCluster(
-        n_workers=compute.workers,
-        threads_per_worker=1,
-        processes=True,
-        memory_limit=compute.memory_limit,
-        host="127.0.0.1",
-        dashboard_address=None,
-    )
+    try:
+        cluster = LocalCluster(
+            n_workers=compute.workers,
+            threads_per_worker=1,
+            processes=True,
+            memory_limit=compute.memory_limit,
+            host="127.0.0.1",
+            dashboard_address=None,
+        )
+    except (OSError, TimeoutError, ValueError) as err:
+        raise ClusterError(
+            f"cannot start a local dask cluster of {compute.workers} workers ({_one_line(err)});"
+            " check [compute] memory_limit and free memory, or run without --workers"
+        ) from err
     with cluster, Client(cluster) as client:
         yield client
+
+
+def _lost_block(i: int, n: int, err: BaseException) -> ClusterError:
+    return ClusterError(
+        f"the cluster lost block {i + 1} of {n} ({_one_line(err)}); no outputs were written; "
+        "check worker memory limits and logs, then rerun"
+    )
 
 
 def _run_cluster(
@@ -96,27 +158,29 @@ def _run_cluster(
     from lakeloss.pipeline import compute_block
 
     with _client(compute) as client:
-        n_workers = max(1, len(client.scheduler_info().get("workers", {})) or compute.workers)
+        n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+        log.info("dask cluster %s with %d workers", client.scheduler.address, n_workers)
+        # One scattered copy per worker; tasks get them by key, not pickled into each task.
         [context_f, weights_f, static_f] = client.scatter(
-            [context, dict(weights), dict(static)], broadcast=True
+            [context, dict(weights), dict(static)], broadcast=True, hash=False
         )
-        window = 2 * n_workers
+        window = _IN_FLIGHT_PER_WORKER * n_workers
 
         def submit(block: slice) -> Any:
             return client.submit(
-                compute_block, context_f, weights_f, static_f, block, retries=2, pure=False
+                compute_block, context_f, weights_f, static_f, block, retries=_RETRIES, pure=False
             )
 
-        futures = [submit(b) for b in blocks[:window]]
+        futures: list[Any] = [submit(b) for b in blocks[:window]]
         for i in range(len(blocks)):
             try:
                 part = futures[i].result()
-            except (KilledWorker, FutureCancelledError) as err:
-                raise ClusterError(
-                    f"the cluster lost block {i + 1} of {len(blocks)} ({type(err).__name__}: "
-                    f"{err}); no outputs were written — check worker memory limits and rerun"
-                ) from err
-            futures[i] = None
+            except LakelossError:
+                raise  # the block's own error (bad input data), raised as on a local run
+            except (KilledWorker, FutureCancelledError, OSError, TimeoutError) as err:
+                # OSError covers a scheduler connection closed mid-run.
+                raise _lost_block(i, len(blocks), err) from err
+            futures[i] = None  # the client drops the result from the cluster
             if i + window < len(blocks):
                 futures.append(submit(blocks[i + window]))
             yield part
@@ -129,7 +193,30 @@ def run_blocks(
     static: Mapping[str, Any],
     blocks: Sequence[slice],
 ) -> Iterator[Any]:
-    """Compute every block and yield the results in block order."""
+    """Compute every block and yield the results in block order.
+
+    Parameters
+    ----------
+    compute : ComputeConfig
+        ``workers`` > 0 starts a local cluster, ``scheduler`` connects to a running one;
+        neither runs the blocks in a thread pool here.
+    context, weights, static
+        Arguments of :func:`lakeloss.pipeline.compute_block` shared by every block
+        (scattered once to a cluster's workers).
+    blocks : sequence of slice
+        Time-step ranges, in order.
+
+    Yields
+    ------
+    lakeloss.pipeline.BlockResult
+        One per block, in the order of ``blocks``, as soon as it (and every block before it)
+        is done.
+
+    Raises
+    ------
+    ClusterError
+        The scheduler cannot be reached, has no workers, or a block was lost for good.
+    """
     if compute.workers or compute.scheduler:
         yield from _run_cluster(compute, context, weights, static, blocks)
     else:
