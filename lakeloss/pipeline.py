@@ -12,11 +12,16 @@ held whole. ``aggregate`` turns the period sums into the result tables.
 
 from __future__ import annotations
 
+import atexit
 import logging
+import os
+import shutil
+import tempfile
 import time
 import warnings
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -26,6 +31,7 @@ from lakeloss.config import RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
     GridError,
+    ImplausibleValuesWarning,
     LakelossWarning,
     MissingInputError,
     ValuesAdjustedWarning,
@@ -224,13 +230,12 @@ def check_values(config: RunConfig, inputs: Inputs) -> list[str]:
 # --------------------------------------------------------------------------- weights
 
 
-def default_cache_dir() -> Any:
-    import os
-    from pathlib import Path
-
-    root = os.environ.get("LAKELOSS_CACHE_DIR") or os.environ.get("XDG_CACHE_HOME")
-    base = Path(root) if root else Path.home() / ".cache"
-    return base if os.environ.get("LAKELOSS_CACHE_DIR") else base / "lakeloss"
+def default_cache_dir() -> Path:
+    """Where zonal weights are cached: $LAKELOSS_CACHE_DIR, else the user cache directory."""
+    if os.environ.get("LAKELOSS_CACHE_DIR"):
+        return Path(os.environ["LAKELOSS_CACHE_DIR"])
+    root = os.environ.get("XDG_CACHE_HOME")
+    return (Path(root) if root else Path.home() / ".cache") / "lakeloss"
 
 
 def build_weights(config: RunConfig, inputs: Inputs) -> tuple[dict[str, ZonalWeights], bool]:
@@ -602,14 +607,20 @@ def run_stages(
     with timer.stage("load"):
         inputs = load_inputs(config)
         value_warnings = check_values(config, inputs)
-    with timer.stage("weights"):
+    for reason in [*inputs.warnings, *value_warnings]:
+        # load_inputs records its warnings for run.json; show them to the user as well.
+        category = ImplausibleValuesWarning if reason in value_warnings else LakelossWarning
+        warnings.warn(reason, category, stacklevel=2)
+    with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always", LakelossWarning)
         weights, cached = build_weights(config, inputs)
+    weight_warnings = _replay(seen)
     keep_series = config.output.series if series is None else series
-    collector = SeriesCollector(inputs) if keep_series else None
+    collector = SeriesStream(config, inputs) if keep_series else None
     with timer.stage("evaporate"):
         sums = compute_sums(config, inputs, weights, progress, collector.add if collector else None)
     with timer.stage("aggregate"):
-        run_warnings = [*inputs.warnings, *value_warnings]
+        run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
         message = negative_warning(config, sums)
         if message:
             run_warnings.append(message)
@@ -626,19 +637,55 @@ def run_stages(
     return result
 
 
-class SeriesCollector:
-    """Keeps per-step rates in memory for the result's xarray Dataset."""
+def _replay(seen: list[warnings.WarningMessage]) -> list[str]:
+    """Re-issue recorded lakeloss warnings (so the CLI prints them); return their texts."""
+    texts = []
+    for item in seen:
+        if issubclass(item.category, LakelossWarning):
+            texts.append(str(item.message))
+        warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
+    return texts
 
-    def __init__(self, inputs: Inputs) -> None:
-        self.inputs = inputs
-        self.blocks: dict[str, list[np.ndarray]] = {}
+
+class SeriesStream:
+    """Streams per-step rates into a temporary CF NetCDF file, block by block.
+
+    The whole (time, water body) array is never held: each block goes to disk as it is
+    merged, and the result's ``series`` is the file opened lazily. ``RunResult.write`` copies
+    it into the outputs; the temporary directory is removed when the process exits.
+    """
+
+    def __init__(self, config: RunConfig, inputs: Inputs) -> None:
+        from lakeloss.io.series import SeriesWriter
+        from lakeloss.results import CAUTION, SERIES_VARIABLES
+
+        self.directory = Path(tempfile.mkdtemp(prefix="lakeloss-series-"))
+        atexit.register(shutil.rmtree, self.directory, ignore_errors=True)
+        self.path = self.directory / "series.nc"
+        names = ["evaporation_rate"] + (
+            ["precipitation_rate"] if "precipitation" in inputs.fields else []
+        )
+        self.writer = SeriesWriter(
+            self.path,
+            waterbody_ids=inputs.layer.frame[inputs.layer.id_field].to_numpy(),
+            times=inputs.axis.times,
+            calendar=inputs.axis.calendar,
+            variables={name: SERIES_VARIABLES[name] for name in names},
+            global_attrs={
+                "title": "lakeloss per-step evaporation series",
+                "source": f"lakeloss, method {config.method.name}",
+                "comment": CAUTION,
+            },
+            chunk_times=block_steps(config, inputs),
+        )
 
     def add(self, block: slice, values: Mapping[str, np.ndarray]) -> None:
         for name, value in values.items():
-            self.blocks.setdefault(name, []).append(np.asarray(value, dtype=np.float32))
+            self.writer.write(name, block, np.asarray(value, dtype=np.float32))
 
     def dataset(self) -> Any:
-        from lakeloss.results import series_dataset
+        import xarray as xr
 
-        arrays = {k: np.concatenate(v, axis=0) for k, v in self.blocks.items()}
-        return series_dataset(self.inputs, arrays)
+        self.writer.close()
+        coder = xr.coders.CFDatetimeCoder(use_cftime=True)
+        return xr.open_dataset(self.path, engine="netcdf4", chunks={}, decode_times=coder)

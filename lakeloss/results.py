@@ -289,32 +289,18 @@ def _summaries(
     return by_period_total, by_group
 
 
-def series_dataset(inputs: Any, arrays: Mapping[str, np.ndarray]) -> Any:
-    """Per-step rates as an xarray Dataset (waterbody x time) with CF attributes."""
-    import xarray as xr
-
-    ids = inputs.layer.frame[inputs.layer.id_field].to_numpy()
-    long_names = {
-        "evaporation_rate": "open-water evaporation rate, primary method",
-        "precipitation_rate": "precipitation rate on the water surface",
-    }
-    data = {
-        name: (
-            ("waterbody", "time"),
-            values.T,
-            {"units": "mm day-1", "long_name": long_names.get(name, name)},
-        )
-        for name, values in arrays.items()
-    }
-    return xr.Dataset(
-        data,
-        coords={"waterbody_id": ("waterbody", ids), "time": ("time", inputs.axis.times)},
-        attrs={
-            "Conventions": "CF-1.8",
-            "title": "lakeloss per-step evaporation series",
-            "comment": CAUTION,
-        },
-    )
+SERIES_VARIABLES: dict[str, dict[str, str]] = {
+    "evaporation_rate": {
+        "units": "mm day-1",
+        "long_name": "open-water evaporation rate, primary method",
+    },
+    "precipitation_rate": {
+        "units": "mm day-1",
+        "long_name": "precipitation rate on the water surface",
+        "standard_name": "lwe_precipitation_rate",
+    },
+}
+"""Per-step series variables (series.nc) and their CF attributes."""
 
 
 def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo]]:

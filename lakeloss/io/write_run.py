@@ -8,6 +8,7 @@ Files (the names are a contract other tools rely on; see README, "Outputs"):
 
 from __future__ import annotations
 
+import shutil
 from pathlib import Path
 from typing import Any
 
@@ -44,6 +45,15 @@ def _body_csv(result: Any) -> Any:
     return table[columns].sort_values(["loss_rank"], kind="stable")
 
 
+def _write_series(series: Any, target: Path) -> None:
+    """Copy the streamed series file when there is one, else write the Dataset."""
+    source = series.encoding.get("source")
+    if source and Path(source).is_file():
+        shutil.copyfile(source, target)
+    else:
+        series.to_netcdf(target, engine="netcdf4")
+
+
 def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
     """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``."""
     with OutputDirectory(target, overwrite=overwrite) as staging:
@@ -67,6 +77,6 @@ def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
                 decimals=_decimals(result.summary_by_group.columns),
             )
         if result.series is not None:
-            result.series.to_netcdf(staging / "series.nc", engine="netcdf4")
+            _write_series(result.series, staging / "series.nc")
         write_json(staging / "run.json", result.provenance)
     return Path(target)
