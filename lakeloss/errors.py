@@ -85,3 +85,7 @@ class ValuesAdjustedWarning(LakelossWarning):
 
 class ClusterError(LakelossError, RuntimeError):
     """A dask.distributed cluster could not be reached, or lost part of the run."""
+
+
+class ImplausibleValuesWarning(LakelossWarning):
+    """Values contradict their declared units, and a lenient run kept them as they are."""
