@@ -123,24 +123,43 @@ class ZonalWeights:
                 f"values of shape {values.shape} do not fit weights built for {ncell} grid "
                 "cells; expected (time, ny, nx) on the same grid; rebuild the weights"
             )
-        used = np.unique(self.matrix.indices)
-        weights = self.matrix[:, used]
+        weights, used = self._touched_cells()
         # (cells, time) in C order so the sparse product reads each cell's series contiguously
-        series = np.ascontiguousarray(
-            values.reshape(values.shape[0], ncell)[:, used].T, dtype=np.float64
-        )
+        series = _cell_series(values.reshape(values.shape[0], ncell), used)
         valid = np.isfinite(series)
         steady = bool(np.array_equal(valid.all(axis=1), valid.any(axis=1)))
         series[~valid] = 0.0
-        total = weights @ series
         if steady:
-            valid_area = weights @ valid[:, 0].astype(np.float64)
-            total /= np.where(valid_area > 0, valid_area, np.nan)[:, np.newaxis]
-            fraction = np.broadcast_to(self._valid_fraction(valid_area), total.T.shape)
-            return total.T, fraction
+            return self._apply_steady(weights, series, valid[:, 0])
+        total = weights @ series
         valid_area = weights @ valid.astype(np.float64)
         total /= np.where(valid_area > 0, valid_area, np.nan)
         return total.T, self._valid_fraction(valid_area.T)
+
+    def _touched_cells(self) -> tuple[sp.csr_matrix, np.ndarray]:
+        """The matrix restricted to the cells some water body touches, and those cells."""
+        ncell = self.matrix.shape[1]
+        used = np.flatnonzero(np.bincount(self.matrix.indices, minlength=ncell))
+        renumber = np.zeros(ncell, dtype=self.matrix.indices.dtype)
+        renumber[used] = np.arange(used.size, dtype=renumber.dtype)
+        weights = sp.csr_matrix(
+            (self.matrix.data, renumber[self.matrix.indices], self.matrix.indptr),
+            shape=(self.matrix.shape[0], used.size),
+        )
+        return weights, used
+
+    def _apply_steady(self, weights: sp.csr_matrix, series: np.ndarray, valid: np.ndarray):
+        """Same missing cells at every step: renormalise the weights once, not every mean."""
+        valid_area = weights @ valid.astype(np.float64)
+        masked = weights.multiply(valid[np.newaxis, :].astype(np.float64)).tocsr()
+        with np.errstate(divide="ignore"):
+            row_scale = np.where(valid_area > 0, 1.0 / valid_area, 0.0)
+        means = sp.diags_array(row_scale) @ masked @ series
+        means[valid_area == 0] = np.nan
+        fraction = np.broadcast_to(
+            self._valid_fraction(valid_area), (series.shape[1], means.shape[0])
+        )
+        return means.T, fraction
 
     def _valid_fraction(self, valid_area: np.ndarray) -> np.ndarray:
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -187,6 +206,20 @@ class ZonalWeights:
                 f"weights file {path} is unreadable ({type(exc).__name__}); expected a file "
                 "written by ZonalWeights.save; delete it so it is rebuilt"
             ) from exc
+
+
+def _cell_series(flat_values: np.ndarray, used: np.ndarray) -> np.ndarray:
+    """float64 (cells, time) copy of the used columns of (time, cells) values.
+
+    Done in blocks of cells so the transposing copy stays in cache.
+    """
+    steps = flat_values.shape[0]
+    series = np.empty((used.size, steps), dtype=np.float64)
+    block = 4096
+    for start in range(0, used.size, block):
+        cells = used[start : start + block]
+        series[start : start + block] = flat_values[:, cells].T
+    return series
 
 
 def _to_arrays(weights: ZonalWeights) -> dict[str, np.ndarray]:
