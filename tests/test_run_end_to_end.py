@@ -351,3 +351,42 @@ def test_elevation_from_raster_attribute_or_constant_agree(make_case, tmp_path):
     config["waterbodies"].pop("elevation_field")
     sea_level = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()
     assert np.all(sea_level < constant)  # lower gamma at altitude raises the radiative weight
+
+
+def test_check_prints_the_plan_without_computing(make_case, tmp_path):
+    config = make_case("penman_open_water", compute={"chunk_steps": 10})
+    code, output = _run(["check", str(_write_config(tmp_path, config))])
+    assert code == 0, output
+    for words in (
+        "water bodies : 13",
+        "2031-01-01..2031-02-28",
+        "periods      : 2 x month",
+        "penman_open_water",
+        "8 x 6",
+        "10 time steps per block",
+        "GiB",
+        "ready to run",
+    ):
+        assert words in output, words
+    assert not (tmp_path / "out").exists()
+    assert not (tmp_path / "cache").exists()  # no weights were built
+
+
+def test_extra_volume_units(make_case):
+    config = make_case("energy_balance", output={"extra_volume_units": ["ML", "acre_ft"]})
+    bodies = lakeloss.run(config).waterbodies
+    # 1 ML = 1000 m3; 1 acre-foot = 1233.48183754752 m3 (international foot, by definition)
+    np.testing.assert_allclose(bodies["evap_ML"], bodies["evap_m3"] / 1000.0, rtol=1e-12)
+    np.testing.assert_allclose(
+        bodies["net_acre_ft"], bodies["net_m3"] / 1233.48183754752, rtol=1e-12
+    )
+
+
+def test_methods_command_lists_every_method_with_its_source():
+    from lakeloss.physics import registry
+
+    code, output = _run(["methods"])
+    assert code == 0
+    for name in registry.method_names():
+        assert f"\n{name}\n" in f"\n{output}"
+    assert "Shuttleworth (1993)" in output and "needs:" in output
