@@ -13,8 +13,9 @@ because ∂G/∂x is the cell's indicator. On an edge, x is linear in y; over th
 edge inside [Y0, Y1] the integral of clamp(x) - X0 is Δy times the mean of clamp(u) - X0 for
 u running linearly between the two clipped end abscissae, and with
 K(u) = (clamp(u) - X0)² / 2 + (X1 - X0) max(u - X1, 0), an antiderivative of clamp(u) - X0,
-that mean is (K(u1) - K(u0)) / (u1 - u0). Polygons are first oriented (exterior
-counter-clockwise, holes clockwise) so holes subtract and multipolygon parts add.
+that mean is (K(u1) - K(u0)) / (u1 - u0). Rings are taken as oriented (exterior
+counter-clockwise, holes clockwise; done here by a sign per ring) so holes subtract and
+multipolygon parts add.
 """
 
 from __future__ import annotations
@@ -30,37 +31,63 @@ _CHUNK = 2_000_000
 
 @dataclass(frozen=True)
 class Edges:
-    """The directed edges of oriented polygons, grouped by polygon.
+    """The directed edges of polygons, grouped by polygon, with per-edge constants.
 
     Attributes
     ----------
-    x0, y0, x1, y1 : numpy.ndarray
-        Edge end points. [grid units]
+    x0, y0 : numpy.ndarray
+        Start point of each edge. [grid units]
+    y_low, y_high : numpy.ndarray
+        The edge's extent in y. [grid units]
+    slope : numpy.ndarray
+        dx/dy along the edge (NaN for horizontal edges, which contribute nothing). [1]
+    weight : numpy.ndarray
+        +1 or -1: direction of the edge in y times the orientation correction of its ring,
+        so exteriors count positive and holes negative whatever the stored orientation.
     start, count : numpy.ndarray
         First edge and number of edges of each polygon.
     """
 
     x0: np.ndarray
     y0: np.ndarray
-    x1: np.ndarray
-    y1: np.ndarray
+    y_low: np.ndarray
+    y_high: np.ndarray
+    slope: np.ndarray
+    weight: np.ndarray
     start: np.ndarray
     count: np.ndarray
 
     @classmethod
     def of(cls, geometry: np.ndarray) -> Edges:
-        """Edges of valid (multi)polygons, exteriors counter-clockwise and holes clockwise."""
+        """Edges of valid (multi)polygons (holes allowed, any ring orientation)."""
         parts, part_of = shapely.get_parts(geometry, return_index=True)
-        parts = shapely.orient_polygons(parts, exterior_cw=False)
         rings, ring_of = shapely.get_rings(parts, return_index=True)
+        exterior = np.ones(rings.size, dtype=bool)
+        exterior[1:] = ring_of[1:] != ring_of[:-1]  # get_rings lists a part's exterior first
         coords, coord_of = shapely.get_coordinates(rings, return_index=True)
         # an edge joins consecutive vertices of the same ring (rings are closed)
         same_ring = coord_of[1:] == coord_of[:-1]
-        owner = part_of[ring_of[coord_of[:-1][same_ring]]]
-        count = np.bincount(owner, minlength=geometry.size)
-        start = np.cumsum(count) - count
+        ring = coord_of[:-1][same_ring]
         head, tail = coords[:-1][same_ring], coords[1:][same_ring]
-        return cls(head[:, 0], head[:, 1], tail[:, 0], tail[:, 1], start, count)
+        # shoelace: the sign of each ring's area is its orientation
+        cross = head[:, 0] * tail[:, 1] - tail[:, 0] * head[:, 1]
+        ccw = np.bincount(ring, weights=cross, minlength=rings.size) > 0
+        ring_sign = np.where(ccw == exterior, 1.0, -1.0)
+        dy = tail[:, 1] - head[:, 1]
+        owner = part_of[ring_of[ring]]
+        count = np.bincount(owner, minlength=geometry.size)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            slope = (tail[:, 0] - head[:, 0]) / dy
+        return cls(
+            x0=head[:, 0],
+            y0=head[:, 1],
+            y_low=np.minimum(head[:, 1], tail[:, 1]),
+            y_high=np.maximum(head[:, 1], tail[:, 1]),
+            slope=slope,
+            weight=np.sign(dy) * ring_sign[ring],
+            start=np.cumsum(count) - count,
+            count=count,
+        )
 
 
 def _antiderivative(u: np.ndarray, width: np.ndarray) -> np.ndarray:
@@ -71,28 +98,26 @@ def _antiderivative(u: np.ndarray, width: np.ndarray) -> np.ndarray:
 
 def _edge_terms(edges: Edges, edge: np.ndarray, box: np.ndarray) -> np.ndarray:
     """∮ G dy over single edges against single cells (west, south, east, north)."""
-    west, south, east, north = box.T
-    xa, ya = edges.x0[edge] - west, edges.y0[edge]
-    xb, yb = edges.x1[edge] - west, edges.y1[edge]
-    width = east - west
-    low = np.maximum(np.minimum(ya, yb), south)
-    high = np.minimum(np.maximum(ya, yb), north)
-    span = np.maximum(high - low, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        slope = (xb - xa) / (yb - ya)
-        u_low = xa + (low - ya) * slope
-        u_high = xa + (high - ya) * slope
-    du = u_high - u_low
+    west, width = box[:, 0], box[:, 2] - box[:, 0]
+    low = np.maximum(edges.y_low[edge], box[:, 1])
+    high = np.minimum(edges.y_high[edge], box[:, 3])
+    span = high - low
+    cut = span > 0  # only edges whose y-range overlaps the cell's contribute
+    edge, west, width, low, span = edge[cut], west[cut], width[cut], low[cut], span[cut]
+    slope = edges.slope[edge]
+    u_low = edges.x0[edge] - west + (low - edges.y0[edge]) * slope
+    u_high = u_low + span * slope
+    du = span * slope
     # nearly vertical edges: the mean of a linear clamp is the clamp at the middle
     steep = np.abs(du) <= 1e-9 * width
-    safe_du = np.where(steep, 1.0, du)
     mean = np.where(
         steep,
-        np.clip(0.5 * (u_low + u_high), 0.0, width),
-        (_antiderivative(u_high, width) - _antiderivative(u_low, width)) / safe_du,
+        np.clip(u_low + 0.5 * du, 0.0, width),
+        (_antiderivative(u_high, width) - _antiderivative(u_low, width)) / np.where(steep, 1.0, du),
     )
-    term = np.sign(yb - ya) * span * mean
-    return np.where(span > 0, term, 0.0)
+    terms = np.zeros(cut.size)
+    terms[cut] = edges.weight[edge] * span * mean
+    return terms
 
 
 def clipped_areas(geometry: np.ndarray, body: np.ndarray, boxes: np.ndarray) -> np.ndarray:

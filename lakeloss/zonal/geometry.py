@@ -13,6 +13,7 @@ from pyproj.crs.coordinate_operation import LambertAzimuthalEqualAreaConversion
 
 from lakeloss.errors import CRSError, GeometryError
 from lakeloss.zonal.grid import GridSpec
+from lakeloss.zonal.threads import sliced
 
 _POLYGONAL = np.array(
     [shapely.GeometryType.POLYGON, shapely.GeometryType.MULTIPOLYGON], dtype=np.int64
@@ -100,7 +101,7 @@ def repair_geometry(geometry: np.ndarray) -> RepairedGeometry:
     missing = shapely.is_missing(geometry)
     geometry[missing] = shapely.Polygon()
     empty = shapely.is_empty(geometry)
-    repaired = ~empty & ~shapely.is_valid(geometry)
+    repaired = ~empty & ~sliced(shapely.is_valid, geometry)
     if repaired.any():
         fixed = shapely.make_valid(geometry[repaired], method="structure", keep_collapsed=False)
         geometry[repaired] = _polygonal_part(fixed)
@@ -171,18 +172,22 @@ def to_equal_area(geometry: np.ndarray, crs: CRS) -> tuple[np.ndarray, CRS, floa
 
 def transform_geometry(geometry: np.ndarray, source: CRS, target: CRS) -> np.ndarray:
     """Reproject an array of geometries, vectorised over all coordinates at once."""
-    transformer = Transformer.from_crs(source, target, always_xy=True)
 
     def project(coords: np.ndarray) -> np.ndarray:
+        # one transformer per call: pyproj transformers must not be shared between threads
+        transformer = Transformer.from_crs(source, target, always_xy=True)
         x, y = transformer.transform(coords[:, 0], coords[:, 1])
         return np.column_stack([x, y])
 
-    return shapely.transform(geometry, project)
+    def project_slice(part: np.ndarray) -> np.ndarray:
+        return shapely.transform(part, project)
+
+    return sliced(project_slice, geometry)
 
 
 def centroid_lonlat(equal_area: np.ndarray, crs: CRS) -> tuple[np.ndarray, np.ndarray]:
     """Centroid of each geometry in WGS84 longitude and latitude (NaN when empty). [degrees]"""
-    centroid = shapely.centroid(equal_area)
+    centroid = sliced(shapely.centroid, equal_area)
     xy = shapely.get_coordinates(centroid)
     has_point = ~shapely.is_empty(centroid)
     lon = np.full(centroid.size, np.nan)
