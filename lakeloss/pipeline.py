@@ -167,8 +167,8 @@ def load_inputs(config: RunConfig) -> Inputs:
         raise ConfigError("[output].period = 'day' needs daily climate; these inputs are monthly")
     grids: dict[str, GridSpec] = {}
     field_grid: dict[str, str] = {}
-    for quantity, item in fields.items():
-        grid = _grid_of(item)
+    for quantity, opened in fields.items():
+        grid = _grid_of(opened)
         grids.setdefault(grid.key(), grid)
         field_grid[quantity] = grid.key()
     _check_wind_grids(fields, field_grid)

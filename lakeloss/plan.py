@@ -15,7 +15,7 @@ import numpy as np
 from pyproj import Transformer
 
 from lakeloss.config import RunConfig
-from lakeloss.errors import GridError
+from lakeloss.errors import GeometryError, GridError
 from lakeloss.pipeline import Inputs, block_steps, check_values, load_inputs
 
 # Seconds per unit of work, measured on the 2-core reference machine (benchmarks/README.md).
@@ -73,11 +73,16 @@ def _check_overlap(inputs: Inputs) -> None:
     frame = inputs.layer.frame
     nonempty = frame.geometry[~frame.geometry.is_empty]
     if nonempty.empty:
-        return
+        # The run refuses this in the weights stage; check must not call it ready.
+        raise GeometryError(
+            f"all {len(frame)} water-body geometries are empty; expected at least one "
+            "polygon with area; check the layer"
+        )
     bounds = nonempty.total_bounds
     for grid in inputs.grids.values():
         transformer = Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
-        x0, y0, x1, y1 = transformer.transform_bounds(*bounds, densify_pts=21)
+        left, bottom, right, top = (float(v) for v in bounds)
+        x0, y0, x1, y1 = transformer.transform_bounds(left, bottom, right, top, densify_pts=21)
         gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))
         gy0, gy1 = float(np.min(grid.y_edges)), float(np.max(grid.y_edges))
         if grid.is_geographic and gx1 > 180.0 and x1 < 0.0:

@@ -32,7 +32,7 @@ class StaticField:
 
     @property
     def shape(self) -> tuple[int, int]:
-        return self.values.shape  # type: ignore[return-value]
+        return self.values.shape
 
 
 def read_static_raster(
