@@ -31,6 +31,11 @@ CAUTION = (
 # Result columns of the water-body layer: title, description, unit.
 _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
     "area_m2": ("Water-surface area", "true (ellipsoidal) area of the polygon", "m2"),
+    "area_before_repair_m2": (
+        "Area before repair",
+        "true area of the invalid input polygon before repair; empty where none was needed",
+        "m2",
+    ),
     "evap_mm": (
         "Evaporation depth",
         "open-water evaporation over the whole run, primary method",
@@ -65,6 +70,7 @@ _PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
 }
 _DECIMALS = {
     "area_m2": 1,
+    "area_before_repair_m2": 1,
     "evap_mm": 3,
     "evap_m3": 3,
     "evap_mm_per_year": 2,
@@ -206,6 +212,8 @@ def _body_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> Any:
     total_days = float(inputs.axis.days.sum())
     coverage = first.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
     frame["area_m2"] = area
+    # Shown beside area_m2 so a geometry_repaired flag can be judged by what it changed.
+    frame["area_before_repair_m2"] = first.area_before_repair_m2
     frame["evap_mm"] = evap
     frame["evap_m3"] = evap * area / 1000.0
     frame["evap_mm_per_year"] = evap * _year_length(inputs.axis.calendar) / total_days

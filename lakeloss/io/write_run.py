@@ -18,6 +18,7 @@ from lakeloss.io.tables import write_csv, write_json
 
 _DECIMALS = {
     "area_m2": 1,
+    "area_before_repair_m2": 1,
     "evap_mm": 3,
     "evap_m3": 3,
     "evap_mm_per_year": 2,
