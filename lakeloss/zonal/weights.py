@@ -112,7 +112,9 @@ class ZonalWeights:
         -----
         mean = (W @ where(valid, v, 0)) / (W @ valid) (xarray's weighted mean with weights
         renormalised over valid cells), done as one sparse-dense product over the cells any
-        water body touches, accumulated in float64.
+        water body touches, accumulated in float64. When the missing cells are the same at
+        every step (a land or sea mask), the renormalisation is folded into the weights
+        once, so the product writes the means directly.
         """
         values = np.asarray(values)
         if values.ndim == 2:
@@ -123,6 +125,8 @@ class ZonalWeights:
                 f"values of shape {values.shape} do not fit weights built for {ncell} grid "
                 "cells; expected (time, ny, nx) on the same grid; rebuild the weights"
             )
+        if values.shape[0] == 0:
+            return np.empty((0, self.n_waterbodies)), np.empty((0, self.n_waterbodies))
         weights, used = self._touched_cells()
         # (cells, time) in C order so the sparse product reads each cell's series contiguously
         series = _cell_series(values.reshape(values.shape[0], ncell), used)

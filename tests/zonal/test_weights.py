@@ -301,3 +301,20 @@ def test_reprojected_of_another_layer_is_refused(projected_grid, projected_layer
     reprojected = reproject_to_grid(projected_layer.iloc[:3], projected_grid)
     with pytest.raises(GeometryError, match="reprojected layer has 3 rows"):
         build_weights(projected_layer, projected_grid, reprojected=reprojected)
+
+
+def test_user_reprojection_without_repair_record_still_flags_repairs(projected_grid):
+    x0, y0 = projected_grid.x_edges[0] + 5000, projected_grid.y_edges[0] - 5000
+    bow_tie = shapely.Polygon([(x0, y0), (x0 + 200, y0 + 200), (x0 + 200, y0), (x0, y0 + 200)])
+    layer = _layer([bow_tie, _two_cell_pond(projected_grid)], 3035)
+    # a caller's own reprojection carries no record of the repair reproject_to_grid did
+    own = gpd.GeoSeries(shapely.make_valid(layer.geometry.array), crs=3035)
+    with pytest.warns(GeometryRepairedWarning):
+        weights = build_weights(layer, projected_grid, reprojected=own)
+    assert list(weights.flags) == ["geometry_repaired", ""]
+
+
+def test_empty_time_axis_gives_empty_results(projected_grid):
+    weights = build_weights(_layer([_two_cell_pond(projected_grid)], 3035), projected_grid)
+    means, fraction = weights.apply(np.empty((0, *projected_grid.shape)))
+    assert means.shape == (0, 1) and fraction.shape == (0, 1)
