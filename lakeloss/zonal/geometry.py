@@ -23,14 +23,10 @@ _COLLECTION = int(shapely.GeometryType.GEOMETRYCOLLECTION)
 #: Key in ``reproject_to_grid(...).attrs`` recording which rows were repaired / are empty.
 REPAIR_ATTRS = "lakeloss_repair"
 
-# Projection methods that preserve area exactly, so planar area in them is true area.
-_EQUAL_AREA_METHODS = (
-    "equal area",
-    "albers",
-    "equal earth",
-    "mollweide",
-    "sinusoidal",
-)
+# Projection methods that preserve ellipsoidal area, so planar area in them is true area.
+# Spherical forms (and PROJ's Mollweide, which is spherical only) preserve the area of a
+# sphere, not of the ellipsoid, and go through the local equal-area CRS instead.
+_EQUAL_AREA_METHODS = ("equal area", "albers", "equal earth", "sinusoidal")
 
 
 @dataclass(frozen=True)
@@ -131,6 +127,8 @@ def is_equal_area(crs: CRS) -> bool:
     if not crs.is_projected or crs.coordinate_operation is None:
         return False
     method = crs.coordinate_operation.method_name.lower()
+    if "spherical" in method:
+        return False
     return any(word in method for word in _EQUAL_AREA_METHODS)
 
 

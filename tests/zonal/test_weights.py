@@ -318,3 +318,23 @@ def test_empty_time_axis_gives_empty_results(projected_grid):
     weights = build_weights(_layer([_two_cell_pond(projected_grid)], 3035), projected_grid)
     means, fraction = weights.apply(np.empty((0, *projected_grid.shape)))
     assert means.shape == (0, 1) and fraction.shape == (0, 1)
+
+
+@pytest.mark.parametrize(
+    ("crs", "expected"),
+    [
+        ("EPSG:3035", True),
+        ("EPSG:6933", True),
+        ("EPSG:32734", False),
+        ("ESRI:54009", False),
+        ("EPSG:3410", False),
+        ("EPSG:4326", False),
+    ],
+)
+def test_equal_area_detection(crs, expected):
+    """Only ellipsoidal equal-area projections may measure areas directly."""
+    from pyproj import CRS
+
+    from lakeloss.zonal.geometry import is_equal_area
+
+    assert is_equal_area(CRS(crs)) is expected
