@@ -3,7 +3,8 @@
 The reader checks identifiers and geometry types up front and leaves geometry repair to the
 zonal engine: invalid and empty polygons are kept as they are. Geometry collections keep
 their polygonal parts, flagged ``collection_polygons_kept``; a null geometry becomes an empty
-polygon, flagged ``geometry_null``.
+polygon, flagged ``geometry_null``. Longitude/latitude polygons that cross 180 degrees are
+made contiguous (longitudes beyond 180) so that they land whole on the grid.
 """
 
 from __future__ import annotations
@@ -319,6 +320,39 @@ def _refuse_non_polygons(geometries: np.ndarray, ids: pd.Series) -> None:
     )
 
 
+def _unwrap_antimeridian(frame: geopandas.GeoDataFrame) -> None:
+    """Make polygons that cross 180 degrees of longitude contiguous, in place.
+
+    A layer in longitude/latitude may store such a water body split into parts at +-180
+    (as GeoJSON asks) or with its ring jumping from +179.9 to -179.9. Either way its
+    extent seems to span the globe. Western longitudes of those geometries get +360, so
+    each becomes one contiguous shape east of 180 that the zonal engine can place on a
+    grid stored in -180..180 or 0..360. No water body is half the globe wide, so a span
+    over 180 degrees can only mean this.
+    """
+    if frame.crs is None or not pyproj.CRS(frame.crs).is_geographic:
+        return
+    geometries = frame.geometry.to_numpy()
+    bounds = shapely.bounds(geometries)
+    crossing = np.flatnonzero((bounds[:, 2] - bounds[:, 0]) > 180.0)
+    if crossing.size == 0:
+        return
+
+    def east_of_180(coords: np.ndarray) -> np.ndarray:
+        return np.column_stack(
+            [np.where(coords[:, 0] < 0.0, coords[:, 0] + 360.0, coords[:, 0]), coords[:, 1]]
+        )
+
+    unwrapped = geometries.copy()
+    unwrapped[crossing] = [shapely.transform(g, east_of_180) for g in geometries[crossing]]
+    # Parts split at +-180 now touch along the meridian: dissolve them into one polygon
+    # (parts that are themselves invalid are left to the zonal engine's repair and flag).
+    for row in crossing:
+        if shapely.is_valid(shapely.get_parts(unwrapped[row])).all():
+            unwrapped[row] = shapely.union_all(shapely.get_parts(unwrapped[row]))
+    frame["geometry"] = geopandas.GeoSeries(unwrapped, crs=frame.crs, index=frame.index)
+
+
 def read_waterbodies(
     path, *, layer: str | None = None, id_field: str | None = None, crs: str | None = None
 ) -> WaterBodyLayer:
@@ -362,6 +396,7 @@ def read_waterbodies(
     frame, crs_assumed = _apply_crs(frame, source, crs)
     chosen_id = _id_column(frame, source, id_field)
     flags = _normalise_geometries(frame, chosen_id)
+    _unwrap_antimeridian(frame)
     return WaterBodyLayer(
         frame=frame,
         id_field=chosen_id,
