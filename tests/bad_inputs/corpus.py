@@ -103,9 +103,12 @@ class Case:
         path.write_text(tomli_w.dumps(self.config if config is None else config))
         return path
 
-    def invoke(self, command: str = "run", *extra: str, config: dict | None = None) -> Outcome:
+    def invoke(
+        self, command: str = "run", *extra: str, config: dict | None = None, overwrite=True
+    ) -> Outcome:
+        """Run ``lakeloss <command> run.toml <extra>``; ``run`` gets --overwrite by default."""
         args = [command, str(self.toml(config)), *extra]
-        if command == "run" and "--overwrite" not in extra:
+        if command == "run" and overwrite and "--overwrite" not in extra:
             args.append("--overwrite")
         result = CliRunner().invoke(cli, args)
         return Outcome(result.exit_code, result.stdout, result.stderr)
