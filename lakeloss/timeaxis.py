@@ -333,7 +333,7 @@ def require_identical(axes: Mapping[str, TimeAxis]) -> TimeAxis:
         The mapping is empty.
     TimeAxisError
         Calendars, steps, stamp times or any step start differ; the message lists every
-        variable's axis.
+        variable's axis, variables with the same axis together.
     """
     if not axes:
         raise ConfigError("no climate variables were given; expected at least one time axis")
@@ -341,7 +341,11 @@ def require_identical(axes: Mapping[str, TimeAxis]) -> TimeAxis:
     reference = axes[names[0]]
     if all(_same_axis(reference, axes[name]) for name in names[1:]):
         return reference
-    listing = "; ".join(f"{name}: {axes[name].describe()}" for name in names)
+    # Variables sharing an axis are named together, so the odd one out stands out.
+    groups: dict[str, list[str]] = {}
+    for name in names:
+        groups.setdefault(axes[name].describe(), []).append(name)
+    listing = "; ".join(f"{', '.join(group)}: {text}" for text, group in groups.items())
     raise TimeAxisError(
         f"climate variables have different time axes ({listing}); expected identical calendar, "
         "step, stamp time and dates; regrid or subset the files to a common axis"
