@@ -338,3 +338,17 @@ def test_equal_area_detection(crs, expected):
     from lakeloss.zonal.geometry import is_equal_area
 
     assert is_equal_area(CRS(crs)) is expected
+
+
+def test_fixed_missing_cells_renormalise_every_step(projected_grid, rng):
+    """A permanent gap (land/sea mask) takes the steady path; results as if computed per step."""
+    x0, y0 = projected_grid.x_edges[0], projected_grid.y_edges[0]
+    three_cells = shapely.box(x0 + 1500, y0 - 900, x0 + 3500, y0 - 100)  # 1/4, 1/2, 1/4
+    layer = _layer([_two_cell_pond(projected_grid), three_cells], 3035)
+    weights = build_weights(layer, projected_grid)
+    values = rng.random((6, *projected_grid.shape))
+    values[:, 0, 2] = np.nan  # the small part of pond 0, the middle of pond 1
+    means, fraction = weights.apply(values)
+    np.testing.assert_array_equal(means[:, 0], values[:, 0, 1])
+    np.testing.assert_allclose(means[:, 1], 0.5 * (values[:, 0, 1] + values[:, 0, 3]))
+    np.testing.assert_allclose(fraction, [[0.75, 0.5]] * 6)
