@@ -13,8 +13,10 @@ import functools
 import json
 import os
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TypeVar
 
 import affine
 import cftime
@@ -58,6 +60,8 @@ _GEOGRAPHIC_UNITS = {
     "y": ("degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN", "degreesN"),
     "x": ("degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE", "degreesE"),
 }
+
+_T = TypeVar("_T")
 
 # What netCDF4/HDF5 and xarray raise on missing, truncated or foreign files.
 _OPEN_ERRORS = (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError)
@@ -436,7 +440,7 @@ def _netcdf_field(
         )
     data, roles = _to_time_y_x(dataset, variable)
     times, calendar = _decode_times(dataset, roles["time"], source)
-    axis = timeaxis.from_times(times, calendar)
+    axis = _named_axis(lambda: timeaxis.from_times(times, calendar), where)
     found = _file_crs(dataset, variable, source)
     field_crs, assumed = _resolve_crs(found, _is_geographic(dataset, roles), crs, where)
     declared = _source_units(data.attrs.get("units"), units, where, name)
@@ -490,10 +494,18 @@ def _declared_units(src) -> str | None:
     return src.tags().get("units") or src.tags(1).get("units") or band_units or None
 
 
+def _named_axis(make: Callable[[], _T], where: str) -> _T:
+    """Build a time axis (or count its steps); a refusal names the file it came from."""
+    try:
+        return make()
+    except TimeAxisError as err:
+        raise TimeAxisError(f"{where}: {err}") from err
+
+
 def _geotiff_axis(start: str, step: str, count: int, calendar: str, end: str | None, where: str):
-    axis = timeaxis.from_start(start, step, count, calendar)
+    axis = _named_axis(lambda: timeaxis.from_start(start, step, count, calendar), where)
     if end is not None:
-        implied = timeaxis.count_steps(start, end, step, calendar)
+        implied = _named_axis(lambda: timeaxis.count_steps(start, end, step, calendar), where)
         if implied != count:
             raise TimeAxisError(
                 f"{where} has {count} bands but start {start} and end {end} imply {implied} "

@@ -42,7 +42,7 @@ def test_irregular_time_steps(case):
     times = pd.DatetimeIndex(["2031-01-01", "2031-01-02", "2031-01-04", "2031-01-05"])
     case.write_climate(climate_dataset(times, TEMPERATURE), "tas_gap.nc")
     case.climate_entry("air_temperature")["path"] = str(case.tmp / "tas_gap.nc")
-    refused_everywhere(case, "2031-01-02", "2031-01-04")
+    refused_everywhere(case, "tas_gap.nc", "'tas'", "2031-01-02", "2031-01-04")
 
 
 def test_undecodable_time_units(case):
@@ -99,7 +99,7 @@ def test_geotiff_start_that_is_not_a_date(case):
         "start": "first of January",
         "step": "day",
     }
-    refused_everywhere(case, "first of January")
+    refused_everywhere(case, "tas.tif", "first of January", "ISO date")
 
 
 def test_daily_output_from_monthly_inputs(case):
