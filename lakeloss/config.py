@@ -196,8 +196,10 @@ def _typed(table: Mapping[str, Any], schema: Mapping[str, type], where: str) -> 
         if expected is float and isinstance(value, int) and not isinstance(value, bool):
             value, ok = float(value), True
         if not ok:
+            article = "an" if expected.__name__[0] in "aeiou" else "a"
             raise ConfigError(
-                f"{where}.{key} must be a {expected.__name__}, got {type(value).__name__} {value!r}"
+                f"{where}.{key} must be {article} {expected.__name__}, "
+                f"got {type(value).__name__} {value!r}"
             )
         out[key] = value
     return out

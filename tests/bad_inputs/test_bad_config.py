@@ -58,7 +58,7 @@ def test_unknown_key_without_close_match_lists_the_valid_ones(case):
     ("dotted", "value", "words"),
     [
         ("output.series", "yes", ("[output].series", "must be a bool", "'yes'")),
-        ("compute.workers", "2", ("[compute].workers", "must be a int", "'2'")),
+        ("compute.workers", "2", ("[compute].workers", "must be an int", "'2'")),
         ("climate.wind_speed.height_m", "ten", ("height_m", "must be a float", "'ten'")),
         ("waterbodies.group_by", "zone", ("[waterbodies].group_by", "must be a list")),
         ("output.extra_volume_units", [1, 2], ("extra_volume_units", "list of strings")),
