@@ -25,11 +25,13 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pyproj
 
 from lakeloss import timeaxis
 from lakeloss.config import RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
+    GeometryError,
     GridError,
     ImplausibleValuesWarning,
     LakelossWarning,
@@ -211,6 +213,36 @@ def _check_wind_grids(fields: Mapping[str, Any], field_grid: Mapping[str, str]) 
     if "wind_speed" not in fields and {"eastward_wind", "northward_wind"} <= set(fields):
         if field_grid["eastward_wind"] != field_grid["northward_wind"]:
             raise GridError("eastward_wind and northward_wind must be on the same grid")
+
+
+def check_overlap(inputs: Inputs) -> None:
+    """Refuse a layer whose bounding box misses a climate grid entirely, or has no area.
+
+    Run by ``check`` and by the run itself, before the weights are built, so both refuse
+    with the same message.
+    """
+    frame = inputs.layer.frame
+    nonempty = frame.geometry[~frame.geometry.is_empty]
+    if nonempty.empty:
+        raise GeometryError(
+            f"all {len(frame)} water-body geometries are empty; expected at least one "
+            "polygon with area; check the layer"
+        )
+    bounds = nonempty.total_bounds
+    for grid in inputs.grids.values():
+        transformer = pyproj.Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
+        left, bottom, right, top = (float(v) for v in bounds)
+        x0, y0, x1, y1 = transformer.transform_bounds(left, bottom, right, top, densify_pts=21)
+        gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))
+        gy0, gy1 = float(np.min(grid.y_edges)), float(np.max(grid.y_edges))
+        if grid.is_geographic and gx1 > 180.0 and x1 < 0.0:
+            x0, x1 = x0 + 360.0, x1 + 360.0
+        if x1 < gx0 or x0 > gx1 or y1 < gy0 or y0 > gy1:
+            raise GridError(
+                f"the water-body layer (bounds {x0:.4f}, {y0:.4f}, {x1:.4f}, {y1:.4f} in the "
+                f"grid CRS) does not overlap the climate grid ({gx0:.4f}, {gy0:.4f}, "
+                f"{gx1:.4f}, {gy1:.4f}); check both CRSs and the file paths"
+            )
 
 
 def check_values(config: RunConfig, inputs: Inputs) -> list[str]:
@@ -615,6 +647,7 @@ def run_stages(
     timer = Timer()
     with timer.stage("load"):
         inputs = load_inputs(config)
+        check_overlap(inputs)
         value_warnings = check_values(config, inputs)
     for reason in [*inputs.warnings, *value_warnings]:
         # load_inputs records its warnings for run.json; show them to the user as well.

@@ -12,11 +12,9 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from pyproj import Transformer
 
 from lakeloss.config import RunConfig
-from lakeloss.errors import GeometryError, GridError
-from lakeloss.pipeline import Inputs, block_steps, check_values, load_inputs
+from lakeloss.pipeline import Inputs, block_steps, check_overlap, check_values, load_inputs
 
 # Seconds per unit of work, measured on the 2-core reference machine (benchmarks/README.md).
 _SECONDS_PER_POLYGON = 16e-6  # reprojection + weights build
@@ -68,33 +66,6 @@ class Plan:
         return "\n".join(lines)
 
 
-def _check_overlap(inputs: Inputs) -> None:
-    """Refuse a layer whose bounding box misses a climate grid entirely."""
-    frame = inputs.layer.frame
-    nonempty = frame.geometry[~frame.geometry.is_empty]
-    if nonempty.empty:
-        # The run refuses this in the weights stage; check must not call it ready.
-        raise GeometryError(
-            f"all {len(frame)} water-body geometries are empty; expected at least one "
-            "polygon with area; check the layer"
-        )
-    bounds = nonempty.total_bounds
-    for grid in inputs.grids.values():
-        transformer = Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
-        left, bottom, right, top = (float(v) for v in bounds)
-        x0, y0, x1, y1 = transformer.transform_bounds(left, bottom, right, top, densify_pts=21)
-        gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))
-        gy0, gy1 = float(np.min(grid.y_edges)), float(np.max(grid.y_edges))
-        if grid.is_geographic and gx1 > 180.0 and x1 < 0.0:
-            x0, x1 = x0 + 360.0, x1 + 360.0
-        if x1 < gx0 or x0 > gx1 or y1 < gy0 or y0 > gy1:
-            raise GridError(
-                f"the water-body layer (bounds {x0:.4f}, {y0:.4f}, {x1:.4f}, {y1:.4f} in the "
-                f"grid CRS) does not overlap the climate grid ({gx0:.4f}, {gy0:.4f}, "
-                f"{gx1:.4f}, {gy1:.4f}); check both CRSs and the file paths"
-            )
-
-
 def _memory(config: RunConfig, inputs: Inputs, steps: int) -> float:
     n = inputs.n_waterbodies
     n_periods = len(inputs.periods.starts)
@@ -121,7 +92,7 @@ def _seconds(config: RunConfig, inputs: Inputs) -> float:
 def make_plan(config: RunConfig) -> Plan:
     """Check every input of ``config`` and return the plan (raises the run's errors)."""
     inputs = load_inputs(config)
-    _check_overlap(inputs)
+    check_overlap(inputs)
     value_warnings = check_values(config, inputs)
     steps = block_steps(config, inputs)
     return Plan(

@@ -172,7 +172,7 @@ def test_layer_that_does_not_overlap_the_grid(case):
     # The same ponds 3 degrees further north: the grid is 0.4 x 0.3 degrees.
     ds = climate_dataset(TIMES, BASE_FIELDS, lat=LAT + 3.0)
     case.write_climate(ds)
-    refused_everywhere(case, "overlap", "climate grid")
+    refused_everywhere(case, "does not overlap the climate grid", "check both CRSs")
 
 
 def test_grid_with_irregular_coordinates(case):
