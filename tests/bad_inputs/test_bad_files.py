@@ -190,3 +190,14 @@ def test_variable_with_an_unrecognised_dimension(case):
     case.write_climate(xr.Dataset({"tas": tas, "crs": ds["crs"]}), "members.nc")
     case.climate_entry("air_temperature")["path"] = str(case.tmp / "members.nc")
     refused_everywhere(case, "'member'", "dimensions")
+
+
+def test_check_names_a_grid_crs_without_authority_code_in_one_line(case):
+    # The builders' CF grid mapping gives an ellipsoid but no EPSG code.
+    outcome = case.invoke("check")
+    assert outcome.code == 0, outcome.stderr
+    climate_lines = [line for line in outcome.stdout.splitlines() if line.startswith("climate")]
+    assert len(climate_lines) == 4
+    for line in climate_lines:
+        assert "unnamed geographic CRS, ellipsoid a = 6378137 m" in line
+        assert "{" not in line
