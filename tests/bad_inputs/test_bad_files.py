@@ -7,11 +7,13 @@ The tests run as any user (often root in containers, who can read a file of mode
 
 from __future__ import annotations
 
+import json
 import warnings
 
 import numpy as np
 import pytest
 import rasterio
+import rasterio.errors
 import xarray as xr
 from affine import Affine
 from bad_inputs.corpus import BASE_FIELDS, TIMES, refused_everywhere
@@ -201,3 +203,28 @@ def test_check_names_a_grid_crs_without_authority_code_in_one_line(case):
     for line in climate_lines:
         assert "unnamed geographic CRS, ellipsoid a = 6378137 m" in line
         assert "{" not in line
+
+
+def test_geotiff_without_crs_is_refused_unless_the_config_states_it(case):
+    path = case.tmp / "tas_nocrs.tif"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", rasterio.errors.NotGeoreferencedWarning)
+        _write_geotiff(path, crs=None)
+    _geotiff_temperature(case, path)
+    refused_everywhere(case, "tas_nocrs.tif", "has no CRS", "set crs")
+    case.climate_entry("air_temperature")["crs"] = "EPSG:4326"
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+
+
+@pytest.mark.filterwarnings("always::lakeloss.errors.LakelossWarning")
+def test_lat_lon_grid_without_grid_mapping_assumes_wgs84_and_says_so(case):
+    ds = climate_dataset(TIMES, BASE_FIELDS).drop_vars("crs")
+    for name in ds.data_vars:
+        del ds[name].attrs["grid_mapping"]
+    case.write_climate(ds)
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    assert "warning:" in outcome.stderr and "assumed EPSG:4326" in outcome.stderr
+    recorded = json.loads((case.out / "run.json").read_text())["warnings"]
+    assert sum("assumed EPSG:4326" in w for w in recorded) == 4, recorded
