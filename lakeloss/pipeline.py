@@ -65,6 +65,8 @@ class Inputs:
     field_grid: dict[str, str]
     warnings: list[str] = field(default_factory=list)
     static_fields: dict[str, tuple[Any, str]] = field(default_factory=dict)
+    recorded: list[warnings.WarningMessage] = field(default_factory=list)
+    """The lakeloss warnings behind ``warnings``, kept to re-issue with their categories."""
 
     @property
     def n_waterbodies(self) -> int:
@@ -161,7 +163,8 @@ def load_inputs(config: RunConfig) -> Inputs:
             if item.quantity == "elevation":
                 continue
             fields[item.quantity] = _open_field(item)
-    caught.extend(str(w.message) for w in seen if issubclass(w.category, LakelossWarning))
+    recorded = [w for w in seen if issubclass(w.category, LakelossWarning)]
+    caught.extend(str(w.message) for w in recorded)
     axis = timeaxis.require_identical(
         {q: timeaxis.from_times(f.times, f.calendar) for q, f in fields.items()}
     )
@@ -193,6 +196,7 @@ def load_inputs(config: RunConfig) -> Inputs:
         field_grid=field_grid,
         warnings=caught,
         static_fields=static_fields,
+        recorded=recorded,
     )
 
 
@@ -649,10 +653,10 @@ def run_stages(
         inputs = load_inputs(config)
         check_overlap(inputs)
         value_warnings = check_values(config, inputs)
-    for reason in [*inputs.warnings, *value_warnings]:
-        # load_inputs records its warnings for run.json; show them to the user as well.
-        category = ImplausibleValuesWarning if reason in value_warnings else LakelossWarning
-        warnings.warn(reason, category, stacklevel=2)
+    # load_inputs and check_values record their warnings for run.json; show them as well.
+    _replay(inputs.recorded)
+    for reason in value_warnings:
+        warnings.warn(reason, ImplausibleValuesWarning, stacklevel=2)
     with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always", LakelossWarning)
         weights, cached = build_weights(config, inputs)

@@ -19,6 +19,9 @@ from affine import Affine
 from bad_inputs.corpus import BASE_FIELDS, TIMES, refused_everywhere
 from builders import LAT, LON, climate_dataset, pond_layer
 
+import lakeloss
+from lakeloss.errors import AssumedCRSWarning
+
 # Bytes that are neither a GeoPackage, a NetCDF nor a GeoTIFF (a few lines of CSV).
 FOREIGN_BYTES = b"pond,area\n1,200\n2,300\n"
 
@@ -228,3 +231,13 @@ def test_lat_lon_grid_without_grid_mapping_assumes_wgs84_and_says_so(case):
     assert "warning:" in outcome.stderr and "assumed EPSG:4326" in outcome.stderr
     recorded = json.loads((case.out / "run.json").read_text())["warnings"]
     assert sum("assumed EPSG:4326" in w for w in recorded) == 4, recorded
+
+
+def test_assumed_crs_warning_keeps_its_category_through_the_python_api(case):
+    ds = climate_dataset(TIMES, BASE_FIELDS).drop_vars("crs")
+    for name in ds.data_vars:
+        del ds[name].attrs["grid_mapping"]
+    case.write_climate(ds)
+    with pytest.warns(AssumedCRSWarning, match="assumed EPSG:4326"):
+        result = lakeloss.run(case.config)
+    assert sum("assumed EPSG:4326" in w for w in result.provenance["warnings"]) == 4
