@@ -154,9 +154,13 @@ def assert_refused(outcome: Outcome, *words: str) -> str:
 
 
 def refused_everywhere(case: Case, *words: str, config: dict | None = None) -> str:
-    """Refused by ``check`` and by ``run``; the earlier outputs stay byte-identical."""
-    before = case.place_earlier_outputs()
+    """Refused by ``check`` and by ``run``: no output directory appears where there was none,
+    and earlier outputs stay byte-identical."""
+    assert case.snapshot() is None
     assert_refused(case.invoke("check", config=config), *words)
+    assert_refused(case.invoke("run", config=config), *words)
+    assert case.snapshot() is None
+    before = case.place_earlier_outputs()
     line = assert_refused(case.invoke("run", config=config), *words)
     assert case.snapshot() == before
     assert case.leftovers() == []
