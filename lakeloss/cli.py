@@ -141,7 +141,7 @@ def cli() -> None:
 
 
 @cli.command()
-@click.argument("config_path", metavar="CONFIG", type=click.Path(dir_okay=False))
+@click.argument("config_path", metavar="CONFIG", type=click.Path())
 @click.option("--overwrite", is_flag=True, help="Replace an existing output directory.")
 @_execution
 @_verbosity
@@ -176,7 +176,7 @@ def run(
 
 
 @cli.command()
-@click.argument("config_path", metavar="CONFIG", type=click.Path(dir_okay=False))
+@click.argument("config_path", metavar="CONFIG", type=click.Path())
 @_execution
 @_verbosity
 @_guarded

@@ -434,6 +434,11 @@ def load_config(config: str | Path | Mapping[str, Any] | RunConfig) -> RunConfig
     if isinstance(config, Mapping):
         return config_from_mapping(config)
     path = Path(config)
+    if path.is_dir():
+        raise ConfigError(
+            f"configuration path '{path}' is a directory; expected a TOML file; "
+            "name the file itself"
+        )
     if not path.is_file():
         raise ConfigError(f"configuration file '{path}' does not exist or is not a file")
     try:

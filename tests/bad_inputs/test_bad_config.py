@@ -193,3 +193,11 @@ def test_configuration_file_missing(case):
             _invoke_file(command, case.tmp / "absent.toml"), "absent.toml", "does not exist"
         )
     assert not case.out.exists()
+
+
+def test_configuration_path_is_a_directory(case):
+    (case.tmp / "settings.toml").mkdir()
+    for command in ("check", "run"):
+        outcome = _invoke_file(command, case.tmp / "settings.toml")
+        assert_refused(outcome, "settings.toml", "is a directory", "TOML file")
+    assert not case.out.exists()
