@@ -250,21 +250,21 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     evap = sums.depth[config.method.name]
     precip = sums.precip if config.output.precipitation else np.full((n_periods, n), np.nan)
     area = first.polygon_area_m2[None, :]
-    table = pd.DataFrame(
+    # Rows by water body, then period: the (period, body) arrays transposed, so no sort of
+    # n_periods x n rows is needed.
+    return pd.DataFrame(
         {
-            inputs.layer.id_field: np.tile(ids, n_periods),
-            "period_start": np.repeat(np.asarray(periods.starts, dtype=object), n),
-            "period_end": np.repeat(np.asarray(periods.ends, dtype=object), n),
-            "days": np.repeat(np.rint(periods.days).astype(np.int64), n),
-            "evap_mm": evap.ravel(),
-            "evap_m3": (evap * area / 1000.0).ravel(),
-            "precip_mm": precip.ravel(),
-            "net_mm": (evap - precip).ravel(),
-            "net_m3": ((evap - precip) * area / 1000.0).ravel(),
+            inputs.layer.id_field: np.repeat(ids, n_periods),
+            "period_start": np.tile(np.asarray(periods.starts, dtype=object), n),
+            "period_end": np.tile(np.asarray(periods.ends, dtype=object), n),
+            "days": np.tile(np.rint(periods.days).astype(np.int64), n),
+            "evap_mm": evap.T.ravel(),
+            "evap_m3": (evap * area / 1000.0).T.ravel(),
+            "precip_mm": precip.T.ravel(),
+            "net_mm": (evap - precip).T.ravel(),
+            "net_m3": ((evap - precip) * area / 1000.0).T.ravel(),
         }
     )
-    order = np.lexsort((np.repeat(np.arange(n_periods), n), np.tile(np.arange(n), n_periods)))
-    return table.iloc[order].reset_index(drop=True)
 
 
 def _summaries(
@@ -325,11 +325,18 @@ def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo
 
 
 def _inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
+    digests: dict[Path, str | None] = {}  # one read per file: variables often share one
+
+    def sha256(path: Path) -> str | None:
+        if path not in digests:
+            digests[path] = _sha256(path)
+        return digests[path]
+
     items = [
         {
             "role": "waterbodies",
             "path": str(config.waterbodies.path),
-            "sha256": _sha256(config.waterbodies.path),
+            "sha256": sha256(config.waterbodies.path),
         }
     ]
     for item in config.climate:
@@ -338,7 +345,7 @@ def _inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
                 "role": item.key,
                 "path": str(item.path),
                 "variable": item.variable,
-                "sha256": _sha256(item.path),
+                "sha256": sha256(item.path),
             }
         )
     return items
