@@ -32,6 +32,7 @@ from lakeloss.config import RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
     GeometryError,
+    GeometryRepairedWarning,
     GridError,
     ImplausibleValuesWarning,
     LakelossWarning,
@@ -661,6 +662,8 @@ def run_stages(
         warnings.simplefilter("always", LakelossWarning)
         weights, cached = build_weights(config, inputs)
     weight_warnings = _replay(seen)
+    if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
+        weight_warnings += _repairs_from_cache(weights)
     keep_series = config.output.series if series is None else series
     collector = SeriesStream(config, inputs) if keep_series else None
     with timer.stage("evaporate"):
@@ -681,6 +684,26 @@ def run_stages(
             weights_cached=cached,
         )
     return result
+
+
+def _repairs_from_cache(weights: Mapping[str, ZonalWeights]) -> list[str]:
+    """The repair warning for weights that came from the cache.
+
+    The zonal engine warns about repaired and empty polygons when it builds the weights, so
+    a run served from the cache would otherwise print and record nothing: say the same
+    from the flags the weights keep (same wording as ``zonal.weights``).
+    """
+    tokens = [set(str(f).split(";")) for f in next(iter(weights.values())).flags]
+    n_repaired = sum("geometry_repaired" in t for t in tokens)
+    n_empty = sum("geometry_empty" in t for t in tokens)
+    if not (n_repaired or n_empty):
+        return []
+    message = (
+        f"{n_repaired} invalid water-body polygons were repaired and {n_empty} are empty "
+        "(flagged geometry_repaired / geometry_empty; empty ones get NaN results)"
+    )
+    warnings.warn(message, GeometryRepairedWarning, stacklevel=3)
+    return [message]
 
 
 def _replay(seen: list[warnings.WarningMessage]) -> list[str]:

@@ -244,3 +244,15 @@ def test_polygon_crossing_the_antimeridian(case, form):
     np.testing.assert_allclose(layer.loc[2, "climate_coverage"], 1.0, rtol=1e-6)
     assert _tokens(layer, 2) == set()
     np.testing.assert_allclose(layer.loc[2, "evap_mm"], layer.loc[1, "evap_mm"], rtol=1e-6)
+
+
+@shows_warnings
+def test_rerun_from_cached_weights_still_reports_the_repair(case):
+    _layer_with(case, _bow_tie(*_pond_origin()))
+    _, first, _ = _completed_layer(case)
+    layer, second, outcome = _completed_layer(case)
+    assert (first["weights_from_cache"], second["weights_from_cache"]) == (False, True)
+    assert second["warnings"] == first["warnings"]
+    assert any("repaired" in w for w in second["warnings"])
+    assert "repaired" in outcome.stderr
+    assert _tokens(layer, 102) == {"geometry_repaired"}
