@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import pyproj
 
 from lakeloss import timeaxis
@@ -212,6 +213,19 @@ def _check_attributes(config: RunConfig, layer: vector_io.WaterBodyLayer) -> Non
                 f"[waterbodies] names attribute '{name}', which the layer does not have "
                 f"(attributes: {', '.join(c for c in columns if c != 'geometry')})"
             )
+    if config.waterbodies.elevation_field:
+        _elevations(layer.frame, config.waterbodies.elevation_field)  # refuse before computing
+
+
+def _elevations(frame: Any, field_name: str) -> np.ndarray:
+    """The elevation attribute as numbers [m]; empty or non-numeric values are refused."""
+    values = pd.to_numeric(frame[field_name], errors="coerce").to_numpy(dtype=float)
+    if not np.isfinite(values).all():
+        raise ConfigError(
+            f"elevation attribute '{field_name}' has {int((~np.isfinite(values)).sum())} "
+            "empty or non-numeric values; fill them or use [parameters] elevation_m"
+        )
+    return values
 
 
 def _check_wind_grids(fields: Mapping[str, Any], field_grid: Mapping[str, str]) -> None:
@@ -317,13 +331,7 @@ def _static_inputs(
     }
     field_name = config.waterbodies.elevation_field
     if field_name:
-        values = inputs.layer.frame[field_name].to_numpy(dtype=float)
-        if not np.isfinite(values).all():
-            raise ConfigError(
-                f"elevation attribute '{field_name}' has {int((~np.isfinite(values)).sum())} "
-                "empty or non-numeric values; fill them or use [parameters] elevation_m"
-            )
-        static["elevation"] = values[np.newaxis, :]
+        static["elevation"] = _elevations(inputs.layer.frame, field_name)[np.newaxis, :]
     if "elevation" in inputs.static_fields:
         raster, key = inputs.static_fields["elevation"]
         mean, _ = weights[key].apply(raster.values[np.newaxis])

@@ -633,18 +633,24 @@ def check_values(field: ClimateField, *, strict: bool) -> str | None:
     Returns
     -------
     str or None
-        One-line reason naming the file and variable, or None when plausible (or all NaN).
+        One-line reason naming the file and variable, or None when plausible.
 
     Raises
     ------
     ImplausibleValuesError
         When ``strict`` and the values are implausible.
+    InputDataError
+        When every value is missing (strict or not).
     """
     # One pass over the chunks for both extremes; NaN (nodata) is ignored.
     low, high = dask.compute(field.data.min(skipna=True), field.data.max(skipna=True))
     low, high = float(low), float(high)
     if not (np.isfinite(low) and np.isfinite(high)):
-        return None
+        # Nothing could be computed from it, strict or not: every body would get NaN.
+        raise InputDataError(
+            f"{field.describe()}: every value is missing (NaN or nodata); expected data; "
+            "check the variable name, its _FillValue or nodata value, and the file's contents"
+        )
     reason = units_io.diagnose_range(field.quantity, low, high, field.source_units)
     if reason is None:
         return None

@@ -256,3 +256,19 @@ def test_rerun_from_cached_weights_still_reports_the_repair(case):
     assert any("repaired" in w for w in second["warnings"])
     assert "repaired" in outcome.stderr
     assert _tokens(layer, 102) == {"geometry_repaired"}
+
+
+# --------------------------------------------------------------------------- attributes
+
+
+@pytest.mark.parametrize(
+    "values",
+    [
+        pytest.param([100.0, np.nan, 120.0, 130.0], id="empty-value"),
+        pytest.param(["100", "high", "120", "130"], id="not-a-number"),
+    ],
+)
+def test_elevation_attribute_with_unusable_values(case, values):
+    _layer_with(case, surface_m=values)
+    case.config["waterbodies"]["elevation_field"] = "surface_m"
+    refused_everywhere(case, "'surface_m'", "1 empty or non-numeric", "elevation_m")

@@ -155,3 +155,13 @@ def test_lenient_check_reports_the_warning(case):
     assert outcome.code == 0, outcome.stderr
     assert any(all(w in line for w in words) for line in outcome.stdout.splitlines())
     assert "ready to run" in outcome.stdout
+
+
+@pytest.mark.parametrize("flag", ["--strict", "--lenient"])
+def test_variable_with_no_valid_value(case, flag):
+    # Every cell and step is NaN (a wrong _FillValue does this): nothing can be computed.
+    _replace_field(case, "tas", np.nan, "K", "air_temperature")
+    before = case.place_earlier_outputs()
+    for command in ("check", "run"):
+        assert_refused(case.invoke(command, flag), "'tas'", "every value is missing")
+    assert case.snapshot() == before
