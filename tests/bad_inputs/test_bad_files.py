@@ -241,3 +241,37 @@ def test_assumed_crs_warning_keeps_its_category_through_the_python_api(case):
     with pytest.warns(AssumedCRSWarning, match="assumed EPSG:4326"):
         result = lakeloss.run(case.config)
     assert sum("assumed EPSG:4326" in w for w in result.provenance["warnings"]) == 4
+
+
+def test_layer_without_features(case):
+    case.write_layer(pond_layer(n_ponds=3).iloc[:0])
+    refused_everywhere(case, "has no features", "ponds.gpkg")
+
+
+def test_source_with_several_layers_and_none_chosen(case):
+    pond_layer(n_ponds=3).to_file(case.tmp / "ponds.gpkg", layer="spillways", driver="GPKG")
+    del case.config["waterbodies"]["layer"]
+    refused_everywhere(case, "2 layers", "'ponds'", "'spillways'", "set [waterbodies] layer")
+
+
+def test_variable_without_a_time_dimension(case):
+    ds = climate_dataset(TIMES, BASE_FIELDS)
+    ds["tas"] = ds["tas"].isel(time=0, drop=True)
+    case.write_climate(ds)
+    refused_everywhere(case, "'tas'", "found no time")
+
+
+@pytest.mark.parametrize(
+    ("section", "crs", "words"),
+    [
+        ("waterbodies", "EPSG:99999999", ("[waterbodies] crs", "EPSG:99999999", "not a CRS")),
+        ("climate", "not a crs", ("climate crs", "'not a crs'", "not a CRS")),
+        ("climate", "EPSG:32755", ("declares CRS", "'EPSG:32755'", "agree")),
+    ],
+)
+def test_crs_setting_that_is_unusable_or_contradicts_the_file(case, section, crs, words):
+    if section == "waterbodies":
+        case.config["waterbodies"]["crs"] = crs
+    else:
+        case.climate_entry("air_temperature")["crs"] = crs
+    refused_everywhere(case, *words)
