@@ -205,6 +205,11 @@ def geographic_cell_area(lat_lo, lat_hi, width_deg, crs: CRS) -> np.ndarray:
     pyproj's geodesic area in the tests).
     """
     ellipsoid = crs.ellipsoid
+    if ellipsoid is None:
+        raise GridError(
+            f"grid CRS {crs.name!r} has no ellipsoid; expected a geographic CRS on a datum; "
+            "give the grid a full CRS such as EPSG:4326"
+        )
     a = ellipsoid.semi_major_metre
     inv_f = ellipsoid.inverse_flattening
     flattening = 0.0 if not np.isfinite(inv_f) or inv_f == 0 else 1.0 / inv_f

@@ -30,6 +30,9 @@ from lakeloss.zonal.grid import GridSpec, cell_true_area
 
 SAVE_FORMAT_VERSION = 1
 
+# Water bodies copied per block when one-cell series are gathered into the result.
+_ROWS_PER_BLOCK = 32_768
+
 # Polygons whose bounding box spans more cells than this first sort the cells into wholly
 # inside / disjoint / on the boundary with a prepared geometry, and clip only the boundary
 # ones: clipping a many-vertex reservoir against every cell of its box is what costs time.
@@ -170,7 +173,10 @@ class ZonalWeights:
         # np.empty, not zeros: every row is written below, and the kernel's fresh pages are
         # the dominant cost of a 10^6-pond year
         means = np.empty((normalised.shape[0], series.shape[1]))
-        means[single] = series[normalised.indices[normalised.indptr[single]]]
+        cell_of_single = normalised.indices[normalised.indptr[single]]
+        for start in range(0, single.size, _ROWS_PER_BLOCK):  # no (n, time) temporary
+            block = slice(start, start + _ROWS_PER_BLOCK)
+            means[single[block]] = series[cell_of_single[block]]
         if several.size:
             means[several] = normalised[several] @ series
         means[cells_per_row == 0] = np.nan
@@ -196,7 +202,7 @@ class ZonalWeights:
         handle, temp = tempfile.mkstemp(dir=path.parent, prefix=path.name, suffix=".part")
         try:
             with os.fdopen(handle, "wb") as stream:
-                np.savez(stream, **arrays)
+                np.savez(stream, **arrays)  # type: ignore[arg-type]
                 stream.flush()
                 os.fsync(stream.fileno())
             os.replace(temp, path)
