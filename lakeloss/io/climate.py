@@ -355,9 +355,16 @@ def _check_coordinates(values: np.ndarray, name: str, where: str) -> np.ndarray:
     values = np.asarray(values, dtype=float)
     steps = np.diff(values)
     if values.ndim != 1 or values.size == 0 or not (np.all(steps > 0) or np.all(steps < 0)):
+        # One jump of about a whole turn: longitudes wrapped at 180 in a grid that spans it.
+        wrapped = name == "x" and values.ndim == 1 and int(np.sum(np.abs(steps) > 180.0)) == 1
+        fix = (
+            "store the longitudes in 0..360 (roll the grid) so that they increase across 180"
+            if wrapped
+            else "regrid the file"
+        )
         raise GridError(
             f"{where}: {name} coordinates are not strictly monotonic 1-D values; expected a "
-            "regular grid of cell centres; regrid the file"
+            f"regular grid of cell centres; {fix}"
         )
     return values
 

@@ -272,3 +272,19 @@ def test_elevation_attribute_with_unusable_values(case, values):
     _layer_with(case, surface_m=values)
     case.config["waterbodies"]["elevation_field"] = "surface_m"
     refused_everywhere(case, "'surface_m'", "1 empty or non-numeric", "elevation_m")
+
+
+def test_grid_wrapped_at_180_is_refused_clearly(case):
+    # The same grid stored in -180..180: its longitudes jump from 179.975 to -179.975, which
+    # is no regular grid; the file must be stored in 0..360 (or rolled) to span 180.
+    _dateline_case(case, CROSSING["beyond-180"])
+    wrapped = np.where(DATELINE_LON > 180.0, DATELINE_LON - 360.0, DATELINE_LON)
+    fields = {
+        "rnet": (200.0, "W m-2", "surface_net_downward_radiative_flux"),
+        "tas": (298.15, "K", "air_temperature"),
+    }
+    ds = climate_dataset(TIMES, fields, lat=DATELINE_LAT, lon=wrapped)
+    case.write_climate(ds, "dateline.nc")
+    refused_everywhere(
+        case, "dateline.nc", "x coordinates are not strictly monotonic", "0..360 (roll the grid)"
+    )
