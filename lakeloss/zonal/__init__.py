@@ -4,10 +4,11 @@ Build once with :func:`build_weights` (or through :class:`WeightsCache`), then a
 sparse weights to every variable and time step with :meth:`ZonalWeights.apply`.
 """
 
+from lakeloss.zonal.build import build_weights
 from lakeloss.zonal.cache import WeightsCache, layer_key
 from lakeloss.zonal.geometry import reproject_to_grid
 from lakeloss.zonal.grid import GridSpec
-from lakeloss.zonal.weights import ZonalWeights, build_weights
+from lakeloss.zonal.weights import ZonalWeights
 
 __all__ = [
     "GridSpec",

@@ -11,6 +11,7 @@ import numpy as np
 import shapely
 
 from lakeloss.errors import InputDataError
+from lakeloss.zonal import build as _build
 from lakeloss.zonal import weights as _weights
 from lakeloss.zonal.geometry import check_layer
 from lakeloss.zonal.grid import GridSpec
@@ -78,7 +79,7 @@ class WeightsCache:
         grid : GridSpec
             Climate grid.
         reprojected : geopandas.GeoSeries, optional
-            Passed on to :func:`build_weights` when building.
+            Passed on to :func:`lakeloss.zonal.build_weights` when building.
 
         Returns
         -------
@@ -94,7 +95,7 @@ class WeightsCache:
             cached = self._read(path, grid, len(polygons))
             if cached is not None:
                 return cached, True
-        built = _weights.build_weights(polygons, grid, reprojected=reprojected)
+        built = _build.build_weights(polygons, grid, reprojected=reprojected)
         built.save(path)
         return built, False
 

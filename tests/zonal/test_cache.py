@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-import lakeloss.zonal.weights as weights_module
+import lakeloss.zonal.build as build_module
 from lakeloss.errors import InputDataError
 from lakeloss.zonal import WeightsCache, ZonalWeights, build_weights, layer_key
 
@@ -30,7 +30,7 @@ def test_second_run_loads_without_calling_the_builder(
     cache = WeightsCache(tmp_path / "weights")
     built, loaded = cache.get_or_build(projected_layer, projected_grid)
     assert not loaded
-    monkeypatch.setattr(weights_module, "build_weights", _refuse_to_build)
+    monkeypatch.setattr(build_module, "build_weights", _refuse_to_build)
     again, loaded = cache.get_or_build(projected_layer, projected_grid)
     assert loaded
     _assert_same(built, again)

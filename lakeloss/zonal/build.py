@@ -1,0 +1,347 @@
+"""Building the exact (water body x grid cell) area weights."""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import geopandas as gpd
+import numpy as np
+import scipy.sparse as sp
+import shapely
+from pyproj import CRS
+
+from lakeloss.errors import GeometryError, GeometryRepairedWarning, GridError
+from lakeloss.zonal.clip import clipped_areas
+from lakeloss.zonal.geometry import (
+    REPAIR_ATTRS,
+    centroid_lonlat,
+    check_layer,
+    repair_geometry,
+    repeat_repair,
+    reproject_to_grid,
+    to_equal_area,
+)
+from lakeloss.zonal.grid import GridSpec, cell_true_area
+from lakeloss.zonal.weights import ZonalWeights
+
+# Polygons whose bounding box spans more cells than this first sort the cells into wholly
+# inside / disjoint / on the boundary with a prepared geometry, and clip only the boundary
+# ones: clipping a many-vertex reservoir against every cell of its box is what costs time.
+_PREPARED_MIN_CELLS = 16
+
+# Pieces smaller than this share of their cell are rounding noise of an edge that only
+# touches the cell (the exact clip gives ~1e-15 there).
+_NOISE_AREA = 1e-12
+
+# Share of a polygon's area that may seem to fall outside the grid when the polygon is in
+# fact inside: its area inside is measured on a densified copy, which differs from the
+# polygon's own area by far less than this.
+_OUTSIDE_TOLERANCE = 1e-6
+
+
+@dataclass(frozen=True)
+class _Axis:
+    """Cell edges of one grid axis in ascending order, and how to map back to storage."""
+
+    edges: np.ndarray
+    flipped: bool
+
+    @classmethod
+    def of(cls, stored_edges: np.ndarray) -> _Axis:
+        if stored_edges[-1] < stored_edges[0]:
+            return cls(stored_edges[::-1].copy(), True)
+        return cls(np.asarray(stored_edges), False)
+
+    @property
+    def size(self) -> int:
+        return self.edges.size - 1
+
+    def span(self, low: np.ndarray, high: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """First and last ascending cell index touched by [low, high], clipped to the grid."""
+        first = np.searchsorted(self.edges, low, side="right") - 1
+        last = np.searchsorted(self.edges, high, side="left") - 1
+        return np.clip(first, 0, self.size - 1), np.clip(last, 0, self.size - 1)
+
+    def stored(self, index: np.ndarray) -> np.ndarray:
+        return self.size - 1 - index if self.flipped else index
+
+
+@dataclass(frozen=True)
+class _LayerAreas:
+    """True-area facts about the repaired polygons, from an equal-area CRS."""
+
+    area: np.ndarray
+    area_before_repair: np.ndarray
+    repaired: np.ndarray
+    empty: np.ndarray
+    centroid_lon: np.ndarray
+    centroid_lat: np.ndarray
+
+
+def _repair_layer(original: np.ndarray, reprojected: gpd.GeoSeries | None):
+    """The layer repaired in its own CRS, reusing what reproject_to_grid found out."""
+    known = None if reprojected is None else reprojected.attrs.get(REPAIR_ATTRS)
+    if known is not None and known["repaired"].size == original.size:
+        return repeat_repair(original, known["repaired"], known["empty"])
+    return repair_geometry(original)
+
+
+def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS, reprojected) -> _LayerAreas:
+    original = np.asarray(polygons.geometry.array, dtype=object)
+    repaired = _repair_layer(original, reprojected)
+    equal_area, area_crs, unit = to_equal_area(repaired.geometry, crs)
+    area = shapely.area(equal_area) * unit * unit
+    area[repaired.empty] = 0.0
+    before = np.full(area.size, np.nan)
+    if repaired.repaired.any():
+        invalid, _, invalid_unit = to_equal_area(original[repaired.repaired], crs)
+        before[repaired.repaired] = shapely.area(invalid) * invalid_unit * invalid_unit
+    lon, lat = centroid_lonlat(equal_area, area_crs)
+    lon[repaired.empty] = np.nan
+    lat[repaired.empty] = np.nan
+    return _LayerAreas(area, before, repaired.repaired, repaired.empty, lon, lat)
+
+
+@dataclass
+class _Pairs:
+    """(water body, stored cell) pairs with their raw, not yet rescaled, weights."""
+
+    body: np.ndarray
+    row: np.ndarray
+    col: np.ndarray
+    raw: np.ndarray
+
+    @classmethod
+    def empty(cls) -> _Pairs:
+        none = np.empty(0, dtype=np.int64)
+        return cls(none, none, none, np.empty(0))
+
+
+def _expand_boxes(first_col, last_col, first_row, last_row):
+    """Every (body, row, col) inside each body's box of cells, vectorised."""
+    ncols = last_col - first_col + 1
+    counts = ncols * (last_row - first_row + 1)
+    body = np.repeat(np.arange(counts.size), counts)
+    start = np.cumsum(counts) - counts
+    local = np.arange(body.size) - start[body]
+    return body, first_row[body] + local // ncols[body], first_col[body] + local % ncols[body]
+
+
+def _clip_areas(geometry: np.ndarray, body: np.ndarray, cells: np.ndarray, big: np.ndarray):
+    """Planar area of geometry[body] ∩ cell per pair; big polygons skip what they can.
+
+    For a polygon spanning many cells, a prepared geometry first finds the cells wholly
+    inside (area = cell area) and the disjoint ones (dropped); only the cells on its
+    boundary are clipped.
+    """
+    cell_area = (cells[:, 2] - cells[:, 0]) * (cells[:, 3] - cells[:, 1])
+    area = np.zeros(body.size)
+    to_clip = ~big[body]
+    sorted_out = np.flatnonzero(big[body])
+    if sorted_out.size:
+        owners = geometry[body[sorted_out]]
+        shapely.prepare(geometry[big])
+        boxes = shapely.box(*cells[sorted_out].T)
+        inside = shapely.contains_properly(owners, boxes)
+        touches = shapely.intersects(owners, boxes)
+        shapely.destroy_prepared(geometry[big])
+        area[sorted_out[inside]] = cell_area[sorted_out[inside]]
+        to_clip[sorted_out[touches & ~inside]] = True
+    clip = np.flatnonzero(to_clip)
+    area[clip] = clipped_areas(geometry, body[clip], cells[clip])
+    return area, cell_area
+
+
+def _valid_for_clipping(geometry: np.ndarray) -> np.ndarray:
+    """Reprojection can nudge a vertex across an edge; re-repair so clipping stays exact."""
+    broken = ~shapely.is_valid(geometry)
+    if broken.any():
+        geometry = geometry.copy()
+        geometry[broken] = repair_geometry(geometry[broken]).geometry
+    return geometry
+
+
+def _clipped_pairs(geometry: np.ndarray, x: _Axis, y: _Axis, bounds: np.ndarray):
+    """Pairs for polygons that cross cell edges, plus each one's planar area inside the grid."""
+    geometry = _valid_for_clipping(geometry)
+    first_col, last_col = x.span(bounds[:, 0], bounds[:, 2])
+    first_row, last_row = y.span(bounds[:, 1], bounds[:, 3])
+    body, row, col = _expand_boxes(first_col, last_col, first_row, last_row)
+    cells = np.column_stack([x.edges[col], y.edges[row], x.edges[col + 1], y.edges[row + 1]])
+    n_cells = (last_col - first_col + 1) * (last_row - first_row + 1)
+    pieces, cell_area = _clip_areas(geometry, body, cells, n_cells >= _PREPARED_MIN_CELLS)
+    # pieces of a cell the polygon only touches come out as rounding noise around zero
+    keep = pieces > _NOISE_AREA * cell_area
+    body, row, col = body[keep], row[keep], col[keep]
+    coverage = pieces[keep] / cell_area[keep]
+    inside_planar = np.bincount(body, weights=pieces[keep], minlength=geometry.size)
+    return _Pairs(body, y.stored(row), x.stored(col), coverage), inside_planar
+
+
+def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygon_area):
+    """All (body, cell) pairs and the share of each polygon's true area inside the grid."""
+    x, y = _Axis.of(grid.x_edges), _Axis.of(grid.y_edges)
+    bounds = shapely.bounds(in_grid)
+    with np.errstate(invalid="ignore"):
+        within = (
+            (bounds[:, 0] >= x.edges[0])
+            & (bounds[:, 2] <= x.edges[-1])
+            & (bounds[:, 1] >= y.edges[0])
+            & (bounds[:, 3] <= y.edges[-1])
+            & present
+        )
+        overlaps = (
+            (bounds[:, 2] > x.edges[0])
+            & (bounds[:, 0] < x.edges[-1])
+            & (bounds[:, 3] > y.edges[0])
+            & (bounds[:, 1] < y.edges[-1])
+            & present
+        )
+    first_col, last_col = x.span(bounds[:, 0], bounds[:, 2])
+    first_row, last_row = y.span(bounds[:, 1], bounds[:, 3])
+    one_cell = within & (first_col == last_col) & (first_row == last_row)
+    share = np.where(within, 1.0, 0.0)
+    single = np.flatnonzero(one_cell)
+    pairs = _Pairs(
+        single, y.stored(first_row[single]), x.stored(first_col[single]), np.ones(single.size)
+    )
+    crossing = np.flatnonzero(overlaps & ~one_cell)
+    if crossing.size:
+        clipped, inside_planar = _clipped_pairs(in_grid[crossing], x, y, bounds[crossing])
+        partial = crossing[~within[crossing] & (inside_planar > 0)]
+        inside = _true_area_inside(in_grid[partial], grid) / polygon_area[partial]
+        # below the tolerance the difference is the two area computations, not real overhang
+        share[partial] = np.where(inside > 1.0 - _OUTSIDE_TOLERANCE, 1.0, inside)
+        pairs = _Pairs(
+            np.concatenate([pairs.body, crossing[clipped.body]]),
+            np.concatenate([pairs.row, clipped.row]),
+            np.concatenate([pairs.col, clipped.col]),
+            np.concatenate([pairs.raw, clipped.raw]),
+        )
+    return pairs, share, within
+
+
+def _true_area_inside(geometry: np.ndarray, grid: GridSpec) -> np.ndarray:
+    """True area of each polygon's part inside the grid's outline. [m2]
+
+    Only the few polygons that hang over the grid's edge come here. The cut edge runs along
+    a grid line (a parallel or meridian on a geographic grid), so the part is densified to a
+    quarter cell before it goes to the equal-area CRS, where straight chords would cut
+    corners.
+    """
+    xmin, ymin, xmax, ymax = grid.bounds
+    part = shapely.intersection(_valid_for_clipping(geometry), shapely.box(xmin, ymin, xmax, ymax))
+    step = 0.25 * min(np.abs(np.diff(grid.x_edges)).min(), np.abs(np.diff(grid.y_edges)).min())
+    part = shapely.segmentize(part, step)
+    equal_area, _, unit = to_equal_area(part, grid.crs)
+    return shapely.area(equal_area) * unit * unit
+
+
+def _flags(areas: _LayerAreas, share: np.ndarray) -> np.ndarray:
+    tokens = (
+        (areas.repaired, "geometry_repaired"),
+        (areas.empty, "geometry_empty"),
+        (~areas.empty & (share == 0), "outside_grid"),
+        (~areas.empty & (share > 0) & (share < 1.0), "partly_outside_grid"),
+    )
+    flags = np.full(share.size, "", dtype=object)
+    for mask, token in tokens:
+        flags[mask] = np.where(flags[mask] == "", token, flags[mask] + ";" + token)
+    return flags
+
+
+def _warn_about_repairs(areas: _LayerAreas) -> None:
+    n_repaired, n_empty = int(areas.repaired.sum()), int(areas.empty.sum())
+    if n_repaired or n_empty:
+        warnings.warn(
+            f"{n_repaired} invalid water-body polygons were repaired and {n_empty} are empty "
+            "(flagged geometry_repaired / geometry_empty; empty ones get NaN results)",
+            GeometryRepairedWarning,
+            stacklevel=3,
+        )
+
+
+def build_weights(
+    polygons: gpd.GeoDataFrame,
+    grid: GridSpec,
+    *,
+    reprojected: gpd.GeoSeries | None = None,
+) -> ZonalWeights:
+    """Build the exact (water body x cell) area weights.
+
+    Parameters
+    ----------
+    polygons : geopandas.GeoDataFrame
+        Water bodies (Polygon / MultiPolygon, any CRS); row order is kept.
+    grid : GridSpec
+        The climate grid.
+    reprojected : geopandas.GeoSeries, optional
+        ``reproject_to_grid(polygons, grid)`` if already computed (it is shared with other
+        stages, so the caller may pass it in rather than pay for it twice).
+
+    Returns
+    -------
+    ZonalWeights
+        The weights, true areas, coverage and flags.
+
+    Notes
+    -----
+    A polygon whose bounding box lies within one cell goes to that cell with its full area,
+    without clipping. Others are clipped against the cells of their box in grid coordinates;
+    each piece's coverage fraction of its cell times the cell's true area is the raw weight,
+    and each row is then rescaled to the polygon's true area inside the grid (measured in an
+    equal-area CRS after cutting the polygon at the grid's outline). Means from these weights equal exactextract's
+    means weighted by cell area, and row sums stay exact. Holes are excluded and the parts of
+    a multipolygon summed because clipping works on the whole geometry.
+    """
+    crs = CRS.from_user_input(check_layer(polygons))
+    if reprojected is None:
+        reprojected = reproject_to_grid(polygons, grid)
+    if len(reprojected) != len(polygons):
+        raise GeometryError(
+            f"reprojected layer has {len(reprojected)} rows but the layer {len(polygons)}; "
+            "expected reproject_to_grid(polygons, grid) of the same layer"
+        )
+    areas = _layer_areas(polygons, crs, reprojected)
+    if areas.empty.all():
+        raise GeometryError(
+            f"all {areas.empty.size} water-body geometries are empty; expected at least one "
+            "polygon with area; check the layer"
+        )
+    in_grid = np.asarray(reprojected.array, dtype=object)
+    pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty, areas.area)
+    if not pairs.body.size:
+        raise GridError(
+            f"none of the {int((~areas.empty).sum())} water bodies overlaps the climate grid "
+            f"(grid bounds {tuple(round(b, 4) for b in grid.bounds)} in {grid.crs.name}); "
+            "expected overlapping data; check the climate file's extent and CRS"
+        )
+    _warn_about_repairs(areas)
+    return _assemble(pairs, share, areas, grid)
+
+
+def _assemble(pairs: _Pairs, share: np.ndarray, areas: _LayerAreas, grid: GridSpec):
+    n = share.size
+    raw = pairs.raw * cell_true_area(grid, pairs.row, pairs.col)
+    raw_total = np.bincount(pairs.body, weights=raw, minlength=n)
+    grid_area = areas.area * share
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scale = np.where(raw_total > 0, grid_area / raw_total, 0.0)
+        coverage = np.where(areas.empty, np.nan, grid_area / areas.area)
+    ny, nx = grid.shape
+    matrix = sp.csr_matrix(
+        (raw * scale[pairs.body], (pairs.body, pairs.row * nx + pairs.col)), shape=(n, ny * nx)
+    )
+    return ZonalWeights(
+        matrix=matrix,
+        polygon_area_m2=areas.area,
+        grid_area_m2=grid_area,
+        grid_coverage=coverage,
+        area_before_repair_m2=areas.area_before_repair,
+        flags=_flags(areas, share),
+        centroid_lon=areas.centroid_lon,
+        centroid_lat=areas.centroid_lat,
+        grid_key=grid.key(),
+        grid=grid,
+    )
