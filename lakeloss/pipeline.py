@@ -13,6 +13,8 @@ held whole. ``aggregate`` turns the period sums into the result tables.
 from __future__ import annotations
 
 import atexit
+import contextlib
+import functools
 import logging
 import os
 import shutil
@@ -44,7 +46,7 @@ from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.physics import registry
-from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights
+from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 
 log = logging.getLogger(__name__)
 
@@ -53,6 +55,10 @@ log = logging.getLogger(__name__)
 # but deliberately generous count, used to size blocks.
 _WORKING_ARRAYS = 24
 _BLOCK_BUDGET_BYTES = 1.5e9
+# Longer blocks make the zonal product slower per step (its time series are transposed and
+# multiplied as one wide matrix): 16 steps ran a year of 10^5 bodies 35 % faster than 55
+# (benchmarks/README.md, "End to end"), and still amortise the per-block preparation.
+_MAX_BLOCK_STEPS = 16
 
 
 @dataclass
@@ -291,13 +297,24 @@ def default_cache_dir() -> Path:
 
 def build_weights(config: RunConfig, inputs: Inputs) -> tuple[dict[str, ZonalWeights], bool]:
     """One weight matrix per distinct climate grid, from the cache where possible."""
+    from lakeloss.execution import cluster_map
+
     cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
+    frame = inputs.layer.frame
     out: dict[str, ZonalWeights] = {}
-    all_cached = True
-    for key, grid in inputs.grids.items():
-        out[key], cached = cache.get_or_build(inputs.layer.frame, grid)
-        all_cached &= cached
-    return out, all_cached
+    missing = [
+        key
+        for key, grid in inputs.grids.items()
+        if not cache.path_for(layer_key(frame, grid)).exists()
+    ]
+    # Large layers are built in spatial blocks, on the cluster when one is configured; the
+    # cluster is only started when there is something to build.
+    use_cluster = bool(missing) and len(frame) > partition.BLOCK_SIZE
+    with cluster_map(config.compute) if use_cluster else contextlib.nullcontext() as mapper:
+        builder = functools.partial(partition.build_weights_in_blocks, map_blocks=mapper)
+        for key, grid in inputs.grids.items():
+            out[key], _ = cache.get_or_build(frame, grid, builder=builder)
+    return out, not missing
 
 
 # --------------------------------------------------------------------------- extract + evaporate
@@ -312,7 +329,7 @@ def block_steps(config: RunConfig, inputs: Inputs) -> int:
     per_step = 8.0 * (
         n * (_WORKING_ARRAYS + 2 * len(config.method.all)) + cells * len(inputs.fields)
     )
-    return int(np.clip(_BLOCK_BUDGET_BYTES // per_step, 1, 366))
+    return int(np.clip(_BLOCK_BUDGET_BYTES // per_step, 1, _MAX_BLOCK_STEPS))
 
 
 def iter_blocks(n_steps: int, steps: int) -> Iterator[slice]:
