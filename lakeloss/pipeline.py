@@ -73,8 +73,10 @@ class Inputs:
     field_grid: dict[str, str]
     warnings: list[str] = field(default_factory=list)
     static_fields: dict[str, tuple[Any, str]] = field(default_factory=dict)
-    recorded: list[warnings.WarningMessage] = field(default_factory=list)
-    """The lakeloss warnings behind ``warnings``, kept to re-issue with their categories."""
+    # Typed Any: inside this class `warnings` names the field above, not the module.
+    recorded: list[Any] = field(default_factory=list)
+    """The lakeloss ``warnings.WarningMessage`` objects behind ``warnings``, kept to re-issue
+    with their categories."""
 
     @property
     def n_waterbodies(self) -> int:
