@@ -221,3 +221,28 @@ def run_blocks(
         yield from _run_cluster(compute, context, weights, static, blocks)
     else:
         yield from _run_local(context, weights, static, blocks)
+
+
+@contextlib.contextmanager
+def cluster_map(compute: ComputeConfig) -> Iterator[Any]:
+    """A ``map(func, *iterables)`` that runs on the configured cluster, or None locally.
+
+    Used for the spatial blocks of a large layer's weights build; results come back in
+    input order, so the weights are the same as a local build's.
+    """
+    if not (compute.workers or compute.scheduler):
+        yield None
+        return
+    with _client(compute) as client:
+
+        def mapper(func: Any, *iterables: Any) -> list[Any]:
+            futures = client.map(func, *iterables, pure=False, retries=2)
+            try:
+                return client.gather(futures)
+            except Exception as err:
+                raise ClusterError(
+                    f"the cluster failed while building zonal weights ({_one_line(err)}); "
+                    "check worker memory limits and rerun"
+                ) from err
+
+        yield mapper

@@ -267,6 +267,7 @@ def build_weights(
     grid: GridSpec,
     *,
     reprojected: gpd.GeoSeries | None = None,
+    require_overlap: bool = True,
 ) -> ZonalWeights:
     """Build the exact (water body x cell) area weights.
 
@@ -279,6 +280,10 @@ def build_weights(
     reprojected : geopandas.GeoSeries, optional
         ``reproject_to_grid(polygons, grid)`` if already computed (it is shared with other
         stages, so the caller may pass it in rather than pay for it twice).
+    require_overlap : bool, optional
+        Refuse a layer that is all empty or misses the grid (default). A spatial block of a
+        partitioned build (:mod:`lakeloss.zonal.partition`) passes False; the whole layer is
+        checked once its blocks are combined.
 
     Returns
     -------
@@ -304,14 +309,14 @@ def build_weights(
             "expected reproject_to_grid(polygons, grid) of the same layer"
         )
     areas = _layer_areas(polygons, crs, reprojected)
-    if areas.empty.all():
+    if areas.empty.all() and require_overlap:
         raise GeometryError(
             f"all {areas.empty.size} water-body geometries are empty; expected at least one "
             "polygon with area; check the layer"
         )
     in_grid = np.asarray(reprojected.array, dtype=object)
     pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty, areas.area)
-    if not pairs.body.size:
+    if not pairs.body.size and require_overlap:
         raise GridError(
             f"none of the {int((~areas.empty).sum())} water bodies overlaps the climate grid "
             f"(grid bounds {tuple(round(b, 4) for b in grid.bounds)} in {grid.crs.name}); "

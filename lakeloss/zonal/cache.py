@@ -68,7 +68,7 @@ class WeightsCache:
         return self.directory / f"weights-{key}.npz"
 
     def get_or_build(
-        self, polygons: gpd.GeoDataFrame, grid: GridSpec, *, reprojected=None
+        self, polygons: gpd.GeoDataFrame, grid: GridSpec, *, reprojected=None, builder=None
     ) -> tuple[_weights.ZonalWeights, bool]:
         """Load the weights of this layer and grid, or build and store them.
 
@@ -80,6 +80,10 @@ class WeightsCache:
             Climate grid.
         reprojected : geopandas.GeoSeries, optional
             Passed on to :func:`lakeloss.zonal.build_weights` when building.
+        builder : callable, optional
+            ``builder(polygons, grid)`` returning ZonalWeights, used instead of
+            :func:`lakeloss.zonal.build_weights` (e.g. the partitioned build of
+            :mod:`lakeloss.zonal.partition` for very large layers).
 
         Returns
         -------
@@ -95,7 +99,10 @@ class WeightsCache:
             cached = self._read(path, grid, len(polygons))
             if cached is not None:
                 return cached, True
-        built = _build.build_weights(polygons, grid, reprojected=reprojected)
+        if builder is not None:
+            built = builder(polygons, grid)
+        else:
+            built = _build.build_weights(polygons, grid, reprojected=reprojected)
         built.save(path)
         return built, False
 

@@ -1,0 +1,113 @@
+"""Weights for very large layers, built in spatial blocks that can run in parallel.
+
+The layer is cut into bands of similar size along the grid's y axis (by the centre of each
+polygon's bounding box in grid coordinates), each band's weights are built on its own —
+in this process, or on a dask.distributed cluster through the ``map_blocks`` callable — and
+the rows are put back in layer order. A band is independent of the others because a
+polygon's weights depend only on that polygon and the grid.
+
+The block size depends only on the number of polygons, never on the scheduler, so a layer
+gets the same blocks — and the same weights, to the last bit — wherever it is built.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable, Sequence
+
+import geopandas as gpd
+import numpy as np
+import scipy.sparse as sp
+import shapely
+from pyproj import Transformer
+
+from lakeloss.errors import GeometryError, GridError
+from lakeloss.zonal.build import build_weights
+from lakeloss.zonal.grid import GridSpec
+from lakeloss.zonal.weights import ZonalWeights
+
+BLOCK_SIZE = 250_000
+"""Water bodies per spatial block. Our own choice: big enough that per-block overhead is
+small, small enough that a block's build stays well under 1 GB."""
+
+_ROW_FIELDS = (
+    "polygon_area_m2",
+    "grid_area_m2",
+    "grid_coverage",
+    "area_before_repair_m2",
+    "flags",
+    "centroid_lon",
+    "centroid_lat",
+)
+
+MapBlocks = Callable[
+    [Callable[..., ZonalWeights], Sequence[gpd.GeoDataFrame], Sequence[GridSpec]],
+    Iterable[ZonalWeights],
+]
+
+
+def spatial_blocks(
+    polygons: gpd.GeoDataFrame, grid: GridSpec, block_size: int = BLOCK_SIZE
+) -> list[np.ndarray]:
+    """Row indices of each spatial block (bands along the grid's y axis).
+
+    Returns one block holding every row when the layer has at most ``block_size`` rows.
+    Empty geometries (no bounding box) go to the last band.
+    """
+    n = len(polygons)
+    count = max(1, math.ceil(n / block_size))
+    if count == 1:
+        return [np.arange(n)]
+    bounds = shapely.bounds(np.asarray(polygons.geometry.array, dtype=object))
+    centre_x = (bounds[:, 0] + bounds[:, 2]) / 2.0
+    centre_y = (bounds[:, 1] + bounds[:, 3]) / 2.0
+    to_grid = Transformer.from_crs(polygons.crs, grid.crs, always_xy=True)
+    _, y = to_grid.transform(centre_x, centre_y)
+    y = np.where(np.isfinite(y), y, np.inf)
+    order = np.argsort(y, kind="stable")
+    return [np.sort(part) for part in np.array_split(order, count)]
+
+
+def _build_block(block: gpd.GeoDataFrame, grid: GridSpec) -> ZonalWeights:
+    return build_weights(block, grid, require_overlap=False)
+
+
+def combine_blocks(
+    blocks: Sequence[np.ndarray], parts: Sequence[ZonalWeights], grid: GridSpec
+) -> ZonalWeights:
+    """Stack the blocks' weights and put their rows back in layer order."""
+    index = np.concatenate(blocks)
+    order = np.empty_like(index)
+    order[index] = np.arange(index.size)
+    matrix = sp.vstack([p.matrix for p in parts], format="csr")[order]
+    rows = {name: np.concatenate([getattr(p, name) for p in parts])[order] for name in _ROW_FIELDS}
+    if np.all(rows["polygon_area_m2"] == 0):
+        raise GeometryError(
+            f"all {index.size} water-body geometries are empty; expected at least one polygon "
+            "with area; check the layer"
+        )
+    if matrix.nnz == 0:
+        raise GridError(
+            f"none of the {index.size} water bodies overlaps the climate grid (grid bounds "
+            f"{tuple(round(b, 4) for b in grid.bounds)} in {grid.crs.name}); check the "
+            "climate file's extent and CRS"
+        )
+    return ZonalWeights(matrix=matrix.tocsr(), grid_key=grid.key(), grid=grid, **rows)
+
+
+def build_weights_in_blocks(
+    polygons: gpd.GeoDataFrame,
+    grid: GridSpec,
+    *,
+    block_size: int = BLOCK_SIZE,
+    map_blocks: MapBlocks | None = None,
+) -> ZonalWeights:
+    """Build the weights block by block; ``map_blocks(func, frames, grids)`` may run them
+    anywhere (default: one after another in this process)."""
+    blocks = spatial_blocks(polygons, grid, block_size)
+    if len(blocks) == 1:
+        return build_weights(polygons, grid)
+    frames = [polygons.iloc[rows].reset_index(drop=True) for rows in blocks]
+    mapper = map_blocks or map
+    parts = list(mapper(_build_block, frames, [grid] * len(frames)))
+    return combine_blocks(blocks, parts, grid)
