@@ -276,17 +276,19 @@ def _summaries(
     valid = table["evap_mm"].notna()
     keys = ["period_start", "period_end", "days"]
 
+    volumes = ["area_m2", "evap_m3", "precip_m3", "net_m3"]
+
     def totals(frame: pd.DataFrame, by: list[str]) -> pd.DataFrame:
-        frame = frame[valid.loc[frame.index]]
-        grouped = frame.groupby(by, sort=True, dropna=False)
-        out = grouped.agg(
-            n_waterbodies=(id_field, "size"),
-            area_m2=("area_m2", "sum"),
-            evap_m3=("evap_m3", "sum"),
-            precip_m3=("precip_m3", "sum"),
-            net_m3=("net_m3", "sum"),
+        # Every period (and group) keeps its row, so one with no valid water body shows
+        # n_waterbodies = 0 and empty totals instead of vanishing from the table.
+        in_total = valid.loc[frame.index]
+        masked = frame[by].assign(
+            n_waterbodies=in_total.astype(np.int64),
+            **{c: frame[c].where(in_total) for c in volumes},
         )
-        return out.reset_index()
+        out = masked.groupby(by, sort=True, dropna=False).sum()
+        out.loc[out["n_waterbodies"] == 0, volumes] = np.nan
+        return out[["n_waterbodies", *volumes]].reset_index()
 
     by_period_total = totals(table, keys)
     by_group = None
