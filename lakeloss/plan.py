@@ -10,12 +10,11 @@ estimates from this project's own benchmarks (benchmarks/README.md), not promise
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
-import pyproj
 
 from lakeloss.config import RunConfig
+from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import Inputs, block_steps, check_overlap, check_values, load_inputs
 
 # Seconds per unit of work, measured on the 2-core reference machine (benchmarks/README.md).
@@ -23,27 +22,6 @@ _SECONDS_PER_POLYGON = 16e-6  # reprojection + weights build
 _SECONDS_PER_VALUE_APPLY = 1.2e-9  # one water body x one step x one variable
 _SECONDS_PER_VALUE_METHOD = 8e-8  # one water body x one step x one method (physics)
 _SECONDS_PER_TABLE_ROW = 4e-6  # one row of evaporation_by_period written
-
-
-def crs_label(crs: Any) -> str:
-    """A short name for a CRS: its authority code, or its kind and ellipsoid.
-
-    ``to_string()`` of a CRS without an authority code (common for CF grid mappings) is a
-    whole PROJJSON document, too long for one line of the plan.
-    """
-    crs = pyproj.CRS.from_user_input(crs)
-    text = crs.to_string()
-    if not text.lstrip().startswith("{"):
-        return text
-    kind = "geographic" if crs.is_geographic else "projected" if crs.is_projected else ""
-    name = crs.name if crs.name not in ("undefined", "unknown") else f"unnamed {kind} CRS"
-    ellipsoid = crs.ellipsoid
-    if ellipsoid is None:
-        return name
-    return (
-        f"{name}, ellipsoid a = {ellipsoid.semi_major_metre:.0f} m, "
-        f"1/f = {ellipsoid.inverse_flattening:.6g}"
-    )
 
 
 @dataclass

@@ -315,13 +315,45 @@ def _parse_override(crs: str) -> pyproj.CRS:
         ) from err
 
 
+def crs_label(crs) -> str:
+    """A short name for a CRS, for one-line messages: its authority code, or its kind and
+    ellipsoid.
+
+    ``to_string()`` of a CRS without an authority code (common for CF grid mappings) is a
+    whole PROJJSON document.
+
+    Parameters
+    ----------
+    crs : pyproj.CRS or anything pyproj.CRS.from_user_input takes
+
+    Returns
+    -------
+    str
+        E.g. ``"EPSG:32755"`` or ``"unnamed geographic CRS, ellipsoid a = 6378137 m, 1/f =
+        298.257"``.
+    """
+    crs = pyproj.CRS.from_user_input(crs)
+    text = crs.to_string()
+    if not text.lstrip().startswith("{"):
+        return text
+    kind = "geographic" if crs.is_geographic else "projected" if crs.is_projected else ""
+    name = crs.name if crs.name not in ("undefined", "unknown") else f"unnamed {kind} CRS"
+    ellipsoid = crs.ellipsoid
+    if ellipsoid is None:
+        return name
+    return (
+        f"{name}, ellipsoid a = {ellipsoid.semi_major_metre:.0f} m, "
+        f"1/f = {ellipsoid.inverse_flattening:.6g}"
+    )
+
+
 def _resolve_crs(found: pyproj.CRS | None, geographic: bool, crs: str | None, where: str):
     """Return (CRS, assumed) from the file's CRS, the lat/lon default and the override."""
     override = None if crs is None else _parse_override(crs)
     if found is not None:
         if override is not None and not found.equals(override, ignore_axis_order=True):
             raise ConfigError(
-                f"{where} declares CRS {found.to_string()!r} but [climate] crs is {crs!r}; "
+                f"{where} declares CRS '{crs_label(found)}' but [climate] crs is {crs!r}; "
                 "expected them to agree; remove the crs setting or fix the file"
             )
         return found, False
