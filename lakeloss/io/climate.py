@@ -347,7 +347,13 @@ def crs_label(crs) -> str:
     )
 
 
-def _resolve_crs(found: pyproj.CRS | None, geographic: bool, crs: str | None, where: str):
+def _resolve_crs(
+    found: pyproj.CRS | None,
+    geographic: bool,
+    crs: str | None,
+    where: str,
+    looked_for: str = "no grid_mapping, crs_wkt or lat/lon coordinates",
+):
     """Return (CRS, assumed) from the file's CRS, the lat/lon default and the override."""
     override = None if crs is None else _parse_override(crs)
     if found is not None:
@@ -367,7 +373,7 @@ def _resolve_crs(found: pyproj.CRS | None, geographic: bool, crs: str | None, wh
         )
         return pyproj.CRS.from_epsg(4326), True
     raise CRSError(
-        f"{where} has no CRS (no grid_mapping, crs_wkt or lat/lon coordinates); expected one; "
+        f"{where} has no CRS ({looked_for}); expected one; "
         'set crs = "EPSG:...." for this input in [climate]'
     )
 
@@ -631,7 +637,9 @@ def open_geotiff_stack(
         raise _unreadable(source, "GeoTIFF", err) from err
     declared = _source_units(tagged, units, where, name)
     axis = _geotiff_axis(start, step, count, calendar, end, where)
-    field_crs, assumed = _resolve_crs(file_crs, False, crs, where)
+    field_crs, assumed = _resolve_crs(
+        file_crs, False, crs, where, looked_for="no coordinate system in its georeferencing"
+    )
     x, y = _cell_centres(transform, width, height, where)
     stack = _lazy_stack(
         os.fspath(source), count, (height, width), nodata, dtype, max(1, chunk_steps)

@@ -214,7 +214,7 @@ def test_geotiff_without_crs_is_refused_unless_the_config_states_it(case):
         warnings.simplefilter("ignore", rasterio.errors.NotGeoreferencedWarning)
         _write_geotiff(path, crs=None)
     _geotiff_temperature(case, path)
-    refused_everywhere(case, "tas_nocrs.tif", "has no CRS", "set crs")
+    refused_everywhere(case, "tas_nocrs.tif", "has no CRS (no coordinate system in its", "set crs")
     case.climate_entry("air_temperature")["crs"] = "EPSG:4326"
     outcome = case.invoke("run")
     assert outcome.code == 0, outcome.stderr
