@@ -17,11 +17,12 @@ from lakeloss.config import RunConfig
 from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import Inputs, block_steps, check_overlap, check_values, load_inputs
 
-# Seconds per unit of work, measured on the 2-core reference machine (benchmarks/README.md).
-_SECONDS_PER_POLYGON = 16e-6  # reprojection + weights build
-_SECONDS_PER_VALUE_APPLY = 1.2e-9  # one water body x one step x one variable
-_SECONDS_PER_VALUE_METHOD = 8e-8  # one water body x one step x one method (physics)
-_SECONDS_PER_TABLE_ROW = 4e-6  # one row of evaporation_by_period written
+# Wall seconds per unit of work, from the end-to-end benchmark of 10^6 ponds on the 2-core
+# reference machine, two threads (benchmarks/README.md, "End to end"); 10^5 runs faster.
+_SECONDS_PER_POLYGON = 20e-6  # layer read, reprojection and weights build (cold cache)
+_SECONDS_PER_VALUE_APPLY = 3e-8  # one water body x one step x one variable (read + zonal)
+_SECONDS_PER_VALUE_METHOD = 1.3e-7  # one water body x one step x one method (physics)
+_SECONDS_PER_TABLE_ROW = 4e-6  # one row of evaporation_by_period assembled and written
 
 
 @dataclass
