@@ -171,6 +171,7 @@ def _year_length(calendar: str) -> float:
 # Below this share of valid climate a body is flagged even when it lies inside the grid
 # (nodata cells under part of it); common practice, no source.
 _COVERAGE_FLAG_BELOW = 0.995
+_NO_RESULT_GEOMETRY = {"geometry_empty", "geometry_null", "outside_grid"}
 
 
 def _flags(
@@ -188,7 +189,9 @@ def _flags(
     total = sums.steps
     for i in range(n):
         if valid_steps[i] == 0:
-            tokens[i].append("no_valid_climate")
+            # An empty or off-grid geometry already says why there is no result.
+            if not _NO_RESULT_GEOMETRY.intersection(tokens[i]):
+                tokens[i].append("no_valid_climate")
         elif valid_steps[i] < total:
             tokens[i].append("climate_gaps")
         if 0.0 < coverage[i] < _COVERAGE_FLAG_BELOW and "partly_outside_grid" not in tokens[i]:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pytest
 import shapely
 from builders import LAT, LON, climate_dataset, write_netcdf
 from hypothesis import HealthCheck, given, settings
@@ -63,6 +64,8 @@ BOUNDS = {
 climate_values = st.fixed_dictionaries({k: st.floats(*b) for k, b in BOUNDS.items()})
 
 
+# Random climate includes dark, humid days whose negative rates are clipped and warned about.
+@pytest.mark.filterwarnings("ignore::lakeloss.errors.ValuesAdjustedWarning")
 @settings(
     max_examples=12,
     deadline=None,
@@ -117,7 +120,8 @@ def test_random_layers_and_valid_climate_give_sane_results(
     rate = bodies["evap_mm"] / len(times)
     assert (rate >= 0).all() and (rate <= 25.0).all(), rate
     np.testing.assert_allclose(bodies["climate_coverage"], 1.0, rtol=1e-9)
-    assert (bodies["qa_flags"] == "").all()
+    # Valid inputs inside the grid: the only flag allowed is the clipping of negative rates.
+    assert bodies["qa_flags"].isin(["", "negative_rates_clipped"]).all(), bodies["qa_flags"]
     np.testing.assert_allclose(
         result.by_period.groupby("pond_id")["evap_mm"].sum().to_numpy(),
         bodies["evap_mm"].to_numpy(),

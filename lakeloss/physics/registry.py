@@ -462,7 +462,8 @@ def _check_value(spec: ParameterSpec, value: object) -> float | str:
     if not spec.minimum <= number <= spec.maximum:
         raise ParameterRangeError(
             f"parameter {spec.name!r} is {number:g}; expected {spec.minimum:g} to "
-            f"{spec.maximum:g} {spec.unit}; set a value within that range"
+            f"{spec.maximum:g}{'' if spec.unit == '1' else ' ' + spec.unit}; "
+            "set a value within that range"
         )
     return number
 

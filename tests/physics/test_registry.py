@@ -199,7 +199,7 @@ def test_validate_parameters_unknown_name():
 @pytest.mark.parametrize(
     ("key", "value", "pattern"),
     [
-        ("albedo", 0.5, r"'albedo' is 0.5; expected 0 to 0.3 1"),
+        ("albedo", 0.5, r"'albedo' is 0.5; expected 0 to 0.3; set"),
         ("priestley_taylor_alpha", 0.9, r"'priestley_taylor_alpha' is 0.9; expected 1 to 1.5"),
         ("wind_height_m", 0.1, r"'wind_height_m' is 0.1; expected 0.5 to 100 m"),
         ("roughness_length_m", float("nan"), r"'roughness_length_m' is nan"),
