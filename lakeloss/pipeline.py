@@ -425,7 +425,7 @@ def extract_block(
         by_grid.setdefault(grid_key, []).append((quantity, values))
     for grid_key, items in by_grid.items():
         # One product per grid for all its variables, stacked along time: preparing the
-        # weights costs as much as the product itself for 10^6 bodies. Each output row is
+        # weights is a fixed cost per call, large at 10^6 bodies. Each output row is
         # computed exactly as it would be alone.
         mean, valid = weights[grid_key].apply(np.concatenate([v for _, v in items], axis=0))
         steps = items[0][1].shape[0]
