@@ -17,9 +17,6 @@ from lakeloss.zonal.grid import GridSpec
 
 SAVE_FORMAT_VERSION = 1
 
-# Water bodies copied per block when one-cell series are gathered into the result.
-_ROWS_PER_BLOCK = 32_768
-
 
 @dataclass
 class ZonalWeights:
@@ -117,7 +114,17 @@ class ZonalWeights:
         return total.T, self._valid_fraction(valid_area.T)
 
     def _touched_cells(self) -> tuple[sp.csr_matrix, np.ndarray]:
-        """The matrix restricted to the cells some water body touches, and those cells."""
+        """The matrix restricted to the cells some water body touches, and those cells.
+
+        Computed once per weights object: the pipeline applies the same weights to every
+        block of every variable.
+        """
+        cached = self.__dict__.get("_touched")
+        if cached is None:
+            cached = self.__dict__["_touched"] = self._restrict_to_touched_cells()
+        return cached
+
+    def _restrict_to_touched_cells(self) -> tuple[sp.csr_matrix, np.ndarray]:
         ncell = self.matrix.shape[1]
         used = np.flatnonzero(np.bincount(self.matrix.indices, minlength=ncell))
         renumber = np.zeros(ncell, dtype=self.matrix.indices.dtype)
@@ -134,6 +141,29 @@ class ZonalWeights:
         A water body whose valid part lies in one cell takes that cell's series as it is
         (most ponds); only the others go through the sparse product.
         """
+        plan = self._steady_plan(weights, valid)
+        # np.empty, not zeros: every row is written below, and the kernel's fresh pages are
+        # the dominant cost of a 10^6-pond year
+        means = np.empty((plan.n_rows, series.shape[1]))
+        # One gather pass without temporaries: each row takes its first cell's series; the
+        # rows of several cells are overwritten by the product below.
+        np.take(series, plan.first_cell, axis=0, out=means)
+        if plan.several.size:
+            means[plan.several] = plan.several_weights @ series
+        means[plan.no_cell] = np.nan
+        fraction = np.broadcast_to(plan.fraction, (series.shape[1], plan.n_rows))
+        return means.T, fraction
+
+    def _steady_plan(self, weights: sp.csr_matrix, valid: np.ndarray) -> _SteadyPlan:
+        """Renormalised weights for one missing-cell mask, kept for the next block.
+
+        Most climate grids have the same mask at every step of every block, so this is
+        built once per run instead of once per block.
+        """
+        key = np.packbits(valid).tobytes()
+        cached = self.__dict__.get("_steady")
+        if cached is not None and cached[0] == key:
+            return cached[1]
         valid_area = weights @ valid.astype(np.float64)
         masked = weights.multiply(valid[np.newaxis, :].astype(np.float64)).tocsr()
         masked.eliminate_zeros()
@@ -143,20 +173,18 @@ class ZonalWeights:
         cells_per_row = np.diff(normalised.indptr)
         single = np.flatnonzero(cells_per_row == 1)
         several = np.flatnonzero(cells_per_row > 1)
-        # np.empty, not zeros: every row is written below, and the kernel's fresh pages are
-        # the dominant cost of a 10^6-pond year
-        means = np.empty((normalised.shape[0], series.shape[1]))
-        cell_of_single = normalised.indices[normalised.indptr[single]]
-        for start in range(0, single.size, _ROWS_PER_BLOCK):  # no (n, time) temporary
-            block = slice(start, start + _ROWS_PER_BLOCK)
-            means[single[block]] = series[cell_of_single[block]]
-        if several.size:
-            means[several] = normalised[several] @ series
-        means[cells_per_row == 0] = np.nan
-        fraction = np.broadcast_to(
-            self._valid_fraction(valid_area), (series.shape[1], means.shape[0])
+        first_cell = np.zeros(normalised.shape[0], dtype=np.intp)
+        first_cell[single] = normalised.indices[normalised.indptr[single]]
+        plan = _SteadyPlan(
+            n_rows=normalised.shape[0],
+            first_cell=first_cell,
+            several=several,
+            several_weights=normalised[several],
+            no_cell=cells_per_row == 0,
+            fraction=self._valid_fraction(valid_area),
         )
-        return means.T, fraction
+        self.__dict__["_steady"] = (key, plan)
+        return plan
 
     def _valid_fraction(self, valid_area: np.ndarray) -> np.ndarray:
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -203,6 +231,18 @@ class ZonalWeights:
                 f"weights file {path} is unreadable ({type(exc).__name__}); expected a file "
                 "written by ZonalWeights.save; delete it so it is rebuilt"
             ) from exc
+
+
+@dataclass(frozen=True)
+class _SteadyPlan:
+    """How to average one block when the missing cells do not change with time."""
+
+    n_rows: int
+    first_cell: np.ndarray
+    several: np.ndarray
+    several_weights: sp.csr_matrix
+    no_cell: np.ndarray
+    fraction: np.ndarray
 
 
 def _cell_series(flat_values: np.ndarray, used: np.ndarray) -> np.ndarray:
