@@ -2,9 +2,21 @@
 
 from typing import Any, TypeAlias
 
+import numpy as np
+
 ArrayLike: TypeAlias = Any
 """A scalar, numpy array, pandas or xarray object used with numpy semantics.
 
 numpy.typing.ArrayLike describes what ``np.asarray`` accepts (including strings and nested
 lists), not what supports arithmetic, so the physics uses this looser alias instead.
 """
+
+
+def is_scratch(value: object) -> bool:
+    """Whether ``value`` is a plain numpy array a ufunc just created, safe to overwrite.
+
+    The physics functions overwrite their own temporaries with ``out=`` to save allocations
+    (each fresh large array costs page faults); scalars, 0-d results and xarray or pandas
+    objects keep the plain expression, which gives the same values.
+    """
+    return type(value) is np.ndarray and value.ndim > 0

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from lakeloss.physics._types import ArrayLike
+from lakeloss.physics._types import ArrayLike, is_scratch
 
 KELVIN_OFFSET = 273.15
 """Celsius to kelvin offset [K]. FAO-56 writes 273.16 in places; the difference is negligible."""
@@ -63,7 +63,13 @@ def saturation_vapour_pressure(temperature: ArrayLike) -> ArrayLike:
     Allen et al. (1998), FAO Irrigation and Drainage Paper 56, eq. 11.
     """
     with np.errstate(invalid="ignore", over="ignore"):
-        return _TETENS_E0 * np.exp(_TETENS_A * temperature / (temperature + _TETENS_B))  # Eq. 11
+        ratio = _TETENS_A * temperature
+        if not is_scratch(ratio):
+            return _TETENS_E0 * np.exp(ratio / (temperature + _TETENS_B))  # Eq. 11
+        # Same operations in the same order, written into one buffer.
+        np.divide(ratio, temperature + _TETENS_B, out=ratio)
+        np.exp(ratio, out=ratio)
+        return np.multiply(_TETENS_E0, ratio, out=ratio)  # Eq. 11
 
 
 def saturation_vapour_pressure_slope(temperature: ArrayLike) -> ArrayLike:
@@ -89,8 +95,46 @@ def saturation_vapour_pressure_slope(temperature: ArrayLike) -> ArrayLike:
     ----------
     Allen et al. (1998), FAO-56, eq. 13.
     """
+    return slope_from_saturation_vapour_pressure(
+        saturation_vapour_pressure(temperature), temperature
+    )
+
+
+def slope_from_saturation_vapour_pressure(
+    saturation_vapour_pressure: ArrayLike, temperature: ArrayLike
+) -> ArrayLike:
+    """Δ from an e°(T) already computed at the same temperature.
+
+    Parameters
+    ----------
+    saturation_vapour_pressure : array_like
+        e°(T) from :func:`saturation_vapour_pressure` at ``temperature``. [Pa]
+    temperature : array_like
+        Temperature at which the slope is taken. [°C]
+
+    Returns
+    -------
+    array_like
+        Δ = 4098 e°(T) / (T + 237.3)², identical to :func:`saturation_vapour_pressure_slope`.
+        [Pa K-1]
+
+    Notes
+    -----
+    FAO-56 eq. 13. Lets a caller that needs both e°(T) and Δ evaluate the exponential once.
+
+    References
+    ----------
+    Allen et al. (1998), FAO-56, eq. 13.
+    """
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-        return 4098.0 * saturation_vapour_pressure(temperature) / (temperature + _TETENS_B) ** 2
+        slope = 4098.0 * saturation_vapour_pressure
+        denominator = temperature + _TETENS_B
+        if not (is_scratch(slope) and is_scratch(denominator)) or slope.shape != np.shape(
+            denominator
+        ):
+            return slope / denominator**2  # Eq. 13
+        np.square(denominator, out=denominator)
+        return np.divide(slope, denominator, out=slope)  # Eq. 13
 
 
 def daily_saturation_vapour_pressure(

@@ -80,8 +80,11 @@ def surface_elevation(inputs: Inputs, elevation_m: float) -> ArrayLike:
     return inputs["elevation"] if "elevation" in inputs else elevation_m
 
 
-def vapour_pressure(inputs: Inputs) -> ArrayLike:
+def vapour_pressure(inputs: Inputs, saturation: ArrayLike = None) -> ArrayLike:
     """Actual vapour pressure ea [Pa] from the first available humidity input.
+
+    ``saturation`` is es [Pa] as :func:`saturation_vapour_pressure` would return it, when the
+    caller has it already; it is used only by the mean-RH alternative and saves one e°.
 
     Order (:data:`HUMIDITY_ALTERNATIVES`): vapour pressure given directly; dew point
     (FAO-56 eq. 14); specific humidity with surface pressure; RHmax and RHmin with Tmax and
@@ -107,9 +110,9 @@ def vapour_pressure(inputs: Inputs) -> ArrayLike:
         return atm.vapour_pressure_from_relative_humidity_max(
             inputs["air_temperature_min"], inputs["relative_humidity_max"]
         )
-    return atm.vapour_pressure_from_relative_humidity(
-        saturation_vapour_pressure(inputs), inputs["relative_humidity"]
-    )
+    if saturation is None:
+        saturation = saturation_vapour_pressure(inputs)
+    return atm.vapour_pressure_from_relative_humidity(saturation, inputs["relative_humidity"])
 
 
 def wind_speed_2m(

@@ -166,27 +166,33 @@ class _State:
 
 
 def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _State:
+    # Each intermediate once: e°(T) feeds both Δ and, without Tmax/Tmin, es (and through
+    # it ea from mean RH); ea feeds the deficit, ρa and the longwave term.
     temperature = frc.mean_temperature(inputs)
     latent_heat = atm.latent_heat_of_vaporisation(temperature)
     pressure = frc.surface_pressure(inputs, float(params.get("elevation_m", 0.0)))
-    ea = frc.vapour_pressure(inputs) if humidity else math.nan
+    e_sat_mean = atm.saturation_vapour_pressure(temperature)
+    es = e_sat_mean if "air_temperature" in inputs else frc.saturation_vapour_pressure(inputs)
+    ea = frc.vapour_pressure(inputs, es) if humidity else math.nan
     return _State(
         temperature=temperature,
         vapour_pressure=ea,
-        deficit=frc.saturation_vapour_pressure(inputs) - ea if humidity else math.nan,
+        deficit=es - ea if humidity else math.nan,
         pressure=pressure,
         latent_heat=latent_heat,
-        slope=atm.saturation_vapour_pressure_slope(temperature),
+        slope=atm.slope_from_saturation_vapour_pressure(e_sat_mean, temperature),
         gamma=atm.psychrometric_constant(pressure, latent_heat),
     )
 
 
-def _net_radiation(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
+def _net_radiation(
+    inputs: frc.Inputs, params: _Checked, vapour_pressure: ArrayLike = None
+) -> ArrayLike:
+    """Rn [W m-2]; ``vapour_pressure`` is ea when the caller already has it."""
     if "surface_net_downward_radiative_flux" in inputs:
         return inputs["surface_net_downward_radiative_flux"]
-    return frc.net_radiation(
-        inputs, frc.vapour_pressure(inputs), float(params["albedo"]), float(params["elevation_m"])
-    )
+    ea = frc.vapour_pressure(inputs) if vapour_pressure is None else vapour_pressure
+    return frc.net_radiation(inputs, ea, float(params["albedo"]), float(params["elevation_m"]))
 
 
 def _wind_2m(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
@@ -235,7 +241,9 @@ def _aerodynamic(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
 def _combination(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
     state = _state(inputs, params)
     energy = mth.energy_balance_evaporation(
-        _net_radiation(inputs, params), state.latent_heat, frc.heat_storage_flux(inputs)
+        _net_radiation(inputs, params, state.vapour_pressure),
+        state.latent_heat,
+        frc.heat_storage_flux(inputs),
     )
     return mth.combination_evaporation(
         energy, _aerodynamic_rate(inputs, params, state), state.slope, state.gamma
@@ -243,9 +251,10 @@ def _combination(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
 
 
 def _priestley_taylor(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
-    state = _state(inputs, params, humidity=False)
+    humidity = "surface_net_downward_radiative_flux" not in inputs  # only the longwave needs ea
+    state = _state(inputs, params, humidity=humidity)
     return mth.priestley_taylor_evaporation(
-        _net_radiation(inputs, params),
+        _net_radiation(inputs, params, state.vapour_pressure if humidity else None),
         state.slope,
         state.gamma,
         state.latent_heat,
@@ -258,7 +267,7 @@ def _penman_with(
     inputs: frc.Inputs, params: _Checked, wind_function: ArrayLike, state: _State
 ) -> ArrayLike:
     return mth.penman_evaporation(
-        _net_radiation(inputs, params),
+        _net_radiation(inputs, params, state.vapour_pressure),
         state.deficit,
         wind_function,
         state.slope,
@@ -289,7 +298,7 @@ def _penman_monteith(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
         float(params["von_karman"]),
     )  # fmt: skip
     return mth.penman_monteith_open_water_evaporation(
-        _net_radiation(inputs, params),
+        _net_radiation(inputs, params, state.vapour_pressure),
         state.deficit,
         resistance,
         atm.air_density(state.temperature, state.pressure, state.vapour_pressure),
