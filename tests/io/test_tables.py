@@ -172,3 +172,28 @@ def test_numpy_datetimes_date_or_time_and_nat(tmp_path):
     path = tmp_path / "t.csv"
     write_csv(path, frame)
     assert path.read_text() == "day,hour\n2001-01-01,2001-01-01T06:00:00\n,2001-01-01T00:00:00\n"
+
+
+def test_negative_zeros_nan_and_infinities_exact(tmp_path):
+    # Tiny negatives print as zero at the given decimals; -0.0006 still rounds to -0.001.
+    values = [-0.0, -0.0004, -0.0006, np.nan, np.inf, -np.inf, -0.4, 1.0005]
+    frame = pd.DataFrame({"three": values, "none": values, "zero": values})
+    write_csv(tmp_path / "z.csv", frame, decimals={"three": 3, "zero": 0})
+    rows = (tmp_path / "z.csv").read_text(encoding="utf-8").splitlines()[1:]
+    assert rows == [
+        "0.000,-0.0,0",
+        "0.000,-0.0004,0",
+        "-0.001,-0.0006,0",
+        ",,",
+        "inf,inf,inf",
+        "-inf,-inf,-inf",
+        "-0.400,-0.4,0",
+        "1.000,1.0005,1",
+    ]
+
+
+def test_string_column_quoting_and_missing(tmp_path):
+    texts = pd.array(["plain", "a,b", 'say "hi"', "two\nlines", "cr\r", None, ""], dtype="str")
+    write_csv(tmp_path / "s.csv", pd.DataFrame({"name": texts}))
+    body = (tmp_path / "s.csv").read_bytes().decode("utf-8")
+    assert body == 'name\nplain\n"a,b"\n"say ""hi"""\n"two\nlines"\n"cr\r"\n\n\n'
