@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from lakeloss.physics._types import ArrayLike, is_scratch
+from lakeloss.physics._types import ArrayLike, apply_into, is_scratch
 
 KELVIN_OFFSET = 273.15
 """Celsius to kelvin offset [K]. FAO-56 writes 273.16 in places; the difference is negligible."""
@@ -420,7 +420,8 @@ def latent_heat_of_vaporisation(temperature: ArrayLike) -> ArrayLike:
     ----------
     Chow, Maidment & Mays (1988), Applied Hydrology, eq. 2.7.6.
     """
-    return 2.501e6 - 2370.0 * temperature  # Eq. 2.7.6
+    term = 2370.0 * temperature
+    return apply_into(np.subtract, 2.501e6, term, term)  # Eq. 2.7.6
 
 
 def water_density(temperature: ArrayLike) -> ArrayLike:
@@ -481,10 +482,20 @@ def air_density(
     ----------
     Allen et al. (1998), FAO-56, Annex 3, eqs. 3-5 and 3-6.
     """
-    virtual_temperature = (air_temperature + KELVIN_OFFSET) / (  # Eq. 3-6
-        1.0 - 0.378 * vapour_pressure / surface_air_pressure
+    # apply_into: the same operations in the same order, reusing this function's temporaries.
+    humidity_term = 0.378 * vapour_pressure
+    humidity_term = apply_into(np.divide, humidity_term, surface_air_pressure, humidity_term)
+    humidity_term = apply_into(np.subtract, 1.0, humidity_term, humidity_term)
+    virtual_temperature = air_temperature + KELVIN_OFFSET
+    virtual_temperature = apply_into(  # Eq. 3-6
+        np.divide, virtual_temperature, humidity_term, virtual_temperature
     )
-    return surface_air_pressure / (GAS_CONSTANT_DRY_AIR * virtual_temperature)  # Eq. 3-5
+    virtual_temperature = apply_into(
+        np.multiply, GAS_CONSTANT_DRY_AIR, virtual_temperature, virtual_temperature
+    )
+    return apply_into(  # Eq. 3-5
+        np.divide, surface_air_pressure, virtual_temperature, virtual_temperature
+    )
 
 
 def pressure_from_elevation(elevation: ArrayLike) -> ArrayLike:
@@ -542,7 +553,10 @@ def psychrometric_constant(
     ----------
     Allen et al. (1998), FAO-56, eq. 8.
     """
-    return specific_heat * surface_air_pressure / (WATER_VAPOUR_RATIO * latent_heat)  # Eq. 8
+    denominator = WATER_VAPOUR_RATIO * latent_heat
+    return apply_into(  # Eq. 8
+        np.divide, specific_heat * surface_air_pressure, denominator, denominator
+    )
 
 
 def wind_speed_log_profile(

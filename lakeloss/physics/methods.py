@@ -9,7 +9,9 @@ computed. A mass flux becomes a depth with ρw = 1000 kg m-3 unless stated (METH
 
 from __future__ import annotations
 
-from lakeloss.physics._types import ArrayLike
+import numpy as np
+
+from lakeloss.physics._types import ArrayLike, apply_into
 from lakeloss.physics.atmosphere import SPECIFIC_HEAT_AIR
 from lakeloss.physics.radiation import SECONDS_PER_DAY
 
@@ -51,8 +53,12 @@ def energy_balance_evaporation(
     Chow, Maidment & Mays (1988), Applied Hydrology, §3.5 (eq. 3.5.9 or 3.5.10 per
     secondary sources; check against the primary text).
     """
-    mass_flux = (net_radiation - heat_storage_flux) / latent_heat  # [kg m-2 s-1]
-    return mass_flux / water_density * SECONDS_PER_DAY * MM_PER_M
+    # apply_into: the same operations in the same order, reusing this function's temporaries.
+    mass_flux = net_radiation - heat_storage_flux
+    mass_flux = apply_into(np.divide, mass_flux, latent_heat, mass_flux)  # [kg m-2 s-1]
+    depth = apply_into(np.divide, mass_flux, water_density, mass_flux)
+    depth = apply_into(np.multiply, depth, SECONDS_PER_DAY, depth)
+    return apply_into(np.multiply, depth, MM_PER_M, depth)
 
 
 def aerodynamic_evaporation(
@@ -241,10 +247,13 @@ def penman_evaporation(
     (check against the primary text).
     """
     radiative = energy_balance_evaporation(net_radiation, latent_heat, heat_storage_flux)
-    aerodynamic = wind_function * vapour_pressure_deficit / 1000.0  # D in kPa
-    return (slope * radiative + psychrometric_constant * aerodynamic) / (
-        slope + psychrometric_constant
-    )
+    aerodynamic = wind_function * vapour_pressure_deficit
+    aerodynamic = apply_into(np.divide, aerodynamic, 1000.0, aerodynamic)  # D in kPa
+    # (Δ Er + γ Ea) / (Δ + γ), reusing the temporaries above.
+    radiative = apply_into(np.multiply, slope, radiative, radiative)
+    aerodynamic = apply_into(np.multiply, psychrometric_constant, aerodynamic, aerodynamic)
+    total = apply_into(np.add, radiative, aerodynamic, radiative)
+    return apply_into(np.divide, total, slope + psychrometric_constant, total)
 
 
 def penman_monteith_open_water_evaporation(
@@ -295,10 +304,18 @@ def penman_monteith_open_water_evaporation(
     ----------
     Allen et al. (1998), FAO-56, eq. 3 (from memory).
     """
-    energy = slope * (net_radiation - heat_storage_flux)
-    ventilation = air_density * specific_heat * vapour_pressure_deficit / aerodynamic_resistance
-    mass_flux = (energy + ventilation) / (latent_heat * (slope + psychrometric_constant))  # Eq. 3
-    return mass_flux * SECONDS_PER_DAY  # kg m-2 day-1 = mm day-1 with ρw = 1000
+    # apply_into: the same operations in the same order, reusing this function's temporaries.
+    available = net_radiation - heat_storage_flux
+    energy = apply_into(np.multiply, slope, available, available)
+    ventilation = air_density * specific_heat
+    ventilation = apply_into(np.multiply, ventilation, vapour_pressure_deficit, ventilation)
+    ventilation = apply_into(np.divide, ventilation, aerodynamic_resistance, ventilation)
+    denominator = slope + psychrometric_constant
+    denominator = apply_into(np.multiply, latent_heat, denominator, denominator)
+    mass_flux = apply_into(np.add, energy, ventilation, energy)
+    mass_flux = apply_into(np.divide, mass_flux, denominator, mass_flux)  # Eq. 3
+    # kg m-2 day-1 = mm day-1 with ρw = 1000
+    return apply_into(np.multiply, mass_flux, SECONDS_PER_DAY, mass_flux)
 
 
 def pan_coefficient_evaporation(

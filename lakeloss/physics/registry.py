@@ -555,4 +555,11 @@ def evaporate(
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         rate = np.asarray(spec.compute(arrays, checked), dtype=float)
     shape = np.broadcast_shapes(rate.shape, *_used_shapes(spec, arrays))
+    if (
+        rate.shape == shape
+        and rate.flags.writeable
+        and rate.flags.owndata
+        and not any(np.may_share_memory(rate, value) for value in arrays.values())
+    ):
+        return rate  # already a fresh array of the full shape; a copy would only cost time
     return np.array(np.broadcast_to(rate, shape))

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from lakeloss.physics._types import ArrayLike
+from lakeloss.physics._types import ArrayLike, apply_into
 from lakeloss.physics.atmosphere import WATER_VAPOUR_RATIO
 
 VON_KARMAN = 0.4
@@ -75,7 +75,11 @@ def shuttleworth_wind_function(wind_speed_2m: ArrayLike, latent_heat: ArrayLike)
     Shuttleworth, W.J. (1993), Evaporation, in Handbook of Hydrology, eq. 4.2.30 (check
     against the primary text).
     """
-    return 6.43 * (1.0 + 0.536 * wind_speed_2m) / (latent_heat / 1.0e6)  # Eq. 4.2.30
+    # apply_into: the same operations in the same order, reusing this function's temporaries.
+    factor = 0.536 * wind_speed_2m
+    factor = apply_into(np.add, 1.0, factor, factor)
+    factor = apply_into(np.multiply, 6.43, factor, factor)
+    return apply_into(np.divide, factor, latent_heat / 1.0e6, factor)  # Eq. 4.2.30
 
 
 def characteristic_length(area: ArrayLike) -> ArrayLike:
