@@ -6,6 +6,8 @@ The scenario is invented: uniform random weather over a 90° latitude band.
 
     python benchmarks/physics.py                    # (16, 10^6)
     python benchmarks/physics.py --bodies 100000 --repeat 5
+    git archive <commit> lakeloss | tar -x -C /tmp/before   # the code before a change
+    python benchmarks/physics.py --lakeloss-path /tmp/before
 
 Each method is timed ``--repeat`` times single-threaded and the best time is printed, with
 the cost per body-step. Run it on the code before and after a change to get the ratio.
@@ -14,11 +16,12 @@ the cost per body-step. Run it on the code before and after a change to get the 
 from __future__ import annotations
 
 import argparse
+import importlib
+import sys
 import time
+from types import ModuleType
 
 import numpy as np
-
-from lakeloss.physics import registry
 
 
 def make_inputs(steps: int, bodies: int, seed: int = 7) -> dict[str, np.ndarray]:
@@ -38,7 +41,23 @@ def make_inputs(steps: int, bodies: int, seed: int = 7) -> dict[str, np.ndarray]
     }
 
 
-def time_method(name: str, inputs: dict[str, np.ndarray], repeat: int) -> float:
+def load_registry(lakeloss_path: str | None) -> ModuleType:
+    """``lakeloss.physics.registry``, from the directory holding a ``lakeloss`` package when
+    given (the editable install's import hook is bypassed for that), else the installed one."""
+    if lakeloss_path is not None:
+        # setuptools' editable hook (a finder class on sys.meta_path) would win over sys.path.
+        sys.meta_path[:] = [
+            finder
+            for finder in sys.meta_path
+            if "__editable__" not in getattr(finder, "__module__", "")
+        ]
+        sys.path.insert(0, lakeloss_path)
+    return importlib.import_module("lakeloss.physics.registry")
+
+
+def time_method(
+    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], repeat: int
+) -> float:
     """Best wall time of ``repeat`` calls of ``registry.evaporate(name, inputs)`` [s]."""
     best = float("inf")
     for _ in range(repeat):
@@ -54,13 +73,16 @@ def main() -> None:
     parser.add_argument("--steps", type=int, default=16)
     parser.add_argument("--bodies", type=int, default=1_000_000)
     parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--lakeloss-path", default=None, help="directory holding lakeloss/")
     args = parser.parse_args()
+    registry = load_registry(args.lakeloss_path)
     inputs = make_inputs(args.steps, args.bodies)
     cells = args.steps * args.bodies
+    print(f"lakeloss from {registry.__file__}")
     print(f"shape ({args.steps}, {args.bodies}), best of {args.repeat}")
     print(f"{'method':<28} {'s/call':>8} {'ns/body-step':>13}")
     for name in registry.method_names():
-        seconds = time_method(name, inputs, args.repeat)
+        seconds = time_method(registry, name, inputs, args.repeat)
         print(f"{name:<28} {seconds:8.3f} {seconds / cells * 1e9:13.1f}")
 
 
