@@ -271,35 +271,60 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
 
 
 def _summaries(
-    config: RunConfig, bodies: Any, by_period: pd.DataFrame, id_field: str
+    config: RunConfig, bodies: Any, by_period: pd.DataFrame, n_periods: int
 ) -> tuple[pd.DataFrame, pd.DataFrame | None]:
-    area = bodies.set_index(id_field)["area_m2"]
-    table = by_period.assign(area_m2=by_period[id_field].map(area))
-    table["precip_m3"] = table["precip_mm"] * table["area_m2"] / 1000.0
-    valid = table["evap_mm"].notna()
+    """Totals per period (and per group and period) of the period table.
+
+    ``by_period`` must be laid out as :func:`_period_table` builds it: ``n_periods`` rows per
+    water body, bodies in the order of ``bodies``, periods in time order. Rows are then
+    matched to bodies and periods by position and grouped by integer period codes, which
+    for 10^7 rows is several times faster than looking up ids and grouping by date text.
+    """
+    n = len(bodies)
+    body_of_row = np.repeat(np.arange(n), n_periods)
+    area = bodies["area_m2"].to_numpy(dtype=float)[body_of_row]
+    valid = by_period["evap_mm"].notna().to_numpy()
     keys = ["period_start", "period_end", "days"]
-
-    volumes = ["area_m2", "evap_m3", "precip_m3", "net_m3"]
-
-    def totals(frame: pd.DataFrame, by: list[str]) -> pd.DataFrame:
-        # Every period (and group) keeps its row, so one with no valid water body shows
-        # n_waterbodies = 0 and empty totals instead of vanishing from the table.
-        in_total = valid.loc[frame.index]
-        masked = frame[by].assign(
-            n_waterbodies=in_total.astype(np.int64),
-            **{c: frame[c].where(in_total) for c in volumes},
-        )
-        out = masked.groupby(by, sort=True, dropna=False).sum()
-        out.loc[out["n_waterbodies"] == 0, volumes] = np.nan
-        return out[["n_waterbodies", *volumes]].reset_index()
-
-    by_period_total = totals(table, keys)
+    periods = by_period[keys].iloc[:n_periods].reset_index(drop=True)
+    columns = {
+        "area_m2": area,
+        "evap_m3": by_period["evap_m3"].to_numpy(dtype=float, na_value=np.nan),
+        "precip_m3": by_period["precip_mm"].to_numpy(dtype=float, na_value=np.nan) * area / 1000.0,
+        "net_m3": by_period["net_m3"].to_numpy(dtype=float, na_value=np.nan),
+    }
+    # Every period (and group) keeps its row, so one with no valid water body shows
+    # n_waterbodies = 0 and empty totals instead of vanishing from the table.
+    masked = pd.DataFrame(
+        {
+            "_period": np.tile(np.arange(n_periods), n),
+            "n_waterbodies": valid.astype(np.int64),
+            **{c: np.where(valid, v, np.nan) for c, v in columns.items()},
+        }
+    )
+    by_period_total = _totals(masked, [], periods)
     by_group = None
     if config.waterbodies.group_by:
-        groups = bodies.set_index(id_field)[list(config.waterbodies.group_by)]
-        grouped = table.join(groups, on=id_field)
-        by_group = totals(grouped, [*config.waterbodies.group_by, *keys])
+        group_by = list(config.waterbodies.group_by)
+        for name in group_by:
+            masked[name] = bodies[name].array.take(body_of_row)
+        by_group = _totals(masked, group_by, periods)
     return by_period_total, by_group
+
+
+def _totals(masked: pd.DataFrame, by: list[str], periods: pd.DataFrame) -> pd.DataFrame:
+    """Sums per ``by`` values and period code, the code replaced by the period's key columns.
+
+    Period codes count in time order, so sorting by them orders rows as sorting by the ISO
+    date text did.
+    """
+    volumes = ["area_m2", "evap_m3", "precip_m3", "net_m3"]
+    out = masked[[*by, "_period", "n_waterbodies", *volumes]]
+    out = out.groupby([*by, "_period"], sort=True, dropna=False).sum().reset_index()
+    out.loc[out["n_waterbodies"] == 0, volumes] = np.nan
+    keys = periods.take(out["_period"].to_numpy()).reset_index(drop=True)
+    return pd.concat(
+        [out[by].reset_index(drop=True), keys, out[["n_waterbodies", *volumes]]], axis=1
+    )
 
 
 SERIES_VARIABLES: dict[str, dict[str, str]] = {
@@ -370,7 +395,9 @@ def assemble(
     """Build the result tables and the provenance from the period sums."""
     bodies = _body_table(config, inputs, weights, sums)
     by_period = _period_table(config, inputs, weights, sums)
-    summary_period, summary_group = _summaries(config, bodies, by_period, inputs.layer.id_field)
+    summary_period, summary_group = _summaries(
+        config, bodies, by_period, len(inputs.periods.starts)
+    )
     flags = bodies["qa_flags"]
     provenance = {
         "lakeloss_version": __version__,

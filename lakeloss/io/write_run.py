@@ -9,6 +9,7 @@ Files (the names are a contract other tools rely on; see README, "Outputs"):
 from __future__ import annotations
 
 import shutil
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
@@ -56,28 +57,42 @@ def _write_series(series: Any, target: Path) -> None:
 
 
 def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
-    """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``."""
+    """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``.
+
+    The GeoPackage is written in a second thread while this one writes the CSVs: SQLite and
+    GDAL release the GIL while they work, so on two cores the CSV formatting overlaps with
+    them. Both finish (or fail) before the staging directory is committed or removed.
+    """
     with OutputDirectory(target, overwrite=overwrite) as staging:
-        write_geopackage(
-            staging / "waterbodies.gpkg",
-            [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
-            fields=result.field_info,
-            metadata=result.provenance,
-        )
-        body = _body_csv(result)
-        write_csv(staging / "summary_by_waterbody.csv", body, decimals=_decimals(body.columns))
-        write_csv(
-            staging / "summary_by_period.csv",
-            result.summary_by_period,
-            decimals=_decimals(result.summary_by_period.columns),
-        )
-        if result.summary_by_group is not None:
-            write_csv(
-                staging / "summary_by_group.csv",
-                result.summary_by_group,
-                decimals=_decimals(result.summary_by_group.columns),
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="lakeloss-gpkg") as pool:
+            geopackage = pool.submit(
+                write_geopackage,
+                staging / "waterbodies.gpkg",
+                [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
+                fields=result.field_info,
+                metadata=result.provenance,
             )
-        if result.series is not None:
-            _write_series(result.series, staging / "series.nc")
+            _write_tables(result, staging)
+            # Leaving the pool waits for the thread even when the CSVs failed.
+            geopackage.result()
         write_json(staging / "run.json", result.provenance)
     return Path(target)
+
+
+def _write_tables(result: Any, staging: Path) -> None:
+    """The CSVs and the optional series file."""
+    body = _body_csv(result)
+    write_csv(staging / "summary_by_waterbody.csv", body, decimals=_decimals(body.columns))
+    write_csv(
+        staging / "summary_by_period.csv",
+        result.summary_by_period,
+        decimals=_decimals(result.summary_by_period.columns),
+    )
+    if result.summary_by_group is not None:
+        write_csv(
+            staging / "summary_by_group.csv",
+            result.summary_by_group,
+            decimals=_decimals(result.summary_by_group.columns),
+        )
+    if result.series is not None:
+        _write_series(result.series, staging / "series.nc")
