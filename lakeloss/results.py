@@ -249,7 +249,9 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     first = next(iter(weights.values()))
     periods = inputs.periods
     n_periods, n = sums.depth[config.method.name].shape
-    ids = inputs.layer.frame[inputs.layer.id_field].to_numpy()
+    ids = inputs.layer.frame[inputs.layer.id_field]
+    body_of_row = np.repeat(np.arange(n), n_periods)
+    period_of_row = np.tile(np.arange(n_periods), n)
     evap = sums.depth[config.method.name]
     precip = sums.precip if config.output.precipitation else np.full((n_periods, n), np.nan)
     area = first.polygon_area_m2[None, :]
@@ -257,10 +259,11 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     # n_periods x n rows is needed.
     return pd.DataFrame(
         {
-            inputs.layer.id_field: np.repeat(ids, n_periods),
-            "period_start": np.tile(np.asarray(periods.starts, dtype=object), n),
-            "period_end": np.tile(np.asarray(periods.ends, dtype=object), n),
-            "days": np.tile(np.rint(periods.days).astype(np.int64), n),
+            inputs.layer.id_field: _repeat_rows(ids, body_of_row),
+            # Text columns taken from a 12-value string array, not 10^7 Python objects.
+            "period_start": pd.array(periods.starts, dtype="str").take(period_of_row),
+            "period_end": pd.array(periods.ends, dtype="str").take(period_of_row),
+            "days": np.rint(periods.days).astype(np.int64)[period_of_row],
             "evap_mm": evap.T.ravel(),
             "evap_m3": (evap * area / 1000.0).T.ravel(),
             "precip_mm": precip.T.ravel(),
@@ -268,6 +271,13 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
             "net_m3": ((evap - precip) * area / 1000.0).T.ravel(),
         }
     )
+
+
+def _repeat_rows(values: pd.Series, rows: np.ndarray) -> Any:
+    """``values`` at positions ``rows``; string columns stay string arrays (no objects)."""
+    if isinstance(values.dtype, pd.StringDtype):
+        return values.array.take(rows)
+    return values.to_numpy()[rows]
 
 
 def _summaries(
