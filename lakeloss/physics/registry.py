@@ -158,11 +158,16 @@ _RADIATION_OPTIONAL = (
 class _State:
     temperature: ArrayLike  # [°C]
     vapour_pressure: ArrayLike  # [Pa]
-    deficit: ArrayLike  # [Pa]
+    saturation: ArrayLike  # es [Pa]
     pressure: ArrayLike  # [Pa]
     latent_heat: ArrayLike  # [J kg-1]
     slope: ArrayLike  # [Pa K-1]
     gamma: ArrayLike  # [Pa K-1]
+
+    @property
+    def deficit(self) -> ArrayLike:
+        """es - ea [Pa], computed on use: each method reads it once, some never."""
+        return self.saturation - self.vapour_pressure
 
 
 def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _State:
@@ -177,7 +182,7 @@ def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _Stat
     return _State(
         temperature=temperature,
         vapour_pressure=ea,
-        deficit=es - ea if humidity else math.nan,
+        saturation=es,
         pressure=pressure,
         latent_heat=latent_heat,
         slope=atm.slope_from_saturation_vapour_pressure(e_sat_mean, temperature),
