@@ -7,16 +7,22 @@ The scenario is invented: uniform random weather over a 90° latitude band.
     python benchmarks/physics.py                    # (16, 10^6)
     python benchmarks/physics.py --bodies 100000 --repeat 5
     git archive <commit> lakeloss | tar -x -C /tmp/before   # the code before a change
-    python benchmarks/physics.py --lakeloss-path /tmp/before
+    python benchmarks/physics.py --lakeloss-path /tmp/before  # time that tree alone
+    python benchmarks/physics.py --before /tmp/before --rounds 2
 
-Each method is timed ``--repeat`` times single-threaded and the best time is printed, with
-the cost per body-step. Run it on the code before and after a change to get the ratio.
+Each method is timed ``--repeat`` times and the best time is printed, with the cost per
+body-step. ``--before`` runs the exported tree and the current code in alternating
+subprocesses (``--rounds`` times each, best kept, so that load from other processes hits
+both alike) and prints before, after and their ratio, then the same as markdown rows for
+benchmarks/README.md.
 """
 
 from __future__ import annotations
 
 import argparse
 import importlib
+import json
+import subprocess
 import sys
 import time
 from types import ModuleType
@@ -67,23 +73,70 @@ def time_method(
     return best
 
 
+def run_here(args: argparse.Namespace) -> dict[str, float]:
+    """Time every method in this process; print the table unless ``--json``."""
+    registry = load_registry(args.lakeloss_path)
+    inputs = make_inputs(args.steps, args.bodies)
+    cells = args.steps * args.bodies
+    if not args.json:
+        print(f"lakeloss from {registry.__file__}")
+        print(f"shape ({args.steps}, {args.bodies}), best of {args.repeat}")
+        print(f"{'method':<28} {'s/call':>8} {'ns/body-step':>13}")
+    times = {}
+    for name in registry.method_names():
+        times[name] = time_method(registry, name, inputs, args.repeat)
+        if not args.json:
+            print(f"{name:<28} {times[name]:8.3f} {times[name] / cells * 1e9:13.1f}")
+    return times
+
+
+def _subprocess_times(args: argparse.Namespace, lakeloss_path: str | None) -> dict[str, float]:
+    command = [sys.executable, __file__, "--json", "--steps", str(args.steps)]
+    command += ["--bodies", str(args.bodies), "--repeat", str(args.repeat)]
+    if lakeloss_path is not None:
+        command += ["--lakeloss-path", lakeloss_path]
+    result = subprocess.run(command, check=True, capture_output=True, text=True)
+    return json.loads(result.stdout)
+
+
+def compare(args: argparse.Namespace) -> None:
+    """Before (``--before`` tree) and after (current code), best over alternating rounds."""
+    before: dict[str, float] = {}
+    after: dict[str, float] = {}
+    for _ in range(args.rounds):
+        for best, path in ((before, args.before), (after, None)):
+            for name, seconds in _subprocess_times(args, path).items():
+                best[name] = min(best.get(name, float("inf")), seconds)
+    cells = args.steps * args.bodies
+    print(f"shape ({args.steps}, {args.bodies}), best of {args.repeat} x {args.rounds} rounds")
+    print(f"{'method':<28} {'before s':>9} {'after s':>8} {'ratio':>6} {'after ns/b-s':>13}")
+    for name, old in before.items():
+        new = after[name]
+        print(f"{name:<28} {old:9.3f} {new:8.3f} {old / new:6.2f} {new / cells * 1e9:13.1f}")
+    print("\n| method | before s | after s | before/after | after ns per body-step |")
+    print("|---|---|---|---|---|")
+    for name, old in before.items():
+        new = after[name]
+        print(f"| {name} | {old:.3g} | {new:.3g} | {old / new:.2f} | {new / cells * 1e9:.3g} |")
+
+
 def main() -> None:
-    """Print one line per method: seconds per call and nanoseconds per body-step."""
+    """Print one line per method, or the before/after comparison with ``--before``."""
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--steps", type=int, default=16)
     parser.add_argument("--bodies", type=int, default=1_000_000)
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--lakeloss-path", default=None, help="directory holding lakeloss/")
+    parser.add_argument("--before", default=None, help="older tree to compare against")
+    parser.add_argument("--rounds", type=int, default=2)
+    parser.add_argument("--json", action="store_true", help="print the times as JSON only")
     args = parser.parse_args()
-    registry = load_registry(args.lakeloss_path)
-    inputs = make_inputs(args.steps, args.bodies)
-    cells = args.steps * args.bodies
-    print(f"lakeloss from {registry.__file__}")
-    print(f"shape ({args.steps}, {args.bodies}), best of {args.repeat}")
-    print(f"{'method':<28} {'s/call':>8} {'ns/body-step':>13}")
-    for name in registry.method_names():
-        seconds = time_method(registry, name, inputs, args.repeat)
-        print(f"{name:<28} {seconds:8.3f} {seconds / cells * 1e9:13.1f}")
+    if args.before is not None:
+        compare(args)
+        return
+    times = run_here(args)
+    if args.json:
+        print(json.dumps(times))
 
 
 if __name__ == "__main__":
