@@ -344,3 +344,34 @@ def test_reading_leaves_no_sidecar_file(written):
     pyogrio.read_dataframe(written, layer="evaporation_by_period")
     pyogrio.read_info(written, layer="waterbodies")
     assert sorted(p.name for p in written.parent.iterdir()) == before
+
+
+@pytest.mark.parametrize(
+    "extra",
+    [
+        pytest.param({}, id="numbers-and-text"),  # written through GDAL's Arrow path
+        pytest.param({"surveyed": [True, False]}, id="with-booleans"),
+        pytest.param({"filled": pd.to_datetime(["2001-01-01", "2001-02-01"])}, id="with-dates"),
+    ],
+)
+def test_layer_field_types_whichever_gdal_path(tmp_path, extra):
+    frame = gpd.GeoDataFrame(
+        {
+            "pond_id": pd.array(["A", "B"], dtype="str"),
+            "depth_m": [1.5, np.nan],
+            "rank": np.array([2, 1], dtype=np.int64),
+            **extra,
+        },
+        geometry=[box(0, 0, 1, 1), box(2, 0, 3, 1)],
+        crs="EPSG:3577",
+    )
+    path = tmp_path / "t.gpkg"
+    write_geopackage(path, [("ponds", frame)], fields={}, metadata={})
+    with sqlite3.connect(path) as con:
+        types = {row[1]: row[2] for row in con.execute("PRAGMA table_info('ponds')")}
+    expected = {"pond_id": "TEXT", "depth_m": "REAL", "rank": "INTEGER"}
+    expected.update({k: {"surveyed": "BOOLEAN", "filled": "DATETIME"}[k] for k in extra})
+    assert {k: types[k] for k in expected} == expected
+    back = pyogrio.read_dataframe(path, layer="ponds")
+    assert back["pond_id"].tolist() == ["A", "B"]
+    assert back["rank"].tolist() == [2, 1]
