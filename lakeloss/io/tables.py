@@ -171,8 +171,8 @@ def _format_floats(values: np.ndarray, decimals: int | None) -> list[str]:
         for i in np.flatnonzero(np.signbit(values) & (np.abs(values) < 10.0 ** -int(decimals))):
             if texts[i] == negative_zero:
                 texts[i] = zero
-    for i in np.flatnonzero(np.isnan(values)).tolist():
-        texts[i] = ""
+    for missing in np.flatnonzero(np.isnan(values)).tolist():
+        texts[missing] = ""
     return texts
 
 
