@@ -117,13 +117,16 @@ def exactextract_means(grid, frame, values):
     return table[[f"b{t}_area_weighted_mean" for t in range(values.shape[0])]].to_numpy().T
 
 
-def apply_in_blocks(weights, values: np.ndarray, steps: int) -> np.ndarray:
-    """Apply ``steps`` time steps at a time and sum the means, as the pipeline does."""
-    total = np.zeros(weights.n_waterbodies)
+def apply_in_blocks(weights, values: np.ndarray, steps: int) -> int:
+    """Apply ``steps`` time steps at a time, as the pipeline does, keeping no result."""
+    count = 0
+    buffer = np.empty((weights.n_waterbodies, steps))  # reused, as the pipeline does
     for start in range(0, values.shape[0], steps):
-        means, _ = weights.apply(values[start : start + steps])
-        total += np.nansum(means, axis=0)
-    return total
+        block = values[start : start + steps]
+        out = buffer if block.shape[0] == steps else None
+        means, _ = weights.apply(block, out=out)
+        count += means.shape[0]
+    return count
 
 
 def run_one(n_ponds: int, steps: int, ee_weights: bool, ee_mean: bool) -> dict:

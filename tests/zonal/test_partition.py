@@ -87,3 +87,20 @@ def test_block_build_on_a_local_cluster_equals_local_blocks():
         remote = build_weights_in_blocks(layer, GRID, block_size=9, map_blocks=on_cluster)
     assert (local.matrix != remote.matrix).nnz == 0  # bit-identical
     np.testing.assert_array_equal(local.polygon_area_m2, remote.polygon_area_m2)
+
+
+@QUIET
+def test_apply_into_a_reused_buffer_equals_fresh_results():
+    layer = _layer()
+    weights = build_weights(layer, GRID)
+    rng = np.random.default_rng(3)
+    values = rng.uniform(0.0, 10.0, (4, len(LAT), len(LON)))
+    values[:, 0, 0] = np.nan  # a steady missing cell
+    fresh, fresh_valid = weights.apply(values)
+    buffer = np.full((weights.n_waterbodies, 4), -1.0)
+    reused, reused_valid = weights.apply(values, out=buffer)
+    np.testing.assert_array_equal(reused, fresh)
+    np.testing.assert_array_equal(reused_valid, fresh_valid)
+    assert np.shares_memory(reused, buffer)
+    again, _ = weights.apply(values * 2.0, out=buffer)  # the next block overwrites it
+    np.testing.assert_array_equal(again, fresh * 2.0)
