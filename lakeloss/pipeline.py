@@ -23,6 +23,7 @@ import threading
 import time
 import warnings
 from collections.abc import Callable, Iterator, Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -693,9 +694,21 @@ def run_stages(
     config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
 ) -> Any:
     """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
-    from lakeloss.results import assemble
+    from lakeloss.results import inputs_provenance
 
     config = load_config(config)
+    # Hashing the inputs for run.json reads every file once more (GBs for a big run):
+    # do it in the background, beside the stages; hashlib releases the GIL.
+    with ThreadPoolExecutor(max_workers=1) as hasher:
+        record = hasher.submit(inputs_provenance, config)
+        return _stages(config, progress, series, record)
+
+
+def _stages(
+    config: RunConfig, progress: ProgressFactory | None, series: bool | None, record: Any
+) -> Any:
+    from lakeloss.results import assemble
+
     timer = Timer()
     with timer.stage("load"):
         inputs = load_inputs(config)
@@ -729,6 +742,7 @@ def run_stages(
             timer.seconds,
             series=collector.dataset() if collector else None,
             weights_cached=cached,
+            inputs_record=record.result(),
         )
     return result
 

@@ -364,7 +364,8 @@ def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo
     return {"waterbodies": body, "evaporation_by_period": period}
 
 
-def _inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
+def inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
+    """Every input file with its sha256 (for run.json); each file is read once."""
     digests: dict[Path, str | None] = {}  # one read per file: variables often share one
 
     def sha256(path: Path) -> str | None:
@@ -401,8 +402,13 @@ def assemble(
     *,
     series: Any = None,
     weights_cached: bool = False,
+    inputs_record: list[dict[str, Any]] | None = None,
 ) -> RunResult:
-    """Build the result tables and the provenance from the period sums."""
+    """Build the result tables and the provenance from the period sums.
+
+    ``inputs_record`` is :func:`inputs_provenance`'s result when the caller already has it
+    (the pipeline hashes the inputs in a background thread while it computes).
+    """
     bodies = _body_table(config, inputs, weights, sums)
     by_period = _period_table(config, inputs, weights, sums)
     summary_period, summary_group = _summaries(
@@ -414,7 +420,7 @@ def assemble(
         "created": datetime.now(UTC).isoformat(timespec="seconds"),
         "caution": CAUTION,
         "config": _jsonable(config.source),
-        "inputs": _inputs_provenance(config),
+        "inputs": inputs_provenance(config) if inputs_record is None else inputs_record,
         "versions": _versions(),
         "method": {
             "primary": config.method.name,

@@ -162,7 +162,7 @@ class ZonalWeights:
             and out.dtype == np.float64
             and out.flags.c_contiguous
         )
-        means = out if usable else np.empty(shape)
+        means = out if out is not None and usable else np.empty(shape)
         # One gather pass without temporaries: each row takes its first cell's series; the
         # rows of several cells are overwritten by the product below.
         # mode="clip": with the default mode="raise" numpy buffers `out` (a full copy).
