@@ -68,19 +68,6 @@ _PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
     "net_mm": _BODY_FIELDS["net_mm"],
     "net_m3": _BODY_FIELDS["net_m3"],
 }
-_DECIMALS = {
-    "area_m2": 1,
-    "area_before_repair_m2": 1,
-    "evap_mm": 3,
-    "evap_m3": 3,
-    "evap_mm_per_year": 2,
-    "precip_mm": 3,
-    "net_mm": 3,
-    "net_m3": 3,
-    "climate_coverage": 4,
-    "precip_m3": 3,
-    "days": 0,
-}
 
 
 @dataclass
@@ -466,6 +453,3 @@ def _jsonable(value: Any) -> Any:
     if isinstance(value, np.generic):
         return value.item()
     return value
-
-
-DECIMALS = _DECIMALS
