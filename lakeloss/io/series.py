@@ -24,6 +24,12 @@ import cftime
 import netCDF4
 import numpy as np
 import pandas as pd
+from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK
+
+# HDF5 is not thread-safe: while a run streams its series, other threads read climate
+# NetCDF files through xarray, which serialises netCDF4/HDF5 calls with this lock. Every
+# netCDF4 call here takes the same lock, or the two collide (a segmentation fault, seen).
+_HDF5_LOCK = NETCDF4_PYTHON_LOCK
 
 _CHUNK_VALUES = 1 << 18  # values per chunk: 1 MiB of float32, a common HDF5 sweet spot
 _DEFAULT_CHUNK_TIMES = 366  # one year of daily steps per chunk row
@@ -86,14 +92,15 @@ class SeriesWriter:
         )
         self._rows: dict[tuple[str, int], _ChunkRow] = {}
         self._flushed: set[tuple[str, int]] = set()
-        self._dataset = netCDF4.Dataset(Path(path), mode="w", format="NETCDF4")
-        stat = os.stat(path)
-        self._file_identity = (stat.st_dev, stat.st_ino)
-        try:
-            self._define(ids, times, calendar, variables, global_attrs)
-        except BaseException:
-            self._close_dataset(quiet=True)
-            raise
+        with _HDF5_LOCK:
+            self._dataset = netCDF4.Dataset(Path(path), mode="w", format="NETCDF4")
+            stat = os.stat(path)
+            self._file_identity = (stat.st_dev, stat.st_ino)
+            try:
+                self._define(ids, times, calendar, variables, global_attrs)
+            except BaseException:
+                self._close_dataset(quiet=True)
+                raise
 
     def write(self, name: str, time_slice: slice, values: np.ndarray) -> None:
         """Store one block of a variable.
@@ -112,6 +119,10 @@ class SeriesWriter:
         ValueError
             If the name is unknown or the slice or shape do not fit the file.
         """
+        with _HDF5_LOCK:
+            self._write(name, time_slice, values)
+
+    def _write(self, name: str, time_slice: slice, values: np.ndarray) -> None:
         start, stop = self._check_block(name, time_slice, values)
         block = np.asarray(values, dtype=np.float32)
         first_row, last_row = start // self.chunk_times, (stop - 1) // self.chunk_times
@@ -126,6 +137,10 @@ class SeriesWriter:
 
     def close(self) -> None:
         """Write what is still collected and close the file."""
+        with _HDF5_LOCK:
+            self._close()
+
+    def _close(self) -> None:
         if not self._dataset.isopen():
             return
         try:
@@ -150,7 +165,8 @@ class SeriesWriter:
         else:
             # A failed run's file is discarded with its staging directory; just release it.
             self._rows.clear()
-            self._close_dataset(quiet=True)
+            with _HDF5_LOCK:
+                self._close_dataset(quiet=True)
         return False
 
     def _close_dataset(self, *, quiet: bool) -> None:
