@@ -138,3 +138,32 @@ def case_config(
     for name, table in sections.items():
         config.setdefault(name, {}).update(table)
     return config
+
+
+def write_geotiff(
+    path: Path, values: np.ndarray, units: str, crs: str | None = "EPSG:4326"
+) -> Path:
+    """A band stack (band, y, x) on the LON/LAT grid, north-up, with a ``units`` tag."""
+    import rasterio
+    from affine import Affine
+
+    transform = Affine(0.05, 0.0, LON[0] - 0.025, 0.0, -0.05, LAT[0] + 0.025)
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        width=len(LON),
+        height=len(LAT),
+        count=values.shape[0],
+        dtype="float32",
+        crs=crs,
+        transform=transform,
+    ) as dst:
+        dst.write(values.astype(np.float32))
+        dst.update_tags(units=units)
+    return path
+
+
+def temperature_stack(path: Path, bands: int, crs: str | None = "EPSG:4326") -> Path:
+    """A uniform 298.15 K GeoTIFF stack of ``bands`` steps."""
+    return write_geotiff(path, np.full((bands, len(LAT), len(LON)), 298.15), "K", crs)

@@ -14,11 +14,9 @@ import numpy as np
 import pandas as pd
 import pyogrio
 import pytest
-import rasterio
 import shapely
 import tomli_w
-from affine import Affine
-from builders import LAT, LON, climate_dataset, write_netcdf
+from builders import LAT, LON, climate_dataset, write_geotiff, write_netcdf
 from click.testing import CliRunner
 from pyproj import Geod
 
@@ -218,23 +216,6 @@ def test_non_uniform_grid_matches_independent_zonal_means(make_case, tmp_path):
     assert layer["precip_mm"].isna().all()
 
 
-def _geotiff(path, values, units):
-    transform = Affine(0.05, 0.0, LON[0] - 0.025, 0.0, -0.05, LAT[0] + 0.025)
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=len(LON),
-        height=len(LAT),
-        count=values.shape[0],
-        dtype="float32",
-        crs="EPSG:4326",
-        transform=transform,
-    ) as dst:
-        dst.write(values.astype(np.float32))
-        dst.update_tags(units=units)
-
-
 def test_geotiff_and_netcdf_inputs_agree(make_case, tmp_path):
     rng = np.random.default_rng(11)
     times = pd.date_range("2031-03-01", periods=10, freq="D")
@@ -253,8 +234,8 @@ def test_geotiff_and_netcdf_inputs_agree(make_case, tmp_path):
         output={"precipitation": False, "period": "day"},
     )
     from_netcdf = lakeloss.run(config).by_period
-    _geotiff(tmp_path / "rnet.tif", rnet, "W m-2")
-    _geotiff(tmp_path / "tas.tif", tas, "K")
+    write_geotiff(tmp_path / "rnet.tif", rnet, "W m-2")
+    write_geotiff(tmp_path / "tas.tif", tas, "K")
     config["climate"] = {
         "surface_net_downward_radiative_flux": {
             "path": str(tmp_path / "rnet.tif"),
@@ -336,7 +317,7 @@ def test_elevation_from_raster_attribute_or_constant_agree(make_case, tmp_path):
     )
     constant = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()
     dem = np.full((1, len(LAT), len(LON)), 1800.0)
-    _geotiff(tmp_path / "dem.tif", dem, "m")
+    write_geotiff(tmp_path / "dem.tif", dem, "m")
     config["parameters"] = {"elevation_m": 0.0}
     config["climate"]["elevation"] = {"path": str(tmp_path / "dem.tif")}
     from_raster = lakeloss.run(config).waterbodies["evap_mm"].to_numpy()

@@ -15,9 +15,8 @@ import pytest
 import rasterio
 import rasterio.errors
 import xarray as xr
-from affine import Affine
 from bad_inputs.corpus import BASE_FIELDS, TIMES, refused_everywhere
-from builders import LAT, LON, climate_dataset, pond_layer
+from builders import LAT, LON, climate_dataset, pond_layer, temperature_stack
 
 import lakeloss
 from lakeloss.errors import AssumedCRSWarning
@@ -89,23 +88,6 @@ def test_damaged_netcdf(case, damage):
     refused_everywhere(case, "climate.nc", "unreadable, truncated or not NetCDF")
 
 
-def _write_geotiff(path, bands: int = 4, crs: str | None = "EPSG:4326") -> None:
-    transform = Affine(0.05, 0.0, LON[0] - 0.025, 0.0, -0.05, LAT[0] + 0.025)
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=len(LON),
-        height=len(LAT),
-        count=bands,
-        dtype="float32",
-        crs=crs,
-        transform=transform,
-    ) as dst:
-        dst.write(np.full((bands, len(LAT), len(LON)), 298.15, dtype=np.float32))
-        dst.update_tags(units="K")
-
-
 def _geotiff_temperature(case, path, **extra) -> None:
     case.config["climate"]["air_temperature"] = {
         "path": str(path),
@@ -118,7 +100,7 @@ def _geotiff_temperature(case, path, **extra) -> None:
 @pytest.mark.parametrize("damage", ["truncated", "foreign-bytes"])
 def test_damaged_geotiff(case, damage):
     path = case.tmp / "tas.tif"
-    _write_geotiff(path)
+    temperature_stack(path, 4)
     if damage == "truncated":
         _truncated(path, keep=0.3)
     else:
@@ -212,7 +194,7 @@ def test_geotiff_without_crs_is_refused_unless_the_config_states_it(case):
     path = case.tmp / "tas_nocrs.tif"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", rasterio.errors.NotGeoreferencedWarning)
-        _write_geotiff(path, crs=None)
+        temperature_stack(path, 4, crs=None)
     _geotiff_temperature(case, path)
     refused_everywhere(case, "tas_nocrs.tif", "has no CRS (no coordinate system in its", "set crs")
     case.climate_entry("air_temperature")["crs"] = "EPSG:4326"

@@ -8,10 +8,8 @@ import cftime
 import numpy as np
 import pandas as pd
 import pytest
-import rasterio
-from affine import Affine
 from bad_inputs.corpus import BASE_FIELDS, TIMES, refused_everywhere
-from builders import LAT, LON, climate_dataset
+from builders import climate_dataset, temperature_stack
 
 TEMPERATURE = {"tas": BASE_FIELDS["tas"]}
 
@@ -52,26 +50,9 @@ def test_undecodable_time_units(case):
     refused_everywhere(case, "fortnights after launch", "cannot be decoded")
 
 
-def _temperature_stack(path, bands: int) -> None:
-    transform = Affine(0.05, 0.0, LON[0] - 0.025, 0.0, -0.05, LAT[0] + 0.025)
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=len(LON),
-        height=len(LAT),
-        count=bands,
-        dtype="float32",
-        crs="EPSG:4326",
-        transform=transform,
-    ) as dst:
-        dst.write(np.full((bands, len(LAT), len(LON)), 298.15, dtype=np.float32))
-        dst.update_tags(units="K")
-
-
 @pytest.mark.parametrize(("bands", "end"), [(3, "2031-01-04"), (5, "2031-01-04")])
 def test_geotiff_band_count_contradicts_end(case, bands, end):
-    _temperature_stack(case.tmp / "tas.tif", bands)
+    temperature_stack(case.tmp / "tas.tif", bands)
     case.config["climate"]["air_temperature"] = {
         "path": str(case.tmp / "tas.tif"),
         "start": "2031-01-01",
@@ -83,7 +64,7 @@ def test_geotiff_band_count_contradicts_end(case, bands, end):
 
 def test_geotiff_stack_longer_than_the_other_inputs(case):
     # Without `end` the band count sets the axis, which then disagrees with the NetCDF files.
-    _temperature_stack(case.tmp / "tas.tif", 6)
+    temperature_stack(case.tmp / "tas.tif", 6)
     case.config["climate"]["air_temperature"] = {
         "path": str(case.tmp / "tas.tif"),
         "start": "2031-01-01",
@@ -93,7 +74,7 @@ def test_geotiff_stack_longer_than_the_other_inputs(case):
 
 
 def test_geotiff_start_that_is_not_a_date(case):
-    _temperature_stack(case.tmp / "tas.tif", 4)
+    temperature_stack(case.tmp / "tas.tif", 4)
     case.config["climate"]["air_temperature"] = {
         "path": str(case.tmp / "tas.tif"),
         "start": "first of January",
