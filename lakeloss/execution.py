@@ -1,6 +1,6 @@
 """Where the blocks of a run are computed: in this process, or on a dask.distributed cluster.
 
-Every scheduler runs the same pure function, :func:`lakeloss.pipeline.compute_block`, on the
+Every scheduler runs the same pure function, :func:`lakeloss.blocks.compute_block`, on the
 same blocks, and hands the results back in block order; the pipeline sums them exactly (in
 fixed point), so the merged sums and every output file are identical whichever scheduler ran
 them and however the time axis was cut.
@@ -52,7 +52,7 @@ def _local_threads() -> int:
 
 
 def _run_local(context: Any, weights: Any, static: Any, blocks: Sequence[slice]) -> Iterator[Any]:
-    from lakeloss.pipeline import compute_block
+    from lakeloss.blocks import compute_block
 
     threads = _local_threads()
     if threads == 1 or len(blocks) == 1:
@@ -155,7 +155,7 @@ def _run_cluster(
     from distributed.client import FutureCancelledError
     from distributed.scheduler import KilledWorker
 
-    from lakeloss.pipeline import compute_block
+    from lakeloss.blocks import compute_block
 
     with _client(compute) as client:
         n_workers = max(1, len(client.scheduler_info().get("workers", {})))
@@ -201,14 +201,14 @@ def run_blocks(
         ``workers`` > 0 starts a local cluster, ``scheduler`` connects to a running one;
         neither runs the blocks in a thread pool here.
     context, weights, static
-        Arguments of :func:`lakeloss.pipeline.compute_block` shared by every block
+        Arguments of :func:`lakeloss.blocks.compute_block` shared by every block
         (scattered once to a cluster's workers).
     blocks : sequence of slice
         Time-step ranges, in order.
 
     Yields
     ------
-    lakeloss.pipeline.BlockResult
+    lakeloss.blocks.BlockResult
         One per block, in the order of ``blocks``, as soon as it (and every block before it)
         is done.
 

@@ -19,7 +19,6 @@ import logging
 import os
 import shutil
 import tempfile
-import threading
 import time
 import warnings
 from collections.abc import Callable, Iterator, Mapping
@@ -33,6 +32,18 @@ import pandas as pd
 import pyproj
 
 from lakeloss import timeaxis
+from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of this API
+    BlockContext,
+    BlockResult,
+    FixedSums,
+    PeriodSums,
+    RunningSums,
+    compute_block,
+    evaporate_block,
+    extract_block,
+    merge_block,
+    new_sums,
+)
 from lakeloss.config import RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
@@ -83,19 +94,6 @@ class Inputs:
     @property
     def n_waterbodies(self) -> int:
         return len(self.layer.frame)
-
-
-@dataclass
-class PeriodSums:
-    """Running sums per (period, water body), accumulated block by block."""
-
-    depth: dict[str, np.ndarray]
-    precip: np.ndarray
-    valid_steps: np.ndarray
-    coverage_sum: np.ndarray
-    negatives: dict[str, int]
-    negatives_per_body: np.ndarray
-    steps: int = 0
 
 
 @dataclass
@@ -362,42 +360,6 @@ def _static_inputs(
     return static
 
 
-@dataclass(frozen=True)
-class BlockContext:
-    """What one block's computation needs: light enough to send to a cluster worker.
-
-    The lazy climate fields travel by reference (xarray reopens the files on the worker);
-    the weights and the per-body inputs are passed separately so a cluster can scatter them
-    once.
-    """
-
-    fields: Mapping[str, Any]
-    field_grid: Mapping[str, str]
-    methods: tuple[str, ...]
-    primary: str
-    parameters: Mapping[str, object]
-    day_of_year: np.ndarray
-    days: np.ndarray
-    period_index: np.ndarray
-    keep_series: bool = False
-
-
-@dataclass
-class BlockResult:
-    """One block's contribution to the period sums (only the periods it touches)."""
-
-    block: slice
-    periods: np.ndarray
-    depth: dict[str, FixedSums]
-    precip: FixedSums | None
-    valid_steps: np.ndarray
-    coverage_sum: np.ndarray
-    negatives: dict[str, int]
-    negatives_per_body: np.ndarray
-    steps: int
-    series: dict[str, np.ndarray] | None = None
-
-
 def block_context(config: RunConfig, inputs: Inputs, keep_series: bool = False) -> BlockContext:
     return BlockContext(
         fields=inputs.fields,
@@ -409,240 +371,6 @@ def block_context(config: RunConfig, inputs: Inputs, keep_series: bool = False) 
         days=inputs.axis.days,
         period_index=inputs.periods.index,
         keep_series=keep_series,
-    )
-
-
-def extract_block(
-    context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
-) -> tuple[dict[str, np.ndarray], np.ndarray]:
-    """Area-weighted means of every variable for one block of time steps.
-
-    Returns the means, shape (time, water body), by glossary name, and the smallest
-    valid-area fraction over the variables (the share of each body with valid climate).
-    """
-    means: dict[str, np.ndarray] = {}
-    valid_min: np.ndarray | None = None
-    by_grid: dict[str, list[tuple[str, np.ndarray]]] = {}
-    for quantity, (values, grid_key) in _grid_values(context, block).items():
-        by_grid.setdefault(grid_key, []).append((quantity, values))
-    for grid_key, items in by_grid.items():
-        # One product per grid for all its variables, stacked along time: preparing the
-        # weights is a fixed cost per call, large at 10^6 bodies. Each output row is
-        # computed exactly as it would be alone.
-        stacked = np.concatenate([v for _, v in items], axis=0)
-        buffer = _thread_buffer(grid_key, (weights[grid_key].n_waterbodies, stacked.shape[0]))
-        mean, valid = weights[grid_key].apply(stacked, out=buffer)
-        steps = items[0][1].shape[0]
-        for k, (quantity, _) in enumerate(items):
-            means[quantity] = mean[k * steps : (k + 1) * steps]
-            rows = valid[k * steps : (k + 1) * steps]
-            valid_min = rows if valid_min is None else np.minimum(valid_min, rows)
-    assert valid_min is not None  # load_inputs guarantees at least one field
-    return means, valid_min
-
-
-_BUFFERS = threading.local()
-
-
-def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
-    """This thread's reusable (water body, step) buffer for the zonal means of a block.
-
-    A block's means are used only while that block is computed, on the thread computing
-    it, so the next block on the same thread may overwrite them; reusing the memory avoids
-    faulting in hundreds of MB of fresh pages per block at 10^6 water bodies.
-    """
-    store = _BUFFERS.__dict__.setdefault("arrays", {})
-    buffer = store.get(grid_key)
-    if buffer is None or buffer.shape != shape:
-        buffer = store[grid_key] = np.empty(shape)
-    return buffer
-
-
-def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndarray, str]]:
-    # The synchronous scheduler: the block is already the unit of parallel work, and a
-    # cluster worker must not hand its reads back to the cluster.
-    values = {
-        q: (
-            np.asarray(
-                f.data.isel(time=block).compute(scheduler="synchronous").values, dtype=np.float64
-            ),
-            context.field_grid[q],
-        )
-        for q, f in context.fields.items()
-    }
-    if "wind_speed" not in values and {"eastward_wind", "northward_wind"} <= set(values):
-        # Speed from components on the grid, before averaging: the mean of the speed is
-        # what the wind functions want, not the speed of the mean vector.
-        east, key = values.pop("eastward_wind")
-        north, _ = values.pop("northward_wind")
-        values["wind_speed"] = (np.hypot(east, north), key)
-    return values
-
-
-def evaporate_block(
-    context: BlockContext,
-    means: Mapping[str, np.ndarray],
-    static: Mapping[str, np.ndarray],
-    day_of_year: np.ndarray,
-) -> dict[str, np.ndarray]:
-    """Evaporation rate [mm day-1] of every configured method for one block."""
-    physics_inputs: dict[str, Any] = {**means, **static, "day_of_year": day_of_year[:, np.newaxis]}
-    physics_inputs.pop("precipitation", None)
-    params = {k: v for k, v in context.parameters.items() if k != "clip_negative"}
-    shape = next(iter(means.values())).shape
-    rates = {}
-    for name in context.methods:
-        method_params = {k: v for k, v in params.items() if k in registry.get(name).parameters}
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rate = np.asarray(
-                registry.evaporate(name, physics_inputs, method_params), dtype=np.float64
-            )
-        rates[name] = np.broadcast_to(rate, shape)
-    return rates
-
-
-def _segment_sums(values: np.ndarray, period_index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Sums over runs of equal period index along axis 0 (the index is non-decreasing)."""
-    starts = np.flatnonzero(np.r_[True, period_index[1:] != period_index[:-1]])
-    return period_index[starts], np.add.reduceat(values, starts, axis=0)
-
-
-# Amounts are summed in fixed point: each per-step value is rounded to a multiple of 2**-32
-# (2.3e-10 mm, or of a valid-area fraction) and added as int64. Integer addition is exact and
-# associative, so the totals are bit-identical however the time axis is cut into blocks and
-# whichever scheduler ran them; float sums would differ in the last bits. Range: 2.1e9 mm.
-_FIXED_POINT_SCALE = 2.0**32
-
-
-def _to_fixed(values: np.ndarray) -> np.ndarray:
-    return np.rint(np.asarray(values, dtype=np.float64) * _FIXED_POINT_SCALE).astype(np.int64)
-
-
-@dataclass
-class FixedSums:
-    """Sums per (period, water body) in fixed point, and where a missing value was met."""
-
-    total: np.ndarray
-    missing: np.ndarray
-
-    @classmethod
-    def zeros(cls, n_periods: int, n: int) -> FixedSums:
-        return cls(np.zeros((n_periods, n), dtype=np.int64), np.zeros((n_periods, n), bool))
-
-    @classmethod
-    def of_segments(
-        cls, values: np.ndarray, period_index: np.ndarray
-    ) -> tuple[np.ndarray, FixedSums]:
-        """The periods a block touches and its sums over each (NaN makes a sum missing)."""
-        missing = ~np.isfinite(values)
-        periods, total = _segment_sums(_to_fixed(np.where(missing, 0.0, values)), period_index)
-        starts = np.flatnonzero(np.r_[True, period_index[1:] != period_index[:-1]])
-        return periods, cls(total, np.logical_or.reduceat(missing, starts, axis=0))
-
-    def add(self, periods: np.ndarray, part: FixedSums) -> None:
-        self.total[periods] += part.total
-        self.missing[periods] |= part.missing
-
-    def value(self) -> np.ndarray:
-        """The sums as float64, NaN where a missing value was met. [unit of the values]"""
-        return np.where(self.missing, np.nan, self.total / _FIXED_POINT_SCALE)
-
-
-def compute_block(
-    context: BlockContext,
-    weights: Mapping[str, ZonalWeights],
-    static: Mapping[str, np.ndarray],
-    block: slice,
-) -> BlockResult:
-    """Extract, evaporate and sum one block of time steps into its periods.
-
-    A pure function of its arguments: the same block gives the same numbers wherever it
-    runs, which is what makes local and cluster runs identical.
-    """
-    means, valid = extract_block(context, weights, block)
-    rates = evaporate_block(context, means, static, context.day_of_year[block])
-    days = context.days[block][:, None]
-    index = context.period_index[block]
-    clip = bool(context.parameters.get("clip_negative", True))
-    depth, negatives = {}, {}
-    negatives_per_body = np.zeros(valid.shape[1], dtype=np.int64)
-    periods = np.empty(0, dtype=np.int64)
-    for name, rate in rates.items():
-        negative = rate < 0
-        negatives[name] = int(negative.sum())
-        if name == context.primary:
-            negatives_per_body = negative.sum(axis=0)
-        if clip and negatives[name]:
-            rate = np.where(negative, 0.0, rate)
-        periods, depth[name] = FixedSums.of_segments(rate * days, index)
-    precip = means.get("precipitation")
-    precip_sums = FixedSums.of_segments(precip * days, index)[1] if precip is not None else None
-    finite = np.isfinite(rates[context.primary]).astype(np.int64)
-    series = None
-    if context.keep_series:
-        series = {"evaporation_rate": np.asarray(rates[context.primary], dtype=np.float32)}
-        if precip is not None:
-            series["precipitation_rate"] = precip.astype(np.float32)
-    return BlockResult(
-        block=block,
-        periods=periods,
-        depth=depth,
-        precip=precip_sums,
-        valid_steps=_segment_sums(finite, index)[1],
-        coverage_sum=_to_fixed(valid).sum(axis=0),
-        negatives=negatives,
-        negatives_per_body=negatives_per_body,
-        steps=block.stop - block.start,
-        series=series,
-    )
-
-
-@dataclass
-class RunningSums:
-    """The period sums while blocks are merged: amounts in fixed point, counts as integers."""
-
-    depth: dict[str, FixedSums]
-    precip: FixedSums
-    valid_steps: np.ndarray
-    coverage_sum: np.ndarray
-    negatives: dict[str, int]
-    negatives_per_body: np.ndarray
-    steps: int = 0
-
-    def finish(self) -> PeriodSums:
-        """The merged sums as float64 :class:`PeriodSums`."""
-        return PeriodSums(
-            depth={name: sums.value() for name, sums in self.depth.items()},
-            precip=self.precip.value(),
-            valid_steps=self.valid_steps,
-            coverage_sum=self.coverage_sum / _FIXED_POINT_SCALE,
-            negatives=self.negatives,
-            negatives_per_body=self.negatives_per_body,
-            steps=self.steps,
-        )
-
-
-def merge_block(sums: RunningSums, part: BlockResult) -> None:
-    """Add one block's result into the running sums (in block order, though exact in any)."""
-    for name, depth in part.depth.items():
-        sums.depth[name].add(part.periods, depth)
-        sums.negatives[name] = sums.negatives.get(name, 0) + part.negatives[name]
-    if part.precip is not None:
-        sums.precip.add(part.periods, part.precip)
-    sums.valid_steps[part.periods] += part.valid_steps
-    sums.coverage_sum += part.coverage_sum
-    sums.negatives_per_body += part.negatives_per_body
-    sums.steps += part.steps
-
-
-def new_sums(config: RunConfig, n_periods: int, n: int) -> RunningSums:
-    return RunningSums(
-        depth={m: FixedSums.zeros(n_periods, n) for m in config.method.all},
-        precip=FixedSums.zeros(n_periods, n),
-        valid_steps=np.zeros((n_periods, n), dtype=np.int64),
-        coverage_sum=np.zeros(n, dtype=np.int64),
-        negatives={},
-        negatives_per_body=np.zeros(n, dtype=np.int64),
     )
 
 
@@ -662,7 +390,7 @@ def compute_sums(
 
     context = block_context(config, inputs, keep_series=series_sink is not None)
     static = _static_inputs(config, inputs, weights)
-    sums = new_sums(config, len(inputs.periods.starts), inputs.n_waterbodies)
+    sums = new_sums(config.method.all, len(inputs.periods.starts), inputs.n_waterbodies)
     blocks = list(iter_blocks(len(inputs.axis.days), block_steps(config, inputs)))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
     for part in run_blocks(config.compute, context, weights, static, blocks):
