@@ -163,7 +163,7 @@ def run(
     config = _load(config_path, strict, workers, scheduler, chunk_steps)
     OutputDirectory(config.output.dir, overwrite=overwrite).check()  # fail before computing
     result = run_stages(config, progress=_progress(quiet))
-    target = result.write(config.output.dir, overwrite=overwrite)
+    target = result.write(config.output.dir, overwrite=overwrite, progress=_progress(quiet))
     if not quiet:
         counts = result.provenance["counts"]
         total = float(result.waterbodies["evap_m3"].sum())

@@ -297,8 +297,13 @@ def default_cache_dir() -> Path:
     return (Path(root) if root else Path.home() / ".cache") / "lakeloss"
 
 
-def build_weights(config: RunConfig, inputs: Inputs) -> tuple[dict[str, ZonalWeights], bool]:
-    """One weight matrix per distinct climate grid, from the cache where possible."""
+def build_weights(
+    config: RunConfig, inputs: Inputs, progress: ProgressFactory | None = None
+) -> tuple[dict[str, ZonalWeights], bool]:
+    """One weight matrix per distinct climate grid, from the cache where possible.
+
+    ``progress`` gets a bar over the spatial blocks to build (none when all are cached).
+    """
     from lakeloss.execution import cluster_map
 
     cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
@@ -312,11 +317,39 @@ def build_weights(config: RunConfig, inputs: Inputs) -> tuple[dict[str, ZonalWei
     # Large layers are built in spatial blocks, on the cluster when one is configured; the
     # cluster is only started when there is something to build.
     use_cluster = bool(missing) and len(frame) > partition.BLOCK_SIZE
+    blocks_per_grid = max(1, -(-len(frame) // partition.BLOCK_SIZE))
+    bar = progress(len(missing) * blocks_per_grid, "weights") if progress and missing else None
     with cluster_map(config.compute) if use_cluster else contextlib.nullcontext() as mapper:
-        builder = functools.partial(partition.build_weights_in_blocks, map_blocks=mapper)
+        builder = functools.partial(
+            partition.build_weights_in_blocks, map_blocks=_counting(mapper, bar)
+        )
         for key, grid in inputs.grids.items():
             out[key], _ = cache.get_or_build(frame, grid, builder=builder)
+            if bar is not None and key in missing:  # a one-block build bypasses the mapper
+                done = (missing.index(key) + 1) * blocks_per_grid
+                bar.update(max(0, done - bar.n))
+    if bar is not None:
+        bar.close()
     return out, not missing
+
+
+def _counting(mapper: Any, bar: Any) -> Any:
+    """A block mapper (the cluster's, or one after another here) that advances ``bar``."""
+    if bar is None:
+        return mapper
+
+    def counted(func: Any, frames: Any, grids: Any) -> list[Any]:
+        if mapper is not None:
+            parts = list(mapper(func, frames, grids))
+            bar.update(len(parts))
+            return parts
+        parts = []
+        for frame, grid in zip(frames, grids, strict=True):
+            parts.append(func(frame, grid))
+            bar.update(1)
+        return parts
+
+    return counted
 
 
 # --------------------------------------------------------------------------- extract + evaporate
@@ -448,7 +481,7 @@ def _stages(
         warnings.warn(reason, ImplausibleValuesWarning, stacklevel=2)
     with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always", LakelossWarning)
-        weights, cached = build_weights(config, inputs)
+        weights, cached = build_weights(config, inputs, progress)
     weight_warnings = _replay(seen)
     if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
         weight_warnings += _repairs_from_cache(weights)

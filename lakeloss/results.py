@@ -100,12 +100,17 @@ class RunResult:
     id_field: str
     field_info: dict[str, dict[str, FieldInfo]] = field(default_factory=dict)
 
-    def write(self, directory: str | Path | None = None, *, overwrite: bool = False) -> Path:
-        """Write every output file into ``directory`` (default ``[output] dir``), atomically."""
+    def write(
+        self, directory: str | Path | None = None, *, overwrite: bool = False, progress: Any = None
+    ) -> Path:
+        """Write every output file into ``directory`` (default ``[output] dir``), atomically.
+
+        ``progress(total, label)`` may return a tqdm-like bar, advanced per file written.
+        """
         from lakeloss.io.write_run import write_result
 
         target = Path(directory) if directory is not None else self.config.output.dir
-        return write_result(self, target, overwrite=overwrite)
+        return write_result(self, target, overwrite=overwrite, progress=progress)
 
 
 def _sha256(path: Path) -> str | None:

@@ -371,3 +371,30 @@ def test_methods_command_lists_every_method_with_its_source():
     for name in registry.method_names():
         assert f"\n{name}\n" in f"\n{output}"
     assert "Shuttleworth (1993)" in output and "needs:" in output
+
+
+class _Bar:
+    """A tqdm stand-in that records what a run reports."""
+
+    def __init__(self, total, label, log):
+        self.total, self.label, self.n, self.closed = total, label, 0, False
+        log.append(self)
+
+    def update(self, k):
+        self.n += k
+
+    def close(self):
+        self.closed = True
+
+
+def test_progress_is_reported_for_weights_evaporation_and_writing(make_case, tmp_path):
+    bars = []
+    config = make_case("penman_open_water", compute={"chunk_steps": 10})
+    result = lakeloss.run(config, progress=lambda total, label: _Bar(total, label, bars))
+    result.write(tmp_path / "out", progress=lambda total, label: _Bar(total, label, bars))
+    by_label = {bar.label: bar for bar in bars}
+    assert set(by_label) == {"weights", "evaporation", "writing"}
+    assert by_label["evaporation"].total == 59
+    for bar in bars:
+        assert bar.closed and bar.n == bar.total, bar.label
+    assert by_label["writing"].total == len(list((tmp_path / "out").iterdir()))

@@ -56,13 +56,24 @@ def _write_series(series: Any, target: Path) -> None:
         series.to_netcdf(target, engine="netcdf4")
 
 
-def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
+def _files_to_write(result: Any) -> int:
+    return 4 + (result.summary_by_group is not None) + (result.series is not None)
+
+
+def write_result(result: Any, target: Path, *, overwrite: bool, progress: Any = None) -> Path:
     """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``.
 
     The GeoPackage is written in a second thread while this one writes the CSVs: SQLite and
     GDAL release the GIL while they work, so on two cores the CSV formatting overlaps with
     them. Both finish (or fail) before the staging directory is committed or removed.
+    ``progress(total, label)``, when given, returns a tqdm-like bar advanced per file.
     """
+    bar = progress(_files_to_write(result), "writing") if progress else None
+
+    def tick() -> None:
+        if bar is not None:
+            bar.update(1)
+
     with OutputDirectory(target, overwrite=overwrite) as staging:
         with ThreadPoolExecutor(max_workers=1, thread_name_prefix="lakeloss-gpkg") as pool:
             geopackage = pool.submit(
@@ -72,27 +83,35 @@ def write_result(result: Any, target: Path, *, overwrite: bool) -> Path:
                 fields=result.field_info,
                 metadata=result.provenance,
             )
-            _write_tables(result, staging)
+            _write_tables(result, staging, tick)
             # Leaving the pool waits for the thread even when the CSVs failed.
             geopackage.result()
+            tick()
         write_json(staging / "run.json", result.provenance)
+        tick()
+    if bar is not None:
+        bar.close()
     return Path(target)
 
 
-def _write_tables(result: Any, staging: Path) -> None:
-    """The CSVs and the optional series file."""
+def _write_tables(result: Any, staging: Path, tick: Any) -> None:
+    """The CSVs and the optional series file; ``tick()`` after each file."""
     body = _body_csv(result)
     write_csv(staging / "summary_by_waterbody.csv", body, decimals=_decimals(body.columns))
+    tick()
     write_csv(
         staging / "summary_by_period.csv",
         result.summary_by_period,
         decimals=_decimals(result.summary_by_period.columns),
     )
+    tick()
     if result.summary_by_group is not None:
         write_csv(
             staging / "summary_by_group.csv",
             result.summary_by_group,
             decimals=_decimals(result.summary_by_group.columns),
         )
+        tick()
     if result.series is not None:
         _write_series(result.series, staging / "series.nc")
+        tick()
