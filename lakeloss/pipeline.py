@@ -122,7 +122,7 @@ class _Stage:
 # --------------------------------------------------------------------------- load
 
 
-def _open_field(item: Any, step_hint: str | None = None) -> climate_io.ClimateField:
+def _open_field(item: Any) -> climate_io.ClimateField:
     if item.format == "netcdf":
         return climate_io.open_netcdf(
             item.path, item.variable, item.key, units=item.units, crs=item.crs

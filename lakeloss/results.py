@@ -169,32 +169,42 @@ _NO_RESULT_GEOMETRY = {"geometry_empty", "geometry_null", "outside_grid"}
 def _flags(
     config: RunConfig, inputs: Any, weights: Any, sums: Any, coverage: np.ndarray
 ) -> np.ndarray:
-    """Per-body QA flags: geometry flags, then climate-coverage and clipping flags."""
+    """Per-body QA flags: geometry flags, then climate-coverage and clipping flags.
+
+    The conditions are found with array operations; only the (usually few) flagged bodies
+    have their tokens joined one by one.
+    """
     first = next(iter(weights.values()))
-    n = inputs.n_waterbodies
-    tokens: list[list[str]] = [[] for _ in range(n)]
-    for source in (inputs.layer.flags, first.flags):
-        for i, text in enumerate(source):
-            if text:
-                tokens[i].extend(t for t in str(text).split(";") if t and t not in tokens[i])
+    sources = (np.asarray(inputs.layer.flags, dtype=object), np.asarray(first.flags, dtype=object))
     valid_steps = sums.valid_steps.sum(axis=0)
-    total = sums.steps
-    for i in range(n):
-        if valid_steps[i] == 0:
-            # An empty or off-grid geometry already says why there is no result.
-            if not _NO_RESULT_GEOMETRY.intersection(tokens[i]):
-                tokens[i].append("no_valid_climate")
-        elif valid_steps[i] < total:
-            tokens[i].append("climate_gaps")
-        if 0.0 < coverage[i] < _COVERAGE_FLAG_BELOW and "partly_outside_grid" not in tokens[i]:
-            tokens[i].append("partial_climate_coverage")
-        if sums.negatives_per_body[i]:
-            tokens[i].append(
-                "negative_rates_clipped"
-                if config.parameters.get("clip_negative", True)
-                else "negative_rates_kept"
-            )
-    return np.array([";".join(t) for t in tokens], dtype=object)
+    no_climate = valid_steps == 0
+    gaps = (valid_steps > 0) & (valid_steps < sums.steps)
+    partial = (coverage > 0.0) & (coverage < _COVERAGE_FLAG_BELOW)
+    negative = sums.negatives_per_body > 0
+    negative_token = (
+        "negative_rates_clipped"
+        if config.parameters.get("clip_negative", True)
+        else "negative_rates_kept"
+    )
+    any_flag = no_climate | gaps | partial | negative
+    for source in sources:
+        any_flag |= source != ""
+    out = np.full(inputs.n_waterbodies, "", dtype=object)
+    for i in np.flatnonzero(any_flag):
+        tokens: list[str] = []
+        for source in sources:
+            tokens.extend(t for t in str(source[i]).split(";") if t and t not in tokens)
+        # An empty or off-grid geometry already says why there is no result.
+        if no_climate[i] and not _NO_RESULT_GEOMETRY.intersection(tokens):
+            tokens.append("no_valid_climate")
+        if gaps[i]:
+            tokens.append("climate_gaps")
+        if partial[i] and "partly_outside_grid" not in tokens:
+            tokens.append("partial_climate_coverage")
+        if negative[i]:
+            tokens.append(negative_token)
+        out[i] = ";".join(tokens)
+    return out
 
 
 def _body_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> Any:
