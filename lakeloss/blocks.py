@@ -32,6 +32,18 @@ class PeriodSums:
     negatives_per_body: np.ndarray
     steps: int = 0
 
+    def for_members(self, member_of: np.ndarray) -> PeriodSums:
+        """The sums of every body from those of its group (``member_of``: group per body)."""
+        return PeriodSums(
+            depth={name: values[:, member_of] for name, values in self.depth.items()},
+            precip=self.precip[:, member_of],
+            valid_steps=self.valid_steps[:, member_of],
+            coverage_sum=self.coverage_sum[member_of],
+            negatives=self.negatives,
+            negatives_per_body=self.negatives_per_body[member_of],
+            steps=self.steps,
+        )
+
 
 @dataclass(frozen=True)
 class BlockContext:
@@ -51,6 +63,8 @@ class BlockContext:
     days: np.ndarray
     period_index: np.ndarray
     keep_series: bool = False
+    body_count: np.ndarray | None = None
+    """Bodies each column stands for (:mod:`lakeloss.distinct`); None: one each."""
 
 
 @dataclass
@@ -226,9 +240,11 @@ def compute_block(
     periods = np.empty(0, dtype=np.int64)
     for name, rate in rates.items():
         negative = rate < 0
-        negatives[name] = int(negative.sum())
+        per_body = negative.sum(axis=0)
+        count = context.body_count
+        negatives[name] = int(per_body.sum() if count is None else per_body @ count)
         if name == context.primary:
-            negatives_per_body = negative.sum(axis=0)
+            negatives_per_body = per_body
         if clip and negatives[name]:
             rate = np.where(negative, 0.0, rate)
         periods, depth[name] = FixedSums.of_segments(rate * days, index)

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import atexit
 import contextlib
+import dataclasses
 import functools
 import logging
 import os
@@ -45,6 +46,7 @@ from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of th
     new_sums,
 )
 from lakeloss.config import RunConfig, load_config
+from lakeloss.distinct import distinct_bodies, inputs_used
 from lakeloss.errors import (
     ConfigError,
     GeometryError,
@@ -72,6 +74,7 @@ _BLOCK_BUDGET_BYTES = 1.5e9
 # multiplied as one wide matrix): 16 steps ran a year of 10^5 bodies 35 % faster than 55
 # (benchmarks/README.md, "End to end"), and still amortise the per-block preparation.
 _MAX_BLOCK_STEPS = 16
+_SHORTWAVE = "surface_downwelling_shortwave_flux_in_air"
 
 
 @dataclass
@@ -375,10 +378,22 @@ def iter_blocks(n_steps: int, steps: int) -> Iterator[slice]:
 def _static_inputs(
     config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights]
 ) -> dict[str, np.ndarray]:
-    """Per-water-body inputs of the physics: latitude, area and elevation, shaped (1, n)."""
+    """Per-water-body inputs of the physics: latitude, area and elevation, shaped (1, n).
+
+    The latitude is that of the climate a body gets: the area-weighted mean latitude of the
+    centres of the cells it covers on the shortwave grid (the first grid without one). For
+    a pond inside one 0.05° cell it is that cell's centre, at most 0.025° from the pond's
+    own centroid: the sun's geometry (FAO-56 eq. 21-25) changes by a few parts in 10^4
+    over that distance. Bodies inside one cell then share every input and are computed once
+    (:mod:`lakeloss.distinct`).
+    """
+    grid_key = inputs.field_grid.get(_SHORTWAVE) or next(iter(inputs.field_grid.values()))
+    sun_weights = weights[grid_key]
+    assert sun_weights.grid is not None  # weights built in this run carry their grid
+    latitude, _ = sun_weights.apply(sun_weights.grid.centre_latitudes()[np.newaxis])
     first = next(iter(weights.values()))
     static = {
-        "latitude": first.centroid_lat[np.newaxis, :],
+        "latitude": latitude,
         "area_m2": first.polygon_area_m2[np.newaxis, :],
     }
     field_name = config.waterbodies.elevation_field
@@ -418,23 +433,32 @@ def compute_sums(
     progress: ProgressFactory | None = None,
     series_sink: SeriesSink | None = None,
 ) -> PeriodSums:
-    """Run every block (locally or on a cluster) and merge the results in time order."""
+    """Run every block (locally or on a cluster) and merge the results in time order.
+
+    The blocks are computed for one representative of each group of bodies with identical
+    inputs (:func:`lakeloss.distinct.distinct_bodies`) and the sums copied to every member.
+    """
     from lakeloss.execution import run_blocks
 
-    context = block_context(config, inputs, keep_series=series_sink is not None)
     static = _static_inputs(config, inputs, weights)
-    sums = new_sums(config.method.all, len(inputs.periods.starts), inputs.n_waterbodies)
+    groups = distinct_bodies(weights, static, inputs_used(config.method.all))
+    rows = groups.representative
+    group_weights = {key: w.take_rows(rows) for key, w in weights.items()}
+    group_static = {name: values[:, rows] for name, values in static.items()}
+    context = block_context(config, inputs, keep_series=series_sink is not None)
+    context = dataclasses.replace(context, body_count=groups.count)
+    sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups)
     blocks = list(iter_blocks(len(inputs.axis.days), block_steps(config, inputs)))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
-    for part in run_blocks(config.compute, context, weights, static, blocks):
+    for part in run_blocks(config.compute, context, group_weights, group_static, blocks):
         merge_block(sums, part)
         if series_sink is not None and part.series is not None:
-            series_sink(part.block, part.series)
+            series_sink(part.block, {k: v[:, groups.member_of] for k, v in part.series.items()})
         if bar is not None:
             bar.update(part.steps)
     if bar is not None:
         bar.close()
-    return sums.finish()
+    return sums.finish().for_members(groups.member_of)
 
 
 def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:

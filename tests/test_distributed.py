@@ -125,7 +125,11 @@ def _assert_identical(result, written, reference) -> None:
 def test_reference_is_not_trivial(reference):
     # The comparisons below mean something only if the numbers vary between bodies and months.
     result, _ = reference
-    assert result.by_period["evap_mm"].nunique() == len(result.by_period)
+    # Bodies inside one shared climate cell get the same numbers (lakeloss.distinct), so
+    # not every row differs; most do, and every body's months differ.
+    by_period = result.by_period
+    assert by_period["evap_mm"].nunique() >= 0.8 * len(by_period)
+    assert (by_period.groupby("pond_id")["evap_mm"].nunique() == 3).all()
     assert result.by_period["period_start"].nunique() == 3
     assert (result.waterbodies["evap_mm"] > 0).all()
 

@@ -161,6 +161,22 @@ class GridSpec:
             float(self.y_edges.max()),
         )
 
+    def centre_latitudes(self) -> np.ndarray:
+        """Latitude of every cell centre on the WGS84 ellipsoid; NaN where PROJ has none.
+
+        Returns
+        -------
+        numpy.ndarray
+            float64, shape :attr:`shape`, in stored order. [degrees north]
+        """
+        x = 0.5 * (self.x_edges[:-1] + self.x_edges[1:])
+        y = 0.5 * (self.y_edges[:-1] + self.y_edges[1:])
+        xx, yy = np.meshgrid(x, y)
+        to_lonlat = Transformer.from_crs(self.crs, CRS.from_epsg(4326), always_xy=True)
+        _, lat = to_lonlat.transform(xx, yy, errcheck=False)
+        lat = np.asarray(lat, dtype=np.float64)
+        return np.where(np.isfinite(lat) & (np.abs(lat) <= 90.0), lat, np.nan)
+
     def key(self) -> str:
         """Stable sha256 hex digest of the CRS and the cell edges."""
         digest = hashlib.sha256()
