@@ -9,7 +9,6 @@ Files (the names are a contract other tools rely on; see README, "Outputs"):
 from __future__ import annotations
 
 import shutil
-from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
@@ -63,9 +62,11 @@ def _files_to_write(result: Any) -> int:
 def write_result(result: Any, target: Path, *, overwrite: bool, progress: Any = None) -> Path:
     """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``.
 
-    The GeoPackage is written in a second thread while this one writes the CSVs: SQLite and
-    GDAL release the GIL while they work, so on two cores the CSV formatting overlaps with
-    them. Both finish (or fail) before the staging directory is committed or removed.
+    The CSVs and the series are written while the GeoPackage's attribute table is (by a child
+    process when large, see :func:`~lakeloss.io.gpkg.write_geopackage`), after GDAL has
+    written the feature layer: CSV formatting in a thread beside GDAL slowed both down by
+    holding the GIL. Everything finishes (or fails) before the staging directory is
+    committed or removed.
     ``progress(total, label)``, when given, returns a tqdm-like bar advanced per file.
     """
     bar = progress(_files_to_write(result), "writing") if progress else None
@@ -75,18 +76,14 @@ def write_result(result: Any, target: Path, *, overwrite: bool, progress: Any = 
             bar.update(1)
 
     with OutputDirectory(target, overwrite=overwrite) as staging:
-        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="lakeloss-gpkg") as pool:
-            geopackage = pool.submit(
-                write_geopackage,
-                staging / "waterbodies.gpkg",
-                [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
-                fields=result.field_info,
-                metadata=result.provenance,
-            )
-            _write_tables(result, staging, tick)
-            # Leaving the pool waits for the thread even when the CSVs failed.
-            geopackage.result()
-            tick()
+        write_geopackage(
+            staging / "waterbodies.gpkg",
+            [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
+            fields=result.field_info,
+            metadata=result.provenance,
+            alongside=lambda: _write_tables(result, staging, tick),
+        )
+        tick()
         write_json(staging / "run.json", result.provenance)
         tick()
     if bar is not None:
