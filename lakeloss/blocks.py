@@ -132,11 +132,10 @@ def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
 def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndarray, str]]:
     # The synchronous scheduler: the block is already the unit of parallel work, and a
     # cluster worker must not hand its reads back to the cluster.
+    # Kept in the stored precision: the zonal apply widens only the cells it uses to float64.
     values = {
         q: (
-            np.asarray(
-                f.data.isel(time=block).compute(scheduler="synchronous").values, dtype=np.float64
-            ),
+            np.asarray(f.data.isel(time=block).compute(scheduler="synchronous").values),
             context.field_grid[q],
         )
         for q, f in context.fields.items()
@@ -146,7 +145,7 @@ def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndar
         # what the wind functions want, not the speed of the mean vector.
         east, key = values.pop("eastward_wind")
         north, _ = values.pop("northward_wind")
-        values["wind_speed"] = (np.hypot(east, north), key)
+        values["wind_speed"] = (np.hypot(east.astype(np.float64), north.astype(np.float64)), key)
     return values
 
 

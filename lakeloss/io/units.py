@@ -260,7 +260,10 @@ def convert(values, from_unit: str, quantity: str, *, step_days=None, variable: 
         ``step_days``.
     """
     scale, offset, per_step = conversion_plan(from_unit, quantity, variable=variable)
-    converted = values * scale + offset if offset else values * scale
+    # Skip the identity parts: each is a full pass over a lazy (time, y, x) cube.
+    converted = values * scale if scale != 1.0 else values
+    if offset:
+        converted = converted + offset
     if per_step:
         converted = converted / _step_divisor(values, step_days, from_unit, quantity, variable)
     if isinstance(converted, xr.DataArray):
