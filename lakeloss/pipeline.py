@@ -358,11 +358,15 @@ def _counting(mapper: Any, bar: Any) -> Any:
 # --------------------------------------------------------------------------- extract + evaporate
 
 
-def block_steps(config: RunConfig, inputs: Inputs) -> int:
-    """Time steps per block: from the config, or sized so a block fits the memory budget."""
+def block_steps(config: RunConfig, inputs: Inputs, columns: int | None = None) -> int:
+    """Time steps per block: from the config, or sized so a block fits the memory budget.
+
+    ``columns`` is how many water bodies a block computes (the groups of
+    :mod:`lakeloss.distinct`); every body by default, which is the upper bound.
+    """
     if config.compute.chunk_steps:
         return config.compute.chunk_steps
-    n = max(inputs.n_waterbodies, 1)
+    n = max(inputs.n_waterbodies if columns is None else columns, 1)
     cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
     per_step = 8.0 * (
         n * (_WORKING_ARRAYS + 2 * len(config.method.all)) + cells * len(inputs.fields)
@@ -442,23 +446,32 @@ def compute_sums(
 
     static = _static_inputs(config, inputs, weights)
     groups = distinct_bodies(weights, static, inputs_used(config.method.all))
+    every_body = groups.n_groups == groups.n_bodies  # no two alike: no copies needed
     rows = groups.representative
-    group_weights = {key: w.take_rows(rows) for key, w in weights.items()}
-    group_static = {name: values[:, rows] for name, values in static.items()}
+    group_weights = (
+        dict(weights) if every_body else {k: w.take_rows(rows) for k, w in weights.items()}
+    )
+    group_static = static if every_body else {k: v[:, rows] for k, v in static.items()}
     context = block_context(config, inputs, keep_series=series_sink is not None)
     context = dataclasses.replace(context, body_count=groups.count)
     sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups)
-    blocks = list(iter_blocks(len(inputs.axis.days), block_steps(config, inputs)))
+    steps = block_steps(config, inputs, groups.n_groups)
+    blocks = list(iter_blocks(len(inputs.axis.days), steps))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
     for part in run_blocks(config.compute, context, group_weights, group_static, blocks):
         merge_block(sums, part)
         if series_sink is not None and part.series is not None:
-            series_sink(part.block, {k: v[:, groups.member_of] for k, v in part.series.items()})
+            members = (
+                part.series
+                if every_body
+                else {k: v[:, groups.member_of] for k, v in part.series.items()}
+            )
+            series_sink(part.block, members)
         if bar is not None:
             bar.update(part.steps)
     if bar is not None:
         bar.close()
-    return sums.finish().for_members(groups.member_of)
+    return sums.finish() if every_body else sums.finish().for_members(groups.member_of)
 
 
 def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
