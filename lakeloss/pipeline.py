@@ -62,6 +62,7 @@ from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.physics import registry
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
+from lakeloss.zonal.cache import geometry_digest
 
 log = logging.getLogger(__name__)
 
@@ -312,11 +313,9 @@ def build_weights(
     cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
     frame = inputs.layer.frame
     out: dict[str, ZonalWeights] = {}
-    missing = [
-        key
-        for key, grid in inputs.grids.items()
-        if not cache.path_for(layer_key(frame, grid)).exists()
-    ]
+    geometry = geometry_digest(frame)  # every vertex once, whatever the number of grids
+    keys = {key: layer_key(frame, grid, geometry=geometry) for key, grid in inputs.grids.items()}
+    missing = [key for key in inputs.grids if not cache.path_for(keys[key]).exists()]
     # Large layers are built in spatial blocks, on the cluster when one is configured; the
     # cluster is only started when there is something to build.
     use_cluster = bool(missing) and len(frame) > partition.BLOCK_SIZE
@@ -327,7 +326,7 @@ def build_weights(
             partition.build_weights_in_blocks, map_blocks=_counting(mapper, bar)
         )
         for key, grid in inputs.grids.items():
-            out[key], _ = cache.get_or_build(frame, grid, builder=builder)
+            out[key], _ = cache.get_or_build(frame, grid, builder=builder, key=keys[key])
             if bar is not None and key in missing:  # a one-block build bypasses the mapper
                 done = (missing.index(key) + 1) * blocks_per_grid
                 bar.update(max(0, done - bar.n))

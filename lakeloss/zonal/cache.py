@@ -22,7 +22,26 @@ logger = logging.getLogger(__name__)
 _HASH_SLICE = 100_000
 
 
-def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec) -> str:
+def geometry_digest(polygons: gpd.GeoDataFrame) -> str:
+    """sha256 of the layer's geometries as little-endian WKB, in order.
+
+    The part of :func:`layer_key` that reads every vertex; compute it once per layer when
+    several grids need keys. A missing geometry counts by its position (length -1).
+    """
+    digest = hashlib.sha256()
+    geometry = np.asarray(polygons.geometry.array, dtype=object)
+    for start in range(0, geometry.size, _HASH_SLICE):
+        chunk = shapely.to_wkb(geometry[start : start + _HASH_SLICE], byte_order=1)
+        missing = shapely.is_missing(chunk)
+        chunk[missing] = b""
+        lengths = np.fromiter(map(len, chunk), dtype="<i8", count=chunk.size)
+        lengths[missing] = -1
+        digest.update(lengths.tobytes())
+        digest.update(b"".join(chunk))
+    return digest.hexdigest()
+
+
+def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec, *, geometry: str | None = None) -> str:
     """sha256 of the layer's geometries (WKB, in order), its CRS and the grid key.
 
     Parameters
@@ -31,6 +50,8 @@ def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec) -> str:
         Water bodies.
     grid : GridSpec
         Climate grid.
+    geometry : str, optional
+        :func:`geometry_digest` of ``polygons``, when the caller already has it.
 
     Returns
     -------
@@ -42,12 +63,7 @@ def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec) -> str:
     digest.update(f"lakeloss-weights-v{_weights.SAVE_FORMAT_VERSION}|".encode())
     digest.update(crs.to_wkt().encode())
     digest.update(grid.key().encode())
-    geometry = np.asarray(polygons.geometry.array, dtype=object)
-    for start in range(0, geometry.size, _HASH_SLICE):
-        chunk = shapely.to_wkb(geometry[start : start + _HASH_SLICE], byte_order=1)
-        for wkb in chunk:
-            # a missing geometry hashes as a marker so its position still counts
-            digest.update(b"\x00" if wkb is None else len(wkb).to_bytes(8, "little") + wkb)
+    digest.update((geometry or geometry_digest(polygons)).encode())
     return digest.hexdigest()
 
 
@@ -68,7 +84,13 @@ class WeightsCache:
         return self.directory / f"weights-{key}.npz"
 
     def get_or_build(
-        self, polygons: gpd.GeoDataFrame, grid: GridSpec, *, reprojected=None, builder=None
+        self,
+        polygons: gpd.GeoDataFrame,
+        grid: GridSpec,
+        *,
+        reprojected=None,
+        builder=None,
+        key: str | None = None,
     ) -> tuple[_weights.ZonalWeights, bool]:
         """Load the weights of this layer and grid, or build and store them.
 
@@ -84,6 +106,8 @@ class WeightsCache:
             ``builder(polygons, grid)`` returning ZonalWeights, used instead of
             :func:`lakeloss.zonal.build_weights` (e.g. the partitioned build of
             :mod:`lakeloss.zonal.partition` for very large layers).
+        key : str, optional
+            :func:`layer_key` of ``polygons`` and ``grid``, when the caller already has it.
 
         Returns
         -------
@@ -93,8 +117,7 @@ class WeightsCache:
             True when they came from the cache. An unreadable or mismatching entry is
             rebuilt and overwritten, never trusted.
         """
-        key = layer_key(polygons, grid)
-        path = self.path_for(key)
+        path = self.path_for(key or layer_key(polygons, grid))
         if path.exists():
             cached = self._read(path, grid, len(polygons))
             if cached is not None:

@@ -9,6 +9,7 @@ import scipy.sparse as sp
 import lakeloss.zonal.build as build_module
 from lakeloss.errors import InputDataError
 from lakeloss.zonal import WeightsCache, ZonalWeights, build_weights, layer_key
+from lakeloss.zonal.cache import geometry_digest
 
 
 def _refuse_to_build(*args, **kwargs):
@@ -46,6 +47,24 @@ def test_key_changes_with_geometry_and_grid(projected_layer, projected_grid, geo
     assert layer_key(moved, projected_grid) != key
     assert layer_key(projected_layer, geographic_grid) != key
     assert layer_key(projected_layer.copy(), projected_grid) == key
+
+
+def test_key_counts_order_and_missing_geometry_positions(projected_layer, projected_grid):
+    digest = geometry_digest(projected_layer)
+    key = layer_key(projected_layer, projected_grid)
+    assert layer_key(projected_layer, projected_grid, geometry=digest) == key
+    swapped = projected_layer.iloc[[1, 0, *range(2, len(projected_layer))]]
+    assert geometry_digest(swapped) != digest
+    first, second = projected_layer.copy(), projected_layer.copy()
+    first.loc[first.index[0], "geometry"] = None
+    second.loc[second.index[1], "geometry"] = None
+    assert len({digest, geometry_digest(first), geometry_digest(second)}) == 3
+    # two polygons' bytes run together the same way only if their lengths say so
+    merged = projected_layer.iloc[:2].copy()
+    merged.loc[merged.index[0], "geometry"] = projected_layer.geometry.iloc[0].union(
+        projected_layer.geometry.iloc[1]
+    )
+    assert geometry_digest(merged) != geometry_digest(projected_layer.iloc[:2])
 
 
 def test_corrupt_entry_is_rebuilt_not_crashed_on(tmp_path, projected_layer, projected_grid):
