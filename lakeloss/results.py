@@ -247,6 +247,9 @@ def _rank(volume: np.ndarray, ids: pd.Series) -> np.ndarray:
     return rank
 
 
+_PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
+
+
 def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd.DataFrame:
     first = next(iter(weights.values()))
     periods = inputs.periods
@@ -254,25 +257,27 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     ids = inputs.layer.frame[inputs.layer.id_field]
     body_of_row = np.repeat(np.arange(n), n_periods)
     period_of_row = np.tile(np.arange(n_periods), n)
-    evap = sums.depth[config.method.name]
-    precip = sums.precip if config.output.precipitation else np.full((n_periods, n), np.nan)
-    area = first.polygon_area_m2[None, :]
-    # Rows by water body, then period: the (period, body) arrays transposed, so no sort of
-    # n_periods x n rows is needed.
-    return pd.DataFrame(
-        {
-            inputs.layer.id_field: _repeat_rows(ids, body_of_row),
-            # Text columns taken from a 12-value string array, not 10^7 Python objects.
-            "period_start": pd.array(periods.starts, dtype="str").take(period_of_row),
-            "period_end": pd.array(periods.ends, dtype="str").take(period_of_row),
-            "days": np.rint(periods.days).astype(np.int64)[period_of_row],
-            "evap_mm": evap.T.ravel(),
-            "evap_m3": (evap * area / 1000.0).T.ravel(),
-            "precip_mm": precip.T.ravel(),
-            "net_mm": (evap - precip).T.ravel(),
-            "net_m3": ((evap - precip) * area / 1000.0).T.ravel(),
-        }
+    evap = sums.depth[config.method.name].T
+    precip = sums.precip.T if config.output.precipitation else np.full((n, n_periods), np.nan)
+    area = first.polygon_area_m2[:, None]
+    # Rows by water body, then period: the (period, body) sums transposed, so no sort of
+    # n_periods x n rows is needed. The numbers are written once into one float block that
+    # the frame adopts as it is: building it from separate columns copied 0.5 GB at 10^6.
+    block = np.empty((len(_PERIOD_NUMBERS), n, n_periods))
+    block[0] = evap
+    np.divide(np.multiply(evap, area, out=block[1]), 1000.0, out=block[1])
+    block[2] = precip
+    np.subtract(evap, precip, out=block[3])
+    np.divide(np.multiply(block[3], area, out=block[4]), 1000.0, out=block[4])
+    table = pd.DataFrame(
+        block.reshape(len(_PERIOD_NUMBERS), -1).T, columns=_PERIOD_NUMBERS, copy=False
     )
+    # Text columns taken from a 12-value string array, not 10^7 Python objects.
+    table.insert(0, inputs.layer.id_field, _repeat_rows(ids, body_of_row))
+    table.insert(1, "period_start", pd.array(periods.starts, dtype="str").take(period_of_row))
+    table.insert(2, "period_end", pd.array(periods.ends, dtype="str").take(period_of_row))
+    table.insert(3, "days", np.rint(periods.days).astype(np.int64)[period_of_row])
+    return table
 
 
 def _repeat_rows(values: pd.Series, rows: np.ndarray) -> Any:
@@ -288,55 +293,71 @@ def _summaries(
     """Totals per period (and per group and period) of the period table.
 
     ``by_period`` must be laid out as :func:`_period_table` builds it: ``n_periods`` rows per
-    water body, bodies in the order of ``bodies``, periods in time order. Rows are then
-    matched to bodies and periods by position and grouped by integer period codes, which
-    for 10^7 rows is several times faster than looking up ids and grouping by date text.
+    water body, bodies in the order of ``bodies``, periods in time order. Its columns are
+    then (body, period) arrays, and the totals are counted with one ``bincount`` per column
+    over integer (group, period) codes: for 10^7 rows many times faster than a group-by.
     """
     n = len(bodies)
-    body_of_row = np.repeat(np.arange(n), n_periods)
-    area = bodies["area_m2"].to_numpy(dtype=float)[body_of_row]
-    valid = by_period["evap_mm"].notna().to_numpy()
+    area = bodies["area_m2"].to_numpy(dtype=float)
+
+    def by_body(column: str) -> np.ndarray:
+        return by_period[column].to_numpy(dtype=float, na_value=np.nan).reshape(n, n_periods)
+
+    valid = np.isfinite(by_body("evap_mm"))
+    columns = {
+        "area_m2": np.broadcast_to(area[:, None], (n, n_periods)),
+        "evap_m3": by_body("evap_m3"),
+        "precip_m3": by_body("precip_mm") * area[:, None] / 1000.0,
+        "net_m3": by_body("net_m3"),
+    }
     keys = ["period_start", "period_end", "days"]
     periods = by_period[keys].iloc[:n_periods].reset_index(drop=True)
-    columns = {
-        "area_m2": area,
-        "evap_m3": by_period["evap_m3"].to_numpy(dtype=float, na_value=np.nan),
-        "precip_m3": by_period["precip_mm"].to_numpy(dtype=float, na_value=np.nan) * area / 1000.0,
-        "net_m3": by_period["net_m3"].to_numpy(dtype=float, na_value=np.nan),
-    }
-    # Every period (and group) keeps its row, so one with no valid water body shows
-    # n_waterbodies = 0 and empty totals instead of vanishing from the table.
-    masked = pd.DataFrame(
-        {
-            "_period": np.tile(np.arange(n_periods), n),
-            "n_waterbodies": valid.astype(np.int64),
-            **{c: np.where(valid, v, np.nan) for c, v in columns.items()},
-        }
-    )
-    by_period_total = _totals(masked, [], periods)
+    by_period_total = _totals(np.zeros(n, dtype=np.int64), None, valid, columns, periods)
     by_group = None
     if config.waterbodies.group_by:
         group_by = list(config.waterbodies.group_by)
-        for name in group_by:
-            masked[name] = bodies[name].array.take(body_of_row)
-        by_group = _totals(masked, group_by, periods)
+        # Groups in sorted order, a missing value as a group of its own (last).
+        grouped = bodies[group_by].groupby(group_by, sort=True, dropna=False)
+        codes = grouped.ngroup().to_numpy(dtype=np.int64)
+        names = grouped.size().index.to_frame(index=False)
+        by_group = _totals(codes, names, valid, columns, periods)
     return by_period_total, by_group
 
 
-def _totals(masked: pd.DataFrame, by: list[str], periods: pd.DataFrame) -> pd.DataFrame:
-    """Sums per ``by`` values and period code, the code replaced by the period's key columns.
+_VOLUMES = ["area_m2", "evap_m3", "precip_m3", "net_m3"]
 
-    Period codes count in time order, so sorting by them orders rows as sorting by the ISO
-    date text did.
+
+def _totals(
+    codes: np.ndarray,
+    names: pd.DataFrame | None,
+    valid: np.ndarray,
+    columns: Mapping[str, np.ndarray],
+    periods: pd.DataFrame,
+) -> pd.DataFrame:
+    """Sums over the valid (body, period) cells per (group, period), groups then periods.
+
+    Every group and period keeps its row, so one with no valid water body shows
+    n_waterbodies = 0 and empty totals instead of vanishing from the table; a missing
+    value inside a valid cell counts as 0 (as a skipping sum does).
     """
-    volumes = ["area_m2", "evap_m3", "precip_m3", "net_m3"]
-    out = masked[[*by, "_period", "n_waterbodies", *volumes]]
-    out = out.groupby([*by, "_period"], sort=True, dropna=False).sum().reset_index()
-    out.loc[out["n_waterbodies"] == 0, volumes] = np.nan
-    keys = periods.take(out["_period"].to_numpy()).reset_index(drop=True)
-    return pd.concat(
-        [out[by].reset_index(drop=True), keys, out[["n_waterbodies", *volumes]]], axis=1
-    )
+    n_groups = 1 if names is None else len(names)
+    n_periods = valid.shape[1]
+    cell = (codes[:, None] * n_periods + np.arange(n_periods)[None, :]).ravel()
+    size = n_groups * n_periods
+    count = np.bincount(cell, weights=valid.ravel(), minlength=size).astype(np.int64)
+    totals: dict[str, np.ndarray] = {"n_waterbodies": count}
+    for name in _VOLUMES:
+        values = columns[name]
+        kept = np.where(valid & ~np.isnan(values), values, 0.0).ravel()
+        totals[name] = np.where(count > 0, np.bincount(cell, kept, minlength=size), np.nan)
+    parts = [
+        periods.take(np.tile(np.arange(n_periods), n_groups)).reset_index(drop=True),
+        pd.DataFrame(totals),
+    ]
+    if names is not None:
+        rows = np.repeat(np.arange(n_groups), n_periods)
+        parts.insert(0, names.take(rows).reset_index(drop=True))
+    return pd.concat(parts, axis=1)
 
 
 SERIES_VARIABLES: dict[str, dict[str, str]] = {
