@@ -64,7 +64,9 @@ FIELDS = {"evaporation_by_period": {"evap_mm": FieldInfo("Evaporation depth", "e
 
 def _write(path, table, monkeypatch, *, child: bool, alongside=None) -> None:
     monkeypatch.setattr(gpkg, "_CHILD_MIN_ROWS", 0 if child else 10**12)
-    monkeypatch.setattr(gpkg, "_BLOCK_ROWS", 100)  # several blocks of whole statements
+    # 60 parameters: 12 rows (one cycle) per statement; 96-row blocks, the last one short.
+    monkeypatch.setattr(bulk_table, "_MAX_VARIABLES", 60)
+    monkeypatch.setattr(gpkg, "_BLOCK_ROWS", 100)
     write_geopackage(
         path,
         [("waterbodies", ponds()), ("evaporation_by_period", table)],
@@ -103,6 +105,8 @@ def test_child_writes_the_same_table_as_this_process(tmp_path, monkeypatch):
     table = period_table()
     _write(tmp_path / "child.gpkg", table, monkeypatch, child=True)
     _write(tmp_path / "here.gpkg", table, monkeypatch, child=False)
+    plan = bulk_table._Plan(gpkg._encode_table("t", table), bulk_table.variable_limit())
+    assert plan.rows_per_statement == MONTHS  # so 40 statements in 5 blocks were written
     child, here = _dump(tmp_path / "child.gpkg"), _dump(tmp_path / "here.gpkg")
     assert child == here
     assert len(child["rows"]) == N_PONDS * MONTHS
