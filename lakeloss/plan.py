@@ -12,8 +12,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import pyproj
+import shapely
 
 from lakeloss.config import RunConfig
+from lakeloss.distinct import inputs_used
 from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import Inputs, block_steps, check_overlap, check_values, load_inputs
 
@@ -32,6 +35,7 @@ class Plan:
     config: RunConfig
     inputs: Inputs
     steps_per_block: int
+    columns: int
     memory_bytes: float
     seconds: float
     value_warnings: list[str] = field(default_factory=list)
@@ -58,6 +62,8 @@ class Plan:
                 f"({crs_label(grid.crs)})"
             )
         lines += [
+            f"computed     : about {self.columns} distinct water bodies"
+            " (bodies inside one climate cell with equal inputs are computed once)",
             f"blocks       : {self.steps_per_block} time steps per block"
             " (set [compute] chunk_steps or --chunk-steps to change)",
             f"memory       : about {self.memory_bytes / 2**30:.2f} GiB peak (rough estimate)",
@@ -68,14 +74,14 @@ class Plan:
         return "\n".join(lines)
 
 
-def _memory(config: RunConfig, inputs: Inputs, steps: int) -> float:
+def _memory(config: RunConfig, inputs: Inputs, steps: int, columns: int) -> float:
     n = inputs.n_waterbodies
     n_periods = len(inputs.periods.starts)
     cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
     layer = n * 1500.0  # geometries and attributes
     weights = n * 1.5 * 12.0 * 3  # nnz ~ 1.5 per body; build overhead x3
     sums = n_periods * n * 8.0 * (len(config.method.all) + 2)
-    block = steps * 8.0 * (n * 24 + cells * len(inputs.fields))
+    block = steps * 8.0 * (columns * 24 + cells * len(inputs.fields))
     tables = n_periods * n * 120.0  # evaporation_by_period in pandas
     # Interpreter, numpy/GDAL/PROJ and open climate files: about 0.7 GiB at any size in the
     # end-to-end benchmark (1.4 GiB peak at 10^5 bodies, 4.6 GiB at 10^6).
@@ -83,15 +89,50 @@ def _memory(config: RunConfig, inputs: Inputs, steps: int) -> float:
     return base + layer + weights + sums + block + tables
 
 
-def _seconds(config: RunConfig, inputs: Inputs) -> float:
+def _seconds(config: RunConfig, inputs: Inputs, columns: int) -> float:
     n = inputs.n_waterbodies
     steps = len(inputs.axis.days)
     return (
         n * _SECONDS_PER_POLYGON
-        + n * steps * len(inputs.fields) * _SECONDS_PER_VALUE_APPLY
-        + n * steps * len(config.method.all) * _SECONDS_PER_VALUE_METHOD
+        + columns * steps * len(inputs.fields) * _SECONDS_PER_VALUE_APPLY
+        + columns * steps * len(config.method.all) * _SECONDS_PER_VALUE_METHOD
         + n * len(inputs.periods.starts) * _SECONDS_PER_TABLE_ROW
     )
+
+
+def estimate_columns(config: RunConfig, inputs: Inputs) -> int:
+    """About how many distinct bodies the blocks will compute (:mod:`lakeloss.distinct`).
+
+    Without building the weights: a body whose bounding box, its corners moved to the
+    first climate grid, falls inside one cell is counted with the others of that cell;
+    every other body counts alone. A per-body input that splits groups (an elevation
+    attribute, or the area for a method that reads it) makes every body count.
+    """
+    frame = inputs.layer.frame
+    used = inputs_used(config.method.all)
+    if config.waterbodies.elevation_field and "elevation" in used or "area_m2" in used:
+        return len(frame)
+    grid = inputs.grids[next(iter(inputs.field_grid.values()))]
+    bounds = shapely.bounds(np.asarray(frame.geometry.array))
+    to_grid = pyproj.Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
+    x0, y0 = to_grid.transform(bounds[:, 0], bounds[:, 1], errcheck=False)
+    x1, y1 = to_grid.transform(bounds[:, 2], bounds[:, 3], errcheck=False)
+    col0, col1 = _cell_index(grid.x_edges, x0), _cell_index(grid.x_edges, x1)
+    row0, row1 = _cell_index(grid.y_edges, y0), _cell_index(grid.y_edges, y1)
+    inside = (col0 == col1) & (row0 == row1) & (col0 >= 0) & (row0 >= 0)
+    cells = np.unique(row0[inside] * grid.shape[1] + col0[inside]).size
+    return int(cells + (~inside).sum())
+
+
+def _cell_index(edges: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Cell of each value along one axis (edges ascending or descending); -1 outside."""
+    ascending = edges[-1] > edges[0]
+    ordered = edges if ascending else edges[::-1]
+    index = np.searchsorted(ordered, values, side="right") - 1
+    index = np.where((index >= 0) & (index < edges.size - 1), index, -1)
+    if not ascending:
+        index = np.where(index >= 0, edges.size - 2 - index, -1)
+    return index
 
 
 def make_plan(config: RunConfig) -> Plan:
@@ -99,12 +140,14 @@ def make_plan(config: RunConfig) -> Plan:
     inputs = load_inputs(config)
     check_overlap(inputs)
     value_warnings = check_values(config, inputs)
-    steps = block_steps(config, inputs)
+    columns = estimate_columns(config, inputs)
+    steps = block_steps(config, inputs, columns)
     return Plan(
         config=config,
         inputs=inputs,
         steps_per_block=steps,
-        memory_bytes=_memory(config, inputs, steps),
-        seconds=_seconds(config, inputs),
+        columns=columns,
+        memory_bytes=_memory(config, inputs, steps, columns),
+        seconds=_seconds(config, inputs, columns),
         value_warnings=value_warnings,
     )

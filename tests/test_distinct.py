@@ -146,3 +146,24 @@ def test_centre_latitudes_of_a_projected_grid_match_pyproj():
     ]
     np.testing.assert_allclose(grid.centre_latitudes(), expected, rtol=0, atol=1e-12)
     np.testing.assert_allclose(GRID.centre_latitudes()[:, 0], LAT, rtol=0, atol=1e-12)
+
+
+def test_check_estimates_the_groups_without_weights(tmp_path):
+    from lakeloss.plan import make_plan
+
+    times = pd.date_range("2031-01-01", periods=3, freq="D")
+    climate_path = write_netcdf(climate_dataset(times, _climate(times)), tmp_path / "c.nc")
+    path = tmp_path / "layer.gpkg"
+    _layer().to_file(path, layer="ponds", driver="GPKG")
+
+    def plan(**waterbodies):
+        config = case_config(
+            path, climate_path, tmp_path / "out", "penman_open_water", _FIELDS_CLIMATE,
+            waterbodies=waterbodies,
+        )  # fmt: skip
+        return make_plan(lakeloss.load_config(config))
+
+    # {0, 1, 2, 5} in one cell, 3 in another, 4 across an edge, 6 off the grid
+    assert plan().columns == 4
+    assert "about 4 distinct water bodies" in plan().describe()
+    assert plan(elevation_field="elev").columns == 7  # an attribute the method reads
