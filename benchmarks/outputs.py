@@ -5,12 +5,15 @@ and the summaries with the same functions a run uses (``lakeloss.results``), the
 GeoPackage (layer ``waterbodies`` and table ``evaporation_by_period``) and the CSVs with
 ``lakeloss.io.write_run.write_result``. Prints seconds per stage.
 
-Usage: ``python benchmarks/outputs.py`` (10^5 and 10^6) or ``--sizes 100000``.
+Usage: ``python benchmarks/outputs.py`` (10^5 and 10^6) or ``--sizes 100000``. The last
+column is the 1-minute load average when the size finished: the writer overlaps work on two
+cores, so figures taken while other jobs use them are not comparable.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import tempfile
 import time
 from pathlib import Path
@@ -117,12 +120,13 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[100_000, 1_000_000])
     args = parser.parse_args()
-    print("| ponds | rows | assemble s | write s | total s |")
-    print("|---|---|---|---|---|")
+    print("| ponds | rows | assemble s | write s | total s | load |")
+    print("|---|---|---|---|---|---|")
     for n in args.sizes:
         t = run(n)
         print(
-            f"| {n} | {12 * n} | {t['assemble']:.1f} | {t['write']:.1f} | {t['total']:.1f} |",
+            f"| {n} | {12 * n} | {t['assemble']:.1f} | {t['write']:.1f} | {t['total']:.1f} "
+            f"| {os.getloadavg()[0]:.1f} |",
             flush=True,
         )
 
