@@ -126,11 +126,12 @@ class _Stage:
 # --------------------------------------------------------------------------- load
 
 
-def _open_field(item: Any) -> climate_io.ClimateField:
+def _open_field(item: Any, chunk_steps: int) -> climate_io.ClimateField:
     if item.format == "netcdf":
         return climate_io.open_netcdf(
-            item.path, item.variable, item.key, units=item.units, crs=item.crs
-        )
+            item.path, item.variable, item.key, units=item.units, crs=item.crs,
+            chunk_steps=chunk_steps,
+        )  # fmt: skip
     return climate_io.open_geotiff_stack(
         item.path,
         item.key,
@@ -140,6 +141,7 @@ def _open_field(item: Any) -> climate_io.ClimateField:
         calendar=item.calendar,
         crs=item.crs,
         end=item.end,
+        chunk_steps=chunk_steps,
     )
 
 
@@ -176,7 +178,7 @@ def load_inputs(config: RunConfig) -> Inputs:
         for item in config.climate:
             if item.quantity == "elevation":
                 continue
-            fields[item.quantity] = _open_field(item)
+            fields[item.quantity] = _open_field(item, _read_steps(config))
     recorded = [w for w in seen if issubclass(w.category, LakelossWarning)]
     caught.extend(str(w.message) for w in recorded)
     axis = timeaxis.require_identical(
@@ -373,6 +375,22 @@ def block_steps(config: RunConfig, inputs: Inputs, columns: int | None = None) -
     return int(np.clip(_BLOCK_BUDGET_BYTES // per_step, 1, _MAX_BLOCK_STEPS))
 
 
+def _read_steps(config: RunConfig) -> int:
+    """Time steps per lazy read of a climate field: the blocks, so no block reads more.
+
+    A block reads whole chunks of the lazy field; with 64-step chunks a 16-step block read
+    (and converted) four times the data it used, 3x slower over a year of 400 x 400 cells.
+    """
+    return config.compute.chunk_steps or _MAX_BLOCK_STEPS
+
+
+def _aligned(steps: int, read_steps: int) -> int:
+    """The largest block length <= ``steps`` that divides ``read_steps`` (or a multiple)."""
+    if steps >= read_steps:
+        return steps - steps % read_steps
+    return max(d for d in range(1, steps + 1) if read_steps % d == 0)
+
+
 def iter_blocks(n_steps: int, steps: int) -> Iterator[slice]:
     for start in range(0, n_steps, steps):
         yield slice(start, min(start + steps, n_steps))
@@ -454,7 +472,7 @@ def compute_sums(
     context = block_context(config, inputs, keep_series=series_sink is not None)
     context = dataclasses.replace(context, body_count=groups.count)
     sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups)
-    steps = block_steps(config, inputs, groups.n_groups)
+    steps = _aligned(block_steps(config, inputs, groups.n_groups), _read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
     for part in run_blocks(config.compute, context, group_weights, group_static, blocks):
