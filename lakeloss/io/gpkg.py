@@ -3,8 +3,9 @@
 Feature layers are written by GDAL (through pyogrio), in their own CRS, with GDAL layer
 metadata that ``ogrinfo`` and :func:`pyogrio.read_info` show (the provenance reaches them as
 the dataset item ``GPKG_METADATA_ITEM_1``). Attribute tables
-(plain DataFrames, ``gpkg_contents.data_type = 'attributes'``) and two OGC GeoPackage
-extensions are then added with SQLite in one transaction:
+(plain DataFrames, ``gpkg_contents.data_type = 'attributes'``) are then filled with SQLite
+by :mod:`lakeloss.io.bulk_table` (large ones by a child process), and registered, together
+with two OGC GeoPackage extensions, in one more transaction:
 
 * ``gpkg_schema``: one ``gpkg_data_columns`` row per documented column; ``name`` and
   ``title`` read ``"<title> [<unit>]"`` so the unit is visible wherever the alias is shown,
@@ -171,7 +172,8 @@ def write_geopackage(
     :mod:`lakeloss.io.bulk_table`) converts the tables while GDAL writes the feature layers
     and inserts them afterwards; its columns pass through ``.npy`` files in a directory
     beside ``path`` that is removed again. Measured for 10^6 polygons and a 12 x 10^6-row
-    table: 19 s for this call against 29 s with everything in this process.
+    table with other jobs on the 2-core machine: 18.6-19.4 s for this call, against 7.7 s
+    (layer) plus 21.1 s (table) in this process before.
     """
     _check_layers(layers, fields)
     provenance = to_jsonable(dict(metadata))
