@@ -32,8 +32,8 @@ import json
 import os
 import re
 import sqlite3
-from collections.abc import Callable, Mapping, Sequence
-from contextlib import closing
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from contextlib import closing, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -59,6 +59,8 @@ _BLOCK_ROWS = 100_000  # rows converted to Python objects at a time (bounds memo
 # and the payload files cost more than the overlap saves.
 _CHILD_MIN_ROWS = 200_000
 _MAX_CYCLE = 64  # longest cycle of repeated values written as SQL literals
+_PAGE_SIZE = 65536  # [bytes] SQLite page size of a new GeoPackage (the largest SQLite allows)
+_SQLITE_PRAGMA = "OGR_SQLITE_PRAGMA"
 _SQLITE_FULL = 13  # SQLITE_FULL result code: database or disk is full
 _UNIT_IN_TITLE = re.compile(r"^(?P<title>.*) \[(?P<unit>[^\[\]]+)\]$", re.DOTALL)
 
@@ -349,16 +351,37 @@ def _write_layer(
     """
     layer_metadata = _layer_metadata(infos) or None
     try:
-        pyogrio.write_dataframe(
-            _gdal_ready(frame),
-            path,
-            layer=name,
-            driver="GPKG",
-            layer_metadata=layer_metadata,
-            use_arrow=_arrow_safe(frame),
-        )
+        with _large_pages():
+            pyogrio.write_dataframe(
+                _gdal_ready(frame),
+                path,
+                layer=name,
+                driver="GPKG",
+                layer_metadata=layer_metadata,
+                use_arrow=_arrow_safe(frame),
+            )
     except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
         raise _write_error(exc, f"GDAL could not write layer {name!r} to {path}") from exc
+
+
+@contextmanager
+def _large_pages() -> Iterator[None]:
+    """SQLite pages of ``_PAGE_SIZE`` bytes in a GeoPackage GDAL creates within this block.
+
+    The page size can only be chosen before the first table exists, so it goes through
+    GDAL's ``OGR_SQLITE_PRAGMA``. That option is process-wide: it is set only for the block,
+    restored after, and left alone when the user has set it. 64 KiB pages instead of 4 KiB
+    took the layer of 10^6 polygons from 4.7-5.9 s to 3.6-4.2 s and the 12 x 10^6-row
+    table's INSERTs from 8.6-8.8 s to 8.0-8.4 s (two alternating runs each, quiet machine).
+    """
+    if pyogrio.get_gdal_config_option(_SQLITE_PRAGMA) is not None:
+        yield
+        return
+    pyogrio.set_gdal_config_options({_SQLITE_PRAGMA: f"page_size={_PAGE_SIZE}"})
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options({_SQLITE_PRAGMA: None})
 
 
 def _arrow_safe(frame: geopandas.GeoDataFrame) -> bool:

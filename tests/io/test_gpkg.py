@@ -375,3 +375,21 @@ def test_layer_field_types_whichever_gdal_path(tmp_path, extra):
     back = pyogrio.read_dataframe(path, layer="ponds")
     assert back["pond_id"].tolist() == ["A", "B"]
     assert back["rank"].tolist() == [2, 1]
+
+
+def test_large_pages_and_the_gdal_option_restored(tmp_path, ponds, written):
+    with sqlite3.connect(written) as con:
+        assert con.execute("PRAGMA page_size").fetchone() == (65536,)
+    con.close()
+    assert pyogrio.get_gdal_config_option("OGR_SQLITE_PRAGMA") is None
+    # A user's own setting is left as it is and applies.
+    pyogrio.set_gdal_config_options({"OGR_SQLITE_PRAGMA": "page_size=8192"})
+    try:
+        path = tmp_path / "own.gpkg"
+        write_geopackage(path, [("waterbodies", ponds)], fields={}, metadata={})
+        assert pyogrio.get_gdal_config_option("OGR_SQLITE_PRAGMA") == "page_size=8192"
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_SQLITE_PRAGMA": None})
+    with sqlite3.connect(path) as con:
+        assert con.execute("PRAGMA page_size").fetchone() == (8192,)
+    con.close()
