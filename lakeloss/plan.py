@@ -21,11 +21,13 @@ from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import Inputs, block_steps, check_overlap, check_values, load_inputs
 
 # Wall seconds per unit of work, from the end-to-end benchmark of 10^6 ponds on the 2-core
-# reference machine, two threads (benchmarks/README.md, "End to end"); 10^5 runs faster.
+# reference machine, two threads, 2026-12-02 (benchmarks/README.md, "Session 2"): 62-73 s
+# measured, 69 s from these figures; 10^5 ponds 10-13 s measured, 10 s estimated. A "column"
+# is one distinct body the blocks compute (estimate_columns).
 _SECONDS_PER_POLYGON = 20e-6  # layer read, reprojection and weights build (cold cache)
-_SECONDS_PER_VALUE_APPLY = 3e-8  # one water body x one step x one variable (read + zonal)
-_SECONDS_PER_VALUE_METHOD = 1.3e-7  # one water body x one step x one method (physics)
-_SECONDS_PER_TABLE_ROW = 4e-6  # one row of evaporation_by_period assembled and written
+_SECONDS_PER_VALUE_APPLY = 1e-8  # one column x one step x one variable (read + zonal)
+_SECONDS_PER_VALUE_METHOD = 1.2e-7  # one column x one step x one method (physics, sums)
+_SECONDS_PER_TABLE_ROW = 2.8e-6  # one row of evaporation_by_period assembled and written
 
 
 @dataclass
