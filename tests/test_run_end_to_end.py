@@ -119,6 +119,10 @@ def test_outputs_and_columns(chow_run):
     assert fields["evap_mm"].unit == "mm"
     period_fields = read_field_descriptions(out / "waterbodies.gpkg", "evaporation_by_period")
     assert {"period_start", "period_end", "days", "evap_mm", "net_m3"} <= set(period_fields)
+    period_info = pyogrio.read_info(out / "waterbodies.gpkg", layer="evaporation_by_period")
+    types = dict(zip(period_info["fields"], period_info["ogr_types"], strict=True))
+    dates = [types["period_start"], types["period_end"]]
+    assert dates == ["OFTDate", "OFTDate"]  # GIS software sees dates, not text
     with sqlite3.connect(out / "waterbodies.gpkg") as db:
         extensions = {row[0] for row in db.execute("select extension_name from gpkg_extensions")}
     assert {"gpkg_schema", "gpkg_metadata"} <= extensions

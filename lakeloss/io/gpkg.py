@@ -529,7 +529,32 @@ def _sql_type(series: pd.Series) -> str:
         values = series.to_numpy(dtype="datetime64[s]")
         present = values[~np.isnat(values)]
         return "DATE" if np.all(present == present.astype("datetime64[D]")) else "DATETIME"
+    if _is_date_text(series):
+        return "DATE"
     return "TEXT"
+
+
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+
+
+def _is_date_text(series: pd.Series) -> bool:
+    """Whether a string column holds only real Gregorian dates as ``YYYY-MM-DD`` text.
+
+    That is how GeoPackage stores a DATE, so such a column is declared DATE and GIS software
+    reads dates. Dates of a 360-day or no-leap calendar that do not exist in the Gregorian
+    one (2031-02-30) keep the column TEXT. Only the distinct values are parsed, and only
+    when the first value looks like a date, so an id column costs one regex match.
+    """
+    if not isinstance(series.dtype, pd.StringDtype) or series.empty:
+        return False
+    first = series.iloc[0]
+    if not isinstance(first, str) or not _ISO_DATE.fullmatch(first):
+        return False
+    distinct = series.dropna().unique()
+    if not all(_ISO_DATE.fullmatch(text) for text in distinct):
+        return False
+    parsed = pd.to_datetime(pd.Series(distinct), format="%Y-%m-%d", errors="coerce")
+    return bool(parsed.notna().all())
 
 
 def _sql_values(series: pd.Series, sql_type: str) -> np.ndarray:
@@ -538,6 +563,8 @@ def _sql_values(series: pd.Series, sql_type: str) -> np.ndarray:
     Numbers go to Python objects in one numpy cast rather than a loop; strings of a pandas
     string column are already ``str`` and are passed through.
     """
+    if sql_type == "DATE" and isinstance(series.dtype, pd.StringDtype):
+        return series.to_numpy(dtype=object, na_value=None)  # already GeoPackage DATE text
     if sql_type in ("DATE", "DATETIME"):
         stamps = series.to_numpy(dtype="datetime64[ms]")
         if sql_type == "DATE":

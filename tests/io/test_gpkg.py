@@ -393,3 +393,32 @@ def test_large_pages_and_the_gdal_option_restored(tmp_path, ponds, written):
     with sqlite3.connect(path) as con:
         assert con.execute("PRAGMA page_size").fetchone() == (8192,)
     con.close()
+
+
+def test_iso_date_text_declared_date_unless_the_calendar_has_impossible_days(tmp_path, ponds):
+    # GeoPackage 1.2 stores a DATE as 'YYYY-MM-DD' text: a pandas string column of such text
+    # is declared DATE, so GDAL reads dates; a 360-day calendar's 2031-02-30 keeps it TEXT.
+    def written_types(starts: list[str]) -> tuple[list[str], list]:
+        table = pd.DataFrame(
+            {
+                "code": pd.array(["A-1", "B-2"] * (len(starts) // 2), dtype="str"),
+                "period_start": pd.array(starts, dtype="str"),
+                "evap_mm": np.arange(len(starts), dtype=float),
+            }
+        )
+        path = tmp_path / f"t{len(list(tmp_path.iterdir()))}.gpkg"
+        write_geopackage(
+            path, [("waterbodies", ponds), ("evaporation_by_period", table)], fields={},
+            metadata={},
+        )  # fmt: skip
+        with sqlite3.connect(path) as con:
+            stored = con.execute("SELECT period_start FROM evaporation_by_period").fetchall()
+        con.close()
+        return pyogrio.read_info(path, layer="evaporation_by_period")["ogr_types"], stored
+
+    types, stored = written_types(["2031-01-01", "2031-02-01", "2031-03-01", "2031-04-01"])
+    assert types == ["OFTString", "OFTDate", "OFTReal"]
+    assert stored[1] == ("2031-02-01",)
+    types, stored = written_types(["2031-01-01", "2031-01-30", "2031-02-01", "2031-02-30"])
+    assert types == ["OFTString", "OFTString", "OFTReal"]
+    assert stored[3] == ("2031-02-30",)
