@@ -550,7 +550,7 @@ def _is_date_text(series: pd.Series) -> bool:
     first = series.iloc[0]
     if not isinstance(first, str) or not _ISO_DATE.fullmatch(first):
         return False
-    distinct = series.dropna().unique()
+    distinct = [text for text in series.unique() if isinstance(text, str)]  # NA left out
     if not all(_ISO_DATE.fullmatch(text) for text in distinct):
         return False
     parsed = pd.to_datetime(pd.Series(distinct), format="%Y-%m-%d", errors="coerce")
