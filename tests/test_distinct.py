@@ -109,7 +109,7 @@ def _run(tmp_path, layer: gpd.GeoDataFrame, climate_path, name: str):
     layer.to_file(path, layer="ponds", driver="GPKG")
     config = case_config(
         path, climate_path, tmp_path / f"out-{name}", "penman_open_water", _FIELDS_CLIMATE,
-        waterbodies={"elevation_field": "elev"},
+        waterbodies={"elevation_field": "elev"}, output={"series": True},
     )  # fmt: skip
     return lakeloss.run(config)
 
@@ -118,15 +118,23 @@ def test_grouped_run_gives_each_body_what_it_gets_alone(tmp_path):
     times = pd.date_range("2031-01-01", periods=45, freq="D")
     climate_path = write_netcdf(climate_dataset(times, _climate(times)), tmp_path / "c.nc")
     layer = _layer().iloc[:6]  # the far pond's refusal is tested elsewhere
-    together = _run(tmp_path, layer, climate_path, "all").by_period
+    grouped = _run(tmp_path, layer, climate_path, "all")
+    together = grouped.by_period
     numbers = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
     assert together["evap_mm"].notna().all()
     for i in range(len(layer)):
-        alone = _run(tmp_path, layer.iloc[[i]], climate_path, f"p{i}").by_period
+        alone = _run(tmp_path, layer.iloc[[i]], climate_path, f"p{i}")
         mine = together[together["pond_id"] == layer["pond_id"].iloc[i]]
         np.testing.assert_allclose(
-            mine[numbers].to_numpy(), alone[numbers].to_numpy(), rtol=1e-12, atol=1e-9
+            mine[numbers].to_numpy(), alone.by_period[numbers].to_numpy(), rtol=1e-12, atol=1e-9
         )
+        # the per-step series streamed block by block are copied to the members too
+        for name in ("evaporation_rate", "precipitation_rate"):
+            np.testing.assert_allclose(
+                grouped.series[name].isel(waterbody=i).values,
+                alone.series[name].isel(waterbody=0).values,
+                rtol=1e-6,
+            )
     # Same cell and elevation: equal depths, volumes in proportion to each pond's own area.
     first = together[together["pond_id"] == 201].reset_index(drop=True)
     second = together[together["pond_id"] == 202].reset_index(drop=True)
