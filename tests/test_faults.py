@@ -19,6 +19,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pyogrio
 import pytest
 import tomli_w
@@ -183,3 +184,67 @@ def test_reruns_are_byte_identical_whatever_the_block_size(tmp_path, monkeypatch
             else:
                 np.testing.assert_array_equal(a[column].to_numpy(), b[column].to_numpy())
     shutil.rmtree(tmp_path / "a")
+
+
+def _table_writers(proc: subprocess.Popen) -> list:
+    import psutil
+
+    try:
+        children = psutil.Process(proc.pid).children(recursive=True)
+    except psutil.NoSuchProcess:
+        return []
+    return [c for c in children if "lakeloss.io.bulk_table" in " ".join(_cmdline(c))]
+
+
+def _cmdline(process) -> list[str]:
+    import psutil
+
+    try:
+        return process.cmdline()
+    except (psutil.NoSuchProcess, psutil.ZombieProcess, psutil.AccessDenied):
+        return []
+
+
+@pytest.mark.slow
+def test_sigkill_while_the_child_inserts_the_period_table(tmp_path):
+    # 17 000 ponds x 12 months = 204 000 rows: the attribute table goes to the child
+    # process (io/bulk_table.py). Killing the run then must take the child with it and
+    # leave no output under the final name; the next run completes.
+    import psutil
+    from builders import case_config, climate_dataset, pond_layer, write_netcdf
+
+    layer_path = tmp_path / "ponds.gpkg"
+    pond_layer(n_ponds=17_000, seed=11).to_file(layer_path, layer="ponds", driver="GPKG")
+    times = pd.date_range("2031-01-01", periods=365, freq="D")
+    fields = {
+        "rnet": (150.0, "W m-2", "surface_net_downward_radiative_flux"),
+        "tas": (293.15, "K", "air_temperature"),
+        "pr": (1.0 / 86400.0, "kg m-2 s-1", "precipitation_flux"),
+    }
+    climate = write_netcdf(climate_dataset(times, fields), tmp_path / "climate.nc")
+    names = {
+        "surface_net_downward_radiative_flux": "rnet",
+        "air_temperature": "tas",
+        "precipitation_flux": "pr",
+    }
+    raw = case_config(layer_path, climate, tmp_path / "out", "priestley_taylor", names)
+    config = tmp_path / "run.toml"
+    config.write_text(tomli_w.dumps(raw))
+    proc = _start(config)
+    seen: list = []
+
+    def child_inserting() -> bool:
+        seen[:] = _table_writers(proc) or seen
+        return bool(seen)
+
+    assert _kill_when(proc, child_inserting, timeout=240)
+    _, alive = psutil.wait_procs(seen, timeout=10)
+    assert alive == [], "the table-writing child outlived its parent"
+    assert not (tmp_path / "out").exists()
+    _complete_run(config)
+    assert (
+        pyogrio.read_info(tmp_path / "out" / "waterbodies.gpkg", layer="evaporation_by_period")[
+            "features"
+        ]
+        == 17_001 * 12
+    )
