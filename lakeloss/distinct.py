@@ -45,6 +45,27 @@ class DistinctBodies:
     def n_bodies(self) -> int:
         return int(self.member_of.size)
 
+    @property
+    def all_distinct(self) -> bool:
+        """No two bodies alike: every group is one body, in layer order."""
+        return self.n_groups == self.n_bodies
+
+    def group_weights(self, weights: Mapping[str, ZonalWeights]) -> dict[str, ZonalWeights]:
+        """The weights of the representatives only (the same objects when all distinct)."""
+        if self.all_distinct:
+            return dict(weights)
+        return {key: w.take_rows(self.representative) for key, w in weights.items()}
+
+    def group_values(self, values: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """Per-body arrays ``(..., n)`` cut to the representatives ``(..., k)``."""
+        if self.all_distinct:
+            return dict(values)
+        return {name: v[..., self.representative] for name, v in values.items()}
+
+    def body_values(self, values: np.ndarray) -> np.ndarray:
+        """Per-group array ``(..., k)`` copied out to every member ``(..., n)``."""
+        return values if self.all_distinct else values[..., self.member_of]
+
 
 def inputs_used(methods: Iterable[str]) -> set[str]:
     """Every input name the ``methods`` can read, required (any alternative) or optional."""

@@ -463,32 +463,23 @@ def compute_sums(
 
     static = _static_inputs(config, inputs, weights)
     groups = distinct_bodies(weights, static, inputs_used(config.method.all))
-    every_body = groups.n_groups == groups.n_bodies  # no two alike: no copies needed
-    rows = groups.representative
-    group_weights = (
-        dict(weights) if every_body else {k: w.take_rows(rows) for k, w in weights.items()}
-    )
-    group_static = static if every_body else {k: v[:, rows] for k, v in static.items()}
     context = block_context(config, inputs, keep_series=series_sink is not None)
     context = dataclasses.replace(context, body_count=groups.count)
     sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups)
     steps = _aligned(block_steps(config, inputs, groups.n_groups), _read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
+    shared = (groups.group_weights(weights), groups.group_values(static))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
-    for part in run_blocks(config.compute, context, group_weights, group_static, blocks):
+    for part in run_blocks(config.compute, context, *shared, blocks):
         merge_block(sums, part)
         if series_sink is not None and part.series is not None:
-            members = (
-                part.series
-                if every_body
-                else {k: v[:, groups.member_of] for k, v in part.series.items()}
-            )
-            series_sink(part.block, members)
+            series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
         if bar is not None:
             bar.update(part.steps)
     if bar is not None:
         bar.close()
-    return sums.finish() if every_body else sums.finish().for_members(groups.member_of)
+    merged = sums.finish()
+    return merged if groups.all_distinct else merged.for_members(groups.member_of)
 
 
 def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
