@@ -404,9 +404,11 @@ def _static_inputs(
     The latitude is that of the climate a body gets: the area-weighted mean latitude of the
     centres of the cells it covers on the shortwave grid (the first grid without one). For
     a pond inside one 0.05° cell it is that cell's centre, at most 0.025° from the pond's
-    own centroid: the sun's geometry (FAO-56 eq. 21-25) changes by a few parts in 10^4
-    over that distance. Bodies inside one cell then share every input and are computed once
-    (:mod:`lakeloss.distinct`).
+    own centroid. Over that distance Ra (FAO-56 eq. 21) changes by at most 0.08 % at 30°,
+    0.15 % at 45° and 0.5 % at 60° latitude (worst day of the year; computed with
+    :func:`lakeloss.physics.radiation.extraterrestrial_radiation`); Ra enters the methods
+    only through the clear-sky ratio of the longwave term. Bodies inside one cell then
+    share every input and are computed once (:mod:`lakeloss.distinct`).
     """
     grid_key = inputs.field_grid.get(_SHORTWAVE) or next(iter(inputs.field_grid.values()))
     sun_weights = weights[grid_key]
