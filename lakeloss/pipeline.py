@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import atexit
 import contextlib
-import dataclasses
 import functools
 import logging
 import os
@@ -431,7 +430,12 @@ def _static_inputs(
     return static
 
 
-def block_context(config: RunConfig, inputs: Inputs, keep_series: bool = False) -> BlockContext:
+def block_context(
+    config: RunConfig,
+    inputs: Inputs,
+    keep_series: bool = False,
+    body_count: np.ndarray | None = None,
+) -> BlockContext:
     return BlockContext(
         fields=inputs.fields,
         field_grid=dict(inputs.field_grid),
@@ -442,6 +446,7 @@ def block_context(config: RunConfig, inputs: Inputs, keep_series: bool = False) 
         days=inputs.axis.days,
         period_index=inputs.periods.index,
         keep_series=keep_series,
+        body_count=body_count,
     )
 
 
@@ -465,8 +470,7 @@ def compute_sums(
 
     static = _static_inputs(config, inputs, weights)
     groups = distinct_bodies(weights, static, inputs_used(config.method.all))
-    context = block_context(config, inputs, keep_series=series_sink is not None)
-    context = dataclasses.replace(context, body_count=groups.count)
+    context = block_context(config, inputs, series_sink is not None, groups.count)
     sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups)
     steps = _aligned(block_steps(config, inputs, groups.n_groups), _read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))

@@ -112,7 +112,8 @@ def estimate_columns(config: RunConfig, inputs: Inputs) -> int:
     """
     frame = inputs.layer.frame
     used = inputs_used(config.method.all)
-    if config.waterbodies.elevation_field and "elevation" in used or "area_m2" in used:
+    splitting = bool(config.waterbodies.elevation_field) and "elevation" in used
+    if splitting or "area_m2" in used:
         return len(frame)
     grid = inputs.grids[next(iter(inputs.field_grid.values()))]
     bounds = shapely.bounds(np.asarray(frame.geometry.array))
