@@ -10,7 +10,6 @@ from __future__ import annotations
 import json
 import shutil
 import sqlite3
-import subprocess
 
 import cftime
 import geopandas as gpd
@@ -177,12 +176,9 @@ def test_provenance_in_gpkg_metadata_and_gdal_metadata(written):
         ).fetchall()
     con.close()
     assert refs == [("geopackage", "application/json")]
-    ogrinfo = shutil.which("ogrinfo")
-    if ogrinfo is not None:  # extra check with the GDAL command line where it is installed
-        out = subprocess.run(
-            [ogrinfo, "-so", "-al", str(written)], capture_output=True, text=True, check=True
-        ).stdout
-        assert "method=penman_open_water" in out
+    # The whole document, as GDAL (through pyogrio) hands it to any GDAL-based reader; not
+    # through the ogrinfo program, whose text layout differs between GDAL versions.
+    assert json.loads(gdal_item) == expected
 
 
 def test_existing_file_replaced(tmp_path, written, ponds):
