@@ -421,7 +421,7 @@ SERIES_VARIABLES: dict[str, dict[str, str]] = {
 """Per-step series variables (series.nc) and their CF attributes."""
 
 
-def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo]]:
+def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict[str, FieldInfo]]:
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
     for name in config.method.all[1:]:
         body[f"evap_mm_{name}"] = FieldInfo(
@@ -430,7 +430,12 @@ def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo
     for unit in config.output.extra_volume_units:
         body[f"evap_{unit}"] = FieldInfo("Evaporation volume", "evap_m3 in " + unit, unit)
         body[f"net_{unit}"] = FieldInfo("Net loss volume", "net_m3 in " + unit, unit)
-    period = {k: FieldInfo(*v) for k, v in _PERIOD_FIELDS.items()}
+    period = {
+        id_field: FieldInfo(
+            "Water body", f"{id_field} of the water body in the waterbodies layer (indexed)"
+        )
+    }
+    period.update((k, FieldInfo(*v)) for k, v in _PERIOD_FIELDS.items())
     for name in config.method.all[1:]:
         period[f"evap_mm_{name}"] = FieldInfo(
             f"Evaporation depth, {name}", f"evaporation in this period by method {name}", "mm"
@@ -526,7 +531,7 @@ def assemble(
         provenance=provenance,
         config=config,
         id_field=inputs.layer.id_field,
-        field_info=_field_info(config, bodies),
+        field_info=_field_info(config, bodies, inputs.layer.id_field),
     )
 
 

@@ -339,9 +339,7 @@ def load(directory: Path) -> tuple[Path, list[Table], int, int]:
             columns.append(
                 Column(c["name"], c["sql_type"], values=c["values"], cycle=c["cycle"], **arrays)
             )
-        tables.append(
-            Table(entry["name"], tuple(columns), entry["rows"], tuple(entry["indexed"]))
-        )
+        tables.append(Table(entry["name"], tuple(columns), entry["rows"], tuple(entry["indexed"])))
     return (
         Path(manifest["target"]),
         tables,

@@ -447,8 +447,7 @@ def _key_columns(frame: pd.DataFrame) -> list[pd.Series]:
     if unnamed:
         raise ValueError(f"index levels {unnamed} have no name; name them or reset the index")
     return [
-        pd.Series(index.get_level_values(i), name=str(name))
-        for i, name in enumerate(index.names)
+        pd.Series(index.get_level_values(i), name=str(name)) for i, name in enumerate(index.names)
     ]
 
 
