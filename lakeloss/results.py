@@ -21,6 +21,7 @@ import pandas as pd
 
 from lakeloss import __version__
 from lakeloss.config import VOLUME_UNITS, RunConfig
+from lakeloss.errors import ConfigError
 from lakeloss.io.gpkg import FieldInfo
 
 CAUTION = (
@@ -118,18 +119,72 @@ class RunResult:
     config: RunConfig
     id_field: str
     field_info: dict[str, dict[str, FieldInfo]] = field(default_factory=dict)
+    written_to: Path | None = None
 
     def write(
         self, directory: str | Path | None = None, *, overwrite: bool = False, progress: Any = None
     ) -> Path:
         """Write every output file into ``directory`` (default ``[output] dir``), atomically.
 
-        ``progress(total, label)`` may return a tqdm-like bar, advanced per file written.
+        ``progress``: True for progress bars (tqdm), or ``progress(total, label)`` returning
+        a tqdm-like bar, advanced per file written.
         """
         from lakeloss.io.write_run import write_result
 
         target = Path(directory) if directory is not None else self.config.output.dir
-        return write_result(self, target, overwrite=overwrite, progress=progress)
+        self.written_to = write_result(
+            self, target, overwrite=overwrite, progress=progress_bars(progress)
+        )
+        return self.written_to
+
+    def __repr__(self) -> str:
+        """A few lines: what was computed, the totals, and where it was written."""
+        counts = self.provenance.get("counts", {})
+        method = self.provenance.get("method", {})
+        compare = ", ".join(method.get("compare", [])) or "none"
+        layer = self.waterbodies
+        area = layer["area_m2"].to_numpy(dtype=float)
+        totals = {
+            "evaporation": np.nansum(layer["evap_m3"].to_numpy(dtype=float)),
+            "rain": np.nansum(layer["precip_mm"].to_numpy(dtype=float) * area / 1000.0),
+            "net loss": np.nansum(layer["net_m3"].to_numpy(dtype=float)),
+        }
+        written = "not yet (call .write())" if self.written_to is None else str(self.written_to)
+        return "\n".join(
+            [
+                f"<lakeloss RunResult: {len(layer):,} water bodies ({self.id_field}), "
+                f"{counts.get('periods', 0)} periods ({self.config.output.period})",
+                f"  time axis   : {self.provenance.get('time_axis', '')}",
+                f"  method      : {method.get('primary', '')} (compare: {compare})",
+                "  totals      : "
+                + ", ".join(f"{k} {v:,.0f} m3" for k, v in totals.items())
+                + f"; {counts.get('flagged', 0)} water bodies flagged",
+                f"  written to  : {written}>",
+            ]
+        )
+
+
+def progress_bars(progress: Any) -> Any:
+    """``progress`` as the pipeline takes it: a bar factory or None.
+
+    True gives tqdm bars (notebook widgets where Jupyter's are available), False or None
+    none; a callable ``progress(total, label)`` is used as it is.
+    """
+    if progress is None or progress is False:
+        return None
+    if progress is True:
+        from tqdm.auto import tqdm
+
+        def bars(total: int, label: str) -> Any:
+            return tqdm(total=total, desc=label, leave=False)
+
+        return bars
+    if not callable(progress):
+        raise ConfigError(
+            f"progress is a {type(progress).__name__}; expected True, False, None or a "
+            "callable progress(total, label) returning a tqdm-like bar"
+        )
+    return progress
 
 
 def _sha256(path: Path) -> str | None:
