@@ -78,3 +78,26 @@ def test_period_dates_of_calendars_without_gregorian_days():
     # An all-leap calendar's 29 February of a common year, likewise.
     _, ends = period_dates(["2031-02-01"], ["2031-02-29"], "all_leap")
     assert ends[0] == cftime.DatetimeAllLeap(2031, 2, 29)
+
+
+def test_360_day_run_keeps_its_calendar_days(tmp_path):
+    # A climate model's 360-day calendar: February has 30 days, so period_end 2031-02-30.
+    import pyogrio
+    from builders import CHOW_CLIMATE, CHOW_FIELDS, case_config, climate_dataset, pond_layer
+    from builders import write_netcdf as write_climate
+
+    pond_layer().to_file(tmp_path / "ponds.gpkg", layer="ponds", driver="GPKG")
+    times = np.array([cftime.Datetime360Day(2031, 1 + d // 30, 1 + d % 30) for d in range(60)])
+    write_climate(climate_dataset(times, CHOW_FIELDS), tmp_path / "climate.nc")
+    config = case_config(
+        tmp_path / "ponds.gpkg", tmp_path / "climate.nc", tmp_path / "out", "energy_balance",
+        CHOW_CLIMATE,
+    )  # fmt: skip
+    result = lakeloss.run(config)
+    ends = result.by_period["period_end"]
+    assert ends.iloc[1] == cftime.Datetime360Day(2031, 2, 30)
+    out = result.write(tmp_path / "out")
+    back = pyogrio.read_dataframe(out / "waterbodies.gpkg", layer="evaporation_by_period")
+    assert back["period_end"].iloc[:2].tolist() == ["2031-01-30", "2031-02-30"]
+    summary = pd.read_csv(out / "summary_by_period.csv", dtype=str)
+    assert summary["period_end"].tolist() == ["2031-01-30", "2031-02-30"]
