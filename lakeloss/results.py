@@ -463,9 +463,12 @@ def _totals(
 
 
 SERIES_VARIABLES: dict[str, dict[str, str]] = {
+    # CF's lwe_water_evaporation_rate (canonical m s-1) is evaporation as a depth of liquid
+    # water per time; CF accepts any units convertible to the canonical ones, so mm day-1.
     "evaporation_rate": {
         "units": "mm day-1",
-        "long_name": "open-water evaporation rate, primary method",
+        "long_name": "open-water evaporation rate from the water surface, primary method",
+        "standard_name": "lwe_water_evaporation_rate",
     },
     "precipitation_rate": {
         "units": "mm day-1",
@@ -474,6 +477,12 @@ SERIES_VARIABLES: dict[str, dict[str, str]] = {
     },
 }
 """Per-step series variables (series.nc) and their CF attributes."""
+
+
+def series_history(config: RunConfig) -> str:
+    """CF ``history`` line of series.nc: when and by what the file was made."""
+    stamp = datetime.now(UTC).isoformat(timespec="seconds")
+    return f"{stamp} lakeloss {__version__}, method {config.method.name}"
 
 
 def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict[str, FieldInfo]]:
