@@ -54,11 +54,11 @@ PROVENANCE_URI = "urn:lakeloss:run-provenance"
 """``gpkg_metadata.md_standard_uri`` of the provenance document lakeloss writes."""
 
 GPKG_VERSION = "1.2"
-"""GeoPackage version written: GDAL from 2.2 on and the desktop GIS of long-term-support
-Linux releases (GDAL 3.4-3.8) open it without a warning; 1.4, GDAL 3.12's default, made
-those print "may only be partially supported" on every open. Nothing lakeloss stores needs
-1.3 or 1.4 (their additions are R-tree trigger fixes, WKT2 CRS and column-constraint
-details)."""
+"""GeoPackage version written. GDAL from 2.2 on opens a 1.2 file without a warning; 1.4,
+GDAL 3.12's default, made GDAL 3.6 (long-term-support Linux releases) print "may only be
+partially supported" on every open, and its validator miss the 1.2 R-tree triggers. Nothing
+lakeloss stores needs 1.3 or 1.4 (their additions: R-tree trigger fixes, WKT2 CRS, details of
+column constraints)."""
 _SPEC = "http://www.geopackage.org/spec120/"  # the extension definitions of version 1.2
 _SCHEMA_DEFINITION = _SPEC + "#extension_schema"
 _METADATA_DEFINITION = _SPEC + "#extension_metadata"
