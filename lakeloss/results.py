@@ -99,7 +99,9 @@ class RunResult:
     waterbodies : geopandas.GeoDataFrame
         The layer with its original attributes plus the result columns (see README).
     by_period : pandas.DataFrame
-        One row per water body and period (table ``evaporation_by_period``).
+        One row per water body and period (table ``evaporation_by_period``), indexed by the
+        water-body id; ``period_start`` / ``period_end`` as datetime64 (cftime dates for
+        calendar days the Gregorian calendar lacks, see :func:`period_dates`).
     summary_by_period : pandas.DataFrame
         Totals over all water bodies per period.
     summary_by_group : pandas.DataFrame or None
@@ -108,6 +110,8 @@ class RunResult:
         Per-step rates (waterbody x time) when ``[output] series = true``.
     provenance : dict
         Config, inputs with sha256, versions, counts, warnings and timings (run.json).
+    written_to : Path or None
+        Directory of the last :meth:`write`, None before.
     """
 
     waterbodies: Any
@@ -144,11 +148,11 @@ class RunResult:
         compare = ", ".join(method.get("compare", [])) or "none"
         layer = self.waterbodies
         area = layer["area_m2"].to_numpy(dtype=float)
-        totals = {
-            "evaporation": np.nansum(layer["evap_m3"].to_numpy(dtype=float)),
-            "rain": np.nansum(layer["precip_mm"].to_numpy(dtype=float) * area / 1000.0),
-            "net loss": np.nansum(layer["net_m3"].to_numpy(dtype=float)),
-        }
+        rain = layer["precip_mm"].to_numpy(dtype=float) * area / 1000.0
+        totals = {"evaporation": np.nansum(layer["evap_m3"].to_numpy(dtype=float))}
+        if not np.isnan(rain).all():  # without precipitation there is no rain or net total
+            totals["rain"] = np.nansum(rain)
+            totals["net loss"] = np.nansum(layer["net_m3"].to_numpy(dtype=float))
         written = "not yet (call .write())" if self.written_to is None else str(self.written_to)
         return "\n".join(
             [

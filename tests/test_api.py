@@ -101,3 +101,9 @@ def test_360_day_run_keeps_its_calendar_days(tmp_path):
     assert back["period_end"].iloc[:2].tolist() == ["2031-01-30", "2031-02-30"]
     summary = pd.read_csv(out / "summary_by_period.csv", dtype=str)
     assert summary["period_end"].tolist() == ["2031-01-30", "2031-02-30"]
+
+
+def test_repr_without_precipitation_shows_no_rain_total(make_case):
+    result = lakeloss.run(make_case("energy_balance", output={"precipitation": False}))
+    text = repr(result)
+    assert "evaporation" in text and "rain" not in text and "net loss" not in text
