@@ -28,8 +28,8 @@ dam_id
 >>> depth = result.by_period.pivot(columns="period_start", values="evap_mm")
 >>> depth.shape  # water bodies x months, ready to join to the layer on dam_id
 (335, 24)
->>> int(result.summary_by_period["n_waterbodies"].iloc[0])
-331
+>>> result.by_period["period_start"].dtype  # pandas Timestamps
+dtype('<M8[s]')
 >>> written = result.write("out/demo", overwrite=True)
 >>> sorted(path.name for path in written.iterdir())  # doctest: +NORMALIZE_WHITESPACE
 ['run.json', 'summary_by_group.csv', 'summary_by_period.csv', 'summary_by_waterbody.csv',
