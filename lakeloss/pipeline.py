@@ -598,8 +598,8 @@ class SeriesStream:
     """
 
     def __init__(self, config: RunConfig, inputs: Inputs) -> None:
-        from lakeloss.io.series import SeriesWriter
-        from lakeloss.results import CAUTION, SERIES_VARIABLES
+        from lakeloss.io.series import SeriesWriter, body_locations
+        from lakeloss.results import CAUTION, SERIES_VARIABLES, series_history
 
         self.directory = Path(tempfile.mkdtemp(prefix="lakeloss-series-"))
         atexit.register(shutil.rmtree, self.directory, ignore_errors=True)
@@ -607,6 +607,7 @@ class SeriesStream:
         names = ["evaporation_rate"] + (
             ["precipitation_rate"] if "precipitation" in inputs.fields else []
         )
+        longitude, latitude = body_locations(inputs.layer.frame.geometry)
         self.writer = SeriesWriter(
             self.path,
             waterbody_ids=inputs.layer.frame[inputs.layer.id_field].to_numpy(),
@@ -617,8 +618,11 @@ class SeriesStream:
                 "title": "lakeloss per-step evaporation series",
                 "source": f"lakeloss, method {config.method.name}",
                 "comment": CAUTION,
+                "history": series_history(config),
             },
             chunk_times=block_steps(config, inputs),
+            longitude=longitude,
+            latitude=latitude,
         )
 
     def add(self, block: slice, values: Mapping[str, np.ndarray]) -> None:

@@ -9,17 +9,19 @@ from __future__ import annotations
 import hashlib
 import importlib.metadata
 import platform
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+import cftime
 import numpy as np
 import pandas as pd
 
 from lakeloss import __version__
 from lakeloss.config import VOLUME_UNITS, RunConfig
+from lakeloss.errors import ConfigError
 from lakeloss.io.gpkg import FieldInfo
 
 CAUTION = (
@@ -41,11 +43,11 @@ _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
         "open-water evaporation over the whole run, primary method",
         "mm",
     ),
-    "evap_m3": ("Evaporation volume", "evap_mm times area_m2", "m3"),
+    "evap_m3": ("Evaporation volume", "evap_mm times area_m2, divided by 1000 (mm to m)", "m3"),
     "evap_mm_per_year": ("Annual evaporation", "evap_mm scaled to one calendar year", "mm/yr"),
     "precip_mm": ("Rain on the surface", "precipitation depth over the whole run", "mm"),
     "net_mm": ("Net loss depth", "evap_mm minus precip_mm (negative: net gain)", "mm"),
-    "net_m3": ("Net loss volume", "net_mm times area_m2", "m3"),
+    "net_m3": ("Net loss volume", "net_mm times area_m2, divided by 1000 (mm to m)", "m3"),
     "climate_coverage": (
         "Climate coverage",
         "share of the polygon with valid climate data, averaged over time",
@@ -58,15 +60,33 @@ _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
         None,
     ),
 }
+# Columns of the per-period table: each row is one water body in one period, so every
+# amount is the period's, not the run's.
 _PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
-    "period_start": ("Period start", "first day of the period (ISO date)", None),
-    "period_end": ("Period end", "last day of the period, inclusive (ISO date)", None),
+    "period_start": ("Period start", "first day of the period", None),
+    "period_end": ("Period end", "last day of the period, inclusive", None),
     "days": ("Days", "days of climate data in the period", "d"),
-    "evap_mm": _BODY_FIELDS["evap_mm"],
-    "evap_m3": _BODY_FIELDS["evap_m3"],
-    "precip_mm": _BODY_FIELDS["precip_mm"],
-    "net_mm": _BODY_FIELDS["net_mm"],
-    "net_m3": _BODY_FIELDS["net_m3"],
+    "evap_mm": (
+        "Evaporation depth",
+        "open-water evaporation in this period, primary method",
+        "mm",
+    ),
+    "evap_m3": (
+        "Evaporation volume",
+        "evaporation volume in this period: evap_mm times the layer's area_m2, divided by 1000",
+        "m3",
+    ),
+    "precip_mm": ("Rain on the surface", "precipitation depth in this period", "mm"),
+    "net_mm": (
+        "Net loss depth",
+        "evap_mm minus precip_mm in this period (negative: net gain)",
+        "mm",
+    ),
+    "net_m3": (
+        "Net loss volume",
+        "net loss volume in this period: net_mm times the layer's area_m2, divided by 1000",
+        "m3",
+    ),
 }
 
 
@@ -79,7 +99,9 @@ class RunResult:
     waterbodies : geopandas.GeoDataFrame
         The layer with its original attributes plus the result columns (see README).
     by_period : pandas.DataFrame
-        One row per water body and period (table ``evaporation_by_period``).
+        One row per water body and period (table ``evaporation_by_period``), indexed by the
+        water-body id; ``period_start`` / ``period_end`` as datetime64 (cftime dates for
+        calendar days the Gregorian calendar lacks, see :func:`period_dates`).
     summary_by_period : pandas.DataFrame
         Totals over all water bodies per period.
     summary_by_group : pandas.DataFrame or None
@@ -88,6 +110,8 @@ class RunResult:
         Per-step rates (waterbody x time) when ``[output] series = true``.
     provenance : dict
         Config, inputs with sha256, versions, counts, warnings and timings (run.json).
+    written_to : Path or None
+        Directory of the last :meth:`write`, None before.
     """
 
     waterbodies: Any
@@ -99,18 +123,72 @@ class RunResult:
     config: RunConfig
     id_field: str
     field_info: dict[str, dict[str, FieldInfo]] = field(default_factory=dict)
+    written_to: Path | None = None
 
     def write(
         self, directory: str | Path | None = None, *, overwrite: bool = False, progress: Any = None
     ) -> Path:
         """Write every output file into ``directory`` (default ``[output] dir``), atomically.
 
-        ``progress(total, label)`` may return a tqdm-like bar, advanced per file written.
+        ``progress``: True for progress bars (tqdm), or ``progress(total, label)`` returning
+        a tqdm-like bar, advanced per file written.
         """
         from lakeloss.io.write_run import write_result
 
         target = Path(directory) if directory is not None else self.config.output.dir
-        return write_result(self, target, overwrite=overwrite, progress=progress)
+        self.written_to = write_result(
+            self, target, overwrite=overwrite, progress=progress_bars(progress)
+        )
+        return self.written_to
+
+    def __repr__(self) -> str:
+        """A few lines: what was computed, the totals, and where it was written."""
+        counts = self.provenance.get("counts", {})
+        method = self.provenance.get("method", {})
+        compare = ", ".join(method.get("compare", [])) or "none"
+        layer = self.waterbodies
+        area = layer["area_m2"].to_numpy(dtype=float)
+        rain = layer["precip_mm"].to_numpy(dtype=float) * area / 1000.0
+        totals = {"evaporation": np.nansum(layer["evap_m3"].to_numpy(dtype=float))}
+        if not np.isnan(rain).all():  # without precipitation there is no rain or net total
+            totals["rain"] = np.nansum(rain)
+            totals["net loss"] = np.nansum(layer["net_m3"].to_numpy(dtype=float))
+        written = "not yet (call .write())" if self.written_to is None else str(self.written_to)
+        return "\n".join(
+            [
+                f"<lakeloss RunResult: {len(layer):,} water bodies ({self.id_field}), "
+                f"{counts.get('periods', 0)} periods ({self.config.output.period})",
+                f"  time axis   : {self.provenance.get('time_axis', '')}",
+                f"  method      : {method.get('primary', '')} (compare: {compare})",
+                "  totals      : "
+                + ", ".join(f"{k} {v:,.0f} m3" for k, v in totals.items())
+                + f"; {counts.get('flagged', 0)} water bodies flagged",
+                f"  written to  : {written}>",
+            ]
+        )
+
+
+def progress_bars(progress: Any) -> Any:
+    """``progress`` as the pipeline takes it: a bar factory or None.
+
+    True gives tqdm bars (notebook widgets where Jupyter's are available), False or None
+    none; a callable ``progress(total, label)`` is used as it is.
+    """
+    if progress is None or progress is False:
+        return None
+    if progress is True:
+        from tqdm.auto import tqdm
+
+        def bars(total: int, label: str) -> Any:
+            return tqdm(total=total, desc=label, leave=False)
+
+        return bars
+    if not callable(progress):
+        raise ConfigError(
+            f"progress is a {type(progress).__name__}; expected True, False, None or a "
+            "callable progress(total, label) returning a tqdm-like bar"
+        )
+    return progress
 
 
 def _sha256(path: Path) -> str | None:
@@ -251,6 +329,7 @@ _PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
 
 
 def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd.DataFrame:
+    """One row per water body and period, indexed by the water-body id (rows by body)."""
     first = next(iter(weights.values()))
     periods = inputs.periods
     n_periods, n = sums.depth[config.method.name].shape
@@ -260,24 +339,53 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     evap = sums.depth[config.method.name].T
     precip = sums.precip.T if config.output.precipitation else np.full((n, n_periods), np.nan)
     area = first.polygon_area_m2[:, None]
+    compared = config.method.all[1:]
     # Rows by water body, then period: the (period, body) sums transposed, so no sort of
     # n_periods x n rows is needed. The numbers are written once into one float block that
     # the frame adopts as it is: building it from separate columns copied 0.5 GB at 10^6.
-    block = np.empty((len(_PERIOD_NUMBERS), n, n_periods))
+    names = _PERIOD_NUMBERS + [f"evap_mm_{name}" for name in compared]
+    block = np.empty((len(names), n, n_periods))
     block[0] = evap
     np.divide(np.multiply(evap, area, out=block[1]), 1000.0, out=block[1])
     block[2] = precip
     np.subtract(evap, precip, out=block[3])
     np.divide(np.multiply(block[3], area, out=block[4]), 1000.0, out=block[4])
-    table = pd.DataFrame(
-        block.reshape(len(_PERIOD_NUMBERS), -1).T, columns=_PERIOD_NUMBERS, copy=False
-    )
-    # Text columns taken from a 12-value string array, not 10^7 Python objects.
-    table.insert(0, inputs.layer.id_field, _repeat_rows(ids, body_of_row))
-    table.insert(1, "period_start", pd.array(periods.starts, dtype="str").take(period_of_row))
-    table.insert(2, "period_end", pd.array(periods.ends, dtype="str").take(period_of_row))
-    table.insert(3, "days", np.rint(periods.days).astype(np.int64)[period_of_row])
+    for i, name in enumerate(compared, start=len(_PERIOD_NUMBERS)):
+        block[i] = sums.depth[name].T
+    index = pd.Index(_repeat_rows(ids, body_of_row), name=inputs.layer.id_field)
+    table = pd.DataFrame(block.reshape(len(names), -1).T, columns=names, index=index, copy=False)
+    starts, ends = period_dates(periods.starts, periods.ends, inputs.axis.calendar)
+    table.insert(0, "period_start", starts.take(period_of_row))
+    table.insert(1, "period_end", ends.take(period_of_row))
+    table.insert(2, "days", np.rint(periods.days).astype(np.int64)[period_of_row])
     return table
+
+
+def period_dates(
+    starts: Sequence[str], ends: Sequence[str], calendar: str
+) -> tuple[pd.Index, pd.Index]:
+    """First and last days of the periods as dates a notebook computes with.
+
+    ``datetime64[s]`` (pandas Timestamps; seconds, so years past 2262 fit) when every day
+    exists in the Gregorian calendar, as in the standard, proleptic Gregorian and no-leap
+    calendars; otherwise (a 360-day calendar's 30 February, an all-leap calendar's
+    29 February of a common year) cftime dates of the run's calendar, for both columns.
+    """
+    try:
+        return (
+            pd.Index(np.array(starts, dtype="datetime64[s]")),
+            pd.Index(np.array(ends, dtype="datetime64[s]")),
+        )
+    except ValueError:  # a day the Gregorian calendar lacks
+
+        def dates(texts: Sequence[str]) -> pd.Index:
+            values = np.empty(len(texts), dtype=object)
+            values[:] = [
+                cftime.datetime(*map(int, text.split("-")), calendar=calendar) for text in texts
+            ]
+            return pd.Index(values, dtype=object)
+
+        return dates(starts), dates(ends)
 
 
 def _repeat_rows(values: pd.Series, rows: np.ndarray) -> Any:
@@ -310,6 +418,8 @@ def _summaries(
         "precip_m3": by_body("precip_mm") * area[:, None] / 1000.0,
         "net_m3": by_body("net_m3"),
     }
+    for name in config.method.all[1:]:
+        columns[f"evap_m3_{name}"] = by_body(f"evap_mm_{name}") * area[:, None] / 1000.0
     keys = ["period_start", "period_end", "days"]
     periods = by_period[keys].iloc[:n_periods].reset_index(drop=True)
     by_period_total = _totals(np.zeros(n, dtype=np.int64), None, valid, columns, periods)
@@ -322,9 +432,6 @@ def _summaries(
         names = grouped.size().index.to_frame(index=False)
         by_group = _totals(codes, names, valid, columns, periods)
     return by_period_total, by_group
-
-
-_VOLUMES = ["area_m2", "evap_m3", "precip_m3", "net_m3"]
 
 
 def _totals(
@@ -346,8 +453,7 @@ def _totals(
     size = n_groups * n_periods
     count = np.bincount(cell, weights=valid.ravel(), minlength=size).astype(np.int64)
     totals: dict[str, np.ndarray] = {"n_waterbodies": count}
-    for name in _VOLUMES:
-        values = columns[name]
+    for name, values in columns.items():  # area_m2, the volumes, then compare methods
         kept = np.where(valid & ~np.isnan(values), values, 0.0).ravel()
         totals[name] = np.where(count > 0, np.bincount(cell, kept, minlength=size), np.nan)
     parts = [
@@ -361,9 +467,12 @@ def _totals(
 
 
 SERIES_VARIABLES: dict[str, dict[str, str]] = {
+    # CF's lwe_water_evaporation_rate (canonical m s-1) is evaporation as a depth of liquid
+    # water per time; CF accepts any units convertible to the canonical ones, so mm day-1.
     "evaporation_rate": {
         "units": "mm day-1",
-        "long_name": "open-water evaporation rate, primary method",
+        "long_name": "open-water evaporation rate from the water surface, primary method",
+        "standard_name": "lwe_water_evaporation_rate",
     },
     "precipitation_rate": {
         "units": "mm day-1",
@@ -374,16 +483,31 @@ SERIES_VARIABLES: dict[str, dict[str, str]] = {
 """Per-step series variables (series.nc) and their CF attributes."""
 
 
-def _field_info(config: RunConfig, bodies: Any) -> dict[str, dict[str, FieldInfo]]:
+def series_history(config: RunConfig) -> str:
+    """CF ``history`` line of series.nc: when and by what the file was made."""
+    stamp = datetime.now(UTC).isoformat(timespec="seconds")
+    return f"{stamp} lakeloss {__version__}, method {config.method.name}"
+
+
+def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict[str, FieldInfo]]:
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
-    for name in config.method.compare:
+    for name in config.method.all[1:]:
         body[f"evap_mm_{name}"] = FieldInfo(
             f"Evaporation depth, {name}", f"evaporation over the whole run by method {name}", "mm"
         )
     for unit in config.output.extra_volume_units:
         body[f"evap_{unit}"] = FieldInfo("Evaporation volume", "evap_m3 in " + unit, unit)
         body[f"net_{unit}"] = FieldInfo("Net loss volume", "net_m3 in " + unit, unit)
-    period = {k: FieldInfo(*v) for k, v in _PERIOD_FIELDS.items()}
+    period = {
+        id_field: FieldInfo(
+            "Water body", f"{id_field} of the water body in the waterbodies layer (indexed)"
+        )
+    }
+    period.update((k, FieldInfo(*v)) for k, v in _PERIOD_FIELDS.items())
+    for name in config.method.all[1:]:
+        period[f"evap_mm_{name}"] = FieldInfo(
+            f"Evaporation depth, {name}", f"evaporation in this period by method {name}", "mm"
+        )
     return {"waterbodies": body, "evaporation_by_period": period}
 
 
@@ -475,7 +599,7 @@ def assemble(
         provenance=provenance,
         config=config,
         id_field=inputs.layer.id_field,
-        field_info=_field_info(config, bodies),
+        field_info=_field_info(config, bodies, inputs.layer.id_field),
     )
 
 

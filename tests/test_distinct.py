@@ -124,7 +124,7 @@ def test_grouped_run_gives_each_body_what_it_gets_alone(tmp_path):
     assert together["evap_mm"].notna().all()
     for i in range(len(layer)):
         alone = _run(tmp_path, layer.iloc[[i]], climate_path, f"p{i}")
-        mine = together[together["pond_id"] == layer["pond_id"].iloc[i]]
+        mine = together.loc[[layer["pond_id"].iloc[i]]]  # indexed by the id
         np.testing.assert_allclose(
             mine[numbers].to_numpy(), alone.by_period[numbers].to_numpy(), rtol=1e-12, atol=1e-9
         )
@@ -136,8 +136,8 @@ def test_grouped_run_gives_each_body_what_it_gets_alone(tmp_path):
                 rtol=1e-6,
             )
     # Same cell and elevation: equal depths, volumes in proportion to each pond's own area.
-    first = together[together["pond_id"] == 201].reset_index(drop=True)
-    second = together[together["pond_id"] == 202].reset_index(drop=True)
+    first = together.loc[201].reset_index(drop=True)
+    second = together.loc[202].reset_index(drop=True)
     assert (first["evap_mm"] == second["evap_mm"]).all()
     assert not np.allclose(first["evap_m3"], second["evap_m3"])
 

@@ -77,11 +77,15 @@ class Column:
 
 @dataclass(frozen=True)
 class Table:
-    """An attribute table to create and fill: name, columns and row count."""
+    """An attribute table to create and fill: name, columns, row count and indexed columns.
+
+    ``indexed`` names the columns of one SQL index built after the rows are in (empty: none).
+    """
 
     name: str
     columns: tuple[Column, ...]
     rows: int
+    indexed: tuple[str, ...] = ()
 
 
 def fast_bulk_settings(con: sqlite3.Connection) -> None:
@@ -142,6 +146,10 @@ def create_and_fill(
     plan = _Plan(table, variables or variable_limit())
     for start, block in blocks if blocks is not None else _blocks(table, plan, block_rows):
         plan.insert(con, start, block)
+    if table.indexed:  # built once the rows are in: one sort instead of 10^7 tree inserts
+        columns = ", ".join(quote_name(c) for c in table.indexed)
+        index_name = quote_name(f"idx_{table.name}_{'_'.join(table.indexed)}")
+        con.execute(f"CREATE INDEX {index_name} ON {quote_name(table.name)} ({columns})")
 
 
 def converted_blocks(
@@ -299,7 +307,14 @@ def dump(directory: Path, target: Path, tables: Sequence[Table], *, block_rows: 
                     np.save(directory / file, array, allow_pickle=False)
                     entry[part] = file
             columns.append(entry)
-        entries.append({"name": table.name, "rows": table.rows, "columns": columns})
+        entries.append(
+            {
+                "name": table.name,
+                "rows": table.rows,
+                "columns": columns,
+                "indexed": list(table.indexed),
+            }
+        )
     manifest = {
         "target": os.fspath(target),
         "block_rows": block_rows,
@@ -324,7 +339,7 @@ def load(directory: Path) -> tuple[Path, list[Table], int, int]:
             columns.append(
                 Column(c["name"], c["sql_type"], values=c["values"], cycle=c["cycle"], **arrays)
             )
-        tables.append(Table(entry["name"], tuple(columns), entry["rows"]))
+        tables.append(Table(entry["name"], tuple(columns), entry["rows"], tuple(entry["indexed"])))
     return (
         Path(manifest["target"]),
         tables,

@@ -1,6 +1,7 @@
 """GeoPackage output: layers written by GDAL, field descriptions and provenance added after.
 
-Feature layers are written by GDAL (through pyogrio), in their own CRS, with GDAL layer
+The file is a GeoPackage 1.2 (see :data:`GPKG_VERSION`). Feature layers are written by
+GDAL (through pyogrio), in their own CRS, with GDAL layer
 metadata that ``ogrinfo`` and :func:`pyogrio.read_info` show (the provenance reaches them as
 the dataset item ``GPKG_METADATA_ITEM_1``). Attribute tables
 (plain DataFrames, ``gpkg_contents.data_type = 'attributes'``) are then filled with SQLite
@@ -52,8 +53,15 @@ from lakeloss.io.tables import is_date, iso_dates, to_jsonable
 PROVENANCE_URI = "urn:lakeloss:run-provenance"
 """``gpkg_metadata.md_standard_uri`` of the provenance document lakeloss writes."""
 
-_SCHEMA_DEFINITION = "http://www.geopackage.org/spec/#extension_schema"
-_METADATA_DEFINITION = "http://www.geopackage.org/spec/#extension_metadata"
+GPKG_VERSION = "1.2"
+"""GeoPackage version written. GDAL from 2.2 on opens a 1.2 file without a warning; 1.4,
+GDAL 3.12's default, made GDAL 3.6 (long-term-support Linux releases) print "may only be
+partially supported" on every open, and its validator miss the 1.2 R-tree triggers. Nothing
+lakeloss stores needs 1.3 or 1.4 (their additions: R-tree trigger fixes, WKT2 CRS, details of
+column constraints)."""
+_SPEC = "http://www.geopackage.org/spec120/"  # the extension definitions of version 1.2
+_SCHEMA_DEFINITION = _SPEC + "#extension_schema"
+_METADATA_DEFINITION = _SPEC + "#extension_metadata"
 _BLOCK_ROWS = 100_000  # rows converted to Python objects at a time (bounds memory)
 # Attribute-table rows from which a child process writes them: below, its ~0.2 s start-up
 # and the payload files cost more than the overlap saves.
@@ -327,7 +335,10 @@ def _check_layers(
 
 
 def _check_fields(name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]) -> None:
-    missing = sorted(set(infos) - {str(c) for c in frame.columns})
+    written = {str(c) for c in frame.columns}
+    if not isinstance(frame, geopandas.GeoDataFrame):  # attribute tables keep a named index
+        written |= {str(n) for n in frame.index.names if n is not None}
+    missing = sorted(set(infos) - written)
     if missing:
         raise ValueError(f"layer {name!r} has no columns {missing} to describe")
     labels = [info.label for info in infos.values()]
@@ -350,6 +361,8 @@ def _write_layer(
     GDAL shows as the dataset metadata item ``GPKG_METADATA_ITEM_1``.
     """
     layer_metadata = _layer_metadata(infos) or None
+    # The version is chosen when GDAL creates the file (with the first layer).
+    creation = None if path.exists() else {"VERSION": GPKG_VERSION}
     try:
         with _large_pages():
             pyogrio.write_dataframe(
@@ -359,6 +372,7 @@ def _write_layer(
                 driver="GPKG",
                 layer_metadata=layer_metadata,
                 use_arrow=_arrow_safe(frame),
+                dataset_options=creation,
             )
     except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
         raise _write_error(exc, f"GDAL could not write layer {name!r} to {path}") from exc
@@ -424,6 +438,19 @@ def _layer_metadata(infos: Mapping[str, FieldInfo]) -> dict[str, str]:
     }
 
 
+def _key_columns(frame: pd.DataFrame) -> list[pd.Series]:
+    """The named levels of a frame's index, as columns (an unnamed index is not written)."""
+    index = frame.index
+    if not any(name is not None for name in index.names):
+        return []
+    unnamed = [i for i, name in enumerate(index.names) if name is None]
+    if unnamed:
+        raise ValueError(f"index levels {unnamed} have no name; name them or reset the index")
+    return [
+        pd.Series(index.get_level_values(i), name=str(name)) for i, name in enumerate(index.names)
+    ]
+
+
 def _encode_table(name: str, frame: pd.DataFrame) -> bulk_table.Table:
     """A DataFrame as the SQLite-ready columns of :mod:`lakeloss.io.bulk_table`.
 
@@ -432,16 +459,23 @@ def _encode_table(name: str, frame: pd.DataFrame) -> bulk_table.Table:
     10^7-row tables. Text and integer columns that repeat with a cycle of up to
     ``_MAX_CYCLE`` rows (a period table's dates and day counts) become SQL literals; other
     text columns are run-length encoded when that halves them (a period table's ids).
+
+    A named index (such as the water-body id of the period table) becomes the first
+    column(s), with an SQL index over it, so GIS software joins the table to the layer on
+    that column without scanning the whole table for each feature.
     """
-    if "fid" in frame.columns:
+    keys = _key_columns(frame)
+    series = [*keys, *(frame.iloc[:, i] for i in range(frame.shape[1]))]
+    names = [str(s.name) for s in keys] + [str(c) for c in frame.columns]
+    if "fid" in names:
         raise ValueError(f"table {name!r} has a column 'fid'; that name is the GeoPackage row id")
-    encoded = [
-        _encode_values(frame.iloc[:, i]) for i in range(frame.shape[1])
-    ]  # (sql type, numbers or None, per-row values or None)
+    if len(set(names)) != len(names):
+        raise ValueError(f"table {name!r} has repeated column names in {names}")
+    encoded = [_encode_values(s) for s in series]  # (sql type, numbers or per-row values)
     lengths = [_cycle_length(values) for _, values in encoded]
     cycle = _common_cycle([n for n in lengths if n is not None])
     columns = []
-    for column, (sql_type, values), length in zip(frame.columns, encoded, lengths, strict=True):
+    for column, (sql_type, values), length in zip(names, encoded, lengths, strict=True):
         if cycle is not None and length is not None:
             columns.append(
                 bulk_table.Column(str(column), sql_type, values=_python(values[:cycle]), cycle=True)
@@ -453,12 +487,16 @@ def _encode_table(name: str, frame: pd.DataFrame) -> bulk_table.Table:
             columns.append(
                 bulk_table.Column(str(column), sql_type, values=distinct, repeats=repeats)
             )
-    return bulk_table.Table(name, tuple(columns), len(frame))
+    return bulk_table.Table(
+        name, tuple(columns), len(frame), indexed=tuple(str(s.name) for s in keys)
+    )
 
 
 def _encode_values(series: pd.Series) -> tuple[str, Any]:
     """GeoPackage type and values: a float64 / int64 array, a string array, or objects."""
     sql_type = _sql_type(series)
+    if series.dtype.kind == "M":
+        series = _date_texts(series, sql_type)
     if sql_type == "REAL":  # SQLite binds NaN as NULL
         return sql_type, series.to_numpy(dtype=float, na_value=np.nan)
     if sql_type in ("INTEGER", "BOOLEAN") and not series.hasnans:
@@ -545,7 +583,7 @@ def _is_date_text(series: pd.Series) -> bool:
     one (2031-02-30) keep the column TEXT. Only the distinct values are parsed, and only
     when the first value looks like a date, so an id column costs one regex match.
     """
-    if not isinstance(series.dtype, pd.StringDtype) or series.empty:
+    if not _is_text(series) or series.empty:
         return False
     first = series.iloc[0]
     if not isinstance(first, str) or not _ISO_DATE.fullmatch(first):
@@ -557,13 +595,31 @@ def _is_date_text(series: pd.Series) -> bool:
     return bool(parsed.notna().all())
 
 
+def _date_texts(series: pd.Series, sql_type: str) -> pd.Series:
+    """A numpy-datetime column as GeoPackage DATE or DATETIME text, NaT as missing.
+
+    Only the distinct values are formatted (a period table's 10^7 rows hold a few dozen).
+    """
+    codes, distinct = pd.factorize(series.to_numpy(dtype="datetime64[ms]"))
+    texts = _sql_values(pd.Series(distinct, dtype="datetime64[ms]"), sql_type)
+    array = pd.array(texts, dtype="string").take(codes, allow_fill=True)
+    return pd.Series(array, name=series.name)
+
+
+def _is_text(series: pd.Series) -> bool:
+    """A string column: pandas' string dtype, or (pandas 2 ``dtype="str"``) objects all text."""
+    if isinstance(series.dtype, pd.StringDtype):
+        return True
+    return series.dtype == object and pd.api.types.infer_dtype(series, skipna=True) == "string"
+
+
 def _sql_values(series: pd.Series, sql_type: str) -> np.ndarray:
     """Column values as an object array of what SQLite binds; missing values as None.
 
     Numbers go to Python objects in one numpy cast rather than a loop; strings of a pandas
     string column are already ``str`` and are passed through.
     """
-    if sql_type == "DATE" and isinstance(series.dtype, pd.StringDtype):
+    if sql_type == "DATE" and _is_text(series):
         return series.to_numpy(dtype=object, na_value=None)  # already GeoPackage DATE text
     if sql_type in ("DATE", "DATETIME"):
         stamps = series.to_numpy(dtype="datetime64[ms]")
@@ -616,10 +672,13 @@ def _add_gdal_layer_metadata(con: sqlite3.Connection, table: str, items: Mapping
 def _add_extensions(con: sqlite3.Connection, fields: Mapping[str, Mapping[str, FieldInfo]]) -> None:
     for statement in _DDL:
         con.execute(statement)
+    # Only where GDAL has not registered the extension already: the UNIQUE constraint does
+    # not catch a repeat, because column_name is NULL and NULLs never compare equal.
     con.executemany(
-        "INSERT OR IGNORE INTO gpkg_extensions "
+        "INSERT INTO gpkg_extensions "
         "(table_name, column_name, extension_name, definition, scope) "
-        "VALUES (?, NULL, ?, ?, 'read-write')",
+        "SELECT ?1, NULL, ?2, ?3, 'read-write' WHERE NOT EXISTS (SELECT 1 FROM "
+        "gpkg_extensions WHERE table_name = ?1 AND column_name IS NULL AND extension_name = ?2)",
         _EXTENSIONS,
     )
     con.executemany(

@@ -3,6 +3,13 @@
 The pipeline computes time blocks of ``(time_block, n_waterbodies)`` values and hands them to
 :class:`SeriesWriter` one at a time, so the full ``(time, n)`` array is never in memory.
 
+The file follows the CF conventions (1.8) for discrete sampling geometries as a collection
+of time series in the orthogonal multidimensional layout (CF 1.8, section 9 and appendix H.2.1):
+global ``featureType = "timeSeries"``; dimensions ``waterbody`` (the features) and ``time``;
+``waterbody_id`` with ``cf_role = "timeseries_id"``; ``lat`` and ``lon`` of a point inside
+each water body; every data variable ``(waterbody, time)`` names ``lat lon waterbody_id`` as
+its coordinates. xarray with cf_xarray and CF checkers read it as one time series per body.
+
 On disk each variable is ``float32 (waterbody, time)``, zlib level 1, chunked along the water
 body axis (a chunk holds a run of steps for a group of water bodies, so one body's series
 reads from few chunks). Blocks seldom line up with chunk boundaries; writing a compressed
@@ -21,9 +28,12 @@ from types import TracebackType
 from typing import Literal
 
 import cftime
+import geopandas
 import netCDF4
 import numpy as np
 import pandas as pd
+import pyproj
+import shapely
 from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK
 
 # HDF5 is not thread-safe: while a run streams its series, other threads read climate
@@ -34,6 +44,8 @@ _HDF5_LOCK = NETCDF4_PYTHON_LOCK
 _CHUNK_VALUES = 1 << 18  # values per chunk: 1 MiB of float32, a common HDF5 sweet spot
 _DEFAULT_CHUNK_TIMES = 366  # one year of daily steps per chunk row
 _REQUIRED_ATTRS = ("units", "long_name")
+_COORDINATES = frozenset({"time", "waterbody_id", "lat", "lon"})
+_INT32 = np.iinfo(np.int32)
 
 
 class SeriesWriter:
@@ -54,7 +66,11 @@ class SeriesWriter:
         ``standard_name`` where one applies.
     global_attrs : mapping of str to str
         Global attributes such as ``title``, ``source``, ``history`` and a caution in
-        ``comment``; ``Conventions`` is set to ``"CF-1.8"``.
+        ``comment``; ``Conventions`` is set to ``"CF-1.8"`` and ``featureType`` to
+        ``"timeSeries"``.
+    longitude, latitude : numpy.ndarray, optional
+        A point inside each water body [degrees east, degrees north] (see
+        :func:`body_locations`); NaN where a body has no geometry.
     chunk_waterbodies, chunk_times : int, optional
         Chunk shape along the water-body and time axes; by default about 1 MiB per chunk
         with up to a year of daily steps.
@@ -78,11 +94,14 @@ class SeriesWriter:
         global_attrs: Mapping[str, str],
         chunk_waterbodies: int | None = None,
         chunk_times: int | None = None,
+        longitude: np.ndarray | None = None,
+        latitude: np.ndarray | None = None,
     ) -> None:
         ids = np.asarray(waterbody_ids)
         if ids.ndim != 1:
             raise ValueError(f"waterbody_ids has shape {ids.shape}; expected one dimension")
         _check_variables(variables)
+        locations = _check_locations(len(ids), longitude, latitude)
         self.n_waterbodies = len(ids)
         self.n_times = len(times)
         self.chunk_times = max(1, min(self.n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
@@ -98,6 +117,8 @@ class SeriesWriter:
             self._file_identity = (stat.st_dev, stat.st_ino)
             try:
                 self._define(ids, times, calendar, variables, global_attrs)
+                if locations is not None:
+                    self._define_locations(*locations)
             except BaseException:
                 self._close_dataset(quiet=True)
                 raise
@@ -193,16 +214,23 @@ class SeriesWriter:
         global_attrs: Mapping[str, str],
     ) -> None:
         ds = self._dataset
-        ds.setncatts({**dict(global_attrs), "Conventions": "CF-1.8"})
+        ds.setncatts(
+            {
+                "history": "written by lakeloss",
+                **dict(global_attrs),
+                "Conventions": "CF-1.8",
+                "featureType": "timeSeries",
+            }
+        )
         ds.createDimension("waterbody", self.n_waterbodies)
         ds.createDimension("time", self.n_times)
-        if ids.dtype.kind in "iu":
-            id_var = ds.createVariable("waterbody_id", "i8", ("waterbody",))
-            id_var[:] = ids.astype(np.int64)
-        else:
+        if _fits_int32(ids):
+            id_var = ds.createVariable("waterbody_id", "i4", ("waterbody",))
+            id_var[:] = ids.astype(np.int32)
+        else:  # CF 1.8 has no 64-bit integers: larger (or non-integer) ids as text
             id_var = ds.createVariable("waterbody_id", str, ("waterbody",))
-            id_var[:] = ids.astype(str).astype(object)
-        id_var.long_name = "water body identifier"
+            id_var[:] = _id_texts(ids)
+        id_var.setncatts({"long_name": "water body identifier", "cf_role": "timeseries_id"})
         dates = _as_dates(times)
         units = _time_units(dates)
         time_var = ds.createVariable("time", "f8", ("time",))
@@ -229,9 +257,33 @@ class SeriesWriter:
             )
             var.setncatts({**dict(attrs), "coordinates": "waterbody_id"})
 
+    def _define_locations(self, longitude: np.ndarray, latitude: np.ndarray) -> None:
+        """Per-body ``lat`` and ``lon``, named as coordinates of every data variable."""
+        ds = self._dataset
+        axes = (
+            ("lat", latitude, "latitude", "degrees_north", "Y"),
+            ("lon", longitude, "longitude", "degrees_east", "X"),
+        )
+        for name, values, standard_name, units, axis in axes:
+            var = ds.createVariable(name, "f8", ("waterbody",), fill_value=np.nan)
+            var.setncatts(
+                {
+                    "standard_name": standard_name,
+                    "long_name": f"{standard_name} of a point inside the water body",
+                    "units": units,
+                    "axis": axis,
+                }
+            )
+            var[:] = values
+        for name in self._data_names():
+            ds.variables[name].coordinates = "lat lon waterbody_id"
+
+    def _data_names(self) -> list[str]:
+        return sorted(set(self._dataset.variables) - _COORDINATES)
+
     def _check_block(self, name: str, time_slice: slice, values: np.ndarray) -> tuple[int, int]:
-        if name not in self._dataset.variables or name in ("time", "waterbody_id"):
-            known = sorted(set(self._dataset.variables) - {"time", "waterbody_id"})
+        if name not in self._dataset.variables or name in _COORDINATES:
+            known = self._data_names()
             raise ValueError(f"unknown series variable {name!r}; expected one of {known}")
         start, stop, step = time_slice.indices(self.n_times)
         if step != 1 or stop <= start:
@@ -315,8 +367,60 @@ def _check_variables(variables: Mapping[str, Mapping[str, str]]) -> None:
         missing = [key for key in _REQUIRED_ATTRS if not attrs.get(key)]
         if missing:
             raise ValueError(f"series variable {name!r} lacks CF attributes {missing}")
-        if name in ("time", "waterbody_id", "waterbody"):
+        if name in _COORDINATES | {"waterbody"}:
             raise ValueError(f"series variable name {name!r} is reserved for a coordinate")
+
+
+def body_locations(geometry: geopandas.GeoSeries) -> tuple[np.ndarray, np.ndarray]:
+    """Longitude and latitude of a point inside each polygon [degrees east, degrees north].
+
+    The point is shapely's point on the surface (inside even a crescent-shaped reservoir,
+    unlike the centroid), found in the layer's own CRS and then transformed to WGS 84.
+    Invalid polygons are made valid first; empty or missing geometries give NaN.
+
+    Parameters
+    ----------
+    geometry : geopandas.GeoSeries
+        The water-body polygons, with their CRS (a layer without one gives NaN throughout).
+    """
+    n = len(geometry)
+    lon, lat = np.full(n, np.nan), np.full(n, np.nan)
+    shapes = geometry.to_numpy()
+    present = ~(shapely.is_missing(shapes) | shapely.is_empty(shapes))
+    if geometry.crs is None or not present.any():
+        return lon, lat
+    shapes = shapes[present]
+    invalid = ~shapely.is_valid(shapes)
+    shapes[invalid] = shapely.make_valid(shapes[invalid])
+    points = shapely.point_on_surface(shapes)
+    to_lonlat = pyproj.Transformer.from_crs(geometry.crs, "EPSG:4326", always_xy=True)
+    lon[present], lat[present] = to_lonlat.transform(shapely.get_x(points), shapely.get_y(points))
+    return lon, lat
+
+
+def _check_locations(
+    n: int, longitude: np.ndarray | None, latitude: np.ndarray | None
+) -> tuple[np.ndarray, np.ndarray] | None:
+    if longitude is None and latitude is None:
+        return None
+    if longitude is None or latitude is None:
+        raise ValueError("longitude and latitude go together; got only one of them")
+    lon, lat = np.asarray(longitude, dtype=float), np.asarray(latitude, dtype=float)
+    if lon.shape != (n,) or lat.shape != (n,):
+        raise ValueError(
+            f"longitude {lon.shape} and latitude {lat.shape} do not match {n} water bodies"
+        )
+    return lon, lat
+
+
+def _fits_int32(ids: np.ndarray) -> bool:
+    if ids.dtype.kind not in "iu" or ids.size == 0:
+        return ids.dtype.kind in "iu"
+    return bool(ids.min() >= _INT32.min and ids.max() <= _INT32.max)
+
+
+def _id_texts(ids: np.ndarray) -> np.ndarray:
+    return np.asarray([str(v) for v in ids.tolist()], dtype=object)
 
 
 def _as_dates(times: np.ndarray) -> list:

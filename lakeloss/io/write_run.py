@@ -33,7 +33,7 @@ _DECIMALS = {
 def _decimals(columns: Any) -> dict[str, int]:
     out = {c: d for c, d in _DECIMALS.items() if c in columns}
     for column in columns:
-        if column.startswith("evap_mm_"):
+        if column.startswith(("evap_mm_", "evap_m3_")):  # compare methods, as evap_mm / m3
             out[column] = 3
         elif column.startswith(("evap_", "net_")) and column not in out:
             out[column] = 6

@@ -116,6 +116,28 @@ def test_child_writes_the_same_table_as_this_process(tmp_path, monkeypatch):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["child.gpkg", "here.gpkg"]
 
 
+def test_named_index_becomes_the_first_column_with_an_sql_index(tmp_path, monkeypatch):
+    # The period table comes indexed by the water-body id; the id is written as the first
+    # column and indexed, by the child as by this process, and reads back as before.
+    table = period_table().set_index("pond_code")
+    _write(tmp_path / "child.gpkg", table, monkeypatch, child=True)
+    _write(tmp_path / "here.gpkg", table, monkeypatch, child=False)
+    child, here = _dump(tmp_path / "child.gpkg"), _dump(tmp_path / "here.gpkg")
+    assert child == here
+    with sqlite3.connect(tmp_path / "child.gpkg") as con:
+        columns = [row[1] for row in con.execute("PRAGMA table_info('evaporation_by_period')")]
+        [(index_name,)] = con.execute(
+            "SELECT name FROM sqlite_master WHERE type = 'index' "
+            "AND tbl_name = 'evaporation_by_period'"
+        ).fetchall()
+        indexed = [row[2] for row in con.execute(f"PRAGMA index_info('{index_name}')")]
+    con.close()
+    assert columns[:3] == ["fid", "pond_code", "period_start"]
+    assert indexed == ["pond_code"]
+    back = pyogrio.read_dataframe(tmp_path / "child.gpkg", layer="evaporation_by_period")
+    assert back["pond_code"].tolist() == table.index.tolist()
+
+
 def test_child_table_reads_back_as_the_frame(tmp_path, monkeypatch):
     table = period_table()
     _write(tmp_path / "child.gpkg", table, monkeypatch, child=True)

@@ -8,6 +8,7 @@ chunk rows is exercised.
 from __future__ import annotations
 
 import datetime
+import warnings
 
 import cftime
 import netCDF4
@@ -171,3 +172,139 @@ def test_datetime64_times_standard_calendar(tmp_path):
     with xr.open_dataset(path) as ds:
         assert ds["time"].values.astype("datetime64[D]").tolist() == times.tolist()
         np.testing.assert_array_equal(ds["evap_mm"].values, np.ones((2, 3)))
+
+
+# --- CF discrete sampling geometry: one time series per water body ------------------------
+
+
+def _cf_report(path) -> dict:
+    """The IOOS compliance checker's CF-1.8 result for a file, as its JSON report.
+
+    Runs offline: the CF standard-name table is the one packaged with the checker and the
+    units come from cf_units' bundled UDUNITS-2.
+    """
+    import json
+
+    from compliance_checker.runner import CheckSuite, ComplianceChecker
+
+    report = path.with_suffix(".cf.json")
+    with warnings.catch_warnings():  # the checker's own plugins announce deprecations
+        warnings.simplefilter("ignore", DeprecationWarning)
+        CheckSuite.load_all_available_checkers()
+        ComplianceChecker.run_checker(
+            str(path), ["cf:1.8"], 0, "normal", output_filename=str(report), output_format="json"
+        )
+    return json.loads(report.read_text())["cf:1.8"]
+
+
+def _failed_checks(report: dict) -> list:
+    return [
+        (item["name"], item["msgs"])
+        for priority in ("high_priorities", "medium_priorities", "low_priorities")
+        for item in report.get(priority, [])
+        if item["value"][0] < item["value"][1]
+    ]
+
+
+def _locate(path, ids, lon, lat):
+    with SeriesWriter(
+        path,
+        waterbody_ids=ids,
+        times=TIMES,
+        calendar="noleap",
+        variables=VARIABLES,
+        global_attrs={k: v for k, v in GLOBAL.items() if k != "history"},
+        longitude=lon,
+        latitude=lat,
+    ) as writer:
+        writer.write("evap_mm", slice(0, N_STEPS), _expected("evap_mm"))
+        writer.write("precip_mm", slice(0, N_STEPS), _expected("precip_mm"))
+    return path
+
+
+LON = np.array([146.1, 146.2, 146.3, np.nan, 146.5])  # the fourth body has no geometry
+LAT = np.array([-30.1, -30.2, -30.3, np.nan, -30.5])
+
+
+def test_time_series_feature_type_read_by_cf_xarray(tmp_path):
+    import cf_xarray  # noqa: F401  (registers the .cf accessor)
+
+    path = _locate(tmp_path / "s.nc", np.array([101, 102, 103, 104, 105]), LON, LAT)
+    with xr.open_dataset(path, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True)) as ds:
+        assert ds.attrs["featureType"] == "timeSeries"
+        assert ds.attrs["history"]  # a default when the caller gives none
+        assert ds.cf["timeseries_id"].name == "waterbody_id"
+        assert ds["waterbody_id"].dtype == np.int32  # CF 1.8 has no 64-bit integers
+        assert ds.cf["latitude"].dims == ("waterbody",)
+        np.testing.assert_array_equal(ds.cf["longitude"].values, LON)
+        evap = ds.cf["evap_mm"]
+        assert set(evap.cf.coordinates) >= {"latitude", "longitude", "time"}
+        # One body's series, selected by its identifier as a notebook user would.
+        one = (
+            ds.set_coords("waterbody_id").swap_dims(waterbody="waterbody_id").sel(waterbody_id=103)
+        )
+        np.testing.assert_array_equal(one["evap_mm"].values, _expected("evap_mm")[:, 2])
+    report = _cf_report(path)
+    assert _failed_checks(report) == []
+    assert report["scored_points"] == report["possible_points"]
+
+
+def test_ids_beyond_int32_and_text_ids_stored_as_text(tmp_path):
+    big = np.array([1, 2, 3, 4, 2**40], dtype=np.int64)
+    path = _locate(tmp_path / "big.nc", big, LON, LAT)
+    with netCDF4.Dataset(path) as ds:
+        assert ds["waterbody_id"].dtype is str
+        assert ds["waterbody_id"][:].tolist() == ["1", "2", "3", "4", str(2**40)]
+        assert ds["waterbody_id"].cf_role == "timeseries_id"
+    assert _failed_checks(_cf_report(path)) == []
+    with pytest.raises(ValueError, match="go together"):
+        _locate(tmp_path / "half.nc", big, LON, None)
+
+
+def test_body_locations_inside_each_polygon_in_lon_lat():
+    import geopandas as gpd
+    import pyproj
+    from shapely import make_valid
+    from shapely.geometry import Point, Polygon, box
+
+    from lakeloss.io.series import body_locations
+
+    # A crescent (its centroid lies outside it), a self-touching bow tie (invalid), an
+    # empty geometry and a missing one, in UTM zone 55 south.
+    crescent = box(0, 0, 1000, 1000).difference(box(200, 0, 1000, 800))
+    bow_tie = Polygon([(5000, 0), (5400, 400), (5400, 0), (5000, 400)])
+    layer = gpd.GeoSeries([crescent, bow_tie, Polygon(), None], crs="EPSG:32755")
+    lon, lat = body_locations(layer.translate(500000, 6650000))
+    assert np.isnan(lon[2:]).all() and np.isnan(lat[2:]).all()
+    to_utm = pyproj.Transformer.from_crs("EPSG:4326", "EPSG:32755", always_xy=True)
+    x, y = to_utm.transform(lon[:2], lat[:2])
+    assert crescent.contains(Point(x[0] - 500000, y[0] - 6650000))
+    assert make_valid(bow_tie).contains(Point(x[1] - 500000, y[1] - 6650000))
+    assert -31 < lat[0] < -29 and 147 < lon[0] < 148  # (500 km E, 6650 km N) of zone 55 S
+    # Without a CRS there is no location rather than a wrong one.
+    assert np.isnan(body_locations(gpd.GeoSeries([box(0, 0, 1, 1)]))[0]).all()
+
+
+def test_run_series_is_cf_time_series_with_standard_names(make_case, tmp_path):
+    import cf_units
+    import cf_xarray  # noqa: F401
+
+    import lakeloss
+
+    result = lakeloss.run(make_case("energy_balance", output={"series": True}))
+    path = result.write(tmp_path / "out") / "series.nc"
+    with xr.open_dataset(path) as ds:
+        assert ds.cf["timeseries_id"].values.tolist() == result.waterbodies["pond_id"].tolist()
+        rate = ds.cf["lwe_water_evaporation_rate"]
+        assert rate.name == "evaporation_rate"
+        # CF accepts units convertible to the standard name's canonical ones (m s-1).
+        per_second = cf_units.Unit(rate.attrs["units"]).convert(1.0, cf_units.Unit("m s-1"))
+        assert per_second == pytest.approx(1e-3 / 86400.0)
+        assert ds.cf["lwe_precipitation_rate"].name == "precipitation_rate"
+        assert "lakeloss" in ds.attrs["history"] and ds.attrs["featureType"] == "timeSeries"
+        # The ponds of tests/builders.py lie within 146.05-146.35 E, 30.05-30.25 S.
+        assert ((ds["lon"] > 146.0) & (ds["lon"] < 146.4)).all()
+        assert ((ds["lat"] > -30.3) & (ds["lat"] < -30.0)).all()
+    report = _cf_report(path)
+    assert _failed_checks(report) == []
+    assert report["scored_points"] == report["possible_points"]

@@ -193,7 +193,7 @@ def test_negative_zeros_nan_and_infinities_exact(tmp_path):
 
 
 def test_string_column_quoting_and_missing(tmp_path):
-    texts = pd.array(["plain", "a,b", 'say "hi"', "two\nlines", "cr\r", None, ""], dtype="str")
+    texts = pd.array(["plain", "a,b", 'say "hi"', "two\nlines", "cr\r", None, ""], dtype="string")
     write_csv(tmp_path / "s.csv", pd.DataFrame({"name": texts}))
     body = (tmp_path / "s.csv").read_bytes().decode("utf-8")
     assert body == 'name\nplain\n"a,b"\n"say ""hi"""\n"two\nlines"\n"cr\r"\n\n\n'
