@@ -171,13 +171,19 @@ class _State:
 
 
 def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _State:
-    # Each intermediate once: e°(T) feeds both Δ and, without Tmax/Tmin, es (and through
-    # it ea from mean RH); ea feeds the deficit, ρa and the longwave term.
+    # Each intermediate once: e°(T) feeds Δ and, without Tmax/Tmin, es (and through it ea
+    # from mean RH); ea feeds the deficit, ρa and the longwave term. With Tmax and Tmin, es
+    # is FAO-56 eq. 12 even when a mean temperature is configured too (the mean still sets
+    # Δ, λ and γ): e°(Tmean) would understate es, and every method must see the same es.
     temperature = frc.mean_temperature(inputs)
     latent_heat = atm.latent_heat_of_vaporisation(temperature)
     pressure = frc.surface_pressure(inputs, float(params.get("elevation_m", 0.0)))
     e_sat_mean = atm.saturation_vapour_pressure(temperature)
-    es = e_sat_mean if "air_temperature" in inputs else frc.saturation_vapour_pressure(inputs)
+    es = (
+        frc.saturation_vapour_pressure(inputs)
+        if frc.has_temperature_extremes(inputs)
+        else e_sat_mean
+    )
     ea = frc.vapour_pressure(inputs, es) if humidity else math.nan
     return _State(
         temperature=temperature,
@@ -188,6 +194,17 @@ def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _Stat
         slope=atm.slope_from_saturation_vapour_pressure(e_sat_mean, temperature),
         gamma=atm.psychrometric_constant(pressure, latent_heat),
     )
+
+
+def vapour_pressures(inputs: Mapping[str, ArrayLike]) -> tuple[ArrayLike, ArrayLike]:
+    """(es, ea) [Pa]: the saturation and actual vapour pressures every method of a run uses.
+
+    es is FAO-56 eq. 12 from ``air_temperature_max`` and ``air_temperature_min`` whenever
+    both are given (with or without ``air_temperature``), else e°(``air_temperature``); ea
+    comes from the first available humidity input (:func:`forcing.vapour_pressure`).
+    """
+    state = _state({key: np.asarray(value, dtype=float) for key, value in inputs.items()}, {})
+    return state.saturation, state.vapour_pressure
 
 
 def _net_radiation(
