@@ -475,6 +475,82 @@ def parameter_specs() -> dict[str, ParameterSpec]:
     return dict(_PARAMETERS)
 
 
+# Parameters whose value an input replaces where the input is given (per water body).
+_REPLACED_BY_INPUT = {"elevation_m": "elevation"}
+
+SEA_LEVEL_PRESSURE_NOTE = (
+    "no surface_air_pressure input, no elevation input and no [parameters] elevation_m: "
+    "air pressure is taken at sea level (101.3 kPa, FAO-56 eq. 7 at 0 m) for every water "
+    "body; set elevation_m or an elevation input (pressure falls about 3 % per 250 m and "
+    "the psychrometric constant with it)"
+)
+
+
+def effective_parameters(
+    methods: Iterable[str],
+    configured: Mapping[str, object],
+    input_sources: Mapping[str, str] | None = None,
+) -> dict[str, dict[str, object]]:
+    """Every parameter the ``methods`` use, with the value used and where it came from.
+
+    Parameters
+    ----------
+    methods : iterable of str
+        Registered method names of one run.
+    configured : Mapping[str, object]
+        Parameter values the configuration sets; names of no method are ignored here.
+    input_sources : Mapping[str, str], optional
+        Per-body inputs given to the run and their source, e.g. ``{"elevation": "field"}``
+        or ``{"elevation": "raster"}``; such an input replaces the parameter it stands for.
+
+    Returns
+    -------
+    dict
+        ``{name: {"value", "unit", "source", "methods"}}`` in registry order; ``source`` is
+        ``"config"``, ``"default"``, or the source of the input that replaces the parameter
+        (then ``value`` is the fallback for bodies the input does not cover).
+    """
+    names = list(dict.fromkeys(methods))
+    sources = dict(input_sources or {})
+    used: dict[str, dict[str, object]] = {}
+    for key, spec in _PARAMETERS.items():
+        users = [name for name in names if key in get(name).parameters]
+        if not users:
+            continue
+        replacing_input = _REPLACED_BY_INPUT.get(key)
+        if replacing_input in sources:
+            source = sources[str(replacing_input)]
+        else:
+            source = "config" if key in configured else "default"
+        used[key] = {
+            "value": _check_value(spec, configured.get(key, spec.default)),
+            "unit": spec.unit,
+            "source": source,
+            "methods": users,
+        }
+    return used
+
+
+def assumption_notes(
+    methods: Iterable[str], configured: Mapping[str, object], available: Iterable[str]
+) -> list[str]:
+    """Assumptions a run makes silently from defaults, one sentence each ([] when none).
+
+    Today one: a method that uses air pressure gets the sea-level value because there is no
+    pressure input, no elevation input (``available`` lists the input names) and no
+    configured ``elevation_m``.
+    """
+    have = set(available)
+    uses_pressure = any("surface_air_pressure" in get(name).optional for name in methods)
+    if (
+        uses_pressure
+        and not {"surface_air_pressure", "elevation"} & have
+        and "elevation_m" not in configured
+    ):
+        return [SEA_LEVEL_PRESSURE_NOTE]
+    return []
+
+
 def _check_value(spec: ParameterSpec, value: object) -> float | str:
     if spec.choices is not None:
         if value not in spec.choices:
