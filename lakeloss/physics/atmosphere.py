@@ -440,11 +440,11 @@ def water_density(temperature: ArrayLike) -> ArrayLike:
 
     Notes
     -----
-    ρw = 1000 [1 - (T + 288.9414)(T - 3.9863)² / (508929.2 (T + 68.12963))], a Thiesen-type fit
-    (constants from memory; docs/methods.md#water-and-air-density recomputes 998.23 at 20 °C). Depth
-    rates in lakeloss use 1000 kg m-3 by default so that E - P balances against gridded
-    precipitation (docs/methods.md#units-and-conventions); this function serves the Chow worked
-    examples and users who want ρw(T).
+    ρw = 1000 [1 - (T + 288.9414)(T - 3.9863)² / (508929.2 (T + 68.12963))], a Thiesen-type
+    fit (constants from memory; 998.23 at 20 °C, recomputed in
+    docs/methods.md#water-and-air-density). Depth rates in lakeloss use 1000 kg m-3 by default
+    so that E - P balances against gridded precipitation (docs/methods.md#units-and-conventions);
+    this function serves the Chow worked examples and users who want ρw(T).
     """
     return 1000.0 * (
         1.0

@@ -51,7 +51,7 @@ def mean_temperature(inputs: Inputs) -> ArrayLike:
 
 
 def has_temperature_extremes(inputs: Inputs) -> bool:
-    """Whether both daily extremes, ``air_temperature_max`` and ``air_temperature_min``, are given."""
+    """Whether ``air_temperature_max`` and ``air_temperature_min`` are both given."""
     return _has(inputs, "air_temperature_max+air_temperature_min")
 
 

@@ -711,7 +711,8 @@ def evaporate(
     Notes
     -----
     Forcing is prepared by :mod:`lakeloss.physics.forcing`: mean temperature from
-    ``air_temperature`` or (Tmax + Tmin)/2; es by FAO-56 eq. 12 when Tmax/Tmin are given;
+    ``air_temperature`` or (Tmax + Tmin)/2; es by FAO-56 eq. 12 whenever Tmax and Tmin are both
+    given (also with ``air_temperature``);
     actual vapour pressure from the first available of vapour pressure, dew point, specific
     humidity with pressure, RHmax/RHmin (eq. 17), RHmax (eq. 18), mean RH (eq. 19); pressure
     from ``surface_air_pressure``, else eq. 7 at ``elevation`` or the ``elevation_m``
