@@ -104,7 +104,7 @@ def _site_year():
     """An invented inland site at 420 m, one year of daily weather (seeded, southern seasons)."""
     rng = np.random.default_rng(2031)
     days = pd.date_range("2031-01-01", "2031-12-31", freq="D")
-    phase = 2.0 * np.pi * (days.dayofyear.to_numpy() - 15) / 365.0
+    phase = 2.0 * np.pi * (days.day_of_year.to_numpy() - 15) / 365.0
     t_mean = 17.0 + 8.0 * np.cos(phase) + rng.normal(0.0, 2.0, len(days))
     diurnal_range = 13.0 + 3.0 * np.cos(phase) + rng.normal(0.0, 2.0, len(days))
     t_min = t_mean - diurnal_range / 2.0
@@ -152,7 +152,7 @@ def _refet_day(site):
         zw=2.0,
         elev=SITE_ELEVATION,
         lat=-31.0,
-        doy=site.index.dayofyear.to_numpy(),
+        doy=site.index.day_of_year.to_numpy(),
         method="asce",
     )
 
