@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 import tomli_w
-from builders import CHOW_CLIMATE, pond_layer
+from builders import CHOW_CLIMATE, LAT, LON, pond_layer, write_geotiff
 
 import lakeloss
 from lakeloss.physics import registry
@@ -88,6 +88,26 @@ def test_elevation_from_a_field_is_recorded_as_field(make_case):
         "source": "default",
         "methods": ["aerodynamic"],
     }
+
+
+def test_elevation_from_a_raster_is_recorded_as_raster_with_its_fallback(make_case, tmp_path):
+    # A uniform 600 m elevation GeoTIFF over the grid; elevation_m = 90 only for bodies off it.
+    write_geotiff(tmp_path / "dem.tif", np.full((1, len(LAT), len(LON)), 600.0), "m")
+    config = make_case(
+        "priestley_taylor",
+        climate={"surface_net_downward_radiative_flux": "rnet", "air_temperature": "tas"},
+        output={"precipitation": False},
+        parameters={"elevation_m": 90.0},
+    )
+    config["climate"]["elevation"] = {"path": str(tmp_path / "dem.tif")}
+    run = _run_json(config)
+    assert run["method"]["effective_parameters"]["elevation_m"] == {
+        "value": 90.0,
+        "unit": "m",
+        "source": "raster",
+        "methods": ["priestley_taylor"],
+    }
+    assert run["notes"] == []
 
 
 def test_pressure_input_needs_no_elevation(make_case):
