@@ -198,44 +198,14 @@ def check(
 
 
 @cli.command()
+@click.argument("name", required=False)
 @_verbosity
 @_guarded
-def methods(verbose: int, quiet: bool) -> None:
-    """List the evaporation methods with their inputs, parameters and references."""
-    from lakeloss.physics import registry
+def methods(name: str | None, verbose: int, quiet: bool) -> None:
+    """List the evaporation methods, or show method NAME in full."""
+    from lakeloss.physics import catalogue
 
-    for name in registry.method_names():
-        spec = registry.get(name)
-        click.echo(f"{name}\n  {spec.description}")
-        click.echo("  needs:    " + ("; ".join(_needs(spec.requires)) or "nothing"))
-        if spec.optional:
-            click.echo("  optional: " + ", ".join(dict.fromkeys(spec.optional)))
-        for param in spec.parameters.values():
-            limits = (
-                f"choices {', '.join(param.choices)}"
-                if param.choices
-                else f"{param.minimum}..{param.maximum}"
-            )
-            unit = f" [{param.unit}]" if param.unit else ""
-            click.echo(f"  {param.name} = {param.default!r}{unit} ({limits})")
-        click.echo(f"  source:   {spec.reference}\n")
-
-
-# Inputs every run derives itself (from the layer and the time axis), not shown as needs.
-_ALWAYS_DERIVED = {"latitude", "day_of_year", "area_m2"}
-
-
-def _needs(requires: Any) -> list[str]:
-    out = []
-    for group in requires:
-        alternatives: list[str] = []
-        for alternative in group:
-            names = [n for n in alternative.split("+") if n not in _ALWAYS_DERIVED]
-            text = " + ".join(names) or "the water-body area (always given)"
-            if text not in alternatives:
-                alternatives.append(text)
-        out.append(" | ".join(alternatives))
-    return out
+    click.echo(catalogue.overview() if name is None else catalogue.describe(name))
 
 
 def main() -> None:

@@ -556,6 +556,8 @@ def _stages(
             weights_cached=cached,
             inputs_record=record.result(),
         )
+    for note in result.provenance["notes"]:
+        log.warning(note)
     return result
 
 

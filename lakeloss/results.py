@@ -539,6 +539,41 @@ def inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
     return items
 
 
+def _per_body_sources(config: RunConfig) -> dict[str, str]:
+    # As the pipeline reads them: a raster elevation replaces an attribute's.
+    sources = {}
+    if config.waterbodies.elevation_field:
+        sources["elevation"] = "field"
+    if any(item.quantity == "elevation" for item in config.climate):
+        sources["elevation"] = "raster"
+    return sources
+
+
+def effective_parameters(config: RunConfig) -> dict[str, dict[str, Any]]:
+    """Every parameter the run used, with its value, unit, source and methods (run.json)."""
+    from lakeloss.physics import registry
+
+    used = registry.effective_parameters(
+        config.method.all, config.parameters, _per_body_sources(config)
+    )
+    written = config.source.get("parameters", {})
+    used["clip_negative"] = {
+        "value": bool(config.parameters.get("clip_negative", True)),
+        "unit": "1",
+        "source": "config" if "clip_negative" in written else "default",
+        "methods": list(config.method.all),
+    }
+    return used
+
+
+def run_notes(config: RunConfig) -> list[str]:
+    """Assumptions the run made from defaults, one sentence each (run.json and stderr)."""
+    from lakeloss.physics import registry
+
+    available = [*config.quantities, *_per_body_sources(config)]
+    return registry.assumption_notes(config.method.all, config.parameters, available)
+
+
 def assemble(
     config: RunConfig,
     inputs: Any,
@@ -573,7 +608,9 @@ def assemble(
             "primary": config.method.name,
             "compare": list(config.method.compare),
             "parameters": _jsonable(dict(config.parameters)),
+            "effective_parameters": _jsonable(effective_parameters(config)),
         },
+        "notes": run_notes(config),
         "time_axis": inputs.axis.describe(),
         "counts": {
             "waterbodies": int(len(bodies)),

@@ -373,8 +373,10 @@ def test_methods_command_lists_every_method_with_its_source():
     code, output = _run(["methods"])
     assert code == 0
     for name in registry.method_names():
-        assert f"\n{name}\n" in f"\n{output}"
-    assert "Shuttleworth (1993)" in output and "needs:" in output
+        assert f"\n{name} " in f"\n{output}"
+    code, output = _run(["methods", "penman_open_water"])
+    assert code == 0
+    assert "Shuttleworth (1993)" in output and "Inputs" in output
 
 
 class _Bar:

@@ -53,10 +53,11 @@ def saturation_vapour_pressure(temperature: ArrayLike) -> ArrayLike:
     -----
     e°(T) = 610.8 exp[17.27 T / (T + 237.3)]  (FAO-56 eq. 11, 0.6108 kPa written as Pa).
     Chow et al. (1988) eq. 3.2.9 uses 611 Pa; use this one form for both sides of a vapour
-    deficit (METHODS §7.4), since mixing forms biases the deficit by about 0.5 % of e°.
-    Salinity (about -2 % at 35 g kg-1) is not applied here. Known uncertainty (METHODS §8):
-    Chow Ex. 3.5.2 prints eas = 3167 Pa at 25 °C where the 611 Pa form gives 3168.8 and this
-    form 3167.7; the 0.06 % spread is below the precision of any input.
+    deficit (docs/methods.md#saturation-vapour-pressure), since mixing forms biases the deficit
+    by about 0.5 % of e°. Salinity (about -2 % at 35 g kg-1) is not applied here. Known
+    uncertainty (docs/methods.md#open-questions): Chow Ex. 3.5.2 prints eas = 3167 Pa at 25 °C
+    where the 611 Pa form gives 3168.8 and this form 3167.7; the 0.06 % spread is below the
+    precision of any input.
 
     References
     ----------
@@ -414,7 +415,7 @@ def latent_heat_of_vaporisation(temperature: ArrayLike) -> ArrayLike:
     Chow et al. (1988) eq. 2.7.6 (check against the primary text): 2.44175e6 at 25 °C.
     FAO-56 Annex 3 eq. 3-1 gives 2.501 - 0.002361 T MJ kg-1 (2.4420 at 25 °C, 0.003 % apart).
     Chow Ex. 3.5.1 writes 2500 - 2.36 T kJ kg-1 (2441.0 at 25 °C); which one the book prints is
-    an open question (METHODS §8) that moves results by 0.03 % at most.
+    an open question (docs/methods.md#open-questions) that moves results by 0.03 % at most.
 
     References
     ----------
@@ -440,9 +441,10 @@ def water_density(temperature: ArrayLike) -> ArrayLike:
     Notes
     -----
     ρw = 1000 [1 - (T + 288.9414)(T - 3.9863)² / (508929.2 (T + 68.12963))], a Thiesen-type
-    fit (constants from memory; METHODS §2.5 recomputes 998.23 at 20 °C). Depth rates in
-    lakeloss use 1000 kg m-3 by default so that E - P balances against gridded precipitation
-    (METHODS §7.7); this function serves the Chow worked examples and users who want ρw(T).
+    fit (constants from memory; 998.23 at 20 °C, recomputed in
+    docs/methods.md#water-and-air-density). Depth rates in lakeloss use 1000 kg m-3 by default
+    so that E - P balances against gridded precipitation (docs/methods.md#units-and-conventions);
+    this function serves the Chow worked examples and users who want ρw(T).
     """
     return 1000.0 * (
         1.0
@@ -616,7 +618,7 @@ def wind_speed_fao56_profile(wind_speed: ArrayLike, measurement_height: ArrayLik
     FAO-56 eq. 47 (= ASCE-EWRI 2005 eq. 33) for a short-grass surface: factor 0.748 at 10 m.
     Applied to truly over-water wind it gives u2 9-13 % low; for gridded 10 m winds, which
     represent land, it is the consistent choice with land-calibrated wind functions
-    (METHODS §2.9, §7.8).
+    (docs/methods.md#wind-at-2-m).
 
     References
     ----------

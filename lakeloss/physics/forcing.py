@@ -50,6 +50,11 @@ def mean_temperature(inputs: Inputs) -> ArrayLike:
     return 0.5 * (inputs["air_temperature_max"] + inputs["air_temperature_min"])
 
 
+def has_temperature_extremes(inputs: Inputs) -> bool:
+    """Whether ``air_temperature_max`` and ``air_temperature_min`` are both given."""
+    return _has(inputs, "air_temperature_max+air_temperature_min")
+
+
 def temperature_extremes(inputs: Inputs) -> tuple[ArrayLike, ArrayLike]:
     """(Tmax, Tmin) [°C] when both are given, else the mean temperature twice."""
     if _has(inputs, "air_temperature_max+air_temperature_min"):
@@ -59,8 +64,12 @@ def temperature_extremes(inputs: Inputs) -> tuple[ArrayLike, ArrayLike]:
 
 
 def saturation_vapour_pressure(inputs: Inputs) -> ArrayLike:
-    """Daily saturation vapour pressure es [Pa]: FAO-56 eq. 12 from Tmax/Tmin, else e°(T)."""
-    if _has(inputs, "air_temperature_max+air_temperature_min"):
+    """Daily saturation vapour pressure es [Pa]: FAO-56 eq. 12 from Tmax/Tmin, else e°(T).
+
+    The extremes win whenever both are given, also when ``air_temperature`` is given too:
+    e° is convex, so e°(Tmean) is below the mean of e°(Tmax) and e°(Tmin).
+    """
+    if has_temperature_extremes(inputs):
         return atm.daily_saturation_vapour_pressure(
             inputs["air_temperature_max"], inputs["air_temperature_min"]
         )

@@ -1,10 +1,10 @@
 """Open-water evaporation methods: one function per published method, rates in mm day-1.
 
-Each function computes one time step from prepared forcing (see
-:mod:`lakeloss.physics.forcing`) in SI units: pressures and deficits in Pa, Δ and γ in
-Pa K-1, fluxes as daily means in W m-2, latent heat in J kg-1. Rates are depth rates in
-mm day-1; positive is loss, negative (condensation, negative net radiation) is returned as
-computed. A mass flux becomes a depth with ρw = 1000 kg m-3 unless stated (METHODS §7.7).
+Each function computes one time step from prepared forcing (see :mod:`lakeloss.physics.forcing`) in
+SI units: pressures and deficits in Pa, Δ and γ in Pa K-1, fluxes as daily means in W m-2, latent
+heat in J kg-1. Rates are depth rates in mm day-1; positive is loss, negative (condensation,
+negative net radiation) is returned as computed. A mass flux becomes a depth with ρw = 1000 kg m-3
+unless stated (docs/methods.md#units-and-conventions).
 """
 
 from __future__ import annotations

@@ -1,9 +1,10 @@
 """Radiation over water: extraterrestrial, clear-sky, shortwave, longwave and net radiation.
 
-Fluxes are daily-mean flux densities in W m-2 (SI inside, METHODS §1); FAO-56 publishes them
-as daily totals in MJ m-2 day-1, and :func:`w_m2_to_mj_m2_day` / :func:`mj_m2_day_to_w_m2`
-convert between the two (1 W m-2 = 0.0864 MJ m-2 day-1). Latitude is in degrees north, day of
-year is 1..366 (mid-step for multi-day steps). Pure, vectorised functions; NaN in, NaN out.
+Fluxes are daily-mean flux densities in W m-2 (SI inside, docs/methods.md#units-and-conventions);
+FAO-56 publishes them as daily totals in MJ m-2 day-1, and :func:`w_m2_to_mj_m2_day` /
+:func:`mj_m2_day_to_w_m2` convert between the two (1 W m-2 = 0.0864 MJ m-2 day-1). Latitude is in
+degrees north, day of year is 1..366 (mid-step for multi-day steps). Pure, vectorised functions; NaN
+in, NaN out.
 """
 
 from __future__ import annotations
@@ -26,10 +27,12 @@ STEFAN_BOLTZMANN_FAO = 4.903e-9 * 1.0e6 / SECONDS_PER_DAY
 """FAO-56 σ = 4.903e-9 MJ K-4 m-2 day-1 in W m-2 K-4 (5.6748e-8). ASCE-EWRI writes 4.901e-9."""
 
 WATER_ALBEDO = 0.08
-"""Default shortwave albedo of open water [-] (Shuttleworth 1993, from memory; METHODS §2.12).
+"""Default shortwave albedo of open water [-] (Shuttleworth 1993, from memory;
+docs/methods.md#net-radiation-over-water).
 
 Daily means of 0.06 (Cogley 1979; Finch & Hall 2001, from memory) and 0.05 (source not
-verified, METHODS §8) are also in use; the choice moves Rn by about 2-3 % of Rs.
+verified, docs/methods.md#open-questions) are also in use; the choice moves Rn by about 2-3 %
+of Rs.
 """
 
 
@@ -306,7 +309,7 @@ def net_shortwave_radiation(
     Notes
     -----
     Water albedo rises at low sun angles (high-latitude winter); a daily constant is an
-    approximation (Cogley 1979; METHODS §2.12).
+    approximation (Cogley 1979; docs/methods.md#net-radiation-over-water).
 
     References
     ----------
@@ -379,7 +382,8 @@ def net_longwave_radiation(
     Rnl = σ ½(Tmax,K⁴ + Tmin,K⁴)(0.34 - 0.14 √ea)(1.35 Rs/Rso - 0.35), ea in kPa,
     σ = 4.903e-9 MJ K-4 m-2 day-1 (here in W m-2 K-4), T_K = T + 273.15.
     Eq. 39 is a fit over land using air temperature; over water the surface emits at the
-    water temperature (METHODS §2.12), an approximation accepted here for shallow water.
+    water temperature (docs/methods.md#net-radiation-over-water), an approximation accepted
+    here for shallow water.
 
     References
     ----------

@@ -78,6 +78,10 @@ class MethodSpec:
         Inputs used when present.
     parameters : Mapping[str, ParameterSpec]
         Parameters of this method, by name.
+    equation : str
+        The equation the method evaluates, in words and symbols.
+    assumptions : str
+        What the method assumes, and when it over- or under-states evaporation.
     """
 
     name: str
@@ -87,6 +91,8 @@ class MethodSpec:
     optional: tuple[str, ...]
     parameters: Mapping[str, ParameterSpec]
     compute: Callable[[frc.Inputs, _Checked], ArrayLike] = field(repr=False, compare=False)
+    equation: str = ""
+    assumptions: str = ""
 
 
 _PARAMETERS: dict[str, ParameterSpec] = {
@@ -97,7 +103,8 @@ _PARAMETERS: dict[str, ParameterSpec] = {
         ParameterSpec("roughness_length_m", 0.0003, 1.0e-5, 0.01, "m",
                       "roughness length over water (0.03 cm, common practice; 1e-4 to 1e-3 usual)"),
         ParameterSpec("wind_height_m", 10.0, 0.5, 100.0, "m",
-                      "height of the wind_speed input above the surface"),
+                      "height of the wind_speed input above the surface (set by the wind_speed "
+                      "entry's height_m)"),
         ParameterSpec("wind_profile", "fao56", None, None, "1",
                       "moving wind to 2 m: fao56 (FAO-56 eq. 47, land wind) or log (log law, z0)",
                       ("fao56", "log")),
@@ -108,7 +115,8 @@ _PARAMETERS: dict[str, ParameterSpec] = {
         ParameterSpec("pan_coefficient", 0.7, 0.5, 1.0, "1",
                       "pan-to-lake coefficient (0.7 for Class A pans, common practice)"),
         ParameterSpec("elevation_m", 0.0, -450.0, 9000.0, "m",
-                      "water-surface elevation used when no elevation input is supplied"),
+                      "water-surface elevation for pressure (FAO-56 eq. 7) and clear-sky "
+                      "radiation where no elevation input is given; 0 is sea level"),
         ParameterSpec("small_water_body_wind_form", "mcjannet_length", None, None, "1",
                       "area-dependent wind function: (2.33+1.65u2)L^-0.1 or (2.36+1.67u2)A^-0.05",
                       tuple(wf.SMALL_WATER_BODY_FORMS)),
@@ -171,13 +179,19 @@ class _State:
 
 
 def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _State:
-    # Each intermediate once: e°(T) feeds both Δ and, without Tmax/Tmin, es (and through
-    # it ea from mean RH); ea feeds the deficit, ρa and the longwave term.
+    # Each intermediate once: e°(T) feeds Δ and, without Tmax/Tmin, es (and through it ea
+    # from mean RH); ea feeds the deficit, ρa and the longwave term. With Tmax and Tmin, es
+    # is FAO-56 eq. 12 even when a mean temperature is configured too (the mean still sets
+    # Δ, λ and γ): e°(Tmean) would understate es, and every method must see the same es.
     temperature = frc.mean_temperature(inputs)
     latent_heat = atm.latent_heat_of_vaporisation(temperature)
     pressure = frc.surface_pressure(inputs, float(params.get("elevation_m", 0.0)))
     e_sat_mean = atm.saturation_vapour_pressure(temperature)
-    es = e_sat_mean if "air_temperature" in inputs else frc.saturation_vapour_pressure(inputs)
+    es = (
+        frc.saturation_vapour_pressure(inputs)
+        if frc.has_temperature_extremes(inputs)
+        else e_sat_mean
+    )
     ea = frc.vapour_pressure(inputs, es) if humidity else math.nan
     return _State(
         temperature=temperature,
@@ -188,6 +202,17 @@ def _state(inputs: frc.Inputs, params: _Checked, humidity: bool = True) -> _Stat
         slope=atm.slope_from_saturation_vapour_pressure(e_sat_mean, temperature),
         gamma=atm.psychrometric_constant(pressure, latent_heat),
     )
+
+
+def vapour_pressures(inputs: Mapping[str, ArrayLike]) -> tuple[ArrayLike, ArrayLike]:
+    """(es, ea) [Pa]: the saturation and actual vapour pressures every method of a run uses.
+
+    es is FAO-56 eq. 12 from ``air_temperature_max`` and ``air_temperature_min`` whenever
+    both are given (with or without ``air_temperature``), else e°(``air_temperature``); ea
+    comes from the first available humidity input (:func:`forcing.vapour_pressure`).
+    """
+    state = _state({key: np.asarray(value, dtype=float) for key, value in inputs.items()}, {})
+    return state.saturation, state.vapour_pressure
 
 
 def _net_radiation(
@@ -333,25 +358,59 @@ _METHODS: dict[str, MethodSpec] = {
             _RADIATION_OPTIONAL,
             _params("albedo", "elevation_m"),
             _energy_balance,
+            equation=(
+                "E = (Rn - G) / (lambda rho_w): all net radiation not stored as heat (G) "
+                "evaporates water"
+            ),
+            assumptions=(
+                "No sensible heat and no advection. Equal to penman_open_water when the air's "
+                "drying power matches the radiation (0.98 of it on the demo); over-states in humid "
+                "or cool air, under-states where warm dry air brings energy (advection), the usual "
+                "case for small dams in dry country."
+            ),
         ),
         MethodSpec(
             "aerodynamic",
-            "mass transfer B(es - ea), B from the neutral log wind profile over water",
+            "mass transfer B(es - ea), B from the neutral log wind profile",
             "Chow, Maidment & Mays (1988) Applied Hydrology, section 3.5",
             _TURBULENT_NEEDS,
             (*_PRESSURE_OPTIONAL, "water_surface_temperature"),
             _params(*_WIND_PARAMS, "von_karman", "elevation_m"),
             _aerodynamic,
+            equation=(
+                "E = B (es - ea), B = 0.622 k^2 rho_a u2 / (P rho_w ln^2(2 m / z0)): vapour "
+                "carried off by turbulence in a neutral log wind profile; es at the water-surface "
+                "temperature when given, else at the air temperature"
+            ),
+            assumptions=(
+                "Ignores radiation; neutral stability; no transfer in still air; very sensitive to "
+                "z0. With es at the air temperature it is a potential rate. Usually well under the "
+                "combination methods (0.56 of penman_open_water on the demo): the log-law "
+                "coefficient over smooth water is small and has no free-convection term."
+            ),
         ),
         MethodSpec(
             "combination",
-            "energy-balance and aerodynamic rates weighted by D/(D+g) and g/(D+g)",
+            "energy_balance and aerodynamic weighted; = penman_monteith_open_water",
             "Chow, Maidment & Mays (1988) Applied Hydrology, section 3.5",
             (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
             (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL[:2], "heat_storage_flux",
              "water_surface_temperature"),
             _params("albedo", *_WIND_PARAMS, "von_karman", "elevation_m"),
             _combination,
+            equation=(
+                "E = Delta/(Delta + gamma) Er + gamma/(Delta + gamma) Ea: the energy_balance rate "
+                "Er and the aerodynamic rate Ea weighted by the slope Delta of the saturation "
+                "curve and the psychrometric constant gamma. Since gamma Ea = rho_a cp (es - "
+                "ea)/(lambda rho_w ra), this is the penman_monteith_open_water equation: the two "
+                "give the same numbers unless water_surface_temperature is given, which only this "
+                "method reads (for Ea)"
+            ),
+            assumptions=(
+                "As penman_monteith_open_water: the ventilation term of the log law has no "
+                "still-air part, so it is lower than the empirical Penman wind functions in light "
+                "winds (0.84 of penman_open_water on the demo)."
+            ),
         ),
         MethodSpec(
             "priestley_taylor",
@@ -361,33 +420,77 @@ _METHODS: dict[str, MethodSpec] = {
             (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
             _params("albedo", "priestley_taylor_alpha", "elevation_m"),
             _priestley_taylor,
+            equation=(
+                "E = alpha Delta/(Delta + gamma) (Rn - G)/(lambda rho_w): the equilibrium "
+                "evaporation of air saturated by the surface, raised by alpha for the drying power "
+                "of the air that the method does not see"
+            ),
+            assumptions=(
+                "alpha = 1.26 fits humid regions with little advection. Under-states in dry, windy "
+                "or advective climates (0.84 of penman_open_water on the semi-arid demo); needs no "
+                "wind and no humidity when net radiation is given."
+            ),
         ),
         MethodSpec(
             "penman_open_water",
-            "Penman combination with the open-water wind function 6.43(1 + 0.536 u2)/lambda",
+            "Penman with the open-water wind function 6.43(1 + 0.536 u2)/lambda",
             "Shuttleworth (1993) Evaporation, Handbook of Hydrology ch. 4, eq. 4.2.30",
             (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
             (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
             _params("albedo", *_WIND_PARAMS, "elevation_m"),
             _penman_open_water,
+            equation=(
+                "E = [Delta (Rn - G) + gamma 6.43 (1 + 0.536 u2)(es - ea)] / [lambda (Delta + "
+                "gamma)], Rn and G in MJ m-2 day-1, es - ea in kPa, lambda in MJ kg-1: Penman's "
+                "combination of available energy and ventilation with an empirical open-water wind "
+                "function"
+            ),
+            assumptions=(
+                "The reference of the ratios quoted for the other methods. Wind function fitted "
+                "to land-station winds and small open-water surfaces; no fetch effect "
+                "(penman_small_water_body gives less, the more so the larger the body) and no "
+                "heat storage (G = 0 unless given: deep reservoirs evaporate less than this in "
+                "spring and more in autumn, with a similar annual total)."
+            ),
         ),
         MethodSpec(
             "penman_monteith_open_water",
-            "Penman-Monteith with zero surface resistance and ra from the water roughness",
+            "Penman-Monteith, zero surface resistance, ra from the water roughness",
             "Allen et al. (1998) FAO-56 eqs. 3-4, with rs = 0 and z0 of water",
             (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
             (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
             _params("albedo", *_WIND_PARAMS, "von_karman", "elevation_m"),
             _penman_monteith,
+            equation=(
+                "E = [Delta (Rn - G) + rho_a cp (es - ea)/ra] / [lambda (Delta + gamma)], ra = "
+                "ln^2(2 m / z0) / (k^2 u2): Penman-Monteith with zero surface resistance and the "
+                "neutral aerodynamic resistance of water; numerically the combination equation"
+            ),
+            assumptions=(
+                "The ventilation term vanishes in still air, so it is lower than penman_open_water "
+                "in light winds (0.84 on the demo); sensitive to z0 (0.3 mm by default; 1 mm "
+                "raises it)."
+            ),
         ),
         MethodSpec(
             "penman_small_water_body",
-            "Penman combination with an area-dependent wind function for small water bodies",
+            "Penman with an area-dependent wind function (small water bodies)",
             "McJannet, Webster & Cook (2012) Environ. Model. Softw. 31, 76-83",
             (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES, ("area_m2",)),
             (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
             _params("albedo", *_WIND_PARAMS, "small_water_body_wind_form", "elevation_m"),
             _penman_small_water_body,
+            equation=(
+                "As penman_open_water with the wind function f(u) = (2.33 + 1.65 u2) L^-0.1, L = "
+                "sqrt(4A/pi) in m, or (2.36 + 1.67 u2) A^-0.05 with A in m2 [mm day-1 kPa-1]: "
+                "transfer per unit land wind grows as the fetch shortens"
+            ),
+            assumptions=(
+                "The area exponent is robust, the constants are uncertain. Its wind function is "
+                "below Shuttleworth's for every body larger than a few m2, most of all for large "
+                "ones: 0.90 of penman_open_water in mean depth on the demo, 0.83 by volume (the "
+                "reservoirs dominate the volume)."
+            ),
         ),
         MethodSpec(
             "pan_coefficient",
@@ -397,6 +500,14 @@ _METHODS: dict[str, MethodSpec] = {
             (),
             _params("pan_coefficient"),
             _pan,
+            equation=(
+                "E = Kp Epan: the measured pan evaporation scaled by a pan-to-lake coefficient"
+            ),
+            assumptions=(
+                "Kp = 0.7 is an annual figure for Class A pans; monthly Kp varies with the heat "
+                "stored by deep water and with the pan's own exposure. Only as good as the pan "
+                "record."
+            ),
         ),
     )
 }  # fmt: skip
@@ -456,6 +567,82 @@ def runnable(available: Iterable[str]) -> list[str]:
 def parameter_specs() -> dict[str, ParameterSpec]:
     """Every parameter of every method, by name (a name means the same thing everywhere)."""
     return dict(_PARAMETERS)
+
+
+# Parameters whose value an input replaces where the input is given (per water body).
+_REPLACED_BY_INPUT = {"elevation_m": "elevation"}
+
+SEA_LEVEL_PRESSURE_NOTE = (
+    "no surface_air_pressure input, no elevation input and no [parameters] elevation_m: "
+    "air pressure is taken at sea level (101.3 kPa, FAO-56 eq. 7 at 0 m) for every water "
+    "body; set elevation_m or an elevation input (pressure falls about 3 % per 250 m and "
+    "the psychrometric constant with it)"
+)
+
+
+def effective_parameters(
+    methods: Iterable[str],
+    configured: Mapping[str, object],
+    input_sources: Mapping[str, str] | None = None,
+) -> dict[str, dict[str, object]]:
+    """Every parameter the ``methods`` use, with the value used and where it came from.
+
+    Parameters
+    ----------
+    methods : iterable of str
+        Registered method names of one run.
+    configured : Mapping[str, object]
+        Parameter values the configuration sets; names of no method are ignored here.
+    input_sources : Mapping[str, str], optional
+        Per-body inputs given to the run and their source, e.g. ``{"elevation": "field"}``
+        or ``{"elevation": "raster"}``; such an input replaces the parameter it stands for.
+
+    Returns
+    -------
+    dict
+        ``{name: {"value", "unit", "source", "methods"}}`` in registry order; ``source`` is
+        ``"config"``, ``"default"``, or the source of the input that replaces the parameter
+        (then ``value`` is the fallback for bodies the input does not cover).
+    """
+    names = list(dict.fromkeys(methods))
+    sources = dict(input_sources or {})
+    used: dict[str, dict[str, object]] = {}
+    for key, spec in _PARAMETERS.items():
+        users = [name for name in names if key in get(name).parameters]
+        if not users:
+            continue
+        replacing_input = _REPLACED_BY_INPUT.get(key)
+        if replacing_input in sources:
+            source = sources[str(replacing_input)]
+        else:
+            source = "config" if key in configured else "default"
+        used[key] = {
+            "value": _check_value(spec, configured.get(key, spec.default)),
+            "unit": spec.unit,
+            "source": source,
+            "methods": users,
+        }
+    return used
+
+
+def assumption_notes(
+    methods: Iterable[str], configured: Mapping[str, object], available: Iterable[str]
+) -> list[str]:
+    """Assumptions a run makes silently from defaults, one sentence each ([] when none).
+
+    Today one: a method that uses air pressure gets the sea-level value because there is no
+    pressure input, no elevation input (``available`` lists the input names) and no
+    configured ``elevation_m``.
+    """
+    have = set(available)
+    uses_pressure = any("surface_air_pressure" in get(name).optional for name in methods)
+    if (
+        uses_pressure
+        and not {"surface_air_pressure", "elevation"} & have
+        and "elevation_m" not in configured
+    ):
+        return [SEA_LEVEL_PRESSURE_NOTE]
+    return []
 
 
 def _check_value(spec: ParameterSpec, value: object) -> float | str:
@@ -524,7 +711,8 @@ def evaporate(
     Notes
     -----
     Forcing is prepared by :mod:`lakeloss.physics.forcing`: mean temperature from
-    ``air_temperature`` or (Tmax + Tmin)/2; es by FAO-56 eq. 12 when Tmax/Tmin are given;
+    ``air_temperature`` or (Tmax + Tmin)/2; es by FAO-56 eq. 12 whenever Tmax and Tmin are both
+    given (also with ``air_temperature``);
     actual vapour pressure from the first available of vapour pressure, dew point, specific
     humidity with pressure, RHmax/RHmin (eq. 17), RHmax (eq. 18), mean RH (eq. 19); pressure
     from ``surface_air_pressure``, else eq. 7 at ``elevation`` or the ``elevation_m``

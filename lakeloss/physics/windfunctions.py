@@ -2,7 +2,7 @@
 
 A wind function f(u) turns a vapour-pressure deficit into an evaporation rate,
 E = f(u) D. Wind functions are given in their published unit, mm day-1 kPa-1, and named by
-formula rather than by author-year (METHODS §7.10). Wind speeds are at 2 m. Pure,
+formula rather than by author-year (docs/methods.md#wind-functions). Wind speeds are at 2 m. Pure,
 vectorised functions; NaN in, NaN out.
 """
 
@@ -19,10 +19,11 @@ VON_KARMAN = 0.4
 OPEN_WATER_ROUGHNESS = 0.0003
 """Roughness length of open water z0 [m]: 0.03 cm, common practice (Chow et al. 1988 Ex. 3.5.2)."""
 
-# McJannet, Webster & Cook (2012) constants, from memory, units unconfirmed (METHODS §3.6, §8):
-# the length form (2.33 + 1.65 u2) L^-0.1 equals (2.30 + 1.63 u2) A^-0.05; a second quoted
-# area form (2.36 + 1.67 u2) A^-0.05 is unverified and 2.5 % higher. The exponents are robust,
-# the prefactors carry roughly that +-2.5 % uncertainty.
+# McJannet, Webster & Cook (2012) constants, from memory, units unconfirmed
+# (docs/methods.md#penman_small_water_body, #open-questions): the length form (2.33 + 1.65 u2)
+# L^-0.1 equals (2.30 + 1.63 u2) A^-0.05; a second quoted area form (2.36 + 1.67 u2) A^-0.05 is
+# unverified and 2.5 % higher. The exponents are robust, the prefactors carry roughly that +-2.5 %
+# uncertainty.
 SMALL_WATER_BODY_FORMS: dict[str, tuple[float, float, str]] = {
     "mcjannet_length": (2.33, 1.65, "length"),
     "mcjannet_area": (2.36, 1.67, "area"),
@@ -50,7 +51,7 @@ def linear_wind_function(wind_speed_2m: ArrayLike, a: float, b: float) -> ArrayL
     -----
     McMahon et al. (2013) supplement lists a = 1.313 and a = 2.626 with b = 1.381 under
     Penman's 1956 and 1948 labels; whether the labels are swapped is an open question
-    (METHODS §3.2, §8), hence the name by formula.
+    (docs/methods.md#aerodynamic, #open-questions), hence the name by formula.
     """
     return a + b * wind_speed_2m
 
@@ -121,15 +122,15 @@ def small_water_body_wind_function(
 
     Notes
     -----
-    With short fetch the internal boundary layer is not in equilibrium, so transfer per unit
-    land wind rises as the area falls. Known uncertainty (METHODS §3.6, §8): the constants
-    are from memory, the prefactors differ by 2.5 % between the two quoted forms, and the
-    unit (mm day-1 kPa-1 rather than an energy unit) is inferred from the magnitudes, which
-    match Harbeck's (1962) area relation at 1 ha within 5 %. Read as MJ m-2 day-1 kPa-1 (that
-    is, with λ multiplying f(u) in the combination equation, the other reading of the
-    McJannet et al. 2008 form, METHODS §8) the rates would be 2.45 times smaller than every
-    other open-water wind function at 1 ha, which is implausible for a short-fetch body. At u2 = 2 m s-1 the length form
-    gives 3.51 (1 ha) and 2.49 (10 km²).
+    With short fetch the internal boundary layer is not in equilibrium, so transfer per unit land
+    wind rises as the area falls. Known uncertainty (docs/methods.md#penman_small_water_body,
+    #open-questions): the constants are from memory, the prefactors differ by 2.5 % between the two
+    quoted forms, and the unit (mm day-1 kPa-1 rather than an energy unit) is inferred from the
+    magnitudes, which match Harbeck's (1962) area relation at 1 ha within 5 %. Read as MJ m-2 day-1
+    kPa-1 (that is, with λ multiplying f(u) in the combination equation, the other reading of the
+    McJannet et al. 2008 form, docs/methods.md#open-questions) the rates would be 2.45 times smaller
+    than every other open-water wind function at 1 ha, which is implausible for a short-fetch body.
+    At u2 = 2 m s-1 the length form gives 3.51 (1 ha) and 2.49 (10 km²).
 
     References
     ----------
@@ -168,8 +169,9 @@ def aerodynamic_resistance(
 
     Notes
     -----
-    FAO-56 eq. 4 with zero displacement height and z0h = z0m, as is usual over water.
-    With k = 0.41 and z0 = 1e-3 m, ra = 343.7 / u2 (METHODS §3.5). Infinite at zero wind.
+    FAO-56 eq. 4 with zero displacement height and z0h = z0m, as is usual over water. With k = 0.41
+    and z0 = 1e-3 m, ra = 343.7 / u2 (docs/methods.md#penman_monteith_open_water). Infinite at zero
+    wind.
 
     References
     ----------
@@ -206,7 +208,8 @@ def mass_transfer_coefficient(
     von_karman : float, optional
         Von Kármán constant k (Chow et al. 1988 use 0.4). [-]
     water_density : array_like, optional
-        ρw; 1000 keeps depth consistent with gridded precipitation (METHODS §7.7). [kg m-3]
+        ρw; 1000 keeps depth consistent with gridded precipitation
+        (docs/methods.md#units-and-conventions). [kg m-3]
 
     Returns
     -------

@@ -1,11 +1,11 @@
 """Supporting meteorology against published worked examples, tables and two oracle libraries.
 
-Published values are quoted in the units they are printed in (kPa, MJ kg-1); the functions
-work in Pa and J kg-1, so each check converts once. Tolerances are half a unit of the last
-printed digit plus a small allowance for the book's own rounding cascade (METHODS §5).
-The FAO-56 and Chow example values are from memory, matched by independent secondary
-reproductions and by recomputation (METHODS §5.1, §5.4); the Annex 2 table values are
-equation-generated and recomputed (METHODS §5.2).
+Published values are quoted in the units they are printed in (kPa, MJ kg-1); the functions work in
+Pa and J kg-1, so each check converts once. Tolerances are half a unit of the last printed digit
+plus a small allowance for the book's own rounding cascade (docs/methods.md#check-values). The
+FAO-56 and Chow example values are from memory, matched by independent secondary reproductions and
+by recomputation (docs/methods.md#fao-56-worked-examples, #chow-examples); the Annex 2 table values
+are equation-generated and recomputed (docs/methods.md#fao-56-worked-examples).
 """
 
 import metpy.calc as mpcalc
@@ -67,7 +67,7 @@ def test_fao56_example5_vapour_pressure_from_relative_humidity():
 def test_fao56_example14_wind_at_two_metres():
     # FAO-56 Ex. 14: 3.2 m/s at 10 m over grass -> u2 = 2.4 m/s (eq. 47).
     assert atm.wind_speed_fao56_profile(3.2, 10.0) == pytest.approx(2.4, abs=0.05)
-    # METHODS §2.9: factor 0.748 at 10 m (recomputed).
+    # docs/methods.md#wind-at-2-m: factor 0.748 at 10 m (recomputed).
     assert atm.wind_speed_fao56_profile(1.0, 10.0) == pytest.approx(0.748, abs=5e-4)
 
 
@@ -102,7 +102,7 @@ def test_fao56_example20_dew_point_from_minimum_temperature():
 )
 def test_fao56_annex2_psychrometric_constant_table(elevation, gamma_kpa):
     # FAO-56 Annex 2 Table 2.2 (gamma by altitude), printed to 0.001 kPa/K; from memory,
-    # equation-generated (METHODS §5.2).
+    # equation-generated (docs/methods.md#fao-56-worked-examples).
     gamma = atm.psychrometric_constant(atm.pressure_from_elevation(elevation))
     assert gamma / KPA == pytest.approx(gamma_kpa, abs=5.5e-4)
 
@@ -119,8 +119,8 @@ def test_fao56_annex2_psychrometric_constant_table(elevation, gamma_kpa):
     ],
 )
 def test_fao56_annex2_saturation_table(temperature, es_kpa, slope_kpa):
-    # FAO-56 Annex 2 Table 2.3 (e° and Delta by temperature), printed to 0.001; values are
-    # the recomputed ones of METHODS §5.2 (one remembered entry was wrong).
+    # FAO-56 Annex 2 Table 2.3 (e° and Delta by temperature), printed to 0.001; values are the
+    # recomputed ones of docs/methods.md#fao-56-worked-examples (one remembered entry was wrong).
     assert atm.saturation_vapour_pressure(temperature) / KPA == pytest.approx(es_kpa, abs=5.5e-4)
     slope = atm.saturation_vapour_pressure_slope(temperature)
     assert slope / KPA == pytest.approx(slope_kpa, abs=5.5e-4)
@@ -128,15 +128,15 @@ def test_fao56_annex2_saturation_table(temperature, es_kpa, slope_kpa):
 
 def test_asce_appendix_c_pressure_and_gamma():
     # ASCE-EWRI (2005) Appendix C, z = 1462.4 m: P 85.17 kPa, gamma 0.0566 kPa/K (read in a
-    # secondary reproduction; METHODS §5.3).
+    # secondary reproduction; docs/methods.md#asce-ewri-appendix-c).
     pressure = atm.pressure_from_elevation(1462.4)
     assert pressure / KPA == pytest.approx(85.17, abs=5e-3)
     assert atm.psychrometric_constant(pressure) / KPA == pytest.approx(0.0566, abs=5e-5)
 
 
 def test_asce_table_c3_slope():
-    # ASCE-EWRI (2005) Table C-3, Tmean -> Delta [kPa/K]; tolerance 4e-4 because the
-    # reproduced Tmean values are probably rounded (METHODS §5, §5.3).
+    # ASCE-EWRI (2005) Table C-3, Tmean -> Delta [kPa/K]; tolerance 4e-4 because the reproduced
+    # Tmean values are probably rounded (docs/methods.md#check-values, #asce-ewri-appendix-c).
     tmean = np.array([21.65, 22.9, 23.7, 22.8, 24.3, 26.0, 26.1, 26.4, 23.9, 24.2])
     published = np.array(
         [0.1585, 0.1692, 0.1762, 0.1684, 0.1820, 0.199, 0.1996, 0.2027, 0.1781, 0.1809]
@@ -163,12 +163,14 @@ def test_latent_heat_chow_eq_2_7_6():
      (40, 992.25)],
 )  # fmt: skip
 def test_water_density_fit(temperature, density):
-    # METHODS §2.5, recomputed from the Thiesen-type fit; printed to 0.01 kg/m3.
+    # docs/methods.md#water-and-air-density, recomputed from the Thiesen-type fit; printed
+    # to 0.01 kg/m3.
     assert atm.water_density(temperature) == pytest.approx(density, abs=5e-3)
 
 
 def test_air_density_dry():
-    # METHODS §2.6 (recomputed): dry air, 101.3 kPa, 25 degC, Rd = 287.05 -> 1.1836 kg/m3.
+    # docs/methods.md#water-and-air-density (recomputed): dry air, 101.3 kPa, 25 degC, Rd = 287.05
+    # -> 1.1836 kg/m3.
     assert atm.air_density(25.0, 101.3e3) == pytest.approx(1.1836, abs=5e-5)
     # Moist air is lighter than dry air at the same T and P.
     assert atm.air_density(25.0, 101.3e3, 2000.0) < atm.air_density(25.0, 101.3e3)
@@ -176,7 +178,7 @@ def test_air_density_dry():
 
 @pytest.mark.parametrize(("z0", "ratio"), [(1e-3, 0.825), (2e-4, 0.851), (1e-4, 0.860)])
 def test_log_profile_ratio_two_to_ten_metres(z0, ratio):
-    # METHODS §2.9 (recomputed): u2/u10 for the neutral log law with roughness z0.
+    # docs/methods.md#wind-at-2-m (recomputed): u2/u10 for the neutral log law with roughness z0.
     assert atm.wind_speed_log_profile(1.0, 10.0, 2.0, z0) == pytest.approx(ratio, abs=5e-4)
 
 
@@ -187,7 +189,7 @@ def test_log_profile_round_trip():
 
 
 def test_dew_point_inverse_and_recomputed_value():
-    # METHODS §5.6 (recomputed): Tdew(1.409 kPa) = 12.069 degC.
+    # docs/methods.md#other-recomputed-values (recomputed): Tdew(1.409 kPa) = 12.069 degC.
     assert atm.dew_point_from_vapour_pressure(1409.0) == pytest.approx(12.069, abs=5e-4)
     temperatures = np.linspace(-30.0, 40.0, 71)
     recovered = atm.dew_point_from_vapour_pressure(atm.vapour_pressure_from_dew_point(temperatures))
@@ -214,7 +216,8 @@ def test_nan_in_nan_out_without_warnings():
 
 
 # ---------------------------------------------------------------------------------------
-# refet 0.5.0 oracle (ASCE-EWRI 2005 equations): machine precision where METHODS §10 says so
+# refet 0.5.0 oracle (ASCE-EWRI 2005 equations): machine precision where
+# docs/methods.md#reference-libraries says so
 # ---------------------------------------------------------------------------------------
 
 ELEVATIONS = np.linspace(-100.0, 4000.0, 42)
@@ -231,7 +234,8 @@ def test_refet_saturation_and_slope_grid():
     np.testing.assert_allclose(atm.saturation_vapour_pressure(TEMPERATURES) / KPA,
                                refet_calcs.sat_vapor_pressure(TEMPERATURES), rtol=1e-12)  # fmt: skip
     # refet 'refet' method uses 4098 x 0.6108 exactly; 'asce' rounds it to 2503, a relative
-    # difference of 0.06/2503.06 = 2.4e-5 (<= 6e-6 kPa/K below 30 degC, METHODS §2.2).
+    # difference of 0.06/2503.06 = 2.4e-5 (<= 6e-6 kPa/K below 30 degC,
+    # docs/methods.md#slope-of-the-saturation-curve).
     slope = atm.saturation_vapour_pressure_slope(TEMPERATURES) / KPA
     np.testing.assert_allclose(slope, refet_calcs.es_slope(TEMPERATURES, method="refet"),
                                rtol=1e-12)  # fmt: skip
@@ -249,7 +253,8 @@ def test_refet_wind_and_specific_humidity_grid():
 
 
 # ---------------------------------------------------------------------------------------
-# metpy oracle: general meteorology, 0.2-0.5 % from the FAO forms, so rtol 5e-3 (METHODS §10)
+# metpy oracle: general meteorology, 0.2-0.5 % from the FAO forms, so rtol 5e-3
+# (docs/methods.md#reference-libraries)
 # ---------------------------------------------------------------------------------------
 
 METPY_RTOL = 5e-3

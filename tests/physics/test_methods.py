@@ -1,9 +1,9 @@
 """Evaporation methods: textbook examples, open-water regression values, properties, types.
 
-Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 are published values from memory, each
-matching recomputation with Chow's equations to the printed precision (METHODS §5.4). The
-open-water values of METHODS §5.5 are recomputed, no published source: they pin the
-implementation to an independent recomputation at rtol 1e-3.
+Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 are published values from memory, each matching
+recomputation with Chow's equations to the printed precision (docs/methods.md#chow-examples). The
+open-water values of docs/methods.md#open-water-regression are recomputed, no published source: they
+pin the implementation to an independent recomputation at rtol 1e-3.
 """
 
 import numpy as np
@@ -82,8 +82,8 @@ def test_chow_example_3_5_4_priestley_taylor():
 
 
 # ---------------------------------------------------------------------------------------
-# METHODS §5.5 open-water regression: FAO-56 Ex. 18 weather with albedo 0.08
-# (recomputed, no published source; rtol 1e-3)
+# Open-water regression (docs/methods.md#open-water-regression): FAO-56 Ex. 18 weather with
+# albedo 0.08 (recomputed, no published source; rtol 1e-3)
 # ---------------------------------------------------------------------------------------
 
 
@@ -109,8 +109,8 @@ def ex18():
 
 
 def test_regression_inputs(ex18):
-    # METHODS §5.5 inputs: Rn 16.594 MJ, u2 2.0776, D 0.5889 kPa, ea 1.4086 kPa, P 100.12 kPa,
-    # lambda(T) 2.4611 MJ/kg.
+    # docs/methods.md#open-water-regression inputs: Rn 16.594 MJ, u2 2.0776, D 0.5889 kPa, ea 1.4086
+    # kPa, P 100.12 kPa, lambda(T) 2.4611 MJ/kg.
     assert MJ(ex18["rn"]) == pytest.approx(16.594, rel=1e-3)
     assert ex18["u2"] == pytest.approx(2.0776, rel=1e-3)
     assert ex18["d"] / KPA == pytest.approx(0.5889, rel=1e-3)
@@ -119,7 +119,8 @@ def test_regression_inputs(ex18):
 
 
 def test_regression_shuttleworth_penman(ex18):
-    # METHODS §5.5: 5.515 mm/day (radiative 4.371 + aerodynamic 1.144), gamma = 0.0016286 P/lambda.
+    # docs/methods.md#open-water-regression: 5.515 mm/day (radiative 4.371 + aerodynamic 1.144),
+    # gamma = 0.0016286 P/lambda.
     gamma = atm.psychrometric_constant(ex18["p"], ex18["lam"])
     f_u = wf.shuttleworth_wind_function(ex18["u2"], ex18["lam"])
     rate = mth.penman_evaporation(ex18["rn"], ex18["d"], f_u, ex18["slope"], gamma, ex18["lam"])
@@ -130,7 +131,7 @@ def test_regression_shuttleworth_penman(ex18):
 
 @pytest.mark.parametrize(("a", "expected"), [(1.313, 5.252), (2.626, 5.525)])
 def test_regression_linear_wind_function_penman(ex18, a, expected):
-    # METHODS §5.5: f = a + 1.381 u2 with lambda 2.45 and gamma 0.665e-3 P.
+    # docs/methods.md#open-water-regression: f = a + 1.381 u2 with lambda 2.45 and gamma 0.665e-3 P.
     gamma = atm.psychrometric_constant(ex18["p"])
     f_u = wf.linear_wind_function(ex18["u2"], a, 1.381)
     rate = mth.penman_evaporation(ex18["rn"], ex18["d"], f_u, ex18["slope"], gamma, 2.45e6)
@@ -138,7 +139,7 @@ def test_regression_linear_wind_function_penman(ex18, a, expected):
 
 
 def test_regression_priestley_taylor(ex18):
-    # METHODS §5.5: 5.498 mm/day with lambda(T) and gamma 0.665e-3 P.
+    # docs/methods.md#open-water-regression: 5.498 mm/day with lambda(T) and gamma 0.665e-3 P.
     gamma = atm.psychrometric_constant(ex18["p"])
     rate = mth.priestley_taylor_evaporation(ex18["rn"], ex18["slope"], gamma, ex18["lam"])
     assert rate == pytest.approx(5.498, rel=1e-3)
@@ -146,7 +147,8 @@ def test_regression_priestley_taylor(ex18):
 
 @pytest.mark.parametrize(("z0", "ra", "expected"), [(1e-3, 165.4, 5.175), (2e-4, 242.9, 4.919)])
 def test_regression_penman_monteith(ex18, z0, ra, expected):
-    # METHODS §5.5: rs = 0, k = 0.41, zm = zh = 2 m; rho_a with ea; gamma cpP/(0.622 lambda).
+    # docs/methods.md#open-water-regression: rs = 0, k = 0.41, zm = zh = 2 m; rho_a with ea; gamma
+    # cpP/(0.622 lambda).
     resistance = wf.aerodynamic_resistance(ex18["u2"], 2.0, z0, 0.41)
     assert resistance == pytest.approx(ra, rel=1e-3)
     rate = mth.penman_monteith_open_water_evaporation(
@@ -157,7 +159,8 @@ def test_regression_penman_monteith(ex18, z0, ra, expected):
 
 
 def test_aerodynamic_resistance_constants():
-    # METHODS §3.5 (recomputed): ra = 343.7/u2 (z0 1e-3 m), 504.6/u2 (2e-4 m), k = 0.41.
+    # docs/methods.md#penman_monteith_open_water (recomputed): ra = 343.7/u2 (z0 1e-3 m), 504.6/u2
+    # (2e-4 m), k = 0.41.
     assert wf.aerodynamic_resistance(1.0, 2.0, 1e-3, 0.41) == pytest.approx(343.7, abs=0.05)
     assert wf.aerodynamic_resistance(1.0, 2.0, 2e-4, 0.41) == pytest.approx(504.6, abs=0.05)
 
@@ -180,12 +183,13 @@ def test_combination_equals_penman_monteith_zero_resistance(ex18):
 
 
 # ---------------------------------------------------------------------------------------
-# Wind functions, including the area-dependent one (METHODS §3.2, §3.6; recomputed)
+# Wind functions, including the area-dependent one (docs/methods.md#wind-functions,
+# #penman_small_water_body; recomputed)
 # ---------------------------------------------------------------------------------------
 
 
 def test_shuttleworth_wind_function_in_depth_units():
-    # METHODS §3.2 (recomputed): 2.62 + 1.41 u2 at lambda = 2.45 MJ/kg.
+    # docs/methods.md#aerodynamic (recomputed): 2.62 + 1.41 u2 at lambda = 2.45 MJ/kg.
     u2 = np.linspace(0.0, 10.0, 11)
     np.testing.assert_allclose(wf.shuttleworth_wind_function(u2, 2.45e6),
                                2.6245 + 1.4067 * u2, rtol=5e-4)  # fmt: skip
@@ -197,9 +201,10 @@ def test_shuttleworth_wind_function_in_depth_units():
      (1e7, 2.49, 2.55)],
 )  # fmt: skip
 def test_small_water_body_wind_function_values(area, length_form, area_form):
-    # METHODS §3.6 (recomputed) at u2 = 2 m/s, McJannet et al. (2012) forms, constants from
-    # memory: (2.33 + 1.65 u2) L^-0.1 and (2.36 + 1.67 u2) A^-0.05; printed to 0.01. The
-    # length form at 10 km2 evaluates to 2.4846 here, printed 2.49 in METHODS: 6e-3 covers it.
+    # docs/methods.md#penman_small_water_body (recomputed) at u2 = 2 m/s, McJannet et al. (2012)
+    # forms, constants from memory: (2.33 + 1.65 u2) L^-0.1 and (2.36 + 1.67 u2) A^-0.05; printed to
+    # 0.01. The length form at 10 km2 evaluates to 2.4846 here, printed 2.49 in docs/methods.md:
+    # 6e-3 covers it.
     assert wf.small_water_body_wind_function(2.0, area, "mcjannet_length") == pytest.approx(
         length_form, abs=6e-3
     )
@@ -220,8 +225,9 @@ def test_pan_coefficient():
 
 
 def test_energy_to_depth_conversion_constants():
-    # METHODS §1 / §7.10: 1/2.45 = 0.408 (FAO-56 eq. 20); 1 mm/day = 28.36 W/m2 at
-    # lambda 2.45 and rho_w 1000, 28.35 W/m2 with lambda(20 degC) and rho_w(20 degC).
+    # docs/methods.md#units-and-conventions: 1/2.45 = 0.408 (FAO-56 eq. 20); 1 mm/day =
+    # 28.36 W/m2 at lambda 2.45 and rho_w 1000, 28.35 W/m2 with lambda(20 degC) and
+    # rho_w(20 degC).
     assert mth.energy_balance_evaporation(W(1.0), 2.45e6) == pytest.approx(0.408, abs=5e-4)
     assert 1.0 / mth.energy_balance_evaporation(1.0, 2.45e6) == pytest.approx(28.36, abs=5e-3)
     per_mm = 1.0 / mth.energy_balance_evaporation(
@@ -401,7 +407,8 @@ def test_nan_in_nan_out_without_warnings():
 
 
 def test_negative_values_returned_as_computed():
-    # Condensation (ea > es) and negative net radiation are kept, not clipped (METHODS §7.5).
+    # Condensation (ea > es) and negative net radiation are kept, not clipped
+    # (docs/methods.md#negative-rates).
     coefficient = wf.mass_transfer_coefficient(3.0, 1.2, 101.3e3)
     assert mth.aerodynamic_evaporation(-200.0, coefficient) < 0
     assert mth.energy_balance_evaporation(-40.0, 2.5e6) < 0

@@ -1,8 +1,8 @@
 """Radiation against FAO-56 worked examples and the refet 0.5.0 oracle.
 
-The functions return daily-mean fluxes in W m-2; FAO-56 prints daily totals in
-MJ m-2 day-1, so each check converts with w_m2_to_mj_m2_day (x 0.0864). FAO-56 example values
-are from memory, matched by secondary reproductions and recomputation (METHODS §5.1).
+The functions return daily-mean fluxes in W m-2; FAO-56 prints daily totals in MJ m-2 day-1, so each
+check converts with w_m2_to_mj_m2_day (x 0.0864). FAO-56 example values are from memory, matched by
+secondary reproductions and recomputation (docs/methods.md#fao-56-worked-examples).
 """
 
 import numpy as np
@@ -19,7 +19,7 @@ KPA = 1000.0
 
 
 def test_unit_conversions():
-    # METHODS §1: W m-2 x 0.0864 = MJ m-2 day-1, and back.
+    # docs/methods.md#units-and-conventions: W m-2 x 0.0864 = MJ m-2 day-1, and back.
     assert MJ(1.0) == pytest.approx(0.0864, rel=1e-12)
     values = np.linspace(-100.0, 500.0, 13)
     np.testing.assert_allclose(W(MJ(values)), values, rtol=1e-12)
@@ -39,7 +39,7 @@ def test_fao56_examples_8_and_9_extraterrestrial_radiation():
 
 def test_fao56_example10_solar_radiation_from_sunshine():
     # FAO-56 Ex. 10: 22 deg 54' S, J 135 (15 May), n 7.1 h -> Ra 25.1, N 10.9, Rs 14.5.
-    # Rs tolerance 0.051: FAO rounds Ra and N before multiplying (METHODS §5).
+    # Rs tolerance 0.051: FAO rounds Ra and N before multiplying (docs/methods.md#check-values).
     latitude = -(22.0 + 54.0 / 60.0)
     ra = rad.extraterrestrial_radiation(latitude, 135)
     n_max = rad.daylight_hours(latitude, 135)
@@ -55,8 +55,8 @@ def test_fao56_example11_net_longwave():
 
 
 def test_fao56_example12_net_radiation_grass_albedo():
-    # FAO-56 Ex. 12: Rs 14.5, albedo 0.23 -> Rns 11.1 (as printed; 11.165 exactly, hence
-    # +-0.1), Rnl 3.5 (Ex. 11) -> Rn 7.6 (+-0.06, FAO's rounding cascade; METHODS §5).
+    # FAO-56 Ex. 12: Rs 14.5, albedo 0.23 -> Rns 11.1 (as printed; 11.165 exactly, hence +-0.1), Rnl
+    # 3.5 (Ex. 11) -> Rn 7.6 (+-0.06, FAO's rounding cascade; docs/methods.md#check-values).
     rns = rad.net_shortwave_radiation(W(14.5), 0.23)
     assert MJ(rns) == pytest.approx(11.1, abs=0.1)
     rn = rad.net_radiation(W(14.5), 25.1, 19.1, 2.1 * KPA, W(18.8), 0.23)
@@ -82,7 +82,8 @@ def test_fao56_example17_radiation_chain():
     assert MJ(rs) == pytest.approx(22.65, abs=5e-3)
     # Rso recomputed 28.545 sits on the rounding edge of the printed 28.54.
     assert MJ(rso) == pytest.approx(28.54, abs=6e-3)
-    # From the printed intermediates (METHODS §5.1 recomputes 3.109 and 14.333).
+    # From the printed intermediates (docs/methods.md#fao-56-worked-examples recomputes 3.109 and
+    # 14.333).
     rnl = rad.net_longwave_radiation(34.8, 25.6, 2.85 * KPA, W(22.65), W(28.54))
     assert MJ(rnl) == pytest.approx(3.11, abs=5e-3)
     rn = rad.net_radiation(W(22.65), 34.8, 25.6, 2.85 * KPA, W(28.54), 0.23)
@@ -104,7 +105,7 @@ def test_fao56_example18_radiation_chain():
     assert MJ(rso) == pytest.approx(30.90, abs=5e-3)
     assert MJ(rad.net_longwave_radiation(21.5, 12.3, ea, rs, rso)) == pytest.approx(3.71, abs=5e-3)
     assert MJ(rad.net_radiation(rs, 21.5, 12.3, ea, rso, 0.23)) == pytest.approx(13.28, abs=6e-3)
-    # Open-water albedo 0.08 (METHODS §5.5, recomputed only): Rn 16.594.
+    # Open-water albedo 0.08 (docs/methods.md#open-water-regression, recomputed only): Rn 16.594.
     assert MJ(rad.net_radiation(rs, 21.5, 12.3, ea, rso)) == pytest.approx(16.594, rel=1e-3)
 
 
@@ -115,9 +116,10 @@ def _fao56_reference_et(rn_mj, tmean, u2, es, ea, slope_kpa, gamma_kpa):
 
 
 def test_fao56_example18_reference_et_chain_and_refet():
-    # FAO-56 Ex. 18 ETo 3.9 mm/day (printed; recomputed 3.880 in METHODS §5.1), and refet's
-    # Daily.eto gives 3.880 (METHODS §10). This exercises eqs. 7, 8, 12, 13, 17, 21-25, 35,
-    # 37, 39 and 47 together.
+    # FAO-56 Ex. 18 ETo 3.9 mm/day (printed; recomputed 3.880 in
+    # docs/methods.md#fao-56-worked-examples), and refet's Daily.eto gives 3.880
+    # (docs/methods.md#reference-libraries). This exercises eqs. 7, 8, 12, 13, 17, 21-25, 35, 37, 39
+    # and 47 together.
     latitude = 50.0 + 48.0 / 60.0
     ra = rad.extraterrestrial_radiation(latitude, 187)
     rs = rad.solar_radiation_from_sunshine(ra, 9.25, rad.daylight_hours(latitude, 187))
@@ -132,7 +134,8 @@ def test_fao56_example18_reference_et_chain_and_refet():
     # refet.Daily takes latitude in degrees (it converts to radians itself).
     oracle = refet.Daily(tmin=12.3, tmax=21.5, rs=MJ(rs), uz=10.0 / 3.6, zw=10.0, elev=100.0,
                          lat=latitude, doy=187, ea=ea / KPA, method="asce").eto()  # fmt: skip
-    # refet's sigma 4.901e-9 and T + 273.16 move Rnl by ~0.0015 MJ (METHODS §10).
+    # refet's sigma 4.901e-9 and T + 273.16 move Rnl by ~0.0015 MJ
+    # (docs/methods.md#reference-libraries).
     assert eto == pytest.approx(float(np.squeeze(oracle)), abs=2e-3)
 
 
@@ -166,7 +169,8 @@ def test_refet_net_longwave_grid():
     rs = ratio * rso
     oracle = refet_calcs.rnl_daily(t_max, t_min, ea, refet_calcs.fcd_daily(rs, rso))
     mine = MJ(rad.net_longwave_radiation(t_max, t_min, ea * KPA, W(rs), W(rso)))
-    # sigma 4.903e-9 vs 4.901e-9 (+4.1e-4) and 273.15 vs 273.16 (-1.4e-4) (METHODS §10).
+    # sigma 4.903e-9 vs 4.901e-9 (+4.1e-4) and 273.15 vs 273.16 (-1.4e-4)
+    # (docs/methods.md#reference-libraries).
     np.testing.assert_allclose(mine, oracle, rtol=5e-4)
 
 

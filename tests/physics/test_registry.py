@@ -1,9 +1,9 @@
 """The method registry: specifications, input and parameter checks, and evaporate().
 
-Inputs are tiny synthetic arrays in glossary units. The FAO-56 Ex. 18 day (Allen et al.
-1998, values from memory) run through evaporate() must reproduce the open-water regression
-values of METHODS §5.5 (recomputed, no published source) where the registry's choices of
-lambda and gamma match the recomputation's.
+Inputs are tiny synthetic arrays in glossary units. The FAO-56 Ex. 18 day (Allen et al. 1998, values
+from memory) run through evaporate() must reproduce the open-water regression values of
+docs/methods.md#open-water-regression (recomputed, no published source) where the registry's choices
+of lambda and gamma match the recomputation's.
 """
 
 import warnings
@@ -227,8 +227,9 @@ def test_validate_parameters_types_and_choices():
 
 
 def test_evaporate_ex18_reproduces_open_water_regression():
-    # METHODS §5.5 (recomputed, no published source): Shuttleworth Penman 5.515 mm/day with
-    # lambda(T) and gamma = 0.0016286 P / lambda; PM rs = 0, z0 1e-3 m, k 0.41: 5.175.
+    # docs/methods.md#open-water-regression (recomputed, no published source): Shuttleworth Penman
+    # 5.515 mm/day with lambda(T) and gamma = 0.0016286 P / lambda; PM rs = 0, z0 1e-3 m, k 0.41:
+    # 5.175.
     inputs = _ex18_inputs()
     assert registry.evaporate("penman_open_water", inputs) == pytest.approx(5.515, rel=1e-3)
     pm = registry.evaporate("penman_monteith_open_water", inputs,
@@ -362,5 +363,6 @@ def test_small_water_body_form_parameter():
     length = registry.evaporate("penman_small_water_body", inputs)
     area = registry.evaporate("penman_small_water_body", inputs,
                               {"small_water_body_wind_form": "mcjannet_area"})  # fmt: skip
-    # The quoted area form is ~2.5 % above the length form in its wind function (METHODS §3.6).
+    # The quoted area form is ~2.5 % above the length form in its wind function
+    # (docs/methods.md#penman_small_water_body).
     assert np.all(area > length)
