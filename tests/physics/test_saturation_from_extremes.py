@@ -173,8 +173,7 @@ def test_penman_open_water_matches_a_site_year_built_on_refet():
     # (0.2 % from 0.000665 P) and λ(T) of Chow et al. (1988) eq. 2.7.6 (0.01 %). Measured:
     # annual totals 0.05 % apart, days at most 0.023 mm. The code before the fix (e°(Tmean)
     # whenever air_temperature was given) put the annual total 6.4 % low.
-    # (pyet 1.5.0's penman, run once by hand with the same wind function, agreed to 0.014 %; it
-    # cannot be a test dependency because it requires pandas < 3.)
+    # pyet 1.4.0's penman is checked in the next test.
     site = _site_year()
     ours = registry.evaporate(
         "penman_open_water",
@@ -189,4 +188,35 @@ def test_penman_open_water_matches_a_site_year_built_on_refet():
         latent_heat * (day.es_slope + day.psy)
     )
     assert ours.sum() == pytest.approx(reference.sum(), rel=2e-3)
+    np.testing.assert_allclose(ours, reference, rtol=1e-2, atol=0.02)
+
+
+def test_penman_open_water_matches_pyet_over_a_site_year():
+    # pyet 1.4.0 (PyPI; 1.5 requires pandas < 3), penman(): PET = [Δ (Rn - G)/λ + γ fu (es - ea)]
+    # / (Δ + γ) with es by FAO-56 eq. 12 from Tmax and Tmin. With fu = 6.43 (1 + 0.536 u2) / λ it
+    # is Shuttleworth's (1993) eq. 4.2.30. Left different: pyet's γ = 0.000665 P against
+    # cp P / (0.622 λ) here (0.2 %), so the annual totals agree to 0.05 % and days to 1 %. The
+    # code before the eq. 12 fix was 6 % low against it.
+    import pyet  # test extra, pinned to 1.4.0
+
+    site = _site_year()
+    ours = registry.evaporate(
+        "penman_open_water",
+        _site_inputs(site),
+        {"wind_height_m": 2.0, "wind_profile": "fao56"},
+    )
+    latent_heat = 2.501 - 0.002361 * site["tmean"]  # MJ kg-1, as pyet computes it
+    reference = pyet.penman(
+        site["tmean"],
+        site["wind_2m"],
+        rn=site["rn_w_m2"] * 0.0864,
+        tmax=site["tmax"],
+        tmin=site["tmin"],
+        ea=0.6108 * np.exp(17.27 * site["tdew"] / (site["tdew"] + 237.3)),  # FAO-56 eq. 14
+        elevation=SITE_ELEVATION,
+        aw=6.43 / latent_heat,
+        bw=6.43 * 0.536 / latent_heat,
+        clip_zero=False,
+    ).to_numpy()
+    assert ours.sum() == pytest.approx(reference.sum(), rel=1e-3)
     np.testing.assert_allclose(ours, reference, rtol=1e-2, atol=0.02)
