@@ -196,21 +196,45 @@ def centroid_lonlat(equal_area: np.ndarray, crs: CRS) -> tuple[np.ndarray, np.nd
     return lon, lat
 
 
-def _shift_longitudes(geometry: np.ndarray, grid: GridSpec) -> np.ndarray:
+def _unwrap_jumps(geometry: np.ndarray, turn: float) -> np.ndarray:
+    """Make polygons whose longitudes jump across the antimeridian contiguous again.
+
+    A polygon that crosses 180° in a projected layer comes out of the reprojection with its
+    ring jumping from about +180 to -180, spanning nearly the whole globe. No water body is
+    half a turn wide, so such a span can only mean this: western longitudes get a turn added.
+    """
+    bounds = shapely.bounds(geometry)
+    with np.errstate(invalid="ignore"):
+        jumping = np.flatnonzero(bounds[:, 2] - bounds[:, 0] > 0.5 * turn)
+    if jumping.size == 0:
+        return geometry
+
+    def east_of_seam(coords: np.ndarray) -> np.ndarray:
+        x = np.where(coords[:, 0] < 0.0, coords[:, 0] + turn, coords[:, 0])
+        return np.column_stack([x, coords[:, 1]])
+
+    unwrapped = geometry.copy()
+    unwrapped[jumping] = [shapely.transform(g, east_of_seam) for g in geometry[jumping]]
+    return unwrapped
+
+
+def _shift_longitudes(geometry: np.ndarray, grid: GridSpec, turn: float) -> np.ndarray:
     """Move polygons by whole turns of longitude to the copy nearest the grid's centre.
 
     A grid stored in 0..360 receives polygons in -180..180 (and the reverse). A polygon that
-    straddles the grid's seam keeps its far part outside and is flagged partly outside.
+    straddles the grid's seam keeps its far part beyond the grid's edge: on a grid that
+    wraps (:attr:`GridSpec.wraps_longitude`) the weights find the cells there one turn
+    away; on a regional grid that part is outside and flagged.
     """
     centre = 0.5 * (float(grid.x_edges.min()) + float(grid.x_edges.max()))
     bounds = shapely.bounds(geometry)
-    turns = np.round((0.5 * (bounds[:, 0] + bounds[:, 2]) - centre) / 360.0)
+    turns = np.round((0.5 * (bounds[:, 0] + bounds[:, 2]) - centre) / turn)
     turns[~np.isfinite(turns)] = 0.0
     moving = turns != 0
     if not moving.any():
         return geometry
     shifted = geometry.copy()
-    offsets = -360.0 * turns[moving]
+    offsets = -turn * turns[moving]
     counts = shapely.get_num_coordinates(geometry[moving])
     per_coordinate = np.repeat(offsets, counts)
 
@@ -235,16 +259,17 @@ def reproject_to_grid(polygons: gpd.GeoDataFrame, grid: GridSpec) -> gpd.GeoSeri
     -------
     geopandas.GeoSeries
         Repaired polygons in the grid CRS, same index and order as ``polygons``; on a
-        geographic grid shifted by whole turns of longitude into the grid's range (0..360 or
-        -180..180).
+        geographic grid made contiguous across the antimeridian and shifted by whole turns
+        of longitude into the grid's range (0..360 or -180..180).
     """
     crs = check_layer(polygons)
     repaired = repair_geometry(np.asarray(polygons.geometry.array, dtype=object))
     geometry = repaired.geometry
     if not CRS.from_user_input(crs).equals(grid.crs):
         geometry = transform_geometry(geometry, CRS.from_user_input(crs), grid.crs)
-    if grid.is_geographic:
-        geometry = _shift_longitudes(geometry, grid)
+    turn = grid.full_turn
+    if turn is not None:
+        geometry = _shift_longitudes(_unwrap_jumps(geometry, turn), grid, turn)
     series = gpd.GeoSeries(geometry, index=polygons.index, crs=grid.crs)
     series.attrs[REPAIR_ATTRS] = {"repaired": repaired.repaired, "empty": repaired.empty}
     return series
