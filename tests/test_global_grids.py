@@ -223,3 +223,34 @@ def test_cli_run_on_a_grid_stored_0_359_writes_full_coverage_for_seam_lakes(tmp_
     written = gpd.read_file(tmp_path / "out" / "waterbodies.gpkg", layer="waterbodies")
     np.testing.assert_allclose(written["climate_coverage"], 1.0, rtol=1e-9)
     assert (written["qa_flags"].fillna("") == "").all()
+
+
+def _run_layer(tmp_path, name: str, ds: xr.Dataset, layer: gpd.GeoDataFrame) -> pd.DataFrame:
+    folder = tmp_path / name
+    folder.mkdir()
+    layer.to_file(folder / "lakes.gpkg", layer="ponds", driver="GPKG")
+    ds.to_netcdf(folder / "climate.nc", engine="netcdf4")
+    config = case_config(folder / "lakes.gpkg", folder / "climate.nc", folder / "out",
+                         "energy_balance", CHOW_CLIMATE)  # fmt: skip
+    return lakeloss.run(config).waterbodies.set_index("pond_id").sort_index()
+
+
+@pytest.mark.parametrize(
+    ("columns", "centres"),
+    [
+        (slice(None), [(200.3, 3.2), (359.8, -4.1), (180.2, 7.7)]),  # global: every longitude
+        (slice(10, 30), [(195.3, 3.2), (200.5, -4.1)]),  # regional -170..-151
+    ],
+    ids=["global", "regional"],
+)
+def test_layer_stored_in_0_360_longitudes_on_a_grid_stored_minus_180(tmp_path, columns, centres):
+    # Such a layer used to be refused as "does not overlap the climate grid".
+    ds = _minus_180_grid(np.random.default_rng(8)).isel(lon=columns)
+    lakes = [shapely.Point(c).buffer(RADIUS, quad_segs=16) for c in centres]
+    frame = gpd.GeoDataFrame(
+        {"pond_id": np.arange(1, len(lakes) + 1), "zone": "z"}, geometry=lakes, crs="EPSG:4326"
+    )
+    as_0_360 = _run_layer(tmp_path, "layer_0_360", ds, frame)
+    west = frame.set_geometry(frame.geometry.translate(xoff=-360.0))
+    as_180 = _run_layer(tmp_path, "layer_180", ds, west)
+    _assert_same_results(as_0_360, as_180)
