@@ -15,7 +15,6 @@ from lakeloss.errors import GeometryError, GeometryRepairedWarning, GridError
 from lakeloss.zonal.clip import clipped_areas
 from lakeloss.zonal.geometry import (
     REPAIR_ATTRS,
-    centroid_lonlat,
     check_layer,
     repair_geometry,
     repeat_repair,
@@ -109,14 +108,13 @@ def _repair_layer(original: np.ndarray, reprojected: gpd.GeoSeries | None):
 def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS, reprojected) -> _LayerAreas:
     original = np.asarray(polygons.geometry.array, dtype=object)
     repaired = _repair_layer(original, reprojected)
-    equal_area, area_crs, unit = to_equal_area(repaired.geometry, crs)
-    area = shapely.area(equal_area) * unit * unit
+    equal_area = to_equal_area(repaired.geometry, crs)
+    area = equal_area.area()
     area[repaired.empty] = 0.0
     before = np.full(area.size, np.nan)
     if repaired.repaired.any():
-        invalid, _, invalid_unit = to_equal_area(original[repaired.repaired], crs)
-        before[repaired.repaired] = shapely.area(invalid) * invalid_unit * invalid_unit
-    lon, lat = centroid_lonlat(equal_area, area_crs)
+        before[repaired.repaired] = to_equal_area(original[repaired.repaired], crs).area()
+    lon, lat = equal_area.centroid_lonlat()
     lon[repaired.empty] = np.nan
     lat[repaired.empty] = np.nan
     return _LayerAreas(area, before, repaired.repaired, repaired.empty, lon, lat)
@@ -254,8 +252,7 @@ def _true_area_inside(geometry: np.ndarray, grid: GridSpec, x: _Axis, y: _Axis) 
     part = shapely.intersection(_valid_for_clipping(geometry), outline)
     step = 0.25 * min(np.abs(np.diff(grid.x_edges)).min(), np.abs(np.diff(grid.y_edges)).min())
     part = shapely.segmentize(part, step)
-    equal_area, _, unit = to_equal_area(part, grid.crs)
-    return shapely.area(equal_area) * unit * unit
+    return to_equal_area(part, grid.crs).area()
 
 
 def _flags(areas: _LayerAreas, share: np.ndarray) -> np.ndarray:

@@ -138,34 +138,100 @@ def local_equal_area_crs(polygons_crs: CRS, total_bounds: np.ndarray) -> CRS:
     to_lonlat = Transformer.from_crs(polygons_crs, geodetic, always_xy=True)
     xmin, ymin, xmax, ymax = total_bounds
     lon, lat = to_lonlat.transform(0.5 * (xmin + xmax), 0.5 * (ymin + ymax))
+    return _azimuthal_equal_area(geodetic, float(lon), float(lat))
+
+
+def _azimuthal_equal_area(geodetic: CRS, lon: float, lat: float) -> CRS:
     conversion = LambertAzimuthalEqualAreaConversion(
-        latitude_natural_origin=float(lat), longitude_natural_origin=float(lon)
+        latitude_natural_origin=lat, longitude_natural_origin=lon
     )
     return ProjectedCRS(conversion=conversion, geodetic_crs=geodetic)
 
 
-def to_equal_area(geometry: np.ndarray, crs: CRS) -> tuple[np.ndarray, CRS, float]:
-    """Geometries in a CRS where planar area is true area (the input itself if it is one).
+@dataclass(frozen=True)
+class EqualAreaGeometry:
+    """Geometries in CRSs where planar area is true area.
 
-    Returns
-    -------
+    Attributes
+    ----------
     geometry : numpy.ndarray of shapely geometries
-        The geometries in the equal-area CRS.
+        Each geometry in ``crs``, or in ``far_crs`` where ``far`` is True.
     crs : pyproj.CRS
-        That CRS: the layer's own when it preserves area, else a Lambert azimuthal
-        equal-area projection centred on the layer (exact on the ellipsoid).
+        The layer's own CRS when it preserves area, else a Lambert azimuthal equal-area
+        projection centred on the layer (exact on the ellipsoid).
+    far : numpy.ndarray of bool
+        Geometries more than a quarter turn from the centre of ``crs``.
+    far_crs : pyproj.CRS or None
+        The azimuthal projection centred on the antipode, for the far geometries.
     metres_per_unit : float
         Length of one CRS unit. [m]
     """
+
+    geometry: np.ndarray
+    crs: CRS
+    far: np.ndarray
+    far_crs: CRS | None
+    metres_per_unit: float
+
+    def area(self) -> np.ndarray:
+        """True area of each geometry. [m2]"""
+        return shapely.area(self.geometry) * self.metres_per_unit**2
+
+    def centroid_lonlat(self) -> tuple[np.ndarray, np.ndarray]:
+        """Centroid of each geometry in WGS84 longitude and latitude (NaN when empty). [deg]"""
+        lon, lat = centroid_lonlat(self.geometry, self.crs)
+        if self.far_crs is not None and self.far.any():
+            lon[self.far], lat[self.far] = centroid_lonlat(self.geometry[self.far], self.far_crs)
+        return lon, lat
+
+
+def _quarter_turn_away(geometry: np.ndarray, crs: CRS, centre: CRS) -> np.ndarray:
+    """Which geometries lie over 90° of arc from the centre of an azimuthal projection.
+
+    Judged on the sphere from each bounding box's middle; exact enough to choose a side.
+    """
+    bounds = shapely.bounds(geometry)
+    to_lonlat = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    lon, lat = to_lonlat.transform(
+        0.5 * (bounds[:, 0] + bounds[:, 2]), 0.5 * (bounds[:, 1] + bounds[:, 3]), errcheck=False
+    )
+    params = {p.name: p.value for p in centre.coordinate_operation.params}
+    lat0 = np.radians(params["Latitude of natural origin"])
+    lon0 = np.radians(params["Longitude of natural origin"])
+    lat, lon = np.radians(lat), np.radians(lon)
+    cos_arc = np.sin(lat0) * np.sin(lat) + np.cos(lat0) * np.cos(lat) * np.cos(lon - lon0)
+    with np.errstate(invalid="ignore"):
+        return cos_arc < 0.0
+
+
+def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
+    """Geometries in a CRS where planar area is true area (the input itself if it is one).
+
+    The azimuthal projection is centred on the layer. Near the antipode of that centre it
+    stretches shapes without bound (a layer with lakes on both sides of 180° is centred near
+    0°), and straight edges between vertices no longer follow the polygon: geometries more
+    than a quarter turn away go to a second projection centred on the antipode, so every
+    geometry is within 90° of its projection's centre (scale distortion at most a factor 2).
+    """
     if is_equal_area(crs):
         unit = crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
-        return geometry, crs, float(unit)
+        return EqualAreaGeometry(geometry, crs, np.zeros(geometry.size, bool), None, float(unit))
     present = ~shapely.is_empty(geometry)
     if not present.any():
-        return geometry, crs, 1.0
-    bounds = shapely.total_bounds(geometry[present])
-    target = local_equal_area_crs(crs, bounds)
-    return transform_geometry(geometry, crs, target), target, 1.0
+        return EqualAreaGeometry(geometry, crs, np.zeros(geometry.size, bool), None, 1.0)
+    target = local_equal_area_crs(crs, shapely.total_bounds(geometry[present]))
+    far = present & _quarter_turn_away(geometry, crs, target)
+    projected = transform_geometry(geometry, crs, target)
+    if not far.any():
+        return EqualAreaGeometry(projected, target, far, None, 1.0)
+    params = {p.name: p.value for p in target.coordinate_operation.params}
+    antipode = _azimuthal_equal_area(
+        crs.geodetic_crs,
+        (params["Longitude of natural origin"] + 360.0) % 360.0 - 180.0,
+        -params["Latitude of natural origin"],
+    )
+    projected[far] = transform_geometry(geometry[far], crs, antipode)
+    return EqualAreaGeometry(projected, target, far, antipode, 1.0)
 
 
 def transform_geometry(geometry: np.ndarray, source: CRS, target: CRS) -> np.ndarray:

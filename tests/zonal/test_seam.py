@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 import shapely
 from affine import Affine
+from pyproj import Geod
 
 from lakeloss.zonal import GridSpec, build_weights, layer_key, reproject_to_grid
 
@@ -217,3 +218,25 @@ def test_cache_key_tells_a_wrapping_grid_from_the_same_edges_cut_at_the_seam():
     assert regional.key() == key_without_wrap(regional)
     lakes = _lakes(SEAM_LAKES)
     assert layer_key(lakes, wrapping) != layer_key(lakes, regional)
+
+
+@pytest.mark.parametrize(
+    "centres",
+    [
+        [(-179.9, 0.2), (179.9, -0.2)],  # the layer's middle (0, 0) is the lakes' antipode
+        [(-179.5, 1.0), (179.5, -1.0), (12.3, 41.2)],
+        [(178.5, -17.5), (-170.0, 64.0), (10.0, 50.0), (145.0, -35.0), (-100.0, 60.0)],
+    ],
+)
+def test_true_area_of_lakes_on_both_sides_of_180(centres):
+    # Areas used to come from one azimuthal projection centred on the layer's bounding box,
+    # which puts lakes either side of 180 degrees near its antipode: 15 times too large for
+    # the first layer. Reference: pyproj's geodesic polygon area (Karney 2013) on WGS84.
+    lakes = _lakes(centres, radius=0.05)
+    weights = build_weights(lakes, GridSpec.from_centres(LON_180, LAT_NORTH_UP, "EPSG:4326"))
+    geod = Geod(ellps="WGS84")
+    geodesic = [abs(geod.geometry_area_perimeter(g)[0]) for g in lakes.geometry]
+    np.testing.assert_allclose(weights.polygon_area_m2, geodesic, rtol=1e-7)
+    np.testing.assert_allclose(weights.centroid_lon % 360, np.array(centres)[:, 0] % 360,
+                               atol=1e-4)  # fmt: skip
+    np.testing.assert_allclose(weights.grid_coverage, 1.0, rtol=1e-9)
