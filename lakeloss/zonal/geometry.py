@@ -134,18 +134,33 @@ def is_equal_area(crs: CRS) -> bool:
 
 def local_equal_area_crs(polygons_crs: CRS, total_bounds: np.ndarray) -> CRS:
     """A Lambert azimuthal equal-area CRS centred on the layer, on the layer's own datum."""
-    geodetic = polygons_crs.geodetic_crs
-    to_lonlat = Transformer.from_crs(polygons_crs, geodetic, always_xy=True)
+    lon, lat = _layer_centre(polygons_crs, total_bounds)
+    return _azimuthal_equal_area(polygons_crs, lon, lat)
+
+
+def _layer_centre(polygons_crs: CRS, total_bounds: np.ndarray) -> tuple[float, float]:
+    """Longitude and latitude of the middle of the layer's bounding box. [degrees]"""
+    to_lonlat = Transformer.from_crs(polygons_crs, _geodetic(polygons_crs), always_xy=True)
     xmin, ymin, xmax, ymax = total_bounds
     lon, lat = to_lonlat.transform(0.5 * (xmin + xmax), 0.5 * (ymin + ymax))
-    return _azimuthal_equal_area(geodetic, float(lon), float(lat))
+    return float(lon), float(lat)
 
 
-def _azimuthal_equal_area(geodetic: CRS, lon: float, lat: float) -> CRS:
+def _geodetic(crs: CRS) -> CRS:
+    geodetic = crs.geodetic_crs
+    if geodetic is None:
+        raise CRSError(
+            f"CRS {crs.name!r} has no geodetic datum; expected a CRS on an ellipsoid; "
+            "give the layer a full CRS (e.g. an EPSG code)"
+        )
+    return geodetic
+
+
+def _azimuthal_equal_area(polygons_crs: CRS, lon: float, lat: float) -> CRS:
     conversion = LambertAzimuthalEqualAreaConversion(
         latitude_natural_origin=lat, longitude_natural_origin=lon
     )
-    return ProjectedCRS(conversion=conversion, geodetic_crs=geodetic)
+    return ProjectedCRS(conversion=conversion, geodetic_crs=_geodetic(polygons_crs))
 
 
 @dataclass(frozen=True)
@@ -185,21 +200,18 @@ class EqualAreaGeometry:
         return lon, lat
 
 
-def _quarter_turn_away(geometry: np.ndarray, crs: CRS, centre: CRS) -> np.ndarray:
-    """Which geometries lie over 90° of arc from the centre of an azimuthal projection.
+def _quarter_turn_away(geometry: np.ndarray, crs: CRS, lon0: float, lat0: float) -> np.ndarray:
+    """Which geometries lie over 90° of arc from (lon0, lat0) [degrees].
 
     Judged on the sphere from each bounding box's middle; exact enough to choose a side.
     """
     bounds = shapely.bounds(geometry)
-    to_lonlat = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    to_lonlat = Transformer.from_crs(crs, _geodetic(crs), always_xy=True)
     lon, lat = to_lonlat.transform(
         0.5 * (bounds[:, 0] + bounds[:, 2]), 0.5 * (bounds[:, 1] + bounds[:, 3]), errcheck=False
     )
-    params = {p.name: p.value for p in centre.coordinate_operation.params}
-    lat0 = np.radians(params["Latitude of natural origin"])
-    lon0 = np.radians(params["Longitude of natural origin"])
-    lat, lon = np.radians(lat), np.radians(lon)
-    cos_arc = np.sin(lat0) * np.sin(lat) + np.cos(lat0) * np.cos(lat) * np.cos(lon - lon0)
+    lat, dlon, phi0 = np.radians(lat), np.radians(np.asarray(lon) - lon0), np.radians(lat0)
+    cos_arc = np.sin(phi0) * np.sin(lat) + np.cos(phi0) * np.cos(lat) * np.cos(dlon)
     with np.errstate(invalid="ignore"):
         return cos_arc < 0.0
 
@@ -213,23 +225,20 @@ def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
     than a quarter turn away go to a second projection centred on the antipode, so every
     geometry is within 90° of its projection's centre (scale distortion at most a factor 2).
     """
+    none_far = np.zeros(geometry.size, dtype=bool)
     if is_equal_area(crs):
         unit = crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
-        return EqualAreaGeometry(geometry, crs, np.zeros(geometry.size, bool), None, float(unit))
+        return EqualAreaGeometry(geometry, crs, none_far, None, float(unit))
     present = ~shapely.is_empty(geometry)
     if not present.any():
-        return EqualAreaGeometry(geometry, crs, np.zeros(geometry.size, bool), None, 1.0)
-    target = local_equal_area_crs(crs, shapely.total_bounds(geometry[present]))
-    far = present & _quarter_turn_away(geometry, crs, target)
+        return EqualAreaGeometry(geometry, crs, none_far, None, 1.0)
+    lon0, lat0 = _layer_centre(crs, shapely.total_bounds(geometry[present]))
+    target = _azimuthal_equal_area(crs, lon0, lat0)
+    far = present & _quarter_turn_away(geometry, crs, lon0, lat0)
     projected = transform_geometry(geometry, crs, target)
     if not far.any():
         return EqualAreaGeometry(projected, target, far, None, 1.0)
-    params = {p.name: p.value for p in target.coordinate_operation.params}
-    antipode = _azimuthal_equal_area(
-        crs.geodetic_crs,
-        (params["Longitude of natural origin"] + 360.0) % 360.0 - 180.0,
-        -params["Latitude of natural origin"],
-    )
+    antipode = _azimuthal_equal_area(crs, (lon0 + 360.0) % 360.0 - 180.0, -lat0)
     projected[far] = transform_geometry(geometry[far], crs, antipode)
     return EqualAreaGeometry(projected, target, far, antipode, 1.0)
 

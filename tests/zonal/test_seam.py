@@ -85,6 +85,16 @@ def test_wrap_is_detected_for_global_grids_only(lon, wraps):
     assert GridSpec.from_centres(lon, LAT_NORTH_UP, "EPSG:4326").wraps_longitude is wraps
 
 
+def test_a_global_geotiff_transform_wraps():
+    # GeoTIFFs give the grid as an affine transform: 0.5-degree cells from -180 or from 0
+    for west in (-180.0, 0.0, -0.25):
+        grid = GridSpec.from_transform(Affine(0.5, 0, west, 0, -0.5, 90.0), 720, 360, "EPSG:4326")
+        assert grid.wraps_longitude
+    regional = GridSpec.from_transform(Affine(0.5, 0, -180.0, 0, -0.5, 90.0), 719, 360,
+                                       "EPSG:4326")  # fmt: skip
+    assert not regional.wraps_longitude
+
+
 def test_a_projected_grid_360_units_wide_does_not_wrap():
     grid = GridSpec.from_transform(Affine(10.0, 0, 4_000_000.0, 0, -10.0, 3_000_000.0), 36, 20,
                                    "EPSG:3035")  # fmt: skip
