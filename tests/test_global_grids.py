@@ -254,3 +254,16 @@ def test_layer_stored_in_0_360_longitudes_on_a_grid_stored_minus_180(tmp_path, c
     west = frame.set_geometry(frame.geometry.translate(xoff=-360.0))
     as_180 = _run_layer(tmp_path, "layer_180", ds, west)
     _assert_same_results(as_0_360, as_180)
+
+
+@pytest.mark.filterwarnings("ignore::lakeloss.errors.AssumedCRSWarning")
+def test_era5_cut_at_minus_180_to_180_inclusive_equals_the_0_360_file(tmp_path):
+    # A request for the area -180..180 returns 1441 longitudes: the column at ±180 twice.
+    stored = _era5_like(np.random.default_rng(3))
+    rolled = _stored_the_other_way(stored, "longitude")
+    inclusive = xr.concat([rolled, rolled.isel(longitude=[0])], dim="longitude")
+    lon = inclusive["longitude"].values.copy()
+    lon[-1] = 180.0
+    inclusive = inclusive.assign_coords(longitude=("longitude", lon, stored["longitude"].attrs))
+    assert inclusive.sizes["longitude"] == 1441
+    _assert_same_results(_run(tmp_path, "inclusive", inclusive), _run(tmp_path, "0_360", stored))

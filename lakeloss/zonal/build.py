@@ -43,26 +43,32 @@ _OUTSIDE_TOLERANCE = 1e-6
 class _Axis:
     """Cell edges of one grid axis in ascending order, and how to map back to storage.
 
-    On an axis that wraps (longitude of a global grid) ``edges`` holds three copies of the
-    stored cells, one turn apart, so a polygon hanging over the storage seam on either side
-    finds cells there; :meth:`stored` folds every copy back onto the stored columns.
+    On an axis that wraps (longitude of a global grid) ``edges`` holds three copies of one
+    turn of stored cells (``period`` of them), one turn apart, so a polygon hanging over the
+    storage seam on either side finds cells there; :meth:`stored` folds every copy back onto
+    the stored columns. A last column that repeats the first is never used.
     """
 
     edges: np.ndarray
     flipped: bool
     stored_size: int
+    period: int
 
     @classmethod
-    def of(cls, stored_edges: np.ndarray, turn: float | None = None) -> _Axis:
+    def of(cls, stored_edges: np.ndarray, turn: tuple[float, int] | None = None) -> _Axis:
+        """The axis of these stored edges; ``turn`` = (one turn, columns in it) to wrap."""
         flipped = bool(stored_edges[-1] < stored_edges[0])
         edges = stored_edges[::-1].copy() if flipped else np.asarray(stored_edges)
         stored_size = edges.size - 1
-        if turn is not None:
-            # close the seam exactly (float32 coordinates miss it by ~1e-5 degrees)
-            closed = edges.astype(np.float64, copy=True)
-            closed[-1] = closed[0] + turn
-            edges = np.concatenate([closed[:-1] - turn, closed[:-1], closed + turn])
-        return cls(edges, flipped, stored_size)
+        if turn is None:
+            return cls(edges, flipped, stored_size, stored_size)
+        length, columns = turn
+        # One turn of cells (a repeated last column left out), its seam closed exactly:
+        # float32 coordinates miss it by ~1e-5 degrees.
+        closed = edges[: columns + 1].astype(np.float64, copy=True)
+        closed[-1] = closed[0] + length
+        wrapped = np.concatenate([closed[:-1] - length, closed[:-1], closed + length])
+        return cls(wrapped, flipped, stored_size, columns)
 
     @property
     def size(self) -> int:
@@ -75,13 +81,14 @@ class _Axis:
         return np.clip(first, 0, self.size - 1), np.clip(last, 0, self.size - 1)
 
     def stored(self, index: np.ndarray) -> np.ndarray:
-        index = index % self.stored_size
+        index = index % self.period
         return self.stored_size - 1 - index if self.flipped else index
 
 
 def _grid_axes(grid: GridSpec) -> tuple[_Axis, _Axis]:
     """The x and y axes of the grid; x wraps across the seam on a global grid."""
-    turn = grid.full_turn if grid.wraps_longitude else None
+    columns, length = grid.turn_columns, grid.full_turn
+    turn = None if columns is None or length is None else (length, columns)
     return _Axis.of(grid.x_edges, turn), _Axis.of(grid.y_edges)
 
 

@@ -168,16 +168,30 @@ class GridSpec:
         """True for a geographic grid whose columns go once all the way round the globe.
 
         Such a grid has no east or west edge: its first and last columns are neighbours
-        across the storage seam (at 0°/360° or ±180°, wherever the file starts). Detected
-        when the x edges span one turn of longitude within half a mean cell width, which
-        absorbs float32 rounding of the coordinates; a projected grid never wraps.
+        across the storage seam (at 0°/360°, ±180° or wherever the file starts). See
+        :attr:`turn_columns`.
+        """
+        return self.turn_columns is not None
+
+    @property
+    def turn_columns(self) -> int | None:
+        """How many stored columns make one turn of longitude; None when the grid does not wrap.
+
+        All the columns when the x edges span one turn within half a mean cell width (which
+        absorbs float32 rounding of the coordinates); all but the last when the last column
+        repeats the first one turn later (files cut at -180..180 or 0..360 inclusive). A
+        projected grid never wraps.
         """
         turn = self.full_turn
         if turn is None:
-            return False
-        span = abs(float(self.x_edges[-1] - self.x_edges[0]))
-        half_cell = 0.5 * span / (self.x_edges.size - 1)
-        return abs(span - turn) <= half_cell
+            return None
+        edges = self.x_edges
+        n_columns = edges.size - 1
+        half_cell = 0.5 * abs(float(edges[-1] - edges[0])) / n_columns
+        for count in (n_columns, n_columns - 1):
+            if count >= 1 and abs(abs(float(edges[count] - edges[0])) - turn) <= half_cell:
+                return count
+        return None
 
     @property
     def bounds(self) -> tuple[float, float, float, float]:

@@ -77,7 +77,10 @@ def _assert_same_weights(a, b, values_a, values_b):
         (np.arange(192, dtype=np.float32) * np.float32(1.875), True),  # float32 rounding
         (LON_0_359[::-1], True),  # stored east to west
         (np.arange(0.0, 359.0), False),  # one column short: a gap of a whole cell
-        (np.arange(0.0, 361.0), False),  # 0 and 360 both stored: overlaps by a cell
+        (np.arange(0.0, 361.0), True),  # 0 and 360 both stored: the last column repeats
+        (np.arange(-180.0, 180.1, 0.25), True),  # ERA5 cut at -180..180 inclusive
+        (np.arange(0.0, 362.0), False),  # two columns more than a turn
+        (np.arange(0.0, 361.0, 1.1), False),  # 1.1-degree cells: 328 make 360.8 degrees
         (np.arange(-20.0, 60.0), False),  # regional
     ],
 )
@@ -138,6 +141,25 @@ def test_grid_stored_minus_180_wraps_like_the_same_field_stored_0_359(field):
     _assert_same_weights(seam, reference, _roll_to_180(field), field)
     np.testing.assert_array_equal(seam.grid_coverage, 1.0)
     assert set(seam.flags) == {""}
+
+
+@pytest.mark.parametrize("descending", [False, True])
+def test_a_repeated_last_column_is_left_out_and_the_grid_wraps(field, descending):
+    # Files cut at -180..180 inclusive store the column at ±180 twice.
+    lakes = _lakes(SEAM_LAKES, radius=0.45)
+    lon = np.arange(-180.0, 181.0)
+    values = np.concatenate([_roll_to_180(field), _roll_to_180(field)[:, :, :1]], axis=2)
+    if descending:
+        lon, values = lon[::-1], values[:, :, ::-1]
+    repeated = GridSpec.from_centres(lon, LAT_NORTH_UP, "EPSG:4326")
+    assert repeated.turn_columns == 360
+    weights = build_weights(lakes, repeated)
+    reference = build_weights(lakes, GridSpec.from_centres(LON_0_359, LAT_NORTH_UP, "EPSG:4326"))
+    _assert_same_weights(weights, reference, values, field)
+    np.testing.assert_array_equal(weights.grid_coverage, 1.0)
+    # only one of the two copies of the ±180 column is ever used
+    used = np.unique(weights.matrix.indices % 361)
+    assert not ({0, 360} <= set(used))
 
 
 def test_seam_lake_weights_sum_to_its_area_and_sit_in_the_stored_columns(field):
