@@ -216,6 +216,17 @@ def _quarter_turn_away(geometry: np.ndarray, crs: CRS, lon0: float, lat0: float)
         return cos_arc < 0.0
 
 
+def _compact(crs: CRS, total_bounds: np.ndarray) -> bool:
+    """Whether the layer fits in 60° of longitude and of latitude, so no part of it is near
+    a quarter turn from its middle (then no geometry needs checking one by one)."""
+    to_lonlat = Transformer.from_crs(crs, _geodetic(crs), always_xy=True)
+    west, south, east, north = to_lonlat.transform_bounds(*total_bounds, densify_pts=21)
+    lon_span = east - west if east >= west else east - west + 360.0  # across 180°
+    return bool(
+        np.isfinite([lon_span, north - south]).all() and max(lon_span, north - south) <= 60.0
+    )
+
+
 def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
     """Geometries in a CRS where planar area is true area (the input itself if it is one).
 
@@ -232,9 +243,12 @@ def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
     present = ~shapely.is_empty(geometry)
     if not present.any():
         return EqualAreaGeometry(geometry, crs, none_far, None, 1.0)
-    lon0, lat0 = _layer_centre(crs, shapely.total_bounds(geometry[present]))
+    total_bounds = shapely.total_bounds(geometry[present])
+    lon0, lat0 = _layer_centre(crs, total_bounds)
     target = _azimuthal_equal_area(crs, lon0, lat0)
-    far = present & _quarter_turn_away(geometry, crs, lon0, lat0)
+    far = np.zeros(geometry.size, dtype=bool)
+    if not _compact(crs, total_bounds):
+        far = present & _quarter_turn_away(geometry, crs, lon0, lat0)
     projected = transform_geometry(geometry, crs, target)
     if not far.any():
         return EqualAreaGeometry(projected, target, far, None, 1.0)
