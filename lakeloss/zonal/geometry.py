@@ -220,7 +220,8 @@ def _compact(crs: CRS, total_bounds: np.ndarray) -> bool:
     """Whether the layer fits in 60° of longitude and of latitude, so no part of it is near
     a quarter turn from its middle (then no geometry needs checking one by one)."""
     to_lonlat = Transformer.from_crs(crs, _geodetic(crs), always_xy=True)
-    west, south, east, north = to_lonlat.transform_bounds(*total_bounds, densify_pts=21)
+    xmin, ymin, xmax, ymax = (float(v) for v in total_bounds)
+    west, south, east, north = to_lonlat.transform_bounds(xmin, ymin, xmax, ymax, densify_pts=21)
     lon_span = east - west if east >= west else east - west + 360.0  # across 180°
     return bool(
         np.isfinite([lon_span, north - south]).all() and max(lon_span, north - south) <= 60.0
