@@ -267,8 +267,12 @@ def check_overlap(inputs: Inputs) -> None:
         x0, y0, x1, y1 = transformer.transform_bounds(left, bottom, right, top, densify_pts=21)
         gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))
         gy0, gy1 = float(np.min(grid.y_edges)), float(np.max(grid.y_edges))
-        if grid.is_geographic and gx1 > 180.0 and x1 < 0.0:
+        if grid.wraps_longitude:
+            x0, x1 = gx0, gx1  # a grid all the way round has every longitude
+        elif grid.is_geographic and gx1 > 180.0 and x1 < 0.0:
             x0, x1 = x0 + 360.0, x1 + 360.0
+        elif grid.is_geographic and gx0 < 0.0 and x0 > 180.0:
+            x0, x1 = x0 - 360.0, x1 - 360.0
         if x1 < gx0 or x0 > gx1 or y1 < gy0 or y0 > gy1:
             raise GridError(
                 f"the water-body layer (bounds {x0:.4f}, {y0:.4f}, {x1:.4f}, {y1:.4f} in the "

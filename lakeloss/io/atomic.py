@@ -15,8 +15,8 @@ from __future__ import annotations
 import errno
 import os
 import re
+import secrets
 import shutil
-import tempfile
 from pathlib import Path
 from types import TracebackType
 from typing import Literal
@@ -87,7 +87,7 @@ class OutputDirectory:
             clean_stale(self.target)
             self.check()  # a restored earlier output may now exist under the final name
             prefix = f".{self.target.name}.{_PARTIAL}-{os.getpid()}-"
-            self.staging = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))
+            self.staging = _make_staging(parent, prefix)
         except OSError as exc:
             if isinstance(exc, OutputError):
                 raise
@@ -145,6 +145,21 @@ class OutputDirectory:
         _fsync_directory(target.parent)
         if old is not None:
             _remove(old)
+
+
+def _make_staging(parent: Path, prefix: str) -> Path:
+    """A new, uniquely named directory in ``parent`` with the mode the umask gives.
+
+    Not ``tempfile.mkdtemp``: its 0700 would survive the swap and hide the results from
+    everyone else, while outputs are meant to be shared like any directory the user makes.
+    """
+    while True:
+        staging = parent / f"{prefix}{secrets.token_hex(6)}"
+        try:
+            staging.mkdir(mode=0o777)
+        except FileExistsError:
+            continue
+        return staging
 
 
 def clean_stale(target: str | Path) -> list[Path]:

@@ -15,7 +15,6 @@ from lakeloss.errors import GeometryError, GeometryRepairedWarning, GridError
 from lakeloss.zonal.clip import clipped_areas
 from lakeloss.zonal.geometry import (
     REPAIR_ATTRS,
-    centroid_lonlat,
     check_layer,
     repair_geometry,
     repeat_repair,
@@ -42,16 +41,34 @@ _OUTSIDE_TOLERANCE = 1e-6
 
 @dataclass(frozen=True)
 class _Axis:
-    """Cell edges of one grid axis in ascending order, and how to map back to storage."""
+    """Cell edges of one grid axis in ascending order, and how to map back to storage.
+
+    On an axis that wraps (longitude of a global grid) ``edges`` holds three copies of one
+    turn of stored cells (``period`` of them), one turn apart, so a polygon hanging over the
+    storage seam on either side finds cells there; :meth:`stored` folds every copy back onto
+    the stored columns. A last column that repeats the first is never used.
+    """
 
     edges: np.ndarray
     flipped: bool
+    stored_size: int
+    period: int
 
     @classmethod
-    def of(cls, stored_edges: np.ndarray) -> _Axis:
-        if stored_edges[-1] < stored_edges[0]:
-            return cls(stored_edges[::-1].copy(), True)
-        return cls(np.asarray(stored_edges), False)
+    def of(cls, stored_edges: np.ndarray, turn: tuple[float, int] | None = None) -> _Axis:
+        """The axis of these stored edges; ``turn`` = (one turn, columns in it) to wrap."""
+        flipped = bool(stored_edges[-1] < stored_edges[0])
+        edges = stored_edges[::-1].copy() if flipped else np.asarray(stored_edges)
+        stored_size = edges.size - 1
+        if turn is None:
+            return cls(edges, flipped, stored_size, stored_size)
+        length, columns = turn
+        # One turn of cells (a repeated last column left out), its seam closed exactly:
+        # float32 coordinates miss it by ~1e-5 degrees.
+        closed = edges[: columns + 1].astype(np.float64, copy=True)
+        closed[-1] = closed[0] + length
+        wrapped = np.concatenate([closed[:-1] - length, closed[:-1], closed + length])
+        return cls(wrapped, flipped, stored_size, columns)
 
     @property
     def size(self) -> int:
@@ -64,7 +81,15 @@ class _Axis:
         return np.clip(first, 0, self.size - 1), np.clip(last, 0, self.size - 1)
 
     def stored(self, index: np.ndarray) -> np.ndarray:
-        return self.size - 1 - index if self.flipped else index
+        index = index % self.period
+        return self.stored_size - 1 - index if self.flipped else index
+
+
+def _grid_axes(grid: GridSpec) -> tuple[_Axis, _Axis]:
+    """The x and y axes of the grid; x wraps across the seam on a global grid."""
+    columns, length = grid.turn_columns, grid.full_turn
+    turn = None if columns is None or length is None else (length, columns)
+    return _Axis.of(grid.x_edges, turn), _Axis.of(grid.y_edges)
 
 
 @dataclass(frozen=True)
@@ -90,14 +115,13 @@ def _repair_layer(original: np.ndarray, reprojected: gpd.GeoSeries | None):
 def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS, reprojected) -> _LayerAreas:
     original = np.asarray(polygons.geometry.array, dtype=object)
     repaired = _repair_layer(original, reprojected)
-    equal_area, area_crs, unit = to_equal_area(repaired.geometry, crs)
-    area = shapely.area(equal_area) * unit * unit
+    equal_area = to_equal_area(repaired.geometry, crs)
+    area = equal_area.area()
     area[repaired.empty] = 0.0
     before = np.full(area.size, np.nan)
     if repaired.repaired.any():
-        invalid, _, invalid_unit = to_equal_area(original[repaired.repaired], crs)
-        before[repaired.repaired] = shapely.area(invalid) * invalid_unit * invalid_unit
-    lon, lat = centroid_lonlat(equal_area, area_crs)
+        before[repaired.repaired] = to_equal_area(original[repaired.repaired], crs).area()
+    lon, lat = equal_area.centroid_lonlat()
     lon[repaired.empty] = np.nan
     lat[repaired.empty] = np.nan
     return _LayerAreas(area, before, repaired.repaired, repaired.empty, lon, lat)
@@ -181,7 +205,7 @@ def _clipped_pairs(geometry: np.ndarray, x: _Axis, y: _Axis, bounds: np.ndarray)
 
 def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygon_area):
     """All (body, cell) pairs and the share of each polygon's true area inside the grid."""
-    x, y = _Axis.of(grid.x_edges), _Axis.of(grid.y_edges)
+    x, y = _grid_axes(grid)
     bounds = shapely.bounds(in_grid)
     with np.errstate(invalid="ignore"):
         within = (
@@ -210,7 +234,7 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygo
     if crossing.size:
         clipped, inside_planar = _clipped_pairs(in_grid[crossing], x, y, bounds[crossing])
         partial = crossing[~within[crossing] & (inside_planar > 0)]
-        inside = _true_area_inside(in_grid[partial], grid) / polygon_area[partial]
+        inside = _true_area_inside(in_grid[partial], grid, x, y) / polygon_area[partial]
         # below the tolerance the difference is the two area computations, not real overhang
         share[partial] = np.where(inside > 1.0 - _OUTSIDE_TOLERANCE, 1.0, inside)
         pairs = _Pairs(
@@ -222,20 +246,20 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygo
     return pairs, share, within
 
 
-def _true_area_inside(geometry: np.ndarray, grid: GridSpec) -> np.ndarray:
+def _true_area_inside(geometry: np.ndarray, grid: GridSpec, x: _Axis, y: _Axis) -> np.ndarray:
     """True area of each polygon's part inside the grid's outline. [m2]
 
     Only the few polygons that hang over the grid's edge come here. The cut edge runs along
     a grid line (a parallel or meridian on a geographic grid), so the part is densified to a
     quarter cell before it goes to the equal-area CRS, where straight chords would cut
-    corners.
+    corners. On a grid that wraps in longitude the outline is the axes' widened x range, so
+    only the north and south edges cut.
     """
-    xmin, ymin, xmax, ymax = grid.bounds
-    part = shapely.intersection(_valid_for_clipping(geometry), shapely.box(xmin, ymin, xmax, ymax))
+    outline = shapely.box(x.edges[0], y.edges[0], x.edges[-1], y.edges[-1])
+    part = shapely.intersection(_valid_for_clipping(geometry), outline)
     step = 0.25 * min(np.abs(np.diff(grid.x_edges)).min(), np.abs(np.diff(grid.y_edges)).min())
     part = shapely.segmentize(part, step)
-    equal_area, _, unit = to_equal_area(part, grid.crs)
-    return shapely.area(equal_area) * unit * unit
+    return to_equal_area(part, grid.crs).area()
 
 
 def _flags(areas: _LayerAreas, share: np.ndarray) -> np.ndarray:
@@ -296,9 +320,14 @@ def build_weights(
     without clipping. Others are clipped against the cells of their box in grid coordinates;
     each piece's coverage fraction of its cell times the cell's true area is the raw weight,
     and each row is then rescaled to the polygon's true area inside the grid (measured in an
-    equal-area CRS after cutting the polygon at the grid's outline). Means from these weights equal exactextract's
-    means weighted by cell area, and row sums stay exact. Holes are excluded and the parts of
-    a multipolygon summed because clipping works on the whole geometry.
+    equal-area CRS after cutting the polygon at the grid's outline). Means from these weights
+    equal exactextract's means weighted by cell area, and row sums stay exact. Holes are
+    excluded and the parts of a multipolygon summed because clipping works on the whole
+    geometry.
+
+    A geographic grid spanning 360° of longitude (:attr:`GridSpec.wraps_longitude`) has no
+    east or west edge: a polygon over its storage seam takes cells on both sides of it, the
+    ones beyond the seam found one turn away and mapped back to their stored columns.
     """
     crs = CRS.from_user_input(check_layer(polygons))
     if reprojected is None:

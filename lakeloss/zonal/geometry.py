@@ -134,38 +134,128 @@ def is_equal_area(crs: CRS) -> bool:
 
 def local_equal_area_crs(polygons_crs: CRS, total_bounds: np.ndarray) -> CRS:
     """A Lambert azimuthal equal-area CRS centred on the layer, on the layer's own datum."""
-    geodetic = polygons_crs.geodetic_crs
-    to_lonlat = Transformer.from_crs(polygons_crs, geodetic, always_xy=True)
+    lon, lat = _layer_centre(polygons_crs, total_bounds)
+    return _azimuthal_equal_area(polygons_crs, lon, lat)
+
+
+def _layer_centre(polygons_crs: CRS, total_bounds: np.ndarray) -> tuple[float, float]:
+    """Longitude and latitude of the middle of the layer's bounding box. [degrees]"""
+    to_lonlat = Transformer.from_crs(polygons_crs, _geodetic(polygons_crs), always_xy=True)
     xmin, ymin, xmax, ymax = total_bounds
     lon, lat = to_lonlat.transform(0.5 * (xmin + xmax), 0.5 * (ymin + ymax))
+    return float(lon), float(lat)
+
+
+def _geodetic(crs: CRS) -> CRS:
+    geodetic = crs.geodetic_crs
+    if geodetic is None:
+        raise CRSError(
+            f"CRS {crs.name!r} has no geodetic datum; expected a CRS on an ellipsoid; "
+            "give the layer a full CRS (e.g. an EPSG code)"
+        )
+    return geodetic
+
+
+def _azimuthal_equal_area(polygons_crs: CRS, lon: float, lat: float) -> CRS:
     conversion = LambertAzimuthalEqualAreaConversion(
-        latitude_natural_origin=float(lat), longitude_natural_origin=float(lon)
+        latitude_natural_origin=lat, longitude_natural_origin=lon
     )
-    return ProjectedCRS(conversion=conversion, geodetic_crs=geodetic)
+    return ProjectedCRS(conversion=conversion, geodetic_crs=_geodetic(polygons_crs))
 
 
-def to_equal_area(geometry: np.ndarray, crs: CRS) -> tuple[np.ndarray, CRS, float]:
-    """Geometries in a CRS where planar area is true area (the input itself if it is one).
+@dataclass(frozen=True)
+class EqualAreaGeometry:
+    """Geometries in CRSs where planar area is true area.
 
-    Returns
-    -------
+    Attributes
+    ----------
     geometry : numpy.ndarray of shapely geometries
-        The geometries in the equal-area CRS.
+        Each geometry in ``crs``, or in ``far_crs`` where ``far`` is True.
     crs : pyproj.CRS
-        That CRS: the layer's own when it preserves area, else a Lambert azimuthal
-        equal-area projection centred on the layer (exact on the ellipsoid).
+        The layer's own CRS when it preserves area, else a Lambert azimuthal equal-area
+        projection centred on the layer (exact on the ellipsoid).
+    far : numpy.ndarray of bool
+        Geometries more than a quarter turn from the centre of ``crs``.
+    far_crs : pyproj.CRS or None
+        The azimuthal projection centred on the antipode, for the far geometries.
     metres_per_unit : float
         Length of one CRS unit. [m]
     """
+
+    geometry: np.ndarray
+    crs: CRS
+    far: np.ndarray
+    far_crs: CRS | None
+    metres_per_unit: float
+
+    def area(self) -> np.ndarray:
+        """True area of each geometry. [m2]"""
+        return shapely.area(self.geometry) * self.metres_per_unit**2
+
+    def centroid_lonlat(self) -> tuple[np.ndarray, np.ndarray]:
+        """Centroid of each geometry in WGS84 longitude and latitude (NaN when empty). [deg]"""
+        lon, lat = centroid_lonlat(self.geometry, self.crs)
+        if self.far_crs is not None and self.far.any():
+            lon[self.far], lat[self.far] = centroid_lonlat(self.geometry[self.far], self.far_crs)
+        return lon, lat
+
+
+def _quarter_turn_away(geometry: np.ndarray, crs: CRS, lon0: float, lat0: float) -> np.ndarray:
+    """Which geometries lie over 90° of arc from (lon0, lat0) [degrees].
+
+    Judged on the sphere from each bounding box's middle; exact enough to choose a side.
+    """
+    bounds = shapely.bounds(geometry)
+    to_lonlat = Transformer.from_crs(crs, _geodetic(crs), always_xy=True)
+    lon, lat = to_lonlat.transform(
+        0.5 * (bounds[:, 0] + bounds[:, 2]), 0.5 * (bounds[:, 1] + bounds[:, 3]), errcheck=False
+    )
+    lat, dlon, phi0 = np.radians(lat), np.radians(np.asarray(lon) - lon0), np.radians(lat0)
+    cos_arc = np.sin(phi0) * np.sin(lat) + np.cos(phi0) * np.cos(lat) * np.cos(dlon)
+    with np.errstate(invalid="ignore"):
+        return cos_arc < 0.0
+
+
+def _compact(crs: CRS, total_bounds: np.ndarray) -> bool:
+    """Whether the layer fits in 60° of longitude and of latitude, so no part of it is near
+    a quarter turn from its middle (then no geometry needs checking one by one)."""
+    to_lonlat = Transformer.from_crs(crs, _geodetic(crs), always_xy=True)
+    xmin, ymin, xmax, ymax = (float(v) for v in total_bounds)
+    west, south, east, north = to_lonlat.transform_bounds(xmin, ymin, xmax, ymax, densify_pts=21)
+    lon_span = east - west if east >= west else east - west + 360.0  # across 180°
+    return bool(
+        np.isfinite([lon_span, north - south]).all() and max(lon_span, north - south) <= 60.0
+    )
+
+
+def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
+    """Geometries in a CRS where planar area is true area (the input itself if it is one).
+
+    The azimuthal projection is centred on the layer. Near the antipode of that centre it
+    stretches shapes without bound (a layer with lakes on both sides of 180° is centred near
+    0°), and straight edges between vertices no longer follow the polygon: geometries more
+    than a quarter turn away go to a second projection centred on the antipode, so every
+    geometry is within 90° of its projection's centre (scale distortion at most a factor 2).
+    """
+    none_far = np.zeros(geometry.size, dtype=bool)
     if is_equal_area(crs):
         unit = crs.axis_info[0].unit_conversion_factor if crs.axis_info else 1.0
-        return geometry, crs, float(unit)
+        return EqualAreaGeometry(geometry, crs, none_far, None, float(unit))
     present = ~shapely.is_empty(geometry)
     if not present.any():
-        return geometry, crs, 1.0
-    bounds = shapely.total_bounds(geometry[present])
-    target = local_equal_area_crs(crs, bounds)
-    return transform_geometry(geometry, crs, target), target, 1.0
+        return EqualAreaGeometry(geometry, crs, none_far, None, 1.0)
+    total_bounds = shapely.total_bounds(geometry[present])
+    lon0, lat0 = _layer_centre(crs, total_bounds)
+    target = _azimuthal_equal_area(crs, lon0, lat0)
+    far = np.zeros(geometry.size, dtype=bool)
+    if not _compact(crs, total_bounds):
+        far = present & _quarter_turn_away(geometry, crs, lon0, lat0)
+    projected = transform_geometry(geometry, crs, target)
+    if not far.any():
+        return EqualAreaGeometry(projected, target, far, None, 1.0)
+    antipode = _azimuthal_equal_area(crs, (lon0 + 360.0) % 360.0 - 180.0, -lat0)
+    projected[far] = transform_geometry(geometry[far], crs, antipode)
+    return EqualAreaGeometry(projected, target, far, antipode, 1.0)
 
 
 def transform_geometry(geometry: np.ndarray, source: CRS, target: CRS) -> np.ndarray:
@@ -196,21 +286,45 @@ def centroid_lonlat(equal_area: np.ndarray, crs: CRS) -> tuple[np.ndarray, np.nd
     return lon, lat
 
 
-def _shift_longitudes(geometry: np.ndarray, grid: GridSpec) -> np.ndarray:
+def _unwrap_jumps(geometry: np.ndarray, turn: float) -> np.ndarray:
+    """Make polygons whose longitudes jump across the antimeridian contiguous again.
+
+    A polygon that crosses 180° in a projected layer comes out of the reprojection with its
+    ring jumping from about +180 to -180, spanning nearly the whole globe. No water body is
+    half a turn wide, so such a span can only mean this: western longitudes get a turn added.
+    """
+    bounds = shapely.bounds(geometry)
+    with np.errstate(invalid="ignore"):
+        jumping = np.flatnonzero(bounds[:, 2] - bounds[:, 0] > 0.5 * turn)
+    if jumping.size == 0:
+        return geometry
+
+    def east_of_seam(coords: np.ndarray) -> np.ndarray:
+        x = np.where(coords[:, 0] < 0.0, coords[:, 0] + turn, coords[:, 0])
+        return np.column_stack([x, coords[:, 1]])
+
+    unwrapped = geometry.copy()
+    unwrapped[jumping] = [shapely.transform(g, east_of_seam) for g in geometry[jumping]]
+    return unwrapped
+
+
+def _shift_longitudes(geometry: np.ndarray, grid: GridSpec, turn: float) -> np.ndarray:
     """Move polygons by whole turns of longitude to the copy nearest the grid's centre.
 
     A grid stored in 0..360 receives polygons in -180..180 (and the reverse). A polygon that
-    straddles the grid's seam keeps its far part outside and is flagged partly outside.
+    straddles the grid's seam keeps its far part beyond the grid's edge: on a grid that
+    wraps (:attr:`GridSpec.wraps_longitude`) the weights find the cells there one turn
+    away; on a regional grid that part is outside and flagged.
     """
     centre = 0.5 * (float(grid.x_edges.min()) + float(grid.x_edges.max()))
     bounds = shapely.bounds(geometry)
-    turns = np.round((0.5 * (bounds[:, 0] + bounds[:, 2]) - centre) / 360.0)
+    turns = np.round((0.5 * (bounds[:, 0] + bounds[:, 2]) - centre) / turn)
     turns[~np.isfinite(turns)] = 0.0
     moving = turns != 0
     if not moving.any():
         return geometry
     shifted = geometry.copy()
-    offsets = -360.0 * turns[moving]
+    offsets = -turn * turns[moving]
     counts = shapely.get_num_coordinates(geometry[moving])
     per_coordinate = np.repeat(offsets, counts)
 
@@ -235,16 +349,17 @@ def reproject_to_grid(polygons: gpd.GeoDataFrame, grid: GridSpec) -> gpd.GeoSeri
     -------
     geopandas.GeoSeries
         Repaired polygons in the grid CRS, same index and order as ``polygons``; on a
-        geographic grid shifted by whole turns of longitude into the grid's range (0..360 or
-        -180..180).
+        geographic grid made contiguous across the antimeridian and shifted by whole turns
+        of longitude into the grid's range (0..360 or -180..180).
     """
     crs = check_layer(polygons)
     repaired = repair_geometry(np.asarray(polygons.geometry.array, dtype=object))
     geometry = repaired.geometry
     if not CRS.from_user_input(crs).equals(grid.crs):
         geometry = transform_geometry(geometry, CRS.from_user_input(crs), grid.crs)
-    if grid.is_geographic:
-        geometry = _shift_longitudes(geometry, grid)
+    turn = grid.full_turn
+    if turn is not None:
+        geometry = _shift_longitudes(_unwrap_jumps(geometry, turn), grid, turn)
     series = gpd.GeoSeries(geometry, index=polygons.index, crs=grid.crs)
     series.attrs[REPAIR_ATTRS] = {"repaired": repaired.repaired, "empty": repaired.empty}
     return series

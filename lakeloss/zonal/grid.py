@@ -125,7 +125,8 @@ class GridSpec:
         """Grid from coordinate vectors of cell centres, as stored in NetCDF files.
 
         Edges are put halfway between neighbouring centres and the outer edges half a cell
-        beyond the outer centres; on a geographic grid latitude edges are clipped to ±90°.
+        beyond the outer centres; on a geographic grid latitude edges are clipped to the
+        poles (±90°, or ±100 in grads).
 
         Parameters
         ----------
@@ -137,9 +138,11 @@ class GridSpec:
         crs = _as_crs(crs)
         x_edges = _edges_from_centres(x, "x")
         y_edges = _edges_from_centres(y, "y")
-        if crs.is_geographic:
-            y_edges = np.clip(y_edges, -90.0, 90.0)
-        return cls(crs, x_edges, y_edges)
+        grid = cls(crs, x_edges, y_edges)
+        if grid.full_turn is not None:
+            pole = 0.25 * grid.full_turn
+            grid = cls(crs, x_edges, np.clip(y_edges, -pole, pole))
+        return grid
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -150,6 +153,45 @@ class GridSpec:
     def is_geographic(self) -> bool:
         """True when the grid is in longitude/latitude degrees."""
         return bool(self.crs.is_geographic)
+
+    @property
+    def full_turn(self) -> float | None:
+        """One turn of longitude in the CRS's angular unit (360 for degrees); None if projected."""
+        if not self.is_geographic:
+            return None
+        axis = self.crs.axis_info
+        radians_per_unit = axis[0].unit_conversion_factor if axis else np.pi / 180.0
+        return float(2.0 * np.pi / radians_per_unit)
+
+    @property
+    def wraps_longitude(self) -> bool:
+        """True for a geographic grid whose columns go once all the way round the globe.
+
+        Such a grid has no east or west edge: its first and last columns are neighbours
+        across the storage seam (at 0°/360°, ±180° or wherever the file starts). See
+        :attr:`turn_columns`.
+        """
+        return self.turn_columns is not None
+
+    @property
+    def turn_columns(self) -> int | None:
+        """How many stored columns make one turn of longitude; None when the grid does not wrap.
+
+        All the columns when the x edges span one turn within half a mean cell width (which
+        absorbs float32 rounding of the coordinates); all but the last when the last column
+        repeats the first one turn later (files cut at -180..180 or 0..360 inclusive). A
+        projected grid never wraps.
+        """
+        turn = self.full_turn
+        if turn is None:
+            return None
+        edges = self.x_edges
+        n_columns = edges.size - 1
+        half_cell = 0.5 * abs(float(edges[-1] - edges[0])) / n_columns
+        for count in (n_columns, n_columns - 1):
+            if count >= 1 and abs(abs(float(edges[count] - edges[0])) - turn) <= half_cell:
+                return count
+        return None
 
     @property
     def bounds(self) -> tuple[float, float, float, float]:
@@ -178,12 +220,18 @@ class GridSpec:
         return np.where(np.isfinite(lat) & (np.abs(lat) <= 90.0), lat, np.nan)
 
     def key(self) -> str:
-        """Stable sha256 hex digest of the CRS and the cell edges."""
+        """Stable sha256 hex digest of the CRS, the cell edges and whether x wraps.
+
+        The wrap is part of the key so that weights cached before global grids wrapped
+        (cut at the seam) are never taken for weights of a wrapping grid.
+        """
         digest = hashlib.sha256()
         digest.update(self.crs.to_wkt().encode())
         digest.update(np.ascontiguousarray(self.x_edges, dtype="<f8").tobytes())
         digest.update(b"|")
         digest.update(np.ascontiguousarray(self.y_edges, dtype="<f8").tobytes())
+        if self.wraps_longitude:
+            digest.update(b"|wraps-longitude")
         return digest.hexdigest()
 
 

@@ -315,3 +315,46 @@ def test_overwrite_of_symlinked_output_keeps_link_target(tmp_path, previous_run)
     assert not link.is_symlink() and (link / "run.json").read_text() == '{"run": 2}\n'
     assert _snapshot(previous_run) == before
     assert _leftovers(tmp_path) == []
+
+
+@pytest.fixture
+def umask():
+    """Set the process umask for one test and restore the previous one afterwards."""
+    previous = os.umask(0o022)
+    try:
+        yield os.umask
+    finally:
+        os.umask(previous)
+
+
+@pytest.mark.parametrize(
+    ("mask", "dir_mode", "file_mode"),
+    [(0o022, 0o755, 0o644), (0o027, 0o750, 0o640), (0o002, 0o775, 0o664)],
+)
+def test_output_directory_gets_the_umask_mode(tmp_path, umask, mask, dir_mode, file_mode):
+    # The staging directory used to come from tempfile.mkdtemp (0700) and kept that mode
+    # after the swap, so nobody else could read shared results.
+    umask(mask)
+    target = tmp_path / "out"
+    with OutputDirectory(target, overwrite=False) as staging:
+        (staging / "run.json").write_text("{}\n")
+        (staging / "tables").mkdir()
+        (staging / "tables" / "evaporation.csv").write_text("id\n")
+    assert target.stat().st_mode & 0o777 == dir_mode
+    assert (target / "tables").stat().st_mode & 0o777 == dir_mode
+    assert (target / "run.json").stat().st_mode & 0o777 == file_mode
+    assert (target / "tables" / "evaporation.csv").stat().st_mode & 0o777 == file_mode
+
+
+def test_overwritten_output_gets_the_umask_mode_too(previous_run, umask):
+    umask(0o022)
+    previous_run.chmod(0o700)
+    with OutputDirectory(previous_run, overwrite=True) as staging:
+        (staging / "run.json").write_text('{"run": 2}\n')
+    assert previous_run.stat().st_mode & 0o777 == 0o755
+
+
+def test_staging_names_stay_unique(tmp_path):
+    made = {atomic._make_staging(tmp_path, ".out.lakeloss-partial-1-") for _ in range(50)}
+    assert len(made) == 50
+    assert all(p.is_dir() and p.name.startswith(".out.lakeloss-partial-1-") for p in made)

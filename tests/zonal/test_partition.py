@@ -16,10 +16,12 @@ GRID = GridSpec.from_centres(LON, LAT, "EPSG:4326")
 
 def _layer():
     layer = pond_layer(n_ponds=40, seed=5)
+    crs = layer.crs
     # One body off the grid and one empty geometry: blocks must keep their rows and flags.
     layer.loc[len(layer)] = [900, "far", "west", shapely.Point(0.0, 0.0).buffer(50.0)]
     layer.loc[len(layer)] = [901, "empty", "west", shapely.Polygon()]
-    return layer
+    # appending rows with .loc drops the geometry column's CRS in current geopandas
+    return layer.set_crs(crs, allow_override=True)
 
 
 def _assert_same(a, b):
