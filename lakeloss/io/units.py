@@ -26,6 +26,7 @@ declared unit is wrong (kelvin declared as Celsius, a fraction declared as perce
 from __future__ import annotations
 
 import functools
+import logging
 
 import numpy as np
 import pint
@@ -96,8 +97,15 @@ _CALENDAR_MONTH_DAYS = (28.0, 31.0)
 @functools.cache
 def registry() -> pint.UnitRegistry:
     """Return the UDUNITS-aware pint registry of cf_xarray (shared, built on first use)."""
-    from cf_xarray.units import units
-
+    # Building it redefines a few pint units (percent, year, d, h) on purpose; pint logs
+    # each redefinition as a warning, which users should not see.
+    pint_log = logging.getLogger("pint")
+    level = pint_log.level
+    pint_log.setLevel(logging.ERROR)
+    try:
+        from cf_xarray.units import units
+    finally:
+        pint_log.setLevel(level)
     return units
 
 
