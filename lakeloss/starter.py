@@ -501,7 +501,7 @@ def _waterbodies_lines(
     if heights:
         lines.append(f"# elevation_field candidates: {', '.join(heights)}")
     defaults = _section_defaults(loaded.waterbodies, config_schema._WATERBODY_KEYS)
-    examples = {"group_by": groups[:1] or None, "elevation_field": (heights or [None])[0]}
+    examples = {"group_by": groups[:1] or None, "elevation_field": heights[0] if heights else None}
     return lines + _table_lines("waterbodies", active, defaults, examples)
 
 

@@ -247,9 +247,7 @@ def _candidate_routes(name: str) -> list[tuple[bool, bool]]:
     return routes
 
 
-def _affine(
-    ureg: pint.UnitRegistry, factor: float, source: pint.Unit, target: pint.Unit
-) -> tuple[float, float]:
+def _affine(ureg: pint.UnitRegistry, factor: float, source, target) -> tuple[float, float]:
     # Two points fix an affine map; this is what makes K -> degC offset-aware.
     zero = float(ureg.Quantity(0.0, source).to(target).magnitude)
     one = float(ureg.Quantity(factor, source).to(target).magnitude)
