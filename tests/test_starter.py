@@ -345,3 +345,26 @@ def test_existing_config_is_kept_without_overwrite(tmp_path, layer_path):
     code, output = _invoke("draft-config", layer_path, climate, "-o", config_path, "--overwrite")
     assert code == 0, output
     assert "[waterbodies]" in config_path.read_text()
+
+
+@pytest.mark.parametrize("suffix", [".shp", ".geojson", ".parquet"])
+def test_other_layer_formats_and_cmip_bounds_variables(tmp_path, suffix, monkeypatch):
+    layer = tmp_path / f"ponds{suffix}"
+    ponds = pond_layer()
+    if suffix == ".parquet":
+        ponds.to_parquet(layer)
+    else:
+        ponds.to_file(layer)
+    folder = write_cmip_folder(tmp_path / "cmip")
+    # CMIP files carry cell and time bounds: declared, or not (a bnds dimension only).
+    path = folder / CMIP_NAME.format("hurs")
+    with xr.open_dataset(path) as ds:
+        ds = ds.load()
+    ds["time"].attrs["bounds"] = "time_bnds"
+    ds["time_bnds"] = (("time", "bnds"), np.zeros((len(TIMES), 2)))
+    ds["lat_bnds"] = (("lat", "bnds"), np.zeros((len(LAT), 2)))
+    path.unlink()
+    ds.to_netcdf(path)
+    text, config = _draft_and_check(monkeypatch, tmp_path / "run.toml", layer, folder)
+    assert "_bnds" not in text
+    assert config.waterbodies.id_field == "pond_id"

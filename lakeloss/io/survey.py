@@ -32,7 +32,12 @@ from lakeloss.io import climate as climate_io
 
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 GEOTIFF_SUFFIXES = (".tif", ".tiff")
-_POLYGONAL = ("Polygon", "MultiPolygon", "Polygon Z", "MultiPolygon Z", "CurvePolygon")
+# Layer geometry types that hold (or may hold) polygons; "Unknown" is what mixed GeoJSON and
+# some drivers report, and the run's reader sorts those out feature by feature.
+_MAYBE_POLYGONAL = ("Unknown", "Geometry", "GeometryCollection")
+_PARQUET_SUFFIXES = (".parquet", ".geoparquet")
+# Dimensions of cell and time bounds, never data.
+_BOUNDS_DIMS = frozenset({"bnds", "nv", "nb2", "bounds", "vertices", "nbnd"})
 _READ_ERRORS = (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError)
 
 
@@ -155,6 +160,8 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
             f"water-body layer '{path}' does not exist; expected a vector file (GeoPackage, "
             "Shapefile, GeoJSON); check the path"
         )
+    if path.suffix.lower() in _PARQUET_SUFFIXES:
+        return _survey_parquet(path)
     chosen = _polygon_layer(path, layer)
     try:
         info = pyogrio.read_info(os.fspath(path), layer=chosen)
@@ -178,6 +185,36 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
     )
 
 
+def _survey_parquet(path: Path) -> LayerSummary:
+    import geopandas
+
+    try:
+        frame = geopandas.read_parquet(path)
+    except (OSError, ValueError, ImportError) as err:
+        raise InputDataError(
+            f"water-body layer '{path}' cannot be read as GeoParquet "
+            f"({' '.join(str(err).split())}); expected a readable file; re-export it"
+        ) from err
+    polygons = frame.geometry.geom_type.isin(["Polygon", "MultiPolygon"])
+    if not bool(polygons.any()):
+        raise GeometryError(
+            f"water-body layer '{path}' has no polygons ({len(frame)} features); expected "
+            "polygons of water bodies; check the file"
+        )
+    attributes = frame.drop(columns=frame.geometry.name)
+    return LayerSummary(
+        path=path,
+        layer=None,
+        features=len(frame),
+        crs=None if frame.crs is None else frame.crs.to_string(),
+        fields=tuple(_field_summary(attributes[name]) for name in attributes.columns),
+    )
+
+
+def _is_polygonal(kind: str) -> bool:
+    return "Polygon" in kind or kind in _MAYBE_POLYGONAL
+
+
 def _polygon_layer(path: Path, layer: str | None) -> str:
     try:
         table = pyogrio.list_layers(os.fspath(path))
@@ -193,13 +230,13 @@ def _polygon_layer(path: Path, layer: str | None) -> str:
                 f"layer '{layer}' is not in '{path}'; the layers are "
                 f"{', '.join(kinds) or 'none'}; choose one with --layer"
             )
-        if kinds[layer] not in _POLYGONAL:
+        if not _is_polygonal(kinds[layer]):
             raise GeometryError(
                 f"layer '{layer}' of '{path}' holds {kinds[layer]} geometries; expected "
                 "polygons of water bodies; choose a polygon layer"
             )
         return layer
-    polygons = [name for name, kind in kinds.items() if kind in _POLYGONAL]
+    polygons = [name for name, kind in kinds.items() if _is_polygonal(kind)]
     if not polygons:
         found = ", ".join(f"{n} ({k})" for n, k in kinds.items()) or "no layers"
         raise GeometryError(
@@ -258,7 +295,9 @@ def survey_netcdf(path: Path) -> list[VariableSummary]:
         return [
             _variable_summary(path, dataset, str(name), ecmwf_file)
             for name, data in dataset.data_vars.items()
-            if data.ndim >= 2 and str(name) not in bounds
+            if data.ndim >= 2
+            and str(name) not in bounds
+            and not _BOUNDS_DIMS.intersection(str(d) for d in data.dims)
         ]
 
 
