@@ -98,14 +98,18 @@ _CALENDAR_MONTH_DAYS = (28.0, 31.0)
 def registry() -> pint.UnitRegistry:
     """Return the UDUNITS-aware pint registry of cf_xarray (shared, built on first use)."""
     # Building it redefines a few pint units (percent, year, d, h) on purpose; pint logs
-    # each redefinition as a warning, which users should not see.
+    # each redefinition as a warning, which users should not see. Importing it also makes it
+    # pint's application registry, which breaks other libraries' quantities in the same
+    # process (metpy's): the previous application registry is put back.
     pint_log = logging.getLogger("pint")
     level = pint_log.level
+    previous = pint.get_application_registry().get()
     pint_log.setLevel(logging.ERROR)
     try:
         from cf_xarray.units import units
     finally:
         pint_log.setLevel(level)
+        pint.set_application_registry(previous)
     return units
 
 

@@ -300,3 +300,13 @@ def test_implausible_values_are_explained(quantity, values, unit, words):
 )
 def test_plausible_values_pass(quantity, values, unit):
     assert implausibility(quantity, np.array(values), unit) is None
+
+
+def test_registry_leaves_pint_application_registry_alone():
+    # Other libraries in the same process (metpy) build quantities on pint's application
+    # registry; lakeloss's UDUNITS registry must not replace it.
+    before = pint.get_application_registry().get()
+    registry.cache_clear()
+    ureg = registry()
+    assert pint.get_application_registry().get() is before
+    assert ureg is not before
