@@ -43,6 +43,8 @@ _ALWAYS = ("latitude", "day_of_year", "area_m2", "elevation")
 _NOT_GUESSED = frozenset({"water_surface_temperature"})
 # Names that state their height: ERA5 u10/v10/si10 and CMIP's near-surface 10 m wind.
 _NAMED_HEIGHT_M = {"u10": 10.0, "v10": 10.0, "si10": 10.0, "uas": 10.0, "vas": 10.0}
+_WIND = ("wind_speed", "eastward_wind", "northward_wind")
+_DEFAULT_WIND_HEIGHT_M = registry.parameter_specs()["wind_height_m"].default
 _SHORT_TO_QUANTITY = {name: q for q, names in SHORT_NAMES.items() for name in names}
 # Examples shown for optional keys that have no default value.
 _EXAMPLES: dict[str, object] = {
@@ -182,6 +184,11 @@ def _match(variable: survey.VariableSummary) -> tuple[Match | None, str | None]:
         time = survey.survey_time(variable, quantity, units)
     if variable.units is None:
         notes += ("the file gives no units: set units = ... for this entry",)
+    if quantity in _WIND and _height_of(variable) is None:
+        notes += (
+            f"{variable.name}: the file does not give the wind's height above ground; "
+            f"{_DEFAULT_WIND_HEIGHT_M:g} m is assumed unless you set it",
+        )
     key = config_key(quantity, units or variable.units or "", time.step == "month")
     return Match(key, quantity, variable, time, units, notes), None
 
@@ -344,13 +351,16 @@ def _relative(path: Path, base: Path) -> str:
         return path.absolute().as_posix()
 
 
+def _height_of(variable: survey.VariableSummary) -> float | None:
+    if variable.height_m is not None:
+        return variable.height_m
+    return _NAMED_HEIGHT_M.get(variable.name.lower())
+
+
 def _wind_height(matches: Iterable[Match]) -> float | None:
     for match in matches:
-        if match.quantity in ("wind_speed", "eastward_wind", "northward_wind"):
-            variable = match.variable
-            if variable.height_m is not None:
-                return variable.height_m
-            return _NAMED_HEIGHT_M.get(variable.name.lower())
+        if match.quantity in _WIND:
+            return _height_of(match.variable)
     return None
 
 

@@ -176,6 +176,14 @@ def test_era5_file_drafts_components_and_accumulations(tmp_path, layer_path, mon
     assert tomllib.loads(text)["climate"]["precipitation_amount"]["path"] == (
         "era5/era5_2031_daily.nc"
     )
+    # The drafted configuration runs, and the accumulation comes out as a depth: 0.002 m of
+    # water per daily step is 2 mm a day, 118 mm over the 59 days.
+    code, output = _invoke("run", config_path.name, "-q")
+    assert code == 0, output
+    table = pyogrio.read_dataframe(
+        config_path.parent / "lakeloss-output" / "waterbodies.gpkg", layer="waterbodies"
+    )
+    np.testing.assert_allclose(table["precip_mm"], 2.0 * 59, rtol=1e-6)
 
 
 def test_era5_monthly_means_get_per_day_units(tmp_path, layer_path, monkeypatch):
@@ -368,3 +376,72 @@ def test_other_layer_formats_and_cmip_bounds_variables(tmp_path, suffix, monkeyp
     text, config = _draft_and_check(monkeypatch, tmp_path / "run.toml", layer, folder)
     assert "_bnds" not in text
     assert config.waterbodies.id_field == "pond_id"
+
+
+def _obs_file(folder, name, value, units, standard_name, times, stem):
+    shape = (len(times), len(LAT), len(LON))
+    attrs = {"units": units} | ({"standard_name": standard_name} if standard_name else {})
+    ds = xr.Dataset(
+        {name: (("time", "latitude", "longitude"), np.full(shape, value, np.float32), attrs)},
+        coords={
+            "time": ("time", times),
+            "latitude": ("latitude", LAT[::-1], {"units": "degrees_north"}),  # south-up
+            "longitude": ("longitude", LON, {"units": "degrees_east"}),
+        },
+    )
+    ds.to_netcdf(folder / stem.format(name))
+
+
+def test_eobs_style_daily_files(tmp_path, layer_path, monkeypatch):
+    # E-OBS-style names and spellings: Celsius, rainfall depth "mm" per day, "W/m2", "m/s".
+    folder = tmp_path / "obs"
+    folder.mkdir()
+    stem = "{}_ens_mean_0.1deg_reg_v1.0e.nc"
+    for name, value, units, standard_name in [
+        ("tx", 26.0, "Celsius", "air_temperature"),
+        ("tn", 14.0, "Celsius", "air_temperature"),
+        ("rr", 2.0, "mm", "thickness_of_rainfall_amount"),
+        ("hu", 60.0, "%", "relative_humidity"),
+        ("qq", 200.0, "W/m2", "surface_downwelling_shortwave_flux_in_air"),
+        ("fg", 3.0, "m/s", "wind_speed"),
+        ("pp", 1013.0, "hPa", "air_pressure_at_sea_level"),
+    ]:
+        _obs_file(folder, name, value, units, standard_name, TIMES, stem)
+    text, config = _draft_and_check(monkeypatch, tmp_path / "obs.toml", layer_path, folder)
+    assert {c.key: c.variable for c in config.climate} == {
+        "air_temperature_max": "tx",
+        "air_temperature_min": "tn",
+        "precipitation_amount": "rr",
+        "relative_humidity": "hu",
+        "surface_downwelling_shortwave_flux_in_air": "qq",
+        "wind_speed": "fg",
+    }
+    assert "pp (air_pressure_at_sea_level) is not a quantity lakeloss uses" in text
+    assert "fg: the file does not give the wind's height" in text
+
+
+def test_cru_style_monthly_files(tmp_path, layer_path, monkeypatch):
+    # CRU-style monthly names without standard names: tmx/tmn in "degrees Celsius", pre in
+    # "mm/month" (the month's total), vap in hPa; radiation from another product.
+    folder = tmp_path / "monthly"
+    folder.mkdir()
+    months = pd.date_range("2031-01-16", periods=3, freq="MS") + pd.Timedelta(days=15)
+    stem = "cru_like.2031.{}.dat.nc"
+    for name, value, units in [
+        ("tmx", 26.0, "degrees Celsius"),
+        ("tmn", 14.0, "degrees Celsius"),
+        ("pre", 60.0, "mm/month"),
+        ("vap", 15.0, "hPa"),
+        ("srad", 220.0, "W m-2"),
+    ]:
+        _obs_file(folder, name, value, units, None, months, stem)
+    text, config = _draft_and_check(monkeypatch, tmp_path / "cru.toml", layer_path, folder)
+    assert {c.key: c.variable for c in config.climate} == {
+        "air_temperature_max": "tmx",
+        "air_temperature_min": "tmn",
+        "precipitation_amount": "pre",
+        "water_vapor_partial_pressure_in_air": "vap",
+        "surface_downwelling_shortwave_flux_in_air": "srad",
+    }
+    assert "monthly" in text
+    assert config.method.name == "priestley_taylor"  # no wind: the Penman forms are out
