@@ -208,6 +208,49 @@ def methods(name: str | None, verbose: int, quiet: bool) -> None:
     click.echo(catalogue.overview() if name is None else catalogue.describe(name))
 
 
+@cli.command("draft-config")
+@click.argument("layer_path", metavar="LAYER", type=click.Path())
+@click.argument("climate_paths", metavar="CLIMATE...", nargs=-1, required=True, type=click.Path())
+@click.option(
+    "-o",
+    "--output",
+    "config_path",
+    default="lakeloss.toml",
+    show_default=True,
+    type=click.Path(),
+    help="Configuration file to write.",
+)
+@click.option("--layer", "layer_name", default=None, help="Layer to use if the file has several.")
+@click.option("--overwrite", is_flag=True, help="Replace an existing configuration file.")
+@_verbosity
+@_guarded
+def draft_config(
+    layer_path: str,
+    climate_paths: tuple[str, ...],
+    config_path: str,
+    layer_name: str | None,
+    overwrite: bool,
+    verbose: int,
+    quiet: bool,
+) -> None:
+    """Draft a commented configuration from a water-body LAYER and CLIMATE files or folders."""
+    from pathlib import Path
+
+    from lakeloss.starter import draft
+
+    result = draft(
+        Path(layer_path),
+        [Path(p) for p in climate_paths],
+        Path(config_path),
+        layer=layer_name,
+        overwrite=overwrite,
+    )
+    if not quiet:
+        click.echo(
+            f"{result.summary()}\nwrote {config_path}; next: lakeloss check {config_path}", err=True
+        )
+
+
 def main() -> None:
     """Console-script entry point."""
     cli(prog_name="lakeloss")

@@ -33,8 +33,6 @@ class Quantity:
         Physical lower and upper bounds in ``unit`` (NaN-free data outside them is refused).
     cf_standard_name : str or None
         CF standard name of the quantity, where CF has one.
-    per_step : bool
-        True for amounts accumulated over a time step (converted to a daily rate at ingest).
     """
 
     name: str
@@ -186,3 +184,51 @@ DERIVED_INPUTS: dict[str, tuple[str, str]] = {
     "area_m2": ("m**2", "true (ellipsoidal) area of the water body"),
     "elevation": ("m", "water-surface elevation (constant, attribute or raster)"),
 }
+
+# Other CF standard names that mean a glossary quantity (amounts and rates in other forms).
+STANDARD_NAME_SYNONYMS: dict[str, str] = {
+    "precipitation_amount": "precipitation",
+    "lwe_thickness_of_precipitation_amount": "precipitation",
+    "lwe_precipitation_rate": "precipitation",
+    "thickness_of_rainfall_amount": "precipitation",
+    "rainfall_amount": "precipitation",
+    "rainfall_flux": "precipitation",
+    "integral_of_surface_downwelling_shortwave_flux_in_air_wrt_time": (
+        "surface_downwelling_shortwave_flux_in_air"
+    ),
+}
+"""CF standard names beyond each quantity's own ``cf_standard_name`` (used to recognise
+variables in files, never as config keys)."""
+
+SHORT_NAMES: dict[str, tuple[str, ...]] = {
+    "air_temperature": ("tas", "t2m", "tg", "tmp", "tmean", "tavg", "tair", "t2"),
+    "air_temperature_max": ("tasmax", "mx2t", "tx", "tmx", "tmax", "tmmx", "max_temp"),
+    "air_temperature_min": ("tasmin", "mn2t", "tn", "tmn", "tmin", "tmmn", "min_temp"),
+    "dew_point_temperature": ("d2m", "tdps", "tdew", "tdmean", "dewpoint"),
+    "relative_humidity": ("hurs", "hu", "rh", "rhum"),
+    "relative_humidity_max": ("hursmax", "rmax", "rh_tmin"),
+    "relative_humidity_min": ("hursmin", "rmin", "rh_tmax"),
+    "specific_humidity": ("huss", "q2m", "qair", "sph"),
+    "water_vapor_partial_pressure_in_air": ("vp", "vap", "vpr"),
+    "wind_speed": ("sfcwind", "si10", "fg", "ws", "vs", "wind", "wspd"),
+    "eastward_wind": ("uas", "u10"),
+    "northward_wind": ("vas", "v10"),
+    "surface_downwelling_shortwave_flux_in_air": ("rsds", "ssrd", "qq", "srad", "swdown"),
+    "surface_net_downward_radiative_flux": ("rnet", "netrad"),
+    "surface_air_pressure": ("ps", "sp", "psurf", "pres"),
+    "precipitation": ("pr", "tp", "rr", "pre", "prcp", "ppt", "precip", "rainf", "daily_rain"),
+    "pan_evaporation": ("epan", "evap_pan", "pan_evap"),
+    "elevation": ("orog", "elevation", "altitude", "surface_altitude", "dem"),
+}
+"""Variable names that data products commonly give each quantity (matched ignoring case):
+ERA5 (``t2m``, ``d2m``, ``u10``, ``v10``, ``si10``, ``ssrd``, ``tp``, ``sp``, ``mx2t``,
+``mn2t``), CMIP (``tas``, ``tasmax``, ``tasmin``, ``hurs``, ``huss``, ``sfcWind``,
+``uas``, ``vas``, ``rsds``, ``pr``, ``ps``, ``orog``), and gridded-observation products:
+E-OBS-style (``tg``, ``tx``, ``tn``, ``rr``, ``hu``, ``qq``, ``fg``), CRU-style (``tmp``,
+``tmx``, ``tmn``, ``pre``, ``vap``), Daymet/gridMET/PRISM/TerraClimate-style (``tmax``,
+``tmin``, ``tmmx``, ``tmmn``, ``prcp``, ``ppt``, ``srad``, ``vp``, ``vs``, ``ws``,
+``rmax``, ``rmin``, ``sph``), SILO-style (``max_temp``, ``min_temp``, ``daily_rain``,
+``evap_pan``, ``rh_tmax``, ``rh_tmin``) and WFDE5-style (``Tair``, ``Qair``, ``Wind``,
+``SWdown``, ``Rainf``, ``PSurf``). A name only proposes a match: the file's units must
+still express the quantity. Humidity at the time of the daily maximum temperature is the
+day's minimum relative humidity, hence ``rh_tmax`` under ``relative_humidity_min``."""

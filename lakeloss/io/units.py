@@ -1,21 +1,32 @@
 """Unit conversion of climate inputs to the glossary units, once, at ingest.
 
 Climate files declare units in CF/UDUNITS spelling (``"m s-1"``, ``"W m-2"``, ``"degC"``,
-``"kg m-2 s-1"``). :func:`normalise_unit` rewrites those into a form pint parses,
+``"kg m-2 s-1"``, ``"mm d-1"``). They are parsed by the UDUNITS-aware pint registry of
+cf_xarray (``cf_xarray.units``), which reads UDUNITS powers (``m-2``, ``m2``), ``%``,
+``Celsius``/``degree_Celsius``, ``d`` for day and dotted products (``kg.m-2.s-1``). The few
+spellings that registry misreads or does not know, but which real files carry
+(``"deg C"``, ``"degrees_K"``, ``"fraction"``, ``"mb"``, ``"m of water equivalent"``), are
+mapped here first; that table is kept to what the registry does not cover (measured, see the
+tests).
+
+What stays in this module is the glossary's own arithmetic, which no unit library knows:
+
+* amounts accumulated over a time step (``"mm"``, ``"m"``, ``"kg m-2"``, ``"J m-2"``) become
+  daily rates or mean fluxes by dividing by the step length, which the caller supplies;
+* mass of water per area becomes depth with a water density of exactly 1000 kg m-3, the
+  convention gridded products use (1 kg m-2 = 1 mm);
+* a rate "per month" on calendar-month steps is the month's total, divided by that month's
+  own length (a unit library's month is a mean month of 30.44 days, 8 % off for February).
+
 :func:`convert` checks the dimensionality against the glossary quantity and applies the
 (affine) conversion, and :func:`implausibility` looks at converted values for signs that the
 declared unit is wrong (kelvin declared as Celsius, a fraction declared as percent).
-
-Amounts accumulated over a time step (``"mm"``, ``"kg m-2"``, ``"J m-2"``) are turned into
-daily rates or mean fluxes by dividing by the step length, which the caller supplies.
-Mass per area of water becomes depth with a water density of exactly 1000 kg m-3, the
-convention gridded products use (METHODS §7.7).
 """
 
 from __future__ import annotations
 
 import functools
-import re
+import logging
 
 import numpy as np
 import pint
@@ -25,56 +36,45 @@ from lakeloss.errors import UnitsError
 from lakeloss.glossary import ALIASES, QUANTITIES
 
 WATER_DENSITY = 1000.0
-"""Density of liquid water used to turn kg m-2 into mm [kg m-3] (METHODS §7.7)."""
+"""Density of liquid water used to turn kg m-2 into mm [kg m-3] (1 kg m-2 = 1 mm)."""
 
-# Whole-string spellings that pint would misread or not know. "C" alone is coulomb to
-# pint and "deg C" parses as degree (angle) times coulomb, so temperatures are mapped here.
-_WHOLE_SPELLINGS: dict[str, str] = {
-    "k": "kelvin",
-    "degk": "kelvin",
-    "deg k": "kelvin",
-    "degreek": "kelvin",
-    "degree_k": "kelvin",
-    "degrees_k": "kelvin",
-    "degrees k": "kelvin",
-    "kelvin": "kelvin",
-    "kelvins": "kelvin",
-    "c": "degC",
-    "°c": "degC",
-    "degc": "degC",
-    "deg c": "degC",
-    "deg_c": "degC",
-    "degreec": "degC",
-    "degree_c": "degC",
-    "degrees_c": "degC",
-    "degrees c": "degC",
-    "degree c": "degC",
-    "celsius": "degC",
-    "degree_celsius": "degC",
-    "degrees_celsius": "degC",
-    "degrees celsius": "degC",
-    "degree celsius": "degC",
-    "%": "percent",
-    "percent": "percent",
-    "percentage": "percent",
-    "": "dimensionless",
-    "1": "dimensionless",
-    "-": "dimensionless",
+OWN_SPELLINGS: dict[str, str] = {
+    # Blank-separated degree names: the registry reads "deg C" as an angle times a
+    # temperature (274.15 degree kelvin) and "deg F" as an angle times a farad.
+    "deg C": "degC",
+    "degree C": "degC",
+    "degrees C": "degC",
+    "degree Celsius": "degC",
+    "degrees Celsius": "degC",
+    "deg K": "kelvin",
+    "degrees K": "kelvin",
+    "deg F": "degF",
+    # Underscored forms UDUNITS knows and the registry does not.
+    "degree_C": "degC",
+    "degrees_C": "degC",
+    "degree_K": "kelvin",
+    "degrees_K": "kelvin",
+    "degree_F": "degF",
+    "degrees_F": "degF",
+    "Kelvin": "kelvin",
+    # Dimensionless spellings outside UDUNITS that products use for fractions.
     "fraction": "dimensionless",
-    "dimensionless": "dimensionless",
-    "knots": "knot",
-    "kts": "knot",
-    "kt": "knot",
+    "-": "dimensionless",
+    "percentage": "percent",
+    # Millibar: UDUNITS and the registry read "mb" as millibarn (an area).
+    "mb": "mbar",
+    # Depth of water as ECMWF writes it for accumulated water.
     "m of water equivalent": "m",
     "m water equivalent": "m",
+    "m of water": "m",
     "mm of water equivalent": "mm",
+    "mm water equivalent": "mm",
+    "mm of water": "mm",
 }
+"""Spellings mapped before parsing, each one the registry misreads or does not know
+(``tests/io/test_units.py`` checks that every entry is still needed)."""
 
-# Single symbols CF files use that pint reads differently or not at all.
-_SYMBOLS: dict[str, str] = {"d": "day", "hr": "hour", "sec": "s", "mb": "mbar"}
-
-# CF writes "m-2" or "m^-2" for m**-2; a bare trailing integer is an exponent too ("m2").
-_POWER_TOKEN = re.compile(r"^([A-Za-z_°]+)(?:\^|\*\*)?([+-]?\d+)?$")
+_OWN_SPELLINGS_FOLDED = {key.casefold(): value for key, value in OWN_SPELLINGS.items()}
 
 # Quantities that may arrive as amounts per time step (converted to rates by step length).
 _ACCUMULABLE = frozenset(
@@ -90,50 +90,71 @@ _ACCUMULABLE = frozenset(
 # Quantities that are depths of water, so kg m-2 may stand for mm.
 _WATER_DEPTH = frozenset({"precipitation", "pan_evaporation"})
 
+# Steps of 28..31 days are calendar months: a rate "per month" is then that month's total.
+_CALENDAR_MONTH_DAYS = (28.0, 31.0)
+
 
 @functools.cache
 def registry() -> pint.UnitRegistry:
-    """Return the shared pint registry (building one takes about a second)."""
-    return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    """Return the UDUNITS-aware pint registry of cf_xarray (shared, built on first use)."""
+    # Building it redefines a few pint units (percent, year, d, h) on purpose; pint logs
+    # each redefinition as a warning, which users should not see. Importing it also makes it
+    # pint's application registry, which breaks other libraries' quantities in the same
+    # process (metpy's): the previous application registry is put back.
+    pint_log = logging.getLogger("pint")
+    level = pint_log.level
+    previous = pint.get_application_registry().get()
+    pint_log.setLevel(logging.ERROR)
+    try:
+        from cf_xarray.units import units
+    finally:
+        pint_log.setLevel(level)
+        pint.set_application_registry(previous)
+    return units
 
 
-def normalise_unit(text: str) -> str:
-    """Rewrite a CF/UDUNITS unit string into a pint-parseable one.
+def spelled(text: str) -> str:
+    """The unit text as the registry should read it: blanks collapsed, own spellings mapped.
 
     Parameters
     ----------
     text : str
-        Unit as written in the file or config, e.g. ``"m s-1"``, ``"W m**-2"``,
-        ``"degrees_Celsius"``, ``"1"``.
+        Unit as written in the file or config, e.g. ``"degrees_C"``, ``"W m-2"``.
 
     Returns
     -------
     str
-        Equivalent pint expression, e.g. ``"m*s**-1"``, ``"W*m**-2"``, ``"degC"``,
-        ``"dimensionless"``.
-
-    Notes
-    -----
-    Whole-string spellings are looked up first (case-insensitively) because pint reads
-    ``"C"`` as coulomb and ``"deg C"`` as an angle times a charge. Otherwise the string
-    is split on blanks and each ``name<exponent>`` token becomes ``name**exponent``;
-    tokens already written with ``/`` or ``**`` pass through.
+        ``text`` with runs of blanks collapsed, or its entry in :data:`OWN_SPELLINGS`
+        (looked up ignoring case).
     """
-    stripped = " ".join(text.strip().split())
-    whole = _WHOLE_SPELLINGS.get(stripped.lower())
-    if whole is not None:
-        return whole
-    tokens = stripped.replace("·", " ").split(" ")
-    return "*".join(_normalise_token(token) for token in tokens)
+    collapsed = " ".join(str(text).split())
+    return _OWN_SPELLINGS_FOLDED.get(collapsed.casefold(), collapsed)
 
 
-def _normalise_token(token: str) -> str:
-    match = _POWER_TOKEN.match(token)
-    if match is None:
-        return token  # already pint syntax ("m/s", "W/m**2") or a number
-    name, power = match.groups()
-    name = _SYMBOLS.get(name, name)
-    return name if power is None else f"{name}**{int(power)}"
+def parse_unit(text: str) -> pint.Quantity:
+    """Parse a CF/UDUNITS unit string into a pint quantity (scale factor times unit).
+
+    Parameters
+    ----------
+    text : str
+        Unit as written, e.g. ``"kg m-2 s-1"``, ``"mm d-1"``, ``"1e-3"``, ``"%"``.
+
+    Returns
+    -------
+    pint.Quantity
+        Magnitude is the scale factor the unit string carries (1 for most), e.g.
+        ``0.001 dimensionless`` for ``"1e-3"``.
+
+    Raises
+    ------
+    ValueError, pint.errors.PintError
+        The registry cannot read the text.
+    """
+    ureg = registry()
+    parsed = ureg.parse_expression(spelled(text))
+    if not isinstance(parsed, pint.Quantity):  # a bare number such as "0.01"
+        parsed = ureg.Quantity(float(parsed), "dimensionless")
+    return parsed
 
 
 def target_unit(quantity: str) -> str:
@@ -151,9 +172,9 @@ def _glossary_name(quantity: str) -> str:
     return name
 
 
-def _parse(unit: str, variable: str, expected: str) -> pint.Unit:
+def _parse(unit: str, variable: str, expected: str) -> pint.Quantity:
     try:
-        return registry().Unit(normalise_unit(unit))
+        return parse_unit(unit)
     except (pint.errors.PintError, TypeError, ValueError, AttributeError, AssertionError) as err:
         raise UnitsError(
             f"variable {variable!r}: unit {unit!r} cannot be parsed; expected a unit convertible "
@@ -162,7 +183,7 @@ def _parse(unit: str, variable: str, expected: str) -> pint.Unit:
 
 
 def conversion_plan(
-    from_unit: str, quantity: str, *, variable: str | None = None
+    from_unit: str, quantity: str, *, variable: str | None = None, calendar_months: bool = False
 ) -> tuple[float, float, bool]:
     """Work out how values in ``from_unit`` become the glossary unit of ``quantity``.
 
@@ -174,6 +195,9 @@ def conversion_plan(
         Glossary name (or alias such as ``precipitation_amount``).
     variable : str, optional
         Name used in error messages (defaults to ``quantity``).
+    calendar_months : bool
+        True when the time steps are calendar months: a rate per month (``"mm/month"``) is
+        then taken as the month's amount and divided by its own length.
 
     Returns
     -------
@@ -192,17 +216,21 @@ def conversion_plan(
     variable = variable or quantity
     ureg = registry()
     target = ureg.Unit(QUANTITIES[name].unit)
-    source = _parse(from_unit, variable, str(QUANTITIES[name].unit))
+    parsed = _parse(from_unit, variable, str(QUANTITIES[name].unit))
+    factor, source = float(parsed.magnitude), parsed.units
+    if calendar_months and dict(source._units).get("month") == -1:
+        source = source * ureg.month  # the amount of one month, divided by its days below
+    target_dimensionality = ureg.Quantity(1.0, target).dimensionality
     for per_step, via_density in _candidate_routes(name):
-        unit = ureg.Quantity(1.0, source)
+        unit = ureg.Quantity(factor, source)
         if via_density:
             unit = unit / ureg.Quantity(WATER_DENSITY, "kg/m**3")
         if per_step:
             unit = unit / ureg.Quantity(1.0, "day")
-        if unit.dimensionality != ureg.Quantity(1.0, target).dimensionality:
+        if unit.dimensionality != target_dimensionality:
             continue
         if not per_step and not via_density:
-            scale, offset = _affine(ureg, source, target)
+            scale, offset = _affine(ureg, factor, source, target)
             return scale, offset, False
         return float(unit.to(target).magnitude), 0.0, per_step
     raise UnitsError(
@@ -223,11 +251,19 @@ def _candidate_routes(name: str) -> list[tuple[bool, bool]]:
     return routes
 
 
-def _affine(ureg: pint.UnitRegistry, source: pint.Unit, target: pint.Unit) -> tuple[float, float]:
+def _affine(ureg: pint.UnitRegistry, factor: float, source, target) -> tuple[float, float]:
     # Two points fix an affine map; this is what makes K -> degC offset-aware.
     zero = float(ureg.Quantity(0.0, source).to(target).magnitude)
-    one = float(ureg.Quantity(1.0, source).to(target).magnitude)
+    one = float(ureg.Quantity(factor, source).to(target).magnitude)
     return one - zero, zero
+
+
+def _are_calendar_months(step_days) -> bool:
+    if step_days is None:
+        return False
+    steps = np.asarray(step_days, dtype=float)
+    low, high = _CALENDAR_MONTH_DAYS
+    return bool(steps.size) and bool(np.all((steps >= low) & (steps <= high)))
 
 
 def convert(values, from_unit: str, quantity: str, *, step_days=None, variable: str | None = None):
@@ -238,7 +274,7 @@ def convert(values, from_unit: str, quantity: str, *, step_days=None, variable: 
     values : numpy.ndarray or xarray.DataArray
         Values in ``from_unit``. A DataArray stays lazy if it is dask-backed.
     from_unit : str
-        Declared unit (CF spelling accepted, see :func:`normalise_unit`).
+        Declared unit (any CF/UDUNITS spelling, see :func:`parse_unit`).
     quantity : str
         Glossary name or alias (``precipitation_amount`` -> ``precipitation``).
     step_days : float or array_like, optional
@@ -259,7 +295,9 @@ def convert(values, from_unit: str, quantity: str, *, step_days=None, variable: 
         Unit unparseable or of the wrong dimensionality, or a per-step amount without
         ``step_days``.
     """
-    scale, offset, per_step = conversion_plan(from_unit, quantity, variable=variable)
+    scale, offset, per_step = conversion_plan(
+        from_unit, quantity, variable=variable, calendar_months=_are_calendar_months(step_days)
+    )
     # Skip the identity parts: each is a full pass over a lazy (time, y, x) cube.
     converted = values * scale if scale != 1.0 else values
     if offset:
@@ -344,4 +382,8 @@ def diagnose_range(quantity: str, low: float, high: float, declared_unit: str) -
 
 
 def _is_percent(unit: str) -> bool:
-    return normalise_unit(unit) == "percent"
+    try:
+        parsed = parse_unit(unit)
+    except (pint.errors.PintError, TypeError, ValueError, AttributeError, AssertionError):
+        return False
+    return bool(parsed.units == registry().percent and float(parsed.magnitude) == 1.0)

@@ -1,0 +1,390 @@
+"""Looking at a user's own files to draft a configuration: what a layer and climate files hold.
+
+Reads metadata only (layer fields and attribute values, NetCDF variable attributes and time
+axes), never the climate values beyond what the reader probes. The drafting itself (which
+variable is which quantity, which methods are possible, the TOML text) is in
+:mod:`lakeloss.starter`.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyogrio.errors
+import xarray as xr
+
+from lakeloss.errors import (
+    ConfigError,
+    GeometryError,
+    InputDataError,
+    LakelossError,
+    LakelossWarning,
+    OutputError,
+)
+from lakeloss.io import climate as climate_io
+
+NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
+GEOTIFF_SUFFIXES = (".tif", ".tiff")
+# Layer geometry types that hold (or may hold) polygons; "Unknown" is what mixed GeoJSON and
+# some drivers report, and the run's reader sorts those out feature by feature.
+_MAYBE_POLYGONAL = ("Unknown", "Geometry", "GeometryCollection")
+_PARQUET_SUFFIXES = (".parquet", ".geoparquet")
+# Dimensions of cell and time bounds, never data.
+_BOUNDS_DIMS = frozenset({"bnds", "nv", "nb2", "bounds", "vertices", "nbnd"})
+_READ_ERRORS = (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError)
+
+
+@dataclass(frozen=True)
+class FieldSummary:
+    """One attribute field of the layer: its name, kind and whether values are unique.
+
+    ``kind`` is ``"integer"``, ``"text"``, ``"number"`` or ``"other"``; ``unique`` means no
+    empty value and no repeat; ``distinct`` counts the distinct non-empty values.
+    """
+
+    name: str
+    kind: str
+    unique: bool
+    distinct: int
+
+
+@dataclass(frozen=True)
+class LayerSummary:
+    """What a water-body layer holds: layer name, feature count, CRS and fields."""
+
+    path: Path
+    layer: str | None
+    features: int
+    crs: str | None
+    fields: tuple[FieldSummary, ...]
+
+
+@dataclass(frozen=True)
+class VariableSummary:
+    """One gridded variable of a NetCDF file, with the attributes that say what it is.
+
+    ``height_m`` comes from a scalar ``height`` coordinate in metres (CMIP's ``sfcWind``
+    carries 10 m); ``from_ecmwf`` is True when the variable or file carries ECMWF/GRIB
+    attributes (ERA5 and its monthly means).
+    """
+
+    path: Path
+    name: str
+    standard_name: str | None
+    units: str | None
+    cell_methods: str
+    long_name: str
+    height_m: float | None
+    from_ecmwf: bool
+
+
+@dataclass(frozen=True)
+class TimeSummary:
+    """The time axis of one variable, or why lakeloss cannot use it (``problem``)."""
+
+    step: str | None
+    first: str | None
+    last: str | None
+    steps: int
+    calendar: str | None
+    description: str = ""
+    problem: str | None = None
+
+
+def climate_files(paths: list[Path]) -> list[Path]:
+    """The climate files named, with folders expanded (recursively) to their NetCDF and
+    GeoTIFF files, in name order.
+
+    Raises
+    ------
+    InputDataError
+        A path does not exist, or nothing among the paths is a climate file.
+    """
+    found: list[Path] = []
+    for path in paths:
+        if not path.exists():
+            raise InputDataError(
+                f"climate path '{path}' does not exist; expected a NetCDF/GeoTIFF file or a "
+                "folder of them; check the path"
+            )
+        if path.is_dir():
+            found.extend(sorted(p for p in path.rglob("*") if _is_climate_file(p)))
+        elif _is_climate_file(path):
+            found.append(path)
+        else:
+            raise InputDataError(
+                f"climate file '{path}' is neither NetCDF ({', '.join(NETCDF_SUFFIXES)}) nor "
+                f"GeoTIFF ({', '.join(GEOTIFF_SUFFIXES)}); expected one of those; convert it"
+            )
+    if not found:
+        named = ", ".join(f"'{p}'" for p in paths)
+        raise InputDataError(
+            f"no climate files in {named}; expected NetCDF ({', '.join(NETCDF_SUFFIXES)}) or "
+            f"GeoTIFF ({', '.join(GEOTIFF_SUFFIXES)}) files; name the files or their folder"
+        )
+    return list(dict.fromkeys(found))
+
+
+def _is_climate_file(path: Path) -> bool:
+    return path.is_file() and path.suffix.lower() in NETCDF_SUFFIXES + GEOTIFF_SUFFIXES
+
+
+def is_netcdf(path: Path) -> bool:
+    return path.suffix.lower() in NETCDF_SUFFIXES
+
+
+# ----------------------------------------------------------------------------- layer
+
+
+def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
+    """Summarise a polygon layer: its name, feature count, CRS and attribute fields.
+
+    Raises
+    ------
+    InputDataError
+        Missing or unreadable file.
+    ConfigError
+        Several polygon layers and none chosen, or the chosen one is absent.
+    GeometryError
+        No polygon layer, or a polygon layer with no features.
+    """
+    if not path.exists():
+        raise InputDataError(
+            f"water-body layer '{path}' does not exist; expected a vector file (GeoPackage, "
+            "Shapefile, GeoJSON); check the path"
+        )
+    if path.suffix.lower() in _PARQUET_SUFFIXES:
+        return _survey_parquet(path)
+    chosen = _polygon_layer(path, layer)
+    try:
+        info = pyogrio.read_info(os.fspath(path), layer=chosen)
+        frame = pyogrio.read_dataframe(os.fspath(path), layer=chosen, read_geometry=False)
+    except _READ_ERRORS as err:
+        raise InputDataError(
+            f"water-body layer '{path}' cannot be read ({' '.join(str(err).split())}); "
+            "expected a readable vector file; re-export it"
+        ) from err
+    if int(info["features"]) == 0:
+        raise GeometryError(
+            f"water-body layer '{path}' (layer '{chosen}') has no features; expected polygons "
+            "of water bodies; check the file"
+        )
+    return LayerSummary(
+        path=path,
+        layer=chosen,
+        features=int(info["features"]),
+        crs=info.get("crs"),
+        fields=tuple(_field_summary(frame[name]) for name in frame.columns),
+    )
+
+
+def _survey_parquet(path: Path) -> LayerSummary:
+    import geopandas
+
+    try:
+        frame = geopandas.read_parquet(path)
+    except (OSError, ValueError, ImportError) as err:
+        raise InputDataError(
+            f"water-body layer '{path}' cannot be read as GeoParquet "
+            f"({' '.join(str(err).split())}); expected a readable file; re-export it"
+        ) from err
+    polygons = frame.geometry.geom_type.isin(["Polygon", "MultiPolygon"])
+    if not bool(polygons.any()):
+        raise GeometryError(
+            f"water-body layer '{path}' has no polygons ({len(frame)} features); expected "
+            "polygons of water bodies; check the file"
+        )
+    attributes = frame.drop(columns=frame.geometry.name)
+    return LayerSummary(
+        path=path,
+        layer=None,
+        features=len(frame),
+        crs=None if frame.crs is None else frame.crs.to_string(),
+        fields=tuple(_field_summary(attributes[name]) for name in attributes.columns),
+    )
+
+
+def _is_polygonal(kind: str) -> bool:
+    return "Polygon" in kind or kind in _MAYBE_POLYGONAL
+
+
+def _polygon_layer(path: Path, layer: str | None) -> str:
+    try:
+        table = pyogrio.list_layers(os.fspath(path))
+    except _READ_ERRORS as err:
+        raise InputDataError(
+            f"water-body layer '{path}' cannot be read ({' '.join(str(err).split())}); "
+            "expected a readable vector file; re-export it"
+        ) from err
+    kinds = {str(name): str(kind) for name, kind in table}
+    if layer is not None:
+        if layer not in kinds:
+            raise ConfigError(
+                f"layer '{layer}' is not in '{path}'; the layers are "
+                f"{', '.join(kinds) or 'none'}; choose one with --layer"
+            )
+        if not _is_polygonal(kinds[layer]):
+            raise GeometryError(
+                f"layer '{layer}' of '{path}' holds {kinds[layer]} geometries; expected "
+                "polygons of water bodies; choose a polygon layer"
+            )
+        return layer
+    polygons = [name for name, kind in kinds.items() if _is_polygonal(kind)]
+    if not polygons:
+        found = ", ".join(f"{n} ({k})" for n, k in kinds.items()) or "no layers"
+        raise GeometryError(
+            f"'{path}' has no polygon layer ({found}); expected polygons of water bodies; "
+            "give a polygon layer"
+        )
+    if len(polygons) > 1:
+        raise ConfigError(
+            f"'{path}' has {len(polygons)} polygon layers ({', '.join(polygons)}); "
+            "choose one with --layer"
+        )
+    return polygons[0]
+
+
+def _field_summary(values: pd.Series) -> FieldSummary:
+    present = values.dropna()
+    if pd.api.types.is_bool_dtype(values):
+        kind = "other"
+    elif pd.api.types.is_integer_dtype(values):
+        kind = "integer"
+    elif pd.api.types.is_float_dtype(values):
+        whole = present.size and np.all(np.mod(present.to_numpy(dtype=float), 1.0) == 0.0)
+        kind = "integer" if whole else "number"
+    elif pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values):
+        kind = "text" if all(isinstance(v, str) for v in present) else "other"
+    else:
+        kind = "other"
+    if kind == "text":
+        present = present[present.str.strip() != ""]
+    distinct = int(present.nunique())
+    unique = len(present) == len(values) and distinct == len(values)
+    return FieldSummary(name=str(values.name), kind=kind, unique=unique, distinct=distinct)
+
+
+# ----------------------------------------------------------------------------- climate
+
+
+def survey_netcdf(path: Path) -> list[VariableSummary]:
+    """The gridded variables of a NetCDF file (two or more dimensions, not bounds or CRS).
+
+    Raises
+    ------
+    InputDataError
+        The file cannot be opened as NetCDF.
+    """
+    try:
+        dataset = xr.open_dataset(path, engine="netcdf4", decode_times=False, cache=False)
+    except (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError) as err:
+        raise InputDataError(
+            f"climate file '{path}' is unreadable or not NetCDF ({' '.join(str(err).split())}); "
+            "expected a readable NetCDF file; re-download it or leave it out"
+        ) from err
+    with dataset:
+        bounds = {str(v.attrs.get("bounds")) for v in dataset.variables.values()}
+        ecmwf_file = "ecmwf" in " ".join(str(v) for v in dataset.attrs.values()).lower()
+        return [
+            _variable_summary(path, dataset, str(name), ecmwf_file)
+            for name, data in dataset.data_vars.items()
+            if data.ndim >= 2
+            and str(name) not in bounds
+            and not _BOUNDS_DIMS.intersection(str(d) for d in data.dims)
+        ]
+
+
+def _variable_summary(
+    path: Path, dataset: xr.Dataset, name: str, ecmwf_file: bool
+) -> VariableSummary:
+    attrs = dataset[name].attrs
+    return VariableSummary(
+        path=path,
+        name=name,
+        standard_name=_text(attrs.get("standard_name")),
+        units=_text(attrs.get("units")),
+        cell_methods=str(attrs.get("cell_methods", "")),
+        long_name=str(attrs.get("long_name", "")),
+        height_m=_height(dataset, name),
+        from_ecmwf=ecmwf_file or any(str(k).startswith("GRIB_") for k in attrs),
+    )
+
+
+def _text(value: object) -> str | None:
+    return None if value is None else str(value)
+
+
+def _height(dataset: xr.Dataset, name: str) -> float | None:
+    for coord_name in ("height", "height_above_ground"):
+        if coord_name in dataset.variables:
+            coord = dataset[coord_name]
+            if coord.size == 1 and str(coord.attrs.get("units", "m")) in ("m", "meter", "metre"):
+                return float(np.asarray(coord.values).reshape(-1)[0])
+    return None
+
+
+def survey_time(variable: VariableSummary, quantity: str, units: str | None) -> TimeSummary:
+    """The time axis of a variable as the run would read it, or the reason it cannot.
+
+    Opens the variable with the run's own reader, so a unit, grid or time problem found
+    here is the one ``lakeloss check`` would report.
+    """
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", LakelossWarning)
+            field = climate_io.open_netcdf(variable.path, variable.name, quantity, units=units)
+        axis = field.time_axis
+        field.data.close()
+    except LakelossError as err:
+        return TimeSummary(None, None, None, 0, None, problem=str(err))
+    return TimeSummary(
+        axis.step, axis.starts[0], axis.ends[-1], len(axis), axis.calendar, axis.describe()
+    )
+
+
+def write_new_text(path: Path, text: str, *, overwrite: bool) -> None:
+    """Write ``text`` to ``path`` whole or not at all; an existing file needs ``overwrite``.
+
+    Raises
+    ------
+    OutputError
+        The file exists and ``overwrite`` is False, or it cannot be written.
+    """
+    if path.exists() and not overwrite:
+        raise OutputError(
+            f"'{path}' already exists; expected a new file name; choose another name or "
+            "add --overwrite to replace it"
+        )
+    if path.is_dir():
+        raise OutputError(f"'{path}' is a directory; expected a file name for the configuration")
+    try:
+        descriptor, staging = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.")
+    except OSError as err:
+        raise OutputError(
+            f"cannot write '{path}' ({err.strerror or err}); expected a writable folder; "
+            "choose another place"
+        ) from err
+    try:
+        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        os.chmod(staging, 0o666 & ~_umask())  # mkstemp's 0600 would hide it from others
+        os.replace(staging, path)
+    except OSError as err:
+        Path(staging).unlink(missing_ok=True)
+        raise OutputError(
+            f"cannot write '{path}' ({err.strerror or err}); expected a writable folder; "
+            "choose another place"
+        ) from err
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
