@@ -3,16 +3,22 @@
 from __future__ import annotations
 
 import copy
+from pathlib import Path
 
 import pytest
+from click.testing import CliRunner
 
+from lakeloss.cli import cli
 from lakeloss.config import load_config
 from lakeloss.errors import (
     ConfigError,
+    InputDataError,
     MissingInputError,
     ParameterRangeError,
     UnknownMethodError,
 )
+
+ROOT = Path(__file__).resolve().parents[1]
 
 BASE = {
     "waterbodies": {"path": "ponds.gpkg", "id_field": "pond_id", "group_by": ["zone"]},
@@ -51,17 +57,146 @@ def test_valid_config_loads_with_defaults():
     assert config.waterbodies.group_by == ("zone",)
 
 
+SMALL_TOML = (
+    "# a small run\n"
+    '[waterbodies]\npath = "a.gpkg"\n[climate]\n'
+    'air_temperature = { path = "c.nc", variable = "tas" }\n'
+    'surface_downwelling_shortwave_flux_in_air = { path = "c.nc", variable = "rsds" }\n'
+    '[method]\nname = "priestley_taylor"\n[output]\ndir = "o"\nprecipitation = false\n'
+)
+
+
+def _inputs_beside(folder: Path) -> None:
+    # The loader only checks that relative input paths exist; the contents are not read.
+    for name in ("a.gpkg", "c.nc"):
+        (folder / name).touch()
+
+
 def test_toml_file_round_trip(tmp_path):
+    _inputs_beside(tmp_path)
     path = tmp_path / "run.toml"
-    path.write_text(
-        '[waterbodies]\npath = "a.gpkg"\n[climate]\n'
-        'air_temperature = { path = "c.nc", variable = "tas" }\n'
-        'surface_downwelling_shortwave_flux_in_air = { path = "c.nc", variable = "rsds" }\n'
-        '[method]\nname = "priestley_taylor"\n[output]\ndir = "o"\nprecipitation = false\n'
-    )
+    path.write_text(SMALL_TOML)
     config = load_config(path)
     assert config.config_path == path
     assert config.output.precipitation is False
+    assert config.waterbodies.path == tmp_path / "a.gpkg"
+
+
+# --------------------------------------------------------------------------- encodings
+
+
+def test_windows_editor_file_with_bom_and_crlf_loads(tmp_path):
+    # What Notepad and many Windows editors save: a UTF-8 byte-order mark and CRLF ends.
+    _inputs_beside(tmp_path)
+    path = tmp_path / "run.toml"
+    path.write_bytes(b"\xef\xbb\xbf" + SMALL_TOML.replace("\n", "\r\n").encode("utf-8"))
+    config = load_config(path)
+    assert config.method.name == "priestley_taylor"
+    assert config.output.dir == tmp_path / "o"
+    assert [c.variable for c in config.climate] == ["tas", "rsds"]
+
+
+def test_invalid_toml_with_a_bom_still_gets_the_one_line_toml_error(tmp_path):
+    path = tmp_path / "bad.toml"
+    path.write_bytes(b"\xef\xbb\xbf[waterbodies\r\npath = 1\r\n")
+    with pytest.raises(ConfigError, match=r"not valid TOML.*line 1, column 13") as err:
+        load_config(path)
+    assert "\n" not in str(err.value)
+
+
+@pytest.mark.parametrize(
+    ("encoding", "said"),
+    [("utf-16", "UTF-16"), ("utf-16-le", "UTF-16 or UTF-32"), ("utf-32", "UTF-32")],
+)
+def test_utf16_or_utf32_file_is_refused_with_the_fix(tmp_path, encoding, said):
+    # "Unicode" in older Windows editors is UTF-16 (with a byte-order mark, or without one).
+    path = tmp_path / "run.toml"
+    path.write_bytes(SMALL_TOML.replace("\n", "\r\n").encode(encoding))
+    with pytest.raises(ConfigError, match=f"saved as {said} text.*save it again") as err:
+        load_config(path)
+    assert "\n" not in str(err.value)
+
+
+def test_windows_code_page_file_is_refused_naming_the_line(tmp_path):
+    path = tmp_path / "run.toml"
+    text = SMALL_TOML.replace("# a small run", "# Lac Bleu, 25 °C") + "\n"
+    path.write_bytes(text.encode("cp1252"))
+    with pytest.raises(ConfigError, match=r"not UTF-8 text \(byte 0xb0 on line 1.*UTF-8"):
+        load_config(path)
+
+
+# --------------------------------------------------------------------------- relative paths
+
+
+def _project(tmp_path: Path) -> Path:
+    """project/config/run.toml naming ../data/* inputs and ../out, ../cache outputs."""
+    (tmp_path / "project" / "data").mkdir(parents=True)
+    (tmp_path / "project" / "config").mkdir()
+    _inputs_beside(tmp_path / "project" / "data")
+    text = SMALL_TOML.replace('"a.gpkg"', '"../data/a.gpkg"').replace('"c.nc"', '"../data/c.nc"')
+    text = text.replace('dir = "o"', 'dir = "../out/run1"')
+    text += '[compute]\ncache_dir = "../cache"\nscheduler = "cluster/scheduler.json"\n'
+    path = tmp_path / "project" / "config" / "run.toml"
+    path.write_text(text)
+    return path
+
+
+def test_relative_paths_resolve_against_the_config_files_folder(tmp_path, monkeypatch):
+    path = _project(tmp_path)
+    (tmp_path / "elsewhere").mkdir()
+    monkeypatch.chdir(tmp_path / "elsewhere")
+    config = load_config(Path("..") / "project" / "config" / "run.toml")
+    folder = (tmp_path / "elsewhere" / ".." / "project" / "config").absolute()
+    assert config.waterbodies.path == folder / "../data/a.gpkg"
+    assert config.waterbodies.path.resolve() == (tmp_path / "project/data/a.gpkg").resolve()
+    assert all(c.path == folder / "../data/c.nc" for c in config.climate)
+    assert config.output.dir == folder / "../out/run1"
+    assert config.compute.cache_dir == folder / "../cache"
+    assert config.compute.scheduler == str(folder / "cluster/scheduler.json")
+    assert config.source["output"]["dir"] == "../out/run1"  # run.json keeps what was written
+    assert path.is_file()
+
+
+def test_absolute_paths_and_scheduler_addresses_are_kept(tmp_path):
+    _inputs_beside(tmp_path)
+    path = tmp_path / "run.toml"
+    text = SMALL_TOML.replace('"a.gpkg"', f'"{(tmp_path / "a.gpkg").as_posix()}"')
+    path.write_text(text + '[compute]\nscheduler = "tcp://10.0.0.5:8786"\n')
+    config = load_config(path)
+    assert config.waterbodies.path == tmp_path / "a.gpkg"
+    assert config.compute.scheduler == "tcp://10.0.0.5:8786"
+
+
+def test_missing_relative_input_says_what_it_was_resolved_against(tmp_path, monkeypatch):
+    path = _project(tmp_path)
+    (tmp_path / "project" / "data" / "c.nc").unlink()
+    # The old rule (relative to the current directory) would have found this one.
+    (tmp_path / "other" / "data").mkdir(parents=True)
+    (tmp_path / "other" / "data" / "c.nc").touch()
+    (tmp_path / "other" / "config").mkdir()
+    monkeypatch.chdir(tmp_path / "other" / "config")
+    with pytest.raises(InputDataError) as err:
+        load_config(path)
+    message = str(err.value)
+    assert "[climate].air_temperature.path '../data/c.nc' does not exist" in message
+    folder = (tmp_path / "project" / "config").absolute()
+    assert f"resolved against the config file's folder: {folder / '../data/c.nc'}" in message
+    assert "exists in the current directory" in message and "\n" not in message
+
+
+def test_config_built_in_python_keeps_paths_relative_to_the_current_directory():
+    config = load_config(BASE)
+    assert config.waterbodies.path == Path("ponds.gpkg")
+    assert config.output.dir == Path("out/x")
+
+
+@pytest.mark.parametrize("cwd", ["root", "elsewhere"])
+def test_demo_config_is_checked_from_the_repo_root_and_from_elsewhere(tmp_path, monkeypatch, cwd):
+    monkeypatch.chdir(ROOT if cwd == "root" else tmp_path)
+    config_path = "config/demo.toml" if cwd == "root" else str(ROOT / "config" / "demo.toml")
+    result = CliRunner().invoke(cli, ["check", config_path])
+    assert result.exit_code == 0, result.output
+    assert load_config(config_path).output.dir.resolve() == ROOT / "out" / "demo"
 
 
 def test_unknown_key_suggests_nearest():
