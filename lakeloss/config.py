@@ -173,6 +173,52 @@ _CHECKS_KEYS = {"strict": bool}
 _CLIMATE_NAMES = tuple(sorted({*QUANTITIES, *ALIASES}))
 
 
+# Tables of a configuration file and the keys each takes; ``[climate.<name>]`` is any entry
+# of [climate] (one climate variable).
+_TABLE_KEYS: dict[str, Mapping[str, type]] = {
+    "waterbodies": _WATERBODY_KEYS,
+    "climate.<name>": _CLIMATE_KEYS,
+    "method": _METHOD_KEYS,
+    "output": _OUTPUT_KEYS,
+    "compute": _COMPUTE_KEYS,
+    "checks": _CHECKS_KEYS,
+}
+_TYPE_NAMES = {
+    str: "string",
+    list: "list of strings",
+    bool: "boolean",
+    int: "integer",
+    float: "number",
+}
+
+
+def reference_keys() -> dict[tuple[str, str], str]:
+    """Every key a configuration file may hold, with the type of its value.
+
+    The README's configuration reference table documents exactly these keys (a test compares
+    the two both ways).
+
+    Returns
+    -------
+    dict
+        ``(table, key) -> type name``; tables are ``waterbodies``, ``climate`` (its keys are
+        the climate variable names, each taking a table), ``climate.<name>`` (the keys of one
+        climate entry), ``method``, ``parameters``, ``output``, ``compute`` and ``checks``.
+    """
+    from lakeloss.physics import registry
+
+    keys = {
+        (table, key): _TYPE_NAMES[kind]
+        for table, schema in _TABLE_KEYS.items()
+        for key, kind in schema.items()
+    }
+    keys.update({("climate", name): "table" for name in _CLIMATE_NAMES})
+    for name, spec in registry.parameter_specs().items():
+        keys[("parameters", name)] = "string" if spec.choices else "number"
+    keys.update({("parameters", k): _TYPE_NAMES[v] for k, v in PIPELINE_PARAMETERS.items()})
+    return keys
+
+
 def _suggest(word: str, valid: Any) -> str:
     close = difflib.get_close_matches(word, list(valid), n=1, cutoff=0.6)
     return f"; did you mean '{close[0]}'?" if close else ""

@@ -3,13 +3,26 @@
 from __future__ import annotations
 
 import copy
+import dataclasses
+import re
+import tomllib
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
 from lakeloss.cli import cli
-from lakeloss.config import load_config
+from lakeloss.config import (
+    ClimateInput,
+    ComputeConfig,
+    MethodConfig,
+    OutputConfig,
+    RunConfig,
+    WaterBodiesConfig,
+    load_config,
+    reference_keys,
+)
 from lakeloss.errors import (
     ConfigError,
     InputDataError,
@@ -280,3 +293,124 @@ def test_missing_inputs_checked_by_pipeline():
     config = load_config(raw)
     with pytest.raises(MissingInputError, match=r"aerodynamic.*wind_speed"):
         _check_methods(config)
+
+
+# --------------------------------------------------------------------------- README reference
+
+_README = ROOT / "README.md"
+_ROW = re.compile(r"^\| `\[([^\]]+)\]` \| `([^`]+)` \| ([^|]+?) \| ([^|]+?) \| .+ \|$")
+
+
+def _reference_rows() -> dict[tuple[str, str], tuple[str, str]]:
+    """(table, key) -> (type, default cell) of the README's configuration reference table."""
+    text = _README.read_text(encoding="utf-8")
+    section = text[text.index("## Configuration reference") :]
+    section = section[: section.index("\n## ", 1)]
+    rows: dict[tuple[str, str], tuple[str, str]] = {}
+    for line in section.splitlines():
+        match = _ROW.match(line)
+        if match:
+            table, key, kind, default = match.groups()
+            assert (table, key) not in rows, f"{table}.{key} is documented twice"
+            rows[(table, key)] = (kind, default)
+    return rows
+
+
+def _code_default(table: str, key: str) -> object:
+    """What lakeloss takes when the key is absent (MISSING when nothing simple)."""
+    from lakeloss.physics import registry
+
+    if table == "parameters":
+        if key in registry.parameter_specs():
+            return registry.parameter_specs()[key].default
+        return load_config(BASE).parameters[key]  # pipeline parameters: their default
+    owner = {
+        "waterbodies": WaterBodiesConfig,
+        "climate.<name>": ClimateInput,
+        "method": MethodConfig,
+        "output": OutputConfig,
+        "compute": ComputeConfig,
+        "checks": RunConfig,
+    }.get(table)
+    if owner is None:
+        return dataclasses.MISSING
+    found = {f.name: f for f in dataclasses.fields(owner)}.get(key)
+    if found is None or found.default is dataclasses.MISSING:
+        return dataclasses.MISSING
+    return list(found.default) if isinstance(found.default, tuple) else found.default
+
+
+def test_readme_reference_table_documents_every_key_and_no_other():
+    documented = {key: kind for key, (kind, _) in _reference_rows().items()}
+    accepted = reference_keys()
+    assert sorted(set(accepted) - set(documented)) == [], "keys missing from the README table"
+    assert sorted(set(documented) - set(accepted)) == [], "README documents unknown keys"
+    assert documented == accepted  # and the same types
+
+
+def test_readme_reference_defaults_are_the_code_defaults():
+    for (table, key), (_, cell) in _reference_rows().items():
+        default = _code_default(table, key)
+        has_value = default is not dataclasses.MISSING and default is not None
+        if cell.startswith("`"):
+            written = tomllib.loads(f"v = {cell.strip('`')}")["v"]
+            assert has_value and written == default, (table, key, cell, default)
+        else:
+            assert not has_value or default == [], (table, key, cell, default)
+
+
+def test_readme_example_loads_and_its_parameters_are_the_defaults():
+    from lakeloss.physics import registry
+
+    text = _README.read_text(encoding="utf-8")
+    start = text.index("```toml\n", text.index("## Configuration reference")) + len("```toml\n")
+    example = tomllib.loads(text[start : text.index("```", start)])
+    config = load_config(example)  # a mapping: paths are not looked up
+    assert config.method.name == "penman_open_water"
+    specs = registry.parameter_specs()
+    for name, value in example["parameters"].items():
+        expected = specs[name].default if name in specs else _code_default("parameters", name)
+        assert value == expected, f"README example: {name} = {value}, default {expected}"
+
+
+def test_heat_storage_flux_entry_is_used_as_documented(tmp_path):
+    # The README: the energy-based methods evaporate Rn - G. For energy_balance,
+    # E = (Rn - G) / (lambda rho_w) (Chow, Maidment & Mays 1988, section 3.5), so G = 50 W m-2
+    # under Rn = 200 W m-2 gives exactly 150/200 of the depth without G.
+    import pandas as pd
+    import tomli_w
+    from builders import climate_dataset, pond_layer, write_netcdf
+
+    layer = tmp_path / "ponds.gpkg"
+    pond_layer(n_ponds=3).to_file(layer, layer="ponds", driver="GPKG")
+    times = pd.date_range("2031-01-01", periods=4, freq="D")
+    fields = {
+        "rnet": (200.0, "W m-2", "surface_net_downward_radiative_flux"),
+        "tas": (298.15, "K", "air_temperature"),
+        "g": (50.0, "W m-2", "heat_storage_flux"),
+    }
+    climate = write_netcdf(climate_dataset(times, fields), tmp_path / "climate.nc")
+    entries = {
+        "surface_net_downward_radiative_flux": {"path": "climate.nc", "variable": "rnet"},
+        "air_temperature": {"path": "climate.nc", "variable": "tas"},
+    }
+    depths = []
+    for name, extra in (("without", {}), ("with", {"heat_storage_flux": "g"})):
+        climate_table = {
+            **entries,
+            **{k: {"path": climate.name, "variable": v} for k, v in extra.items()},
+        }
+        raw = {
+            "waterbodies": {"path": "ponds.gpkg", "layer": "ponds", "id_field": "pond_id"},
+            "climate": climate_table,
+            "method": {"name": "energy_balance"},
+            "output": {"dir": f"out_{name}", "precipitation": False},
+            "compute": {"cache_dir": "cache"},
+        }
+        (tmp_path / f"{name}.toml").write_text(tomli_w.dumps(raw))
+        result = CliRunner().invoke(cli, ["run", str(tmp_path / f"{name}.toml"), "-q"])
+        assert result.exit_code == 0, result.output
+        table = pd.read_csv(tmp_path / f"out_{name}" / "summary_by_waterbody.csv")
+        depths.append(table.sort_values("pond_id")["evap_mm"].to_numpy())
+    assert (depths[0] > 0).all()
+    np.testing.assert_allclose(depths[1], depths[0] * 150.0 / 200.0, rtol=1e-6)
