@@ -4,8 +4,9 @@ Every key a user can write is declared here once, with its type; an unknown key 
 that suggests the nearest valid one, a wrong type names the key and the type expected.
 Physics parameters are checked against the method registry's documented ranges.
 
-Relative paths in a configuration are taken relative to the current working directory
-(where ``lakeloss`` is run), not to the configuration file.
+Relative paths in a configuration file are resolved against the folder that holds the file
+(wherever ``lakeloss`` is run from); a configuration given as a mapping (the Python API, no
+file) resolves them against the current working directory.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from lakeloss.errors import ConfigError
+from lakeloss.errors import ConfigError, InputDataError
 from lakeloss.glossary import ALIASES, QUANTITIES
 
 PERIODS = ("day", "month", "year")
@@ -172,6 +173,52 @@ _CHECKS_KEYS = {"strict": bool}
 _CLIMATE_NAMES = tuple(sorted({*QUANTITIES, *ALIASES}))
 
 
+# Tables of a configuration file and the keys each takes; ``[climate.<name>]`` is any entry
+# of [climate] (one climate variable).
+_TABLE_KEYS: dict[str, Mapping[str, type]] = {
+    "waterbodies": _WATERBODY_KEYS,
+    "climate.<name>": _CLIMATE_KEYS,
+    "method": _METHOD_KEYS,
+    "output": _OUTPUT_KEYS,
+    "compute": _COMPUTE_KEYS,
+    "checks": _CHECKS_KEYS,
+}
+_TYPE_NAMES = {
+    str: "string",
+    list: "list of strings",
+    bool: "boolean",
+    int: "integer",
+    float: "number",
+}
+
+
+def reference_keys() -> dict[tuple[str, str], str]:
+    """Every key a configuration file may hold, with the type of its value.
+
+    The README's configuration reference table documents exactly these keys (a test compares
+    the two both ways).
+
+    Returns
+    -------
+    dict
+        ``(table, key) -> type name``; tables are ``waterbodies``, ``climate`` (its keys are
+        the climate variable names, each taking a table), ``climate.<name>`` (the keys of one
+        climate entry), ``method``, ``parameters``, ``output``, ``compute`` and ``checks``.
+    """
+    from lakeloss.physics import registry
+
+    keys = {
+        (table, key): _TYPE_NAMES[kind]
+        for table, schema in _TABLE_KEYS.items()
+        for key, kind in schema.items()
+    }
+    keys.update({("climate", name): "table" for name in _CLIMATE_NAMES})
+    for name, spec in registry.parameter_specs().items():
+        keys[("parameters", name)] = "string" if spec.choices else "number"
+    keys.update({("parameters", k): _TYPE_NAMES[v] for k, v in PIPELINE_PARAMETERS.items()})
+    return keys
+
+
 def _suggest(word: str, valid: Any) -> str:
     close = difflib.get_close_matches(word, list(valid), n=1, cutoff=0.6)
     return f"; did you mean '{close[0]}'?" if close else ""
@@ -228,12 +275,37 @@ def _str_list(values: list, where: str) -> tuple[str, ...]:
     return tuple(values)
 
 
+def _resolve(written: str, base: Path | None) -> Path:
+    """A path as written in the configuration, made absolute against ``base`` if relative."""
+    path = Path(written).expanduser()
+    return path if base is None or path.is_absolute() else base / path
+
+
+def _input_path(written: str, base: Path | None, where: str) -> Path:
+    """An input file's path, resolved; a relative one that is missing is refused here, where
+    the message can say what it was resolved against."""
+    path = _resolve(written, base)
+    if base is None or Path(written).expanduser().is_absolute() or path.exists():
+        return path
+    hint = ""
+    if Path(written).exists():
+        hint = (
+            f" ('{written}' exists in the current directory, which relative paths no longer "
+            "refer to)"
+        )
+    raise InputDataError(
+        f"{where} '{written}' does not exist, resolved against the config file's folder: "
+        f"{path}{hint}; expected an existing file; write the path relative to the "
+        "configuration file's folder, or give it in full"
+    )
+
+
 # --------------------------------------------------------------------------- sections
 
 
-def _waterbodies(raw: Mapping[str, Any]) -> WaterBodiesConfig:
+def _waterbodies(raw: Mapping[str, Any], base: Path | None) -> WaterBodiesConfig:
     table = _typed(_table(raw, "waterbodies", True), _WATERBODY_KEYS, "[waterbodies]")
-    path = Path(_require(table, "path", "[waterbodies]"))
+    path = _input_path(_require(table, "path", "[waterbodies]"), base, "[waterbodies].path")
     return WaterBodiesConfig(
         path=path,
         layer=table.get("layer"),
@@ -260,15 +332,15 @@ def _climate_format(path: Path, given: str | None, where: str) -> str:
     )
 
 
-def _climate_input(key: str, value: Any) -> ClimateInput:
+def _climate_input(key: str, value: Any, base: Path | None) -> ClimateInput:
     where = f"[climate].{key}"
     if not isinstance(value, Mapping):
         raise ConfigError(
             f'{where} must be a table such as {{ path = "climate.nc", variable = "tas" }}'
         )
     table = _typed(value, _CLIMATE_KEYS, where)
-    path = Path(_require(table, "path", where))
-    fmt = _climate_format(path, table.get("format"), where)
+    written = _require(table, "path", where)
+    fmt = _climate_format(Path(written), table.get("format"), where)
     if fmt == "netcdf" and "variable" not in table:
         raise ConfigError(f'{where} reads a NetCDF file and needs variable = "<name in file>"')
     if fmt == "geotiff" and key != "elevation":
@@ -287,7 +359,7 @@ def _climate_input(key: str, value: Any) -> ClimateInput:
     return ClimateInput(
         key=key,
         quantity=ALIASES.get(key, key),
-        path=path,
+        path=_input_path(written, base, f"{where}.path"),
         format=fmt,
         variable=table.get("variable"),
         units=table.get("units"),
@@ -300,10 +372,10 @@ def _climate_input(key: str, value: Any) -> ClimateInput:
     )
 
 
-def _climate(raw: Mapping[str, Any]) -> tuple[ClimateInput, ...]:
+def _climate(raw: Mapping[str, Any], base: Path | None) -> tuple[ClimateInput, ...]:
     table = _table(raw, "climate", True)
     _check_keys(table, _CLIMATE_NAMES, "[climate]")
-    inputs = tuple(_climate_input(key, value) for key, value in table.items())
+    inputs = tuple(_climate_input(key, value, base) for key, value in table.items())
     seen: dict[str, str] = {}
     for item in inputs:
         if item.quantity in seen:
@@ -354,7 +426,7 @@ def _parameters(
     return {"clip_negative": pipeline.get("clip_negative", True), **table}
 
 
-def _output(raw: Mapping[str, Any]) -> OutputConfig:
+def _output(raw: Mapping[str, Any], base: Path | None) -> OutputConfig:
     table = _typed(_table(raw, "output", True), _OUTPUT_KEYS, "[output]")
     period = table.get("period", "month")
     if period not in PERIODS:
@@ -367,7 +439,7 @@ def _output(raw: Mapping[str, Any]) -> OutputConfig:
                 f" (valid: {', '.join(VOLUME_UNITS)})"
             )
     return OutputConfig(
-        dir=Path(_require(table, "dir", "[output]")),
+        dir=_resolve(_require(table, "dir", "[output]"), base),
         period=period,
         extra_volume_units=units,
         series=table.get("series", False),
@@ -375,14 +447,25 @@ def _output(raw: Mapping[str, Any]) -> OutputConfig:
     )
 
 
-def _compute(raw: Mapping[str, Any]) -> ComputeConfig:
+def _compute(raw: Mapping[str, Any], base: Path | None) -> ComputeConfig:
     table = _typed(_table(raw, "compute", False), _COMPUTE_KEYS, "[compute]")
     if table.get("chunk_steps", 0) < 0:
         raise ConfigError("[compute].chunk_steps must be 0 (automatic) or a positive number")
     if table.get("workers", 0) < 0:
         raise ConfigError("[compute].workers must be 0 (no cluster) or a positive number")
     cache = table.pop("cache_dir", None)
-    return ComputeConfig(**table, cache_dir=Path(cache) if cache else None)
+    if _is_scheduler_file(table.get("scheduler")):
+        table["scheduler"] = str(_resolve(table["scheduler"], base))
+    return ComputeConfig(**table, cache_dir=_resolve(cache, base) if cache else None)
+
+
+def _is_scheduler_file(scheduler: str | None) -> bool:
+    # An address has a scheme (tcp://host:8786); a scheduler file is a .json path.
+    return (
+        scheduler is not None
+        and "://" not in scheduler
+        and (scheduler.endswith(".json") or "/" in scheduler or "\\" in scheduler)
+    )
 
 
 def _check_precipitation(climate: tuple[ClimateInput, ...], output: OutputConfig) -> None:
@@ -395,20 +478,25 @@ def _check_precipitation(climate: tuple[ClimateInput, ...], output: OutputConfig
 
 
 def config_from_mapping(raw: Mapping[str, Any], config_path: Path | None = None) -> RunConfig:
-    """Validate a configuration given as a nested mapping (the parsed TOML)."""
+    """Validate a configuration given as a nested mapping (the parsed TOML).
+
+    With ``config_path``, relative paths are resolved against the file's folder and relative
+    input paths must exist; without it they stay relative (to the current directory).
+    """
     _check_keys(raw, _SECTIONS, "the configuration")
-    climate = _climate(raw)
+    base = None if config_path is None else Path(config_path).absolute().parent
+    climate = _climate(raw, base)
     method = _method(raw)
-    output = _output(raw)
+    output = _output(raw, base)
     _check_precipitation(climate, output)
     checks = _typed(_table(raw, "checks", False), _CHECKS_KEYS, "[checks]")
     return RunConfig(
-        waterbodies=_waterbodies(raw),
+        waterbodies=_waterbodies(raw, base),
         climate=climate,
         method=method,
         parameters=_parameters(raw, climate, method),
         output=output,
-        compute=_compute(raw),
+        compute=_compute(raw, base),
         strict=checks.get("strict", True),
         source=raw,
         config_path=config_path,
@@ -441,8 +529,51 @@ def load_config(config: str | Path | Mapping[str, Any] | RunConfig) -> RunConfig
         )
     if not path.is_file():
         raise ConfigError(f"configuration file '{path}' does not exist or is not a file")
-    try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
-        raise ConfigError(f"configuration file '{path}' is not valid TOML: {err}") from err
+    raw = _parse_toml(path)
     return config_from_mapping(raw, config_path=path)
+
+
+_UTF8_BOM = b"\xef\xbb\xbf"
+# Byte-order marks of encodings TOML does not allow (UTF-32 first: its LE mark starts with
+# the UTF-16 LE one).
+_OTHER_BOMS = {
+    b"\xff\xfe\x00\x00": "UTF-32",
+    b"\x00\x00\xfe\xff": "UTF-32",
+    b"\xff\xfe": "UTF-16",
+    b"\xfe\xff": "UTF-16",
+}
+
+
+def _parse_toml(path: Path) -> dict[str, Any]:
+    """Parse a TOML file as Windows editors save it too: a UTF-8 byte-order mark is dropped,
+    CRLF line ends are TOML; other encodings are refused with the fix."""
+    try:
+        data = path.read_bytes()
+    except OSError as err:
+        raise ConfigError(
+            f"configuration file '{path}' cannot be read ({err.strerror or err}); expected a "
+            "readable file; check its permissions"
+        ) from err
+    if data.startswith(_UTF8_BOM):
+        data = data[len(_UTF8_BOM) :]
+    encoding = next((name for mark, name in _OTHER_BOMS.items() if data.startswith(mark)), None)
+    if encoding is None and b"\x00" in data:
+        encoding = "UTF-16 or UTF-32"  # NUL bytes are never TOML text: a mark-less UTF-16 file
+    if encoding is not None:
+        raise ConfigError(
+            f"configuration file '{path}' is saved as {encoding} text; expected UTF-8 "
+            "(TOML files are UTF-8); save it again with the encoding UTF-8"
+        )
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as err:
+        line = data[: err.start].count(b"\n") + 1
+        raise ConfigError(
+            f"configuration file '{path}' is not UTF-8 text (byte 0x{data[err.start]:02x} on "
+            f"line {line}; a Windows code page such as cp1252?); expected UTF-8 (TOML files are "
+            "UTF-8); save it again with the encoding UTF-8"
+        ) from err
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ConfigError(f"configuration file '{path}' is not valid TOML: {err}") from err

@@ -89,3 +89,8 @@ class ClusterError(LakelossError, RuntimeError):
 
 class ImplausibleValuesWarning(LakelossWarning):
     """Values contradict their declared units, and a lenient run kept them as they are."""
+
+
+class TimeAlignedWarning(LakelossWarning):
+    """Variables stamped at different times of the same day (or days of the same month) were
+    aligned by calendar date (or month)."""

@@ -54,6 +54,7 @@ from lakeloss.errors import (
     ImplausibleValuesWarning,
     LakelossWarning,
     MissingInputError,
+    TimeAlignedWarning,
     ValuesAdjustedWarning,
 )
 from lakeloss.io import climate as climate_io
@@ -178,11 +179,13 @@ def load_inputs(config: RunConfig) -> Inputs:
             if item.quantity == "elevation":
                 continue
             fields[item.quantity] = _open_field(item, _read_steps(config))
+        axes = {q: timeaxis.from_times(f.times, f.calendar) for q, f in fields.items()}
+        axis = timeaxis.require_identical(axes)
+        note = timeaxis.alignment_note(axes)
+        if note:
+            warnings.warn(note, TimeAlignedWarning, stacklevel=2)
     recorded = [w for w in seen if issubclass(w.category, LakelossWarning)]
     caught.extend(str(w.message) for w in recorded)
-    axis = timeaxis.require_identical(
-        {q: timeaxis.from_times(f.times, f.calendar) for q, f in fields.items()}
-    )
     if config.output.period == "day" and axis.step == "month":
         raise ConfigError("[output].period = 'day' needs daily climate; these inputs are monthly")
     grids: dict[str, GridSpec] = {}

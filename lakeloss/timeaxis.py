@@ -1,12 +1,17 @@
 """The time axis of a run: steps, their lengths per calendar, and reporting periods.
 
 Pure: takes decoded time stamps (cftime datetimes, so ``noleap`` and ``360_day`` work) and
-returns descriptions of them. A run's variables must share one axis exactly
-(:func:`require_identical`); lakeloss never interpolates or re-aligns in time.
+returns descriptions of them. A run's variables must share one axis (:func:`require_identical`):
+the same calendar, step and calendar days or months; lakeloss never interpolates or resamples
+in time.
 
 Two step kinds exist: daily (stamps one day apart, all at the same time of day) and monthly
-(one stamp in each consecutive calendar month, on any day). Monthly values are daily
-rates, so a month's total is the rate times that month's calendar days (METHODS §7.6).
+(one stamp in each consecutive calendar month, on any day). A daily value belongs to the
+calendar date of its stamp and a monthly value to the calendar month of its stamp, so
+variables stamped at different times of that day (00:00 and 12:00) or on different days of
+that month (the 1st, the 15th, the last) share an axis; :func:`alignment_note` says when that
+happened. Monthly values are daily rates, so a month's total is the rate times that month's
+calendar days (METHODS §7.6).
 """
 
 from __future__ import annotations
@@ -149,8 +154,9 @@ def from_times(times, calendar: str) -> TimeAxis:
     Raises
     ------
     TimeAxisError
-        No stamps, unknown calendar, or spacing that is neither one day (at a constant time
-        of day) nor one calendar month; the message names the first irregular gap.
+        No stamps, unknown calendar, sub-daily steps, or spacing that is neither one day (at
+        a constant time of day) nor one calendar month; the message names the first
+        irregular gap.
 
     Notes
     -----
@@ -160,6 +166,12 @@ def from_times(times, calendar: str) -> TimeAxis:
     if stamps.size == 0:
         raise TimeAxisError("time axis has no time steps; expected at least one; check the file")
     cal = _canonical_calendar(calendar, stamps[0])
+    if stamps.size > 1 and 0.0 < _gap_days(stamps[0], stamps[1]) < 1.0:
+        raise TimeAxisError(
+            f"time steps are {_gap_days(stamps[0], stamps[1]) * 24.0:g} h apart (sub-daily, "
+            f"{stamps[0]} -> {stamps[1]}); expected daily or monthly steps; aggregate the file "
+            "to daily values first (daily means; daily totals for amounts)"
+        )
     if stamps.size == 1 or _gap_days(stamps[0], stamps[1]) == 1.0:
         _check_daily(stamps)
         return _daily_axis(stamps, cal)
@@ -317,6 +329,11 @@ def _parse_start(start: str, calendar: str):
 def require_identical(axes: Mapping[str, TimeAxis]) -> TimeAxis:
     """Return the one time axis all variables share, or explain how they differ.
 
+    Variables share an axis when calendar, step and the calendar date (daily steps) or
+    calendar month (monthly steps) of every step agree; the time of day and, for monthly
+    steps, the day of the month of the stamps may differ (:func:`alignment_note` describes
+    such an alignment).
+
     Parameters
     ----------
     axes : mapping of str to TimeAxis
@@ -325,39 +342,99 @@ def require_identical(axes: Mapping[str, TimeAxis]) -> TimeAxis:
     Returns
     -------
     TimeAxis
-        The first axis (all are identical).
+        The first variable's axis.
 
     Raises
     ------
     ConfigError
         The mapping is empty.
     TimeAxisError
-        Calendars, steps, stamp times or any step start differ; the message lists every
-        variable's axis, variables with the same axis together.
+        Calendars, steps or any step's date or month differ; stamps less than a day apart
+        that fall on different dates get a message of their own (a stamping convention to
+        fix); otherwise the message lists every variable's axis, variables with the same
+        axis together.
     """
     if not axes:
         raise ConfigError("no climate variables were given; expected at least one time axis")
     names = list(axes)
     reference = axes[names[0]]
-    if all(_same_axis(reference, axes[name]) for name in names[1:]):
+    if all(_same_steps(reference, axes[name]) for name in names[1:]):
         return reference
+    for name in names[1:]:
+        _refuse_offset_stamps(names[0], reference, name, axes[name])
     # Variables sharing an axis are named together, so the odd one out stands out.
     groups: dict[str, list[str]] = {}
     for name in names:
         groups.setdefault(axes[name].describe(), []).append(name)
     listing = "; ".join(f"{', '.join(group)}: {text}" for text, group in groups.items())
     raise TimeAxisError(
-        f"climate variables have different time axes ({listing}); expected identical calendar, "
-        "step, stamp time and dates; regrid or subset the files to a common axis"
+        f"climate variables have different time axes ({listing}); expected the same calendar, "
+        "step and dates; regrid or subset the files to a common axis"
     )
 
 
-def _same_axis(one: TimeAxis, other: TimeAxis) -> bool:
-    return (
-        one.calendar == other.calendar
-        and one.step == other.step
-        and one.hour == other.hour
-        and one.starts == other.starts
+def alignment_note(axes: Mapping[str, TimeAxis]) -> str | None:
+    """One line saying how variables with differently placed stamps were aligned, or None.
+
+    Parameters
+    ----------
+    axes : mapping of str to TimeAxis
+        Axes that :func:`require_identical` accepted.
+
+    Returns
+    -------
+    str or None
+        E.g. ``"daily steps aligned by calendar date (a value belongs to the day of its
+        stamp): air_temperature stamped 2031-01-01 00:00, ...; wind_speed stamped
+        2031-01-01 12:00, ..."``; None when every variable has the same stamps.
+    """
+    groups: dict[str, list[str]] = {}
+    for name, axis in axes.items():
+        groups.setdefault(_stamp_text(axis), []).append(name)
+    if len(groups) < 2:
+        return None
+    step = next(iter(axes.values())).step
+    how = (
+        "daily steps aligned by calendar date (a value belongs to the day of its stamp)"
+        if step == "day"
+        else "monthly steps aligned by calendar month (a value belongs to the month of its stamp)"
+    )
+    listing = "; ".join(f"{', '.join(group)} stamped {text}" for text, group in groups.items())
+    return f"{how}: {listing}"
+
+
+def _stamp_text(axis: TimeAxis) -> str:
+    shown = [_stamp_iso(t) for t in axis.times[:2]]
+    return ", ".join(shown) + (", ..." if len(axis.times) > 2 else "")
+
+
+def _stamp_iso(stamp) -> str:
+    return f"{_iso(stamp)} {stamp.hour:02d}:{stamp.minute:02d}"
+
+
+def _same_steps(one: TimeAxis, other: TimeAxis) -> bool:
+    # Daily starts are the stamps' dates, monthly starts the first of the stamps' months.
+    return one.calendar == other.calendar and one.step == other.step and one.starts == other.starts
+
+
+def _refuse_offset_stamps(name: str, axis: TimeAxis, other_name: str, other: TimeAxis) -> None:
+    """Refuse, with the fix, stamps that are less than a day (daily) or at most a day
+    (monthly) apart but fall on different dates or months: one file stamps the end of the
+    interval, the other its start or middle."""
+    if (axis.calendar, axis.step, len(axis)) != (other.calendar, other.step, len(other)):
+        return
+    hours = _gap_days(axis.times[0], other.times[0]) * 24.0
+    limit = 24.0 if axis.step == "day" else 24.0 + 1e-9
+    if not 0.0 < abs(hours) < limit:
+        return
+    later, earlier = (other_name, name) if hours > 0 else (name, other_name)
+    unit = "day" if axis.step == "day" else "month"
+    raise TimeAxisError(
+        f"{later} is stamped {abs(hours):g} h after {earlier} ({_stamp_iso(other.times[0])} "
+        f"against {_stamp_iso(axis.times[0])}) and so falls in another calendar {unit}; "
+        f"expected each stamp inside the {unit} its value describes; if {later}'s stamps mark "
+        f"the end of each {unit} (00:00 of the next), move them back by one day (for a "
+        "GeoTIFF stack, set start to the date the first band describes)"
     )
 
 

@@ -279,12 +279,13 @@ def test_monthly_file_holds_the_monthly_means(climate):
 def test_demo_config_points_at_the_demo_files(climate, layer):
     with (ROOT / "config" / "demo.toml").open("rb") as handle:
         config = tomllib.load(handle)
-    assert (ROOT / config["waterbodies"]["path"]).is_file()
+    # Relative paths are resolved against the configuration file's folder.
+    assert (ROOT / "config" / config["waterbodies"]["path"]).is_file()
     assert config["waterbodies"]["layer"] == "dams"
     assert config["waterbodies"]["id_field"] in layer.columns
     assert set(config["waterbodies"]["group_by"]) <= set(layer.columns)
     for source in config["climate"].values():
-        assert (ROOT / source["path"]).is_file()
+        assert (ROOT / "config" / source["path"]).is_file()
         assert source["variable"] in climate.data_vars
 
 

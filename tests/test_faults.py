@@ -38,9 +38,9 @@ def _demo_config(tmp_path: Path) -> Path:
     import tomllib
 
     raw = tomllib.loads((ROOT / "config" / "demo.toml").read_text())
-    raw["waterbodies"]["path"] = str(ROOT / raw["waterbodies"]["path"])
+    raw["waterbodies"]["path"] = str(ROOT / "config" / raw["waterbodies"]["path"])
     for entry in raw["climate"].values():
-        entry["path"] = str(ROOT / entry["path"])
+        entry["path"] = str(ROOT / "config" / entry["path"])
     raw["output"]["dir"] = str(tmp_path / "out")
     raw["compute"] = {"cache_dir": str(tmp_path / "cache"), "chunk_steps": 30}
     path = tmp_path / "run.toml"

@@ -1,4 +1,5 @@
-"""Time axes: step inference, calendars, month lengths, exact joins and reporting periods."""
+"""Time axes: step inference, calendars, month lengths, joins by calendar date or month, and
+reporting periods."""
 
 from __future__ import annotations
 
@@ -146,20 +147,73 @@ def test_count_steps():
     assert timeaxis.count_steps("2021-01-01", "2021-12-01", "month") == 12
 
 
-def test_require_identical_refuses_midnight_against_noon():
+def test_daily_midnight_and_noon_stamps_align_by_calendar_date():
+    # A daily mean stamped at 00:00 and one stamped at 12:00 describe the same day.
     midnight = timeaxis.from_times(_daily(3, hour=0.0), "standard")
     noon = timeaxis.from_times(_daily(3, hour=12.0), "standard")
+    axes = {"air_temperature": midnight, "wind_speed": noon, "relative_humidity": midnight}
+    assert timeaxis.require_identical(axes) is midnight
+    note = timeaxis.alignment_note(axes)
+    assert note == (
+        "daily steps aligned by calendar date (a value belongs to the day of its stamp): "
+        "air_temperature, relative_humidity stamped 2021-01-01 00:00, 2021-01-02 00:00, ...; "
+        "wind_speed stamped 2021-01-01 12:00, 2021-01-02 12:00, ..."
+    )
+    assert timeaxis.alignment_note({"a": noon, "b": noon}) is None
+
+
+def test_geotiff_start_date_only_aligns_with_noon_stamps():
+    # The README's GeoTIFF example (start = "2031-01-01") beside a file stamped at noon.
+    stack = timeaxis.from_start("2031-01-01", "day", 4)
+    netcdf = timeaxis.from_times(_daily(4, start="2031-01-01", hour=12.0), "standard")
+    assert timeaxis.require_identical({"tas": netcdf, "rsds": stack}).starts[0] == "2031-01-01"
+    assert "aligned by calendar date" in timeaxis.alignment_note({"tas": netcdf, "rsds": stack})
+
+
+@pytest.mark.parametrize("hours_later", [12.0, 14.0, 20.0])
+def test_stamps_that_fall_on_the_next_day_are_refused_with_the_fix(hours_later):
+    # One producer stamps a day at noon, another at the end of the day (00:00 of the next).
+    noon = timeaxis.from_times(_daily(3, hour=12.0), "standard")
+    later = timeaxis.from_times(_daily(3, hour=12.0 + hours_later), "standard")
     with pytest.raises(TimeAxisError) as info:
-        timeaxis.require_identical({"air_temperature": midnight, "wind_speed": noon})
+        timeaxis.require_identical({"air_temperature": noon, "precipitation": later})
     message = str(info.value)
-    assert (
-        "air_temperature: 2021-01-01..2021-01-03, daily, calendar standard, stamps at 00:00"
-        in message
-    )
-    assert (
-        "wind_speed: 2021-01-01..2021-01-03, daily, calendar standard, stamps at 12:00" in message
-    )
+    assert f"precipitation is stamped {hours_later:g} h after air_temperature" in message
+    assert "another calendar day" in message and "move them back by one day" in message
     assert "\n" not in message
+
+
+@pytest.mark.parametrize("day", [1, 15, 28])
+@pytest.mark.parametrize("hour", [0, 12])
+def test_monthly_stamps_on_any_day_align_by_calendar_month(day, hour):
+    first = timeaxis.from_times(_monthly(2031, range(1, 13), day=1), "standard")
+    ends = [
+        cftime.datetime(2031, m, timeaxis.month_length(2031, m, "standard"), calendar="standard")
+        for m in range(1, 13)
+    ]
+    month_end = timeaxis.from_times(ends, "standard")
+    other = timeaxis.from_times(_monthly(2031, range(1, 13), day=day, hour=hour), "standard")
+    axes = {"a": first, "b": other, "c": month_end}
+    assert timeaxis.require_identical(axes) is first
+    note = timeaxis.alignment_note(axes)
+    assert note.startswith("monthly steps aligned by calendar month")
+    assert "c stamped 2031-01-31 00:00, 2031-02-28 00:00, ..." in note
+
+
+def test_month_end_stamps_against_first_of_next_month_are_refused_with_the_fix():
+    ends = [
+        cftime.datetime(2031, m, timeaxis.month_length(2031, m, "standard"), calendar="standard")
+        for m in range(1, 4)
+    ]
+    next_first = timeaxis.from_times(_monthly(2031, range(2, 5), day=1), "standard")
+    with pytest.raises(TimeAxisError, match="24 h after.*another calendar month.*back by one"):
+        timeaxis.require_identical({"a": timeaxis.from_times(ends, "standard"), "b": next_first})
+
+
+def test_sub_daily_steps_are_refused_with_the_fix():
+    hourly = cftime.num2date(np.arange(48) / 24.0, "days since 2021-01-01", calendar="standard")
+    with pytest.raises(TimeAxisError, match=r"1 h apart \(sub-daily.*aggregate the file to daily"):
+        timeaxis.from_times(hourly, "standard")
 
 
 @pytest.mark.parametrize(
@@ -171,7 +225,7 @@ def test_require_identical_refuses_midnight_against_noon():
         timeaxis.from_start("2021-01-01", "month", 3),  # step
     ],
 )
-def test_require_identical_refuses_any_difference(other):
+def test_require_identical_refuses_any_other_difference(other):
     reference = timeaxis.from_start("2021-01-01", "day", 3)
     with pytest.raises(TimeAxisError, match="different time axes"):
         timeaxis.require_identical({"a": reference, "b": other})

@@ -275,14 +275,16 @@ def _file_crs(dataset: xr.Dataset, variable: str, path: Path) -> pyproj.CRS | No
         if name not in dataset.variables:
             raise CRSError(
                 f"{str(path)!r} variable {variable!r} names grid_mapping {name!r}, which is not "
-                "in the file; expected the grid-mapping variable; add it or set crs in [climate]"
+                "in the file; expected a grid-mapping variable of that name; add it to the file "
+                'or set crs = "EPSG:...." for this input in [climate]'
             )
         try:
             return _crs_from_attrs(dataset[name].attrs)
         except pyproj.exceptions.CRSError as err:
             raise CRSError(
                 f"{str(path)!r} grid mapping {name!r} cannot be read as a CRS ({err}); expected "
-                "CF grid-mapping attributes or crs_wkt; set crs in [climate]"
+                'CF grid-mapping attributes or crs_wkt; set crs = "EPSG:...." for this input '
+                "in [climate]"
             ) from err
     for attrs in (data_attrs, dataset.attrs):
         if attrs.get("crs_wkt") or attrs.get("spatial_ref"):
@@ -291,9 +293,31 @@ def _file_crs(dataset: xr.Dataset, variable: str, path: Path) -> pyproj.CRS | No
             except pyproj.exceptions.CRSError as err:
                 raise CRSError(
                     f"{str(path)!r}: crs_wkt/spatial_ref attribute is not a CRS ({err}); "
-                    "set crs in [climate]"
+                    'set crs = "EPSG:...." for this input in [climate]'
                 ) from err
     return None
+
+
+def _file_crs_unless_overridden(
+    read: Callable[[], pyproj.CRS | None], crs: str | None, where: str
+) -> pyproj.CRS | None:
+    """The file's CRS; with a ``crs`` override, a broken one is set aside (and noted)."""
+    if crs is None:
+        return read()
+    try:
+        return read()
+    except CRSError as err:
+        warnings.warn(
+            f"{where}: the file's CRS is unusable ({_first_clause(err)}); used the configured "
+            f"crs {crs!r} instead",
+            AssumedCRSWarning,
+            stacklevel=4,
+        )
+        return None
+
+
+def _first_clause(err: Exception) -> str:
+    return str(err).split("; ")[0]
 
 
 def _is_geographic(dataset: xr.Dataset, roles: dict[str, str]) -> bool:
@@ -354,17 +378,25 @@ def _resolve_crs(
     where: str,
     looked_for: str = "no grid_mapping, crs_wkt or lat/lon coordinates",
 ):
-    """Return (CRS, assumed) from the file's CRS, the lat/lon default and the override."""
-    override = None if crs is None else _parse_override(crs)
-    if found is not None:
-        if override is not None and not found.equals(override, ignore_axis_order=True):
-            raise ConfigError(
+    """Return (CRS, assumed) from the override, the file's CRS and the lat/lon default.
+
+    A configured ``crs`` wins over whatever the file says; when the file declares another
+    CRS, the override is used and a warning names both.
+    """
+    if crs is not None:
+        override = _parse_override(crs)
+        if found is not None and found.equals(override, ignore_axis_order=True):
+            return found, False
+        if found is not None:
+            warnings.warn(
                 f"{where} declares CRS '{crs_label(found)}' but [climate] crs is {crs!r}; "
-                "expected them to agree; remove the crs setting or fix the file"
+                "used the configured crs",
+                AssumedCRSWarning,
+                stacklevel=3,
             )
-        return found, False
-    if override is not None:
         return override, True
+    if found is not None:
+        return found, False
     if geographic:
         warnings.warn(
             f"{where} has latitude/longitude coordinates but no grid_mapping; assumed EPSG:4326",
@@ -429,7 +461,8 @@ def open_netcdf(
     units : str, optional
         Unit to use instead of the variable's ``units`` attribute.
     crs : str, optional
-        CRS for a file that has none (must agree with the file's when it has one).
+        CRS to use instead of the file's: it wins over a missing, broken or different CRS
+        in the file (a different or broken one is warned about).
     chunk_steps : int
         Time steps per dask chunk.
 
@@ -446,7 +479,8 @@ def open_netcdf(
     GridError
         Dimensions not recognisable as time, y and x; coordinates missing or not monotonic.
     CRSError
-        No CRS, no lat/lon coordinates and no override.
+        No CRS, no lat/lon coordinates and no override; or, without an override, a
+        grid_mapping naming an absent variable or a CRS that cannot be read.
     UnitsError
         No units, or units that cannot express the quantity.
     TimeAxisError
@@ -455,7 +489,8 @@ def open_netcdf(
     Warns
     -----
     AssumedCRSWarning
-        EPSG:4326 was assumed for lat/lon coordinates without a grid mapping.
+        EPSG:4326 was assumed for lat/lon coordinates without a grid mapping, or the
+        ``crs`` override replaced a broken or different CRS in the file.
     """
     source = Path(path)
     name = _glossary_name(quantity)
@@ -486,7 +521,7 @@ def _netcdf_field(
     data, roles = _to_time_y_x(dataset, variable)
     times, calendar = _decode_times(dataset, roles["time"], source)
     axis = _named_axis(lambda: timeaxis.from_times(times, calendar), where)
-    found = _file_crs(dataset, variable, source)
+    found = _file_crs_unless_overridden(lambda: _file_crs(dataset, variable, source), crs, where)
     field_crs, assumed = _resolve_crs(found, _is_geographic(dataset, roles), crs, where)
     declared = _source_units(data.attrs.get("units"), units, where, name)
     _probe(data, source)
@@ -559,6 +594,18 @@ def _geotiff_axis(start: str, step: str, count: int, calendar: str, end: str | N
     return axis
 
 
+def _geotiff_crs(wkt: str | None, where: str) -> pyproj.CRS | None:
+    if wkt is None:
+        return None
+    try:
+        return pyproj.CRS.from_wkt(wkt)
+    except pyproj.exceptions.CRSError as err:
+        raise CRSError(
+            f"{where} has a coordinate system pyproj cannot read ({err}); expected a valid "
+            'CRS; set crs = "EPSG:...." for this input in [climate]'
+        ) from err
+
+
 def _cell_centres(transform: affine.Affine, width: int, height: int, where: str):
     if transform.b != 0 or transform.d != 0:
         raise GridError(
@@ -599,7 +646,8 @@ def open_geotiff_stack(
     calendar : str
         CF calendar of the band dates.
     crs : str, optional
-        CRS for a file that has none (must agree with the file's when it has one).
+        CRS to use instead of the file's: it wins over a missing, broken or different CRS
+        in the file (a different or broken one is warned about).
     end : str, optional
         ISO date of the last band, checked against the band count.
     chunk_steps : int
@@ -631,12 +679,13 @@ def open_geotiff_stack(
             count, height, width = src.count, src.height, src.width
             transform, nodata = src.transform, src.nodata
             dtype = np.result_type(src.dtypes[0], np.float32).name
-            file_crs = None if src.crs is None else pyproj.CRS.from_wkt(src.crs.to_wkt())
+            file_wkt = None if src.crs is None else src.crs.to_wkt()
             tagged = _declared_units(src)
     except (rasterio.errors.RasterioError, OSError, ValueError) as err:
         raise _unreadable(source, "GeoTIFF", err) from err
     declared = _source_units(tagged, units, where, name)
     axis = _geotiff_axis(start, step, count, calendar, end, where)
+    file_crs = _file_crs_unless_overridden(lambda: _geotiff_crs(file_wkt, where), crs, where)
     field_crs, assumed = _resolve_crs(
         file_crs, False, crs, where, looked_for="no coordinate system in its georeferencing"
     )

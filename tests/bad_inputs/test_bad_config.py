@@ -7,6 +7,7 @@ Every mistake is caught before any input is read or output written.
 from __future__ import annotations
 
 import pytest
+import tomli_w
 from bad_inputs.corpus import Outcome, assert_refused, refused_everywhere
 from click.testing import CliRunner
 
@@ -200,4 +201,66 @@ def test_configuration_path_is_a_directory(case):
     for command in ("check", "run"):
         outcome = _invoke_file(command, case.tmp / "settings.toml")
         assert_refused(outcome, "settings.toml", "is a directory", "TOML file")
+    assert not case.out.exists()
+
+
+# --------------------------------------------------------------------------- file and folder
+
+
+def _relative_config(case) -> dict:
+    """The clean case with every path written relative to a config in ``case.tmp/configs``."""
+    config = case.copy_config()
+    config["waterbodies"]["path"] = "../ponds.gpkg"
+    for entry in config["climate"].values():
+        entry["path"] = "../climate.nc"
+    config["output"]["dir"] = "../out"
+    config["compute"]["cache_dir"] = "../cache"
+    return config
+
+
+def test_config_in_another_folder_run_from_another_directory(case, monkeypatch):
+    (case.tmp / "configs").mkdir()
+    path = case.tmp / "configs" / "run.toml"
+    path.write_text(tomli_w.dumps(_relative_config(case)))
+    # Two levels down: "../ponds.gpkg" from here would be elsewhere/ponds.gpkg (absent).
+    (case.tmp / "elsewhere" / "deeper").mkdir(parents=True)
+    monkeypatch.chdir(case.tmp / "elsewhere" / "deeper")
+    for command in ("check", "run"):
+        outcome = _invoke_file(command, path)
+        assert outcome.code == 0, outcome.stderr
+    assert (case.out / "waterbodies.gpkg").is_file()
+    assert list((case.tmp / "elsewhere").rglob("*")) == [case.tmp / "elsewhere" / "deeper"]
+
+
+def test_missing_relative_input_names_the_config_folder(case, monkeypatch):
+    (case.tmp / "configs").mkdir()
+    config = _relative_config(case)
+    config["climate"]["air_temperature"]["path"] = "climate.nc"  # the folder holds none
+    path = case.tmp / "configs" / "run.toml"
+    path.write_text(tomli_w.dumps(config))
+    monkeypatch.chdir(case.tmp)  # where climate.nc is: the old rule would have found it
+    for command in ("check", "run"):
+        assert_refused(
+            _invoke_file(command, path),
+            "[climate].air_temperature.path 'climate.nc' does not exist",
+            f"resolved against the config file's folder: {case.tmp / 'configs' / 'climate.nc'}",
+            "exists in the current directory",
+        )
+    assert not case.out.exists()
+
+
+def test_config_saved_by_a_windows_editor_runs(case):
+    path = case.tmp / "run.toml"
+    text = "# saved by a Windows editor\n" + tomli_w.dumps(case.config)
+    path.write_bytes(b"\xef\xbb\xbf" + text.replace("\n", "\r\n").encode("utf-8"))
+    outcome = _invoke_file("run", path)
+    assert outcome.code == 0, outcome.stderr
+    assert (case.out / "run.json").is_file()
+
+
+def test_config_saved_as_utf16_is_refused_in_one_line(case):
+    path = case.tmp / "run.toml"
+    path.write_bytes(tomli_w.dumps(case.config).replace("\n", "\r\n").encode("utf-16"))
+    for command in ("check", "run"):
+        assert_refused(_invoke_file(command, path), "run.toml", "UTF-16", "UTF-8")
     assert not case.out.exists()

@@ -155,6 +155,31 @@ def test_climate_grid_without_crs_or_lat_lon(case):
     refused_everywhere(case, "no CRS", "set crs")
 
 
+def _climate_with_dangling_grid_mapping(case) -> None:
+    # The grid_mapping attribute names a variable the file lacks (as a tool that copies
+    # variables one by one leaves it).
+    ds = climate_dataset(TIMES, BASE_FIELDS).drop_vars("crs")
+    for name in ds.data_vars:
+        ds[name].attrs["grid_mapping"] = "lambert_conformal"
+    case.write_climate(ds)
+
+
+def test_dangling_grid_mapping_names_the_variable_and_the_crs_fix(case):
+    _climate_with_dangling_grid_mapping(case)
+    refused_everywhere(case, "'lambert_conformal', which is not in the file", "set crs =")
+
+
+@pytest.mark.filterwarnings("always::lakeloss.errors.LakelossWarning")
+def test_crs_setting_wins_over_a_dangling_grid_mapping(case):
+    _climate_with_dangling_grid_mapping(case)
+    for entry in case.config["climate"].values():
+        entry["crs"] = "EPSG:4326"
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    recorded = json.loads((case.out / "run.json").read_text())["warnings"]
+    assert sum("used the configured crs 'EPSG:4326'" in w for w in recorded) == 4, recorded
+
+
 def test_layer_that_does_not_overlap_the_grid(case):
     # The same ponds 3 degrees further north: the grid is 0.4 x 0.3 degrees.
     ds = climate_dataset(TIMES, BASE_FIELDS, lat=LAT + 3.0)
@@ -248,7 +273,6 @@ def test_variable_without_a_time_dimension(case):
     [
         ("waterbodies", "EPSG:99999999", ("[waterbodies] crs", "EPSG:99999999", "not a CRS")),
         ("climate", "not a crs", ("climate crs", "'not a crs'", "not a CRS")),
-        ("climate", "EPSG:32755", ("declares CRS", "'EPSG:32755'", "agree")),
     ],
 )
 def test_crs_setting_that_is_unusable_or_contradicts_the_file(case, section, crs, words):
@@ -258,3 +282,16 @@ def test_crs_setting_that_is_unusable_or_contradicts_the_file(case, section, crs
         case.climate_entry("air_temperature")["crs"] = crs
     line = refused_everywhere(case, *words)
     assert "{" not in line  # CRSs are named briefly, not as PROJJSON
+
+
+@pytest.mark.filterwarnings("always::lakeloss.errors.LakelossWarning")
+def test_climate_crs_setting_wins_over_the_files_crs_and_says_so(case):
+    # The file's grid mapping is WGS 84; the entry says GDA94 (as a user who knows the
+    # provider's metadata is wrong would): the setting is used, and run.json says so.
+    case.climate_entry("air_temperature")["crs"] = "EPSG:4283"
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    recorded = json.loads((case.out / "run.json").read_text())["warnings"]
+    (note,) = [w for w in recorded if "used the configured crs" in w]
+    assert "'tas'" in note and "declares CRS 'unnamed geographic CRS" in note
+    assert "[climate] crs is 'EPSG:4283'" in note and "{" not in note

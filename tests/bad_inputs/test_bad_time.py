@@ -1,15 +1,20 @@
 """Time axes that disagree between variables, and GeoTIFF stacks whose band count does not
-match their dates. lakeloss never aligns or resamples inputs silently: it refuses them.
+match their dates. lakeloss never resamples inputs: axes that differ in calendar, step or
+dates are refused. Daily stamps at other times of the same day (monthly: other days of the
+same month) are aligned by calendar date (month), and run.json says so.
 """
 
 from __future__ import annotations
 
+import json
+
 import cftime
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 import pytest
 from bad_inputs.corpus import BASE_FIELDS, TIMES, refused_everywhere
-from builders import climate_dataset, temperature_stack
+from builders import climate_dataset, temperature_stack, write_geotiff
 
 TEMPERATURE = {"tas": BASE_FIELDS["tas"]}
 
@@ -19,7 +24,6 @@ OTHER_AXES = {
     "later-start": pd.date_range("2031-01-02", periods=4, freq="D"),
     "shorter": pd.date_range("2031-01-01", periods=3, freq="D"),
     "monthly": pd.date_range("2031-01-01", periods=4, freq="MS"),
-    "noon-stamps": pd.date_range("2031-01-01 12:00", periods=4, freq="D"),
     "noleap-calendar": np.array([cftime.DatetimeNoLeap(2031, 1, d) for d in range(1, 5)]),
 }
 
@@ -88,3 +92,80 @@ def test_daily_output_from_monthly_inputs(case):
     case.write_climate(climate_dataset(months, BASE_FIELDS))
     case.config["output"]["period"] = "day"
     refused_everywhere(case, "period = 'day'", "monthly")
+
+
+# --------------------------------------------------------------------------- stamp conventions
+
+# Air temperature that changes from day to day (so a step paired with another day would show).
+DAILY_KELVIN = np.array([293.15, 298.15, 303.15, 288.15])[:, None, None]
+
+
+def _temperature() -> dict:
+    return {"tas": (DAILY_KELVIN, "K", "air_temperature")}
+
+
+def _evaporation(case) -> list[float]:
+    return gpd.read_file(case.out / "waterbodies.gpkg")["evap_mm"].tolist()
+
+
+def _reference_run(case) -> list[float]:
+    case.write_climate(climate_dataset(TIMES, _temperature()), "tas_ref.nc")
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "tas_ref.nc")
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    return _evaporation(case)
+
+
+@pytest.mark.filterwarnings("always::lakeloss.errors.LakelossWarning")
+def test_noon_stamps_beside_midnight_stamps_align_by_date_and_say_so(case):
+    expected = _reference_run(case)
+    noon = pd.date_range("2031-01-01 12:00", periods=4, freq="D")
+    case.write_climate(climate_dataset(noon, _temperature()), "tas_noon.nc")
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "tas_noon.nc")
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    assert "warning: daily steps aligned by calendar date" in outcome.stderr
+    recorded = json.loads((case.out / "run.json").read_text())["warnings"]
+    note = next(w for w in recorded if "aligned by calendar date" in w)
+    assert "air_temperature stamped 2031-01-01 12:00" in note
+    assert "wind_speed stamped 2031-01-01 00:00" in note
+    assert _evaporation(case) == expected
+
+
+@pytest.mark.filterwarnings("always::lakeloss.errors.LakelossWarning")
+def test_geotiff_with_start_date_only_beside_noon_stamped_netcdf(case):
+    # The README's GeoTIFF example: start = "2031-01-01", no time of day; the NetCDF files
+    # of the other variables are stamped at noon (as the demo's are).
+    expected = _reference_run(case)
+    noon = pd.date_range("2031-01-01 12:00", periods=4, freq="D")
+    case.write_climate(climate_dataset(noon, BASE_FIELDS))
+    write_geotiff(case.tmp / "tas.tif", np.broadcast_to(DAILY_KELVIN, (4, 6, 8)), "K")
+    case.config["climate"]["air_temperature"] = {
+        "path": str(case.tmp / "tas.tif"),
+        "start": "2031-01-01",
+        "step": "day",
+    }
+    outcome = case.invoke("run")
+    assert outcome.code == 0, outcome.stderr
+    recorded = json.loads((case.out / "run.json").read_text())["warnings"]
+    assert any("air_temperature stamped 2031-01-01 00:00" in w for w in recorded), recorded
+    assert _evaporation(case) == expected
+
+
+def test_end_of_day_stamps_are_refused_with_the_fix(case):
+    # 00:00 of the next day for each day's value, beside stamps at 12:00.
+    noon = pd.date_range("2031-01-01 12:00", periods=4, freq="D")
+    case.write_climate(climate_dataset(noon, BASE_FIELDS))
+    ends = pd.date_range("2031-01-02", periods=4, freq="D")
+    case.write_climate(climate_dataset(ends, _temperature()), "tas_end.nc")
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "tas_end.nc")
+    refused_everywhere(
+        case, "air_temperature is stamped 12 h after", "another calendar day", "back by one day"
+    )
+
+
+def test_hourly_file_is_refused_with_the_fix(case):
+    hours = pd.date_range("2031-01-01", periods=96, freq="h")
+    case.write_climate(climate_dataset(hours, TEMPERATURE), "tas_hourly.nc")
+    case.climate_entry("air_temperature")["path"] = str(case.tmp / "tas_hourly.nc")
+    refused_everywhere(case, "tas_hourly.nc", "1 h apart (sub-daily", "aggregate the file to daily")

@@ -124,10 +124,19 @@ def test_projected_grid_without_crs_needs_override(tmp_path, build):
     assert field.crs_assumed and field.crs.to_epsg() == 32755
 
 
-def test_override_contradicting_grid_mapping_is_refused(tmp_path, build):
+def test_override_wins_over_a_different_grid_mapping_and_says_so(tmp_path, build):
     path = build.write_netcdf(_projected_dataset(build, _kelvin_cube()), tmp_path / "utm.nc")
-    with pytest.raises(ConfigError, match="agree"):
-        open_netcdf(path, "tas", "air_temperature", crs="EPSG:4326")
+    with pytest.warns(AssumedCRSWarning, match="declares CRS 'EPSG:32755'.*used the configured"):
+        field = open_netcdf(path, "tas", "air_temperature", crs="EPSG:32756")
+    assert field.crs.to_epsg() == 32756 and field.crs_assumed
+
+
+def test_override_agreeing_with_the_file_is_silent(tmp_path, build):
+    path = build.write_netcdf(_projected_dataset(build, _kelvin_cube()), tmp_path / "utm.nc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        field = open_netcdf(path, "tas", "air_temperature", crs="EPSG:32755")
+    assert field.crs.to_epsg() == 32755 and not field.crs_assumed
 
 
 def test_missing_variable_lists_variables(tmp_path, build):
@@ -345,11 +354,39 @@ def test_spatial_ref_attribute_gives_crs(tmp_path, build):
     assert field.crs.to_epsg() == 32755 and not field.crs_assumed
 
 
-def test_grid_mapping_naming_absent_variable_is_crs_error(tmp_path, build):
+def _broken_mapping_file(tmp_path, build, mapping="transverse_mercator"):
+    # As some regridding tools leave it: the attribute survives, the variable it names not.
     dataset = _projected_dataset(build, _kelvin_cube(), grid_mapping=False)
-    dataset["tas"].attrs["grid_mapping"] = "transverse_mercator"
-    with pytest.raises(CRSError, match="'transverse_mercator', which is not in the file"):
-        open_netcdf(build.write_netcdf(dataset, tmp_path / "utm.nc"), "tas", "air_temperature")
+    dataset["tas"].attrs["grid_mapping"] = mapping
+    return build.write_netcdf(dataset, tmp_path / "utm.nc")
+
+
+def test_grid_mapping_naming_absent_variable_is_crs_error_naming_the_fix(tmp_path, build):
+    path = _broken_mapping_file(tmp_path, build)
+    with pytest.raises(CRSError, match="'transverse_mercator', which is not in the file") as err:
+        open_netcdf(path, "tas", "air_temperature")
+    assert 'set crs = "EPSG:...."' in str(err.value) and "\n" not in str(err.value)
+
+
+@pytest.mark.parametrize("mapping", ["transverse_mercator", "crs: x y"])
+def test_crs_override_wins_over_a_broken_grid_mapping(tmp_path, build, mapping):
+    path = _broken_mapping_file(tmp_path, build, mapping)
+    with pytest.warns(AssumedCRSWarning, match="CRS is unusable.*used the configured crs"):
+        field = open_netcdf(path, "tas", "air_temperature", crs="EPSG:32755")
+    assert field.crs.to_epsg() == 32755 and field.crs_assumed
+    np.testing.assert_allclose(field.x, [500_000.0, 501_000.0])
+
+
+def test_crs_override_wins_over_an_unreadable_grid_mapping(tmp_path, build):
+    dataset = _projected_dataset(build, _kelvin_cube(), grid_mapping=False)
+    dataset["crs"] = xr.DataArray(np.int32(0), attrs={"grid_mapping_name": "no_such_projection"})
+    dataset["tas"].attrs["grid_mapping"] = "crs"
+    path = build.write_netcdf(dataset, tmp_path / "utm.nc")
+    with pytest.raises(CRSError, match="cannot be read as a CRS.*set crs ="):
+        open_netcdf(path, "tas", "air_temperature")
+    with pytest.warns(AssumedCRSWarning, match="CRS is unusable"):
+        field = open_netcdf(path, "tas", "air_temperature", crs="EPSG:32755")
+    assert field.crs.to_epsg() == 32755
 
 
 def test_geotiff_chunks_follow_chunk_steps(tmp_path, build):
