@@ -9,13 +9,16 @@ time axis gives the same bits.
 
 from __future__ import annotations
 
+import copy
 import threading
+import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from lakeloss.gaps import BlockGaps, GapTally, count_block, fill_short_gaps, halo_needed
 from lakeloss.physics import registry
 from lakeloss.zonal import ZonalWeights
 
@@ -31,6 +34,7 @@ class PeriodSums:
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
     steps: int = 0
+    gaps: GapTally | None = None
 
     def for_members(self, member_of: np.ndarray) -> PeriodSums:
         """The sums of every body from those of its group (``member_of``: group per body)."""
@@ -42,6 +46,7 @@ class PeriodSums:
             negatives=self.negatives,
             negatives_per_body=self.negatives_per_body[member_of],
             steps=self.steps,
+            gaps=None if self.gaps is None else self.gaps.for_members(member_of),
         )
 
 
@@ -65,6 +70,8 @@ class BlockContext:
     keep_series: bool = False
     body_count: np.ndarray | None = None
     """Bodies each column stands for (:mod:`lakeloss.distinct`); None: one each."""
+    max_gap_steps: int = 0
+    """Longest gap in a body's climate filled by interpolation (:mod:`lakeloss.gaps`)."""
 
 
 @dataclass
@@ -81,6 +88,7 @@ class BlockResult:
     negatives_per_body: np.ndarray
     steps: int
     series: dict[str, np.ndarray] | None = None
+    gaps: BlockGaps | None = None
 
 
 def extract_block(
@@ -101,8 +109,7 @@ def extract_block(
         # weights is a fixed cost per call, large at 10^6 bodies. Each output row is
         # computed exactly as it would be alone.
         stacked = np.concatenate([v for _, v in items], axis=0)
-        buffer = _thread_buffer(grid_key, (weights[grid_key].n_waterbodies, stacked.shape[0]))
-        mean, valid = weights[grid_key].apply(stacked, out=buffer)
+        mean, valid = _apply_by_mask(weights[grid_key], grid_key, stacked)
         steps = items[0][1].shape[0]
         for k, (quantity, _) in enumerate(items):
             means[quantity] = mean[k * steps : (k + 1) * steps]
@@ -113,6 +120,47 @@ def extract_block(
 
 
 _BUFFERS = threading.local()
+# Weights objects kept per missing-cell mask (each caches its renormalised weights), per
+# thread: a few masks recur (a land mask per variable, a gap day), so a handful suffices.
+_MASKS_KEPT = 4
+
+
+def _apply_by_mask(
+    weights: ZonalWeights, grid_key: str, stacked: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Zonal means of ``stacked`` (rows, ny, nx), each row as it would be computed alone.
+
+    Rows that share one missing-cell mask go through one product with the weights
+    renormalised for that mask, so a row's numbers depend only on its own cells, never on
+    the other rows of the block: a gap day, or a variable with another nodata mask, gives
+    the same bits however the time axis is cut into blocks.
+    """
+    rows = stacked.shape[0]
+    finite = np.isfinite(stacked.reshape(rows, -1))
+    if rows == 0 or (finite == finite[0]).all():
+        buffer = _thread_buffer(grid_key, (weights.n_waterbodies, rows))
+        return weights.apply(stacked, out=buffer)
+    packed = np.packbits(finite, axis=1)
+    masks, which = np.unique(packed, axis=0, return_inverse=True)
+    mean = np.empty((rows, weights.n_waterbodies))
+    valid = np.empty((rows, weights.n_waterbodies))
+    for k in range(len(masks)):
+        chosen = np.flatnonzero(which.ravel() == k)
+        same_mask = _weights_for_mask(weights, grid_key, masks[k].tobytes())
+        mean[chosen], valid[chosen] = same_mask.apply(stacked[chosen])
+    return mean, valid
+
+
+def _weights_for_mask(weights: ZonalWeights, grid_key: str, mask: bytes) -> ZonalWeights:
+    """A shallow copy of ``weights`` kept for one mask, so its cached plan is not rebuilt."""
+    store = _BUFFERS.__dict__.setdefault("masks", {})
+    key = (grid_key, id(weights), mask)
+    entry = store.get(key)
+    if entry is None or entry[0]() is not weights:  # an id may be reused by new weights
+        if len(store) >= _MASKS_KEPT:
+            store.pop(next(iter(store)))
+        entry = store[key] = (weakref.ref(weights), copy.copy(weights))
+    return entry[1]
 
 
 def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
@@ -127,6 +175,59 @@ def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
     if buffer is None or buffer.shape != shape:
         buffer = store[grid_key] = np.empty(shape)
     return buffer
+
+
+def extract_filled(
+    context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
+) -> tuple[dict[str, np.ndarray], np.ndarray, BlockGaps]:
+    """:func:`extract_block` with the short gaps of every variable filled, and counted.
+
+    When a gap touches an edge of the block, up to ``max_gap_steps`` steps on that side
+    are read too, so the block sees the gap's neighbours as a run in one block would.
+    """
+    means, valid = extract_block(context, weights, block)
+    limit = context.max_gap_steps
+    filled: dict[str, np.ndarray] = {}
+    if limit > 0:
+        needs = [halo_needed(v, limit) for v in means.values()]
+        wanted = (any(n[0] for n in needs), any(n[1] for n in needs))
+        if any(wanted):
+            # Copies first: reading the halo may reuse this thread's buffers.
+            means = {q: np.array(v) for q, v in means.items()}
+            valid = np.array(valid)
+        before, after = _halo_means(context, weights, block, wanted)
+        for quantity, values in means.items():
+            head = before.get(quantity, values[:0])
+            window = np.concatenate([head, values, after.get(quantity, values[:0])])
+            out, mask = fill_short_gaps(window, limit)
+            if mask.any():
+                steps = slice(len(head), len(head) + len(values))
+                means[quantity], filled[quantity] = out[steps], mask[steps]
+    return means, valid, count_block(filled, means, context.body_count)
+
+
+def _halo_means(
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    block: slice,
+    wanted: tuple[bool, bool],
+) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+    """The means of up to ``max_gap_steps`` steps before and after ``block``, if wanted.
+
+    Wanted only where a gap touches the block's edge (:func:`lakeloss.gaps.halo_needed`),
+    which is almost no block.
+    """
+    limit = context.max_gap_steps
+    sides = (
+        slice(max(0, block.start - limit), block.start),
+        slice(block.stop, min(len(context.days), block.stop + limit)),
+    )
+    out: list[dict[str, np.ndarray]] = [{}, {}]
+    for k, side in enumerate(sides):
+        if wanted[k] and side.stop > side.start:
+            read = extract_block(context, weights, side)[0]
+            out[k] = {q: np.array(v) for q, v in read.items()}
+    return out[0], out[1]
 
 
 def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndarray, str]]:
@@ -229,7 +330,7 @@ def compute_block(
     A pure function of its arguments: the same block gives the same numbers wherever it
     runs, which is what makes local and cluster runs identical.
     """
-    means, valid = extract_block(context, weights, block)
+    means, valid, gaps = extract_filled(context, weights, block)
     rates = evaporate_block(context, means, static, context.day_of_year[block])
     days = context.days[block][:, None]
     index = context.period_index[block]
@@ -266,6 +367,7 @@ def compute_block(
         negatives_per_body=negatives_per_body,
         steps=block.stop - block.start,
         series=series,
+        gaps=gaps,
     )
 
 
@@ -279,6 +381,7 @@ class RunningSums:
     coverage_sum: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
+    gaps: GapTally
     steps: int = 0
 
     def finish(self) -> PeriodSums:
@@ -291,6 +394,7 @@ class RunningSums:
             negatives=self.negatives,
             negatives_per_body=self.negatives_per_body,
             steps=self.steps,
+            gaps=self.gaps,
         )
 
 
@@ -305,10 +409,12 @@ def merge_block(sums: RunningSums, part: BlockResult) -> None:
     sums.coverage_sum += part.coverage_sum
     sums.negatives_per_body += part.negatives_per_body
     sums.steps += part.steps
+    if part.gaps is not None:
+        sums.gaps.add(part.block, part.gaps)
 
 
-def new_sums(methods: tuple[str, ...], n_periods: int, n: int) -> RunningSums:
-    """Zero sums for ``methods`` over (period, water body)."""
+def new_sums(methods: tuple[str, ...], n_periods: int, n: int, n_steps: int = 0) -> RunningSums:
+    """Zero sums for ``methods`` over (period, water body), and no gaps over ``n_steps``."""
     return RunningSums(
         depth={m: FixedSums.zeros(n_periods, n) for m in methods},
         precip=FixedSums.zeros(n_periods, n),
@@ -316,4 +422,5 @@ def new_sums(methods: tuple[str, ...], n_periods: int, n: int) -> RunningSums:
         coverage_sum=np.zeros(n, dtype=np.int64),
         negatives={},
         negatives_per_body=np.zeros(n, dtype=np.int64),
+        gaps=GapTally(n_steps, n),
     )

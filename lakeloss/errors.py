@@ -89,3 +89,11 @@ class ClusterError(LakelossError, RuntimeError):
 
 class ImplausibleValuesWarning(LakelossWarning):
     """Values contradict their declared units, and a lenient run kept them as they are."""
+
+
+class ClimateGapsWarning(LakelossWarning):
+    """Climate missing over gaps too long to fill: some periods have no result."""
+
+
+class NoResultError(InputDataError):
+    """No water body got a result (all outside the grid, or without valid climate)."""
