@@ -31,6 +31,7 @@ class PeriodSums:
     precip: np.ndarray
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
+    covered_steps: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
     steps: int = 0
@@ -43,6 +44,7 @@ class PeriodSums:
             precip=self.precip[:, member_of],
             valid_steps=self.valid_steps[:, member_of],
             coverage_sum=self.coverage_sum[member_of],
+            covered_steps=self.covered_steps[member_of],
             negatives=self.negatives,
             negatives_per_body=self.negatives_per_body[member_of],
             steps=self.steps,
@@ -84,6 +86,7 @@ class BlockResult:
     precip: FixedSums | None
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
+    covered_steps: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
     steps: int
@@ -363,6 +366,7 @@ def compute_block(
         precip=precip_sums,
         valid_steps=_segment_sums(finite, index)[1],
         coverage_sum=_to_fixed(valid).sum(axis=0),
+        covered_steps=(valid > 0).sum(axis=0),
         negatives=negatives,
         negatives_per_body=negatives_per_body,
         steps=block.stop - block.start,
@@ -379,6 +383,7 @@ class RunningSums:
     precip: FixedSums
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
+    covered_steps: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
     gaps: GapTally
@@ -391,6 +396,7 @@ class RunningSums:
             precip=self.precip.value(),
             valid_steps=self.valid_steps,
             coverage_sum=self.coverage_sum / _FIXED_POINT_SCALE,
+            covered_steps=self.covered_steps,
             negatives=self.negatives,
             negatives_per_body=self.negatives_per_body,
             steps=self.steps,
@@ -407,6 +413,7 @@ def merge_block(sums: RunningSums, part: BlockResult) -> None:
         sums.precip.add(part.periods, part.precip)
     sums.valid_steps[part.periods] += part.valid_steps
     sums.coverage_sum += part.coverage_sum
+    sums.covered_steps += part.covered_steps
     sums.negatives_per_body += part.negatives_per_body
     sums.steps += part.steps
     if part.gaps is not None:
@@ -420,6 +427,7 @@ def new_sums(methods: tuple[str, ...], n_periods: int, n: int, n_steps: int = 0)
         precip=FixedSums.zeros(n_periods, n),
         valid_steps=np.zeros((n_periods, n), dtype=np.int64),
         coverage_sum=np.zeros(n, dtype=np.int64),
+        covered_steps=np.zeros(n, dtype=np.int64),
         negatives={},
         negatives_per_body=np.zeros(n, dtype=np.int64),
         gaps=GapTally(n_steps, n),

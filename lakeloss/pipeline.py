@@ -594,14 +594,15 @@ def _stages(
 
 
 def refuse_empty(result: Any) -> None:
-    """Raise :class:`NoResultError` when no water body has a result (nothing to write)."""
+    """Raise :class:`NoResultError` when no water body has a result for any period."""
     bodies = result.waterbodies
-    if bodies["evap_mm"].notna().any():
+    if result.provenance["counts"]["without_any_result"] < len(bodies):
         return
     flags = result.provenance["counts"]["qa_flags"]
     reasons = ", ".join(f"{count} {flag}" for flag, count in flags.items()) or "no flag"
     raise NoResultError(
-        f"none of the {len(bodies)} water bodies has an evaporation result ({reasons}); "
+        f"none of the {len(bodies)} water bodies has an evaporation result for any period "
+        f"({reasons}); "
         "nothing was written; check that the climate covers the layer and has values over "
         "the whole run (see the warnings above)"
     )

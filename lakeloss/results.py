@@ -184,7 +184,10 @@ def _flags(
     valid_steps = sums.valid_steps.sum(axis=0)
     no_climate = valid_steps == 0
     gaps = (valid_steps > 0) & (valid_steps < sums.steps)
-    partial = (coverage > 0.0) & (coverage < _COVERAGE_FLAG_BELOW)
+    # Judged over the steps with data: a day missing on the whole grid is a gap (flagged as
+    # such), not a part of the polygon without climate.
+    spatial = first.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
+    partial = (coverage > 0.0) & (spatial < _COVERAGE_FLAG_BELOW)
     negative = sums.negatives_per_body > 0
     negative_token = (
         "negative_rates_clipped"
@@ -477,6 +480,9 @@ def assemble(
             "time_steps": int(len(inputs.axis.days)),
             "flagged": int((flags != "").sum()),
             "without_result": int(bodies["evap_mm"].isna().sum()),
+            "without_any_result": int(
+                (~np.isfinite(sums.depth[config.method.name]).any(axis=0)).sum()
+            ),
             "qa_flags": flag_counts(flags),
             "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
             "filled_climate_steps": int(filled_steps.sum()),
@@ -520,12 +526,22 @@ def summary_line(result: RunResult, target: Path) -> str:
     span = f"{periods['period_start'].iloc[0]}..{periods['period_end'].iloc[-1]}"
     over = f"over {days} days" if years < 0.95 else f"over {years:.1f} years"
     per_year = f", {total / years:,.0f} m3 per year" if years >= 1.5 else ""
-    return (
-        f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "
-        f"{total:,.0f} m3 evaporated {over}{per_year} ({result.config.method.name}) "
-        f"by the {with_result} with a result; {counts['without_result']} without a result; "
-        f"{counts['flagged']} flagged; outputs in {target}"
+    head = f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "
+    method = result.config.method.name
+    volume = (
+        f"{total:,.0f} m3 evaporated {over}{per_year} ({method}) "
+        f"by the {with_result} with a whole-run result"
+        if with_result
+        else f"no whole-run evaporation volume ({method})"
     )
+    return f"{head}{volume}; {without_result(counts)}; {counts['flagged']} flagged; outputs in {target}"
+
+
+def without_result(counts: Mapping[str, Any]) -> str:
+    """How many bodies have no whole-run result, and how many of those have some periods."""
+    text = f"{counts['without_result']} without"
+    some = int(counts["without_result"]) - int(counts["without_any_result"])
+    return text + (f" ({some} of them with results for some periods)" if some else "")
 
 
 def flag_notes(result: RunResult, examples: int = 5) -> list[str]:
