@@ -125,7 +125,7 @@ def extract_block(
 _BUFFERS = threading.local()
 # Weights objects kept per missing-cell mask (each caches its renormalised weights), per
 # thread: a few masks recur (a land mask per variable, a gap day), so a handful suffices.
-_MASKS_KEPT = 4
+_MASKS_KEPT = 8
 
 
 def _apply_by_mask(

@@ -256,3 +256,22 @@ def test_monthly_data_is_not_filled_by_default(tmp_path):
     assert march["evap_mm"].isna().all()
     assert result.by_period["evap_mm"].notna().sum() == 5 * len(result.waterbodies)
     json.dumps(result.provenance["climate_gaps"])  # plain JSON
+
+
+def test_a_step_has_the_same_zonal_means_in_any_block(runs):
+    # A block holding a gap day (or a day missing on part of the grid) must not change the
+    # zonal means of its other days: each day's means are computed with the weights
+    # renormalised for that day's own missing cells, never for the block's.
+    from lakeloss.blocks import extract_block
+    from lakeloss.pipeline import block_context, build_weights, load_inputs
+
+    _, gappy, _ = runs
+    config = load_config(gappy)
+    inputs = load_inputs(config)
+    weights, _ = build_weights(config, inputs)
+    context = block_context(config, inputs)
+    whole, _ = extract_block(context, weights, slice(0, 40))
+    for step in (9, 11, 29, 31):  # beside the whole-grid and the half-grid gap days
+        alone, _ = extract_block(context, weights, slice(step, step + 1))
+        for name, values in alone.items():
+            np.testing.assert_array_equal(values[0], whole[name][step], strict=True)
