@@ -96,12 +96,15 @@ class BlockResult:
 
 def extract_block(
     context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
-) -> tuple[dict[str, np.ndarray], np.ndarray]:
+) -> tuple[dict[str, np.ndarray], np.ndarray, set[str]]:
     """Area-weighted means of every variable for one block of time steps.
 
-    Returns the means, shape (time, water body), by glossary name, and the smallest
-    valid-area fraction over the variables (the share of each body with valid climate).
+    Returns the means, shape (time, water body), by glossary name; the smallest
+    valid-area fraction over the variables (the share of each body with valid climate);
+    and the variables whose missing cells are the same at every step of the block (then a
+    body's mean is missing at every step or at none, which spares the search for gaps).
     """
+    steady: set[str] = set()
     means: dict[str, np.ndarray] = {}
     valid_min: np.ndarray | None = None
     by_grid: dict[str, list[tuple[str, np.ndarray]]] = {}
@@ -112,14 +115,16 @@ def extract_block(
         # weights is a fixed cost per call, large at 10^6 bodies. Each output row is
         # computed exactly as it would be alone.
         stacked = np.concatenate([v for _, v in items], axis=0)
-        mean, valid = _apply_by_mask(weights[grid_key], grid_key, stacked)
         steps = items[0][1].shape[0]
+        mean, valid, same = _apply_by_mask(weights[grid_key], grid_key, stacked, steps)
         for k, (quantity, _) in enumerate(items):
+            if same[k]:
+                steady.add(quantity)
             means[quantity] = mean[k * steps : (k + 1) * steps]
             rows = valid[k * steps : (k + 1) * steps]
             valid_min = rows if valid_min is None else np.minimum(valid_min, rows)
     assert valid_min is not None  # load_inputs guarantees at least one field
-    return means, valid_min
+    return means, valid_min, steady
 
 
 _BUFFERS = threading.local()
@@ -129,20 +134,22 @@ _MASKS_KEPT = 8
 
 
 def _apply_by_mask(
-    weights: ZonalWeights, grid_key: str, stacked: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
+    weights: ZonalWeights, grid_key: str, stacked: np.ndarray, steps: int
+) -> tuple[np.ndarray, np.ndarray, list[bool]]:
     """Zonal means of ``stacked`` (rows, ny, nx), each row as it would be computed alone.
 
     Rows that share one missing-cell mask go through one product with the weights
     renormalised for that mask, so a row's numbers depend only on its own cells, never on
     the other rows of the block: a gap day, or a variable with another nodata mask, gives
-    the same bits however the time axis is cut into blocks.
+    the same bits however the time axis is cut into blocks. Also says, for each variable
+    (``steps`` rows each), whether its mask is the same at all its steps.
     """
     rows = stacked.shape[0]
     finite = np.isfinite(stacked.reshape(rows, -1))
     if rows == 0 or (finite == finite[0]).all():
         buffer = _thread_buffer(grid_key, (weights.n_waterbodies, rows))
-        return weights.apply(stacked, out=buffer)
+        return (*weights.apply(stacked, out=buffer), [True] * max(rows // max(steps, 1), 1))
+    same = [bool((finite[k : k + steps] == finite[k]).all()) for k in range(0, rows, steps)]
     packed = np.packbits(finite, axis=1)
     masks, which = np.unique(packed, axis=0, return_inverse=True)
     mean = np.empty((rows, weights.n_waterbodies))
@@ -151,7 +158,7 @@ def _apply_by_mask(
         chosen = np.flatnonzero(which.ravel() == k)
         same_mask = _weights_for_mask(weights, grid_key, masks[k].tobytes())
         mean[chosen], valid[chosen] = same_mask.apply(stacked[chosen])
-    return mean, valid
+    return mean, valid, same
 
 
 def _weights_for_mask(weights: ZonalWeights, grid_key: str, mask: bytes) -> ZonalWeights:
@@ -188,11 +195,11 @@ def extract_filled(
     When a gap touches an edge of the block, up to ``max_gap_steps`` steps on that side
     are read too, so the block sees the gap's neighbours as a run in one block would.
     """
-    means, valid = extract_block(context, weights, block)
+    means, valid, steady = extract_block(context, weights, block)
     limit = context.max_gap_steps
     filled: dict[str, np.ndarray] = {}
     if limit > 0:
-        needs = [halo_needed(v, limit) for v in means.values()]
+        needs = [halo_needed(v, limit, q in steady) for q, v in means.items()]
         wanted = (any(n[0] for n in needs), any(n[1] for n in needs))
         if any(wanted):
             # Copies first: reading the halo may reuse this thread's buffers.
@@ -201,12 +208,14 @@ def extract_filled(
         before, after = _halo_means(context, weights, block, wanted)
         for quantity, values in means.items():
             head = before.get(quantity, values[:0])
-            window = np.concatenate([head, values, after.get(quantity, values[:0])])
-            out, mask = fill_short_gaps(window, limit)
+            tail = after.get(quantity, values[:0])
+            if quantity in steady and not (len(head) or len(tail)):
+                continue  # each body missing at every step or at none: nothing to fill
+            out, mask = fill_short_gaps(np.concatenate([head, values, tail]), limit)
             if mask.any():
                 steps = slice(len(head), len(head) + len(values))
                 means[quantity], filled[quantity] = out[steps], mask[steps]
-    return means, valid, count_block(filled, means, context.body_count)
+    return means, valid, count_block(filled, means, steady, context.body_count)
 
 
 def _halo_means(

@@ -74,22 +74,37 @@ def fill_short_gaps(values: np.ndarray, limit: int) -> tuple[np.ndarray, np.ndar
     return filled, was_filled
 
 
-def halo_needed(values: np.ndarray, limit: int) -> tuple[bool, bool]:
+def halo_needed(values: np.ndarray, limit: int, steady: bool = False) -> tuple[bool, bool]:
     """Whether filling this block needs the steps before it, and the steps after it.
 
     Only a run of missing steps touching an edge of the block, and at most ``limit`` long
     inside it, may be a short gap whose neighbour lies outside; a longer one is long
     wherever it ends. ``limit`` steps on that side then hold the neighbour, or show that
-    the run is longer than ``limit``.
+    the run is longer than ``limit``. Reads only the ``limit + 1`` steps at each edge, or
+    the first step when ``steady`` (the block's missing cells the same at every step, so
+    a body is missing at all its steps or at none).
     """
     if limit <= 0 or values.size == 0:
         return False, False
-    finite = np.isfinite(values)
     steps = values.shape[0]
-    has = finite.any(axis=0)
-    lead = np.where(has, np.argmax(finite, axis=0), steps)
-    trail = np.where(has, np.argmax(finite[::-1], axis=0), steps)
-    return bool(((lead > 0) & (lead <= limit)).any()), bool(((trail > 0) & (trail <= limit)).any())
+    if steady:
+        need = steps <= limit and bool(np.isnan(values[0]).any())
+        return need, need
+
+    def short_run_at(first: np.ndarray, edge: np.ndarray) -> bool:
+        # Missing at the edge, and valid again within the edge's steps (or the block is
+        # no longer than ``limit``, so even a run over all of it may be short).
+        missing = np.isnan(first)
+        if not missing.any():
+            return False
+        if steps <= limit:
+            return True
+        return bool((missing & np.isfinite(edge).any(axis=0)).any())
+
+    return (
+        short_run_at(values[0], values[1 : limit + 1]),
+        short_run_at(values[-1], values[-limit - 1 : -1]),
+    )
 
 
 @dataclass
@@ -108,22 +123,39 @@ class BlockGaps:
 def count_block(
     filled: Mapping[str, np.ndarray],
     means: Mapping[str, np.ndarray],
+    steady: set[str],
     body_count: np.ndarray | None,
 ) -> BlockGaps:
-    """Count the filled and the still missing means of one block (after filling)."""
-    n = next(iter(means.values())).shape[1]
+    """Count the filled and the still missing means of one block (after filling).
+
+    For a variable in ``steady`` (same missing cells at every step) a body is missing at
+    every step or at none, so its first step says all; the others are searched in full,
+    only over the bodies missing somewhere.
+    """
+    steps, n = next(iter(means.values())).shape
     weight = np.ones(n, dtype=np.int64) if body_count is None else body_count
-    any_filled = np.zeros(next(iter(means.values())).shape, dtype=bool)
-    out = BlockGaps(filled_per_body=np.zeros(n, dtype=np.int64))
+    any_filled = np.zeros(n, dtype=np.int64)
+    out = BlockGaps(filled_per_body=any_filled)
     for name, values in means.items():
+        if name in steady and name not in filled:
+            missing_cols = np.flatnonzero(np.isnan(values[0]))
+            per_body = np.zeros(n, dtype=np.int64)
+            per_body[missing_cols] = steps
+            out.missing_per_body[name] = per_body
+            out.missing_at_step[name] = np.full(steps, int(weight[missing_cols].sum()), np.int64)
+            continue
         missing = np.isnan(values)
-        out.missing_per_body[name] = missing.sum(axis=0)
-        out.missing_at_step[name] = missing.astype(np.int64) @ weight
-        mask = filled.get(name)
-        if mask is not None:
-            any_filled |= mask
-            out.filled_at_step[name] = mask.astype(np.int64) @ weight
-    out.filled_per_body = any_filled.sum(axis=0)
+        columns = np.flatnonzero(missing.any(axis=0))
+        per_body = np.zeros(n, dtype=np.int64)
+        per_body[columns] = np.count_nonzero(missing[:, columns], axis=0)
+        out.missing_per_body[name] = per_body
+        out.missing_at_step[name] = missing[:, columns].astype(np.int64) @ weight[columns]
+    if filled:
+        mask = np.logical_or.reduce([m for m in filled.values()])
+        columns = np.flatnonzero(mask.any(axis=0))
+        any_filled[columns] = np.count_nonzero(mask[:, columns], axis=0)
+        for name, was_filled in filled.items():
+            out.filled_at_step[name] = was_filled[:, columns].astype(np.int64) @ weight[columns]
     return out
 
 

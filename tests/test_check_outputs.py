@@ -90,7 +90,9 @@ def test_whole_grid_gaps_are_reported(case, days, limit, word):
     assert f"2031-01-0{days[0] + 1}" in line and word in line
     last = outcome.stdout.splitlines()[-1]
     filled = word.startswith("filled")
-    assert last == "all inputs checked: ready to run" + ("" if filled else ", with the warnings above")
+    assert last == "all inputs checked: ready to run" + (
+        "" if filled else ", with the warnings above"
+    )
 
 
 def test_clean_inputs_report_no_gap(case):
