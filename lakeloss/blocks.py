@@ -145,10 +145,13 @@ def _apply_by_mask(
     (``steps`` rows each), whether its mask is the same at all its steps.
     """
     rows = stacked.shape[0]
+    buffer = _thread_buffer(grid_key, (weights.n_waterbodies, rows))
+    mean, valid = weights.apply(stacked, out=buffer)
+    # The usual case: the same missing cells at every step, where the zonal engine returns
+    # the valid fraction as a broadcast view of one row (documented in ZonalWeights.apply).
+    if rows <= 1 or valid.strides[0] == 0:
+        return mean, valid, [True] * max(rows // max(steps, 1), 1)
     finite = np.isfinite(stacked.reshape(rows, -1))
-    if rows == 0 or (finite == finite[0]).all():
-        buffer = _thread_buffer(grid_key, (weights.n_waterbodies, rows))
-        return (*weights.apply(stacked, out=buffer), [True] * max(rows // max(steps, 1), 1))
     same = [bool((finite[k : k + steps] == finite[k]).all()) for k in range(0, rows, steps)]
     packed = np.packbits(finite, axis=1)
     masks, which = np.unique(packed, axis=0, return_inverse=True)
