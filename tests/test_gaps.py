@@ -277,3 +277,19 @@ def test_a_step_has_the_same_zonal_means_in_any_block(runs):
         alone = extract_block(context, weights, slice(step, step + 1))[0]
         for name, values in alone.items():
             np.testing.assert_array_equal(values[0], whole[name][step], strict=True)
+
+
+@shows_warnings
+def test_a_local_cluster_fills_the_same(runs):
+    # Two real worker processes, blocks of 7 steps: the gaps across block boundaries are
+    # filled on workers that each read their own halo.
+    _, gappy, _ = runs
+    reference = _run(gappy, chunk_steps=40)
+    result = _run(gappy, chunk_steps=7, workers=2)
+    pd.testing.assert_frame_equal(
+        result.waterbodies.drop(columns="geometry"),
+        reference.waterbodies.drop(columns="geometry"),
+        check_exact=True,
+    )
+    pd.testing.assert_frame_equal(result.by_period, reference.by_period, check_exact=True)
+    assert result.provenance["climate_gaps"] == reference.provenance["climate_gaps"]
