@@ -247,3 +247,8 @@ def date_ranges(starts: tuple[str, ...], mask: np.ndarray, at_most: int = 5) -> 
     if len(runs) > at_most:
         parts.append(f"and {len(runs) - at_most} more")
     return ", ".join(parts)
+
+
+def steps_text(count: int) -> str:
+    """``1 time step`` / ``5 time steps``."""
+    return f"{count} time step" + ("" if count == 1 else "s")

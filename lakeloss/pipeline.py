@@ -58,7 +58,7 @@ from lakeloss.errors import (
     NoResultError,
     ValuesAdjustedWarning,
 )
-from lakeloss.gaps import DEFAULT_LIMIT, GapReport
+from lakeloss.gaps import DEFAULT_LIMIT, GapReport, steps_text
 from lakeloss.gaps import report as gap_report
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
@@ -521,8 +521,9 @@ def gap_warnings(gaps: GapReport) -> list[str]:
     messages = []
     for name, gap in gaps.long.items():
         message = (
-            f"{name} is missing for {gap['bodies']} water bodies at {gap['steps']} time "
-            f"steps ({gap['dates']}), in gaps longer than [checks] max_gap_steps = {gaps.limit} "
+            f"{name} is missing for {gap['bodies']} water bodies at "
+            f"{steps_text(int(gap['steps']))} ({gap['dates']}), in gaps longer than [checks] "
+            f"max_gap_steps = {gaps.limit} "
             "or at the start or end of the data; those bodies have no total for the run "
             "nor for the periods with a gap (flagged climate_gaps)"
         )

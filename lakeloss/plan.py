@@ -18,7 +18,7 @@ import shapely
 
 from lakeloss.config import RunConfig
 from lakeloss.distinct import inputs_used
-from lakeloss.gaps import date_ranges, fill_short_gaps
+from lakeloss.gaps import date_ranges, fill_short_gaps, steps_text
 from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import (
     Inputs,
@@ -173,14 +173,14 @@ def grid_gaps(config: RunConfig, inputs: Inputs) -> list[str]:
         if short.any():
             lines.append(
                 f"gap          : {item.quantity} missing on the whole grid at "
-                f"{int(short.sum())} steps ({date_ranges(starts, short)}): filled by linear "
+                f"{steps_text(int(short.sum()))} ({date_ranges(starts, short)}): filled by linear "
                 f"interpolation in time ([checks] max_gap_steps = {limit}), flagged "
                 "climate_gaps_filled"
             )
         if (mask & ~short).any():
             lines.append(
                 f"warning      : {item.quantity} missing on the whole grid at "
-                f"{int((mask & ~short).sum())} steps ({date_ranges(starts, mask & ~short)}), "
+                f"{steps_text(int((mask & ~short).sum()))} ({date_ranges(starts, mask & ~short)}), "
                 f"longer than [checks] max_gap_steps = {limit} or at the start or end of the "
                 "data: no result for the periods holding them nor for the whole run"
             )
