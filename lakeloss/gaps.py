@@ -17,6 +17,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -199,9 +200,9 @@ class GapReport:
 
     filled_steps_per_body: np.ndarray
     """``(n,)`` time steps at which some variable was filled, per body."""
-    filled: dict[str, dict[str, object]]
+    filled: dict[str, dict[str, Any]]
     """Per variable: filled ``steps`` (time steps), ``values`` (body-steps), ``dates``."""
-    long: dict[str, dict[str, object]]
+    long: dict[str, dict[str, Any]]
     """Per variable with gaps left missing: ``steps``, ``bodies``, ``dates``."""
     limit: int
     """The ``max_gap_steps`` of the run."""
