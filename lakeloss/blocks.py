@@ -9,13 +9,16 @@ time axis gives the same bits.
 
 from __future__ import annotations
 
+import copy
 import threading
+import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from lakeloss.gaps import BlockGaps, GapTally, count_block, fill_short_gaps, halo_needed
 from lakeloss.physics import registry
 from lakeloss.zonal import ZonalWeights
 
@@ -28,9 +31,11 @@ class PeriodSums:
     precip: np.ndarray
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
+    covered_steps: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
     steps: int = 0
+    gaps: GapTally | None = None
 
     def for_members(self, member_of: np.ndarray) -> PeriodSums:
         """The sums of every body from those of its group (``member_of``: group per body)."""
@@ -39,9 +44,11 @@ class PeriodSums:
             precip=self.precip[:, member_of],
             valid_steps=self.valid_steps[:, member_of],
             coverage_sum=self.coverage_sum[member_of],
+            covered_steps=self.covered_steps[member_of],
             negatives=self.negatives,
             negatives_per_body=self.negatives_per_body[member_of],
             steps=self.steps,
+            gaps=None if self.gaps is None else self.gaps.for_members(member_of),
         )
 
 
@@ -65,6 +72,8 @@ class BlockContext:
     keep_series: bool = False
     body_count: np.ndarray | None = None
     """Bodies each column stands for (:mod:`lakeloss.distinct`); None: one each."""
+    max_gap_steps: int = 0
+    """Longest gap in a body's climate filled by interpolation (:mod:`lakeloss.gaps`)."""
 
 
 @dataclass
@@ -77,20 +86,25 @@ class BlockResult:
     precip: FixedSums | None
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
+    covered_steps: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
     steps: int
     series: dict[str, np.ndarray] | None = None
+    gaps: BlockGaps | None = None
 
 
 def extract_block(
     context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
-) -> tuple[dict[str, np.ndarray], np.ndarray]:
+) -> tuple[dict[str, np.ndarray], np.ndarray, set[str]]:
     """Area-weighted means of every variable for one block of time steps.
 
-    Returns the means, shape (time, water body), by glossary name, and the smallest
-    valid-area fraction over the variables (the share of each body with valid climate).
+    Returns the means, shape (time, water body), by glossary name; the smallest
+    valid-area fraction over the variables (the share of each body with valid climate);
+    and the variables whose missing cells are the same at every step of the block (then a
+    body's mean is missing at every step or at none, which spares the search for gaps).
     """
+    steady: set[str] = set()
     means: dict[str, np.ndarray] = {}
     valid_min: np.ndarray | None = None
     by_grid: dict[str, list[tuple[str, np.ndarray]]] = {}
@@ -101,18 +115,65 @@ def extract_block(
         # weights is a fixed cost per call, large at 10^6 bodies. Each output row is
         # computed exactly as it would be alone.
         stacked = np.concatenate([v for _, v in items], axis=0)
-        buffer = _thread_buffer(grid_key, (weights[grid_key].n_waterbodies, stacked.shape[0]))
-        mean, valid = weights[grid_key].apply(stacked, out=buffer)
         steps = items[0][1].shape[0]
+        mean, valid, same = _apply_by_mask(weights[grid_key], grid_key, stacked, steps)
         for k, (quantity, _) in enumerate(items):
+            if same[k]:
+                steady.add(quantity)
             means[quantity] = mean[k * steps : (k + 1) * steps]
             rows = valid[k * steps : (k + 1) * steps]
             valid_min = rows if valid_min is None else np.minimum(valid_min, rows)
     assert valid_min is not None  # load_inputs guarantees at least one field
-    return means, valid_min
+    return means, valid_min, steady
 
 
 _BUFFERS = threading.local()
+# Weights objects kept per missing-cell mask (each caches its renormalised weights), per
+# thread: a few masks recur (a land mask per variable, a gap day), so a handful suffices.
+_MASKS_KEPT = 8
+
+
+def _apply_by_mask(
+    weights: ZonalWeights, grid_key: str, stacked: np.ndarray, steps: int
+) -> tuple[np.ndarray, np.ndarray, list[bool]]:
+    """Zonal means of ``stacked`` (rows, ny, nx), each row as it would be computed alone.
+
+    Rows that share one missing-cell mask go through one product with the weights
+    renormalised for that mask, so a row's numbers depend only on its own cells, never on
+    the other rows of the block: a gap day, or a variable with another nodata mask, gives
+    the same bits however the time axis is cut into blocks. Also says, for each variable
+    (``steps`` rows each), whether its mask is the same at all its steps.
+    """
+    rows = stacked.shape[0]
+    buffer = _thread_buffer(grid_key, (weights.n_waterbodies, rows))
+    mean, valid = weights.apply(stacked, out=buffer)
+    # The usual case: the same missing cells at every step, where the zonal engine returns
+    # the valid fraction as a broadcast view of one row (documented in ZonalWeights.apply).
+    if rows <= 1 or valid.strides[0] == 0:
+        return mean, valid, [True] * max(rows // max(steps, 1), 1)
+    finite = np.isfinite(stacked.reshape(rows, -1))
+    same = [bool((finite[k : k + steps] == finite[k]).all()) for k in range(0, rows, steps)]
+    packed = np.packbits(finite, axis=1)
+    masks, which = np.unique(packed, axis=0, return_inverse=True)
+    mean = np.empty((rows, weights.n_waterbodies))
+    valid = np.empty((rows, weights.n_waterbodies))
+    for k in range(len(masks)):
+        chosen = np.flatnonzero(which.ravel() == k)
+        same_mask = _weights_for_mask(weights, grid_key, masks[k].tobytes())
+        mean[chosen], valid[chosen] = same_mask.apply(stacked[chosen])
+    return mean, valid, same
+
+
+def _weights_for_mask(weights: ZonalWeights, grid_key: str, mask: bytes) -> ZonalWeights:
+    """A shallow copy of ``weights`` kept for one mask, so its cached plan is not rebuilt."""
+    store = _BUFFERS.__dict__.setdefault("masks", {})
+    key = (grid_key, id(weights), mask)
+    entry = store.get(key)
+    if entry is None or entry[0]() is not weights:  # an id may be reused by new weights
+        if len(store) >= _MASKS_KEPT:
+            store.pop(next(iter(store)))
+        entry = store[key] = (weakref.ref(weights), copy.copy(weights))
+    return entry[1]
 
 
 def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
@@ -127,6 +188,61 @@ def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
     if buffer is None or buffer.shape != shape:
         buffer = store[grid_key] = np.empty(shape)
     return buffer
+
+
+def extract_filled(
+    context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
+) -> tuple[dict[str, np.ndarray], np.ndarray, BlockGaps]:
+    """:func:`extract_block` with the short gaps of every variable filled, and counted.
+
+    When a gap touches an edge of the block, up to ``max_gap_steps`` steps on that side
+    are read too, so the block sees the gap's neighbours as a run in one block would.
+    """
+    means, valid, steady = extract_block(context, weights, block)
+    limit = context.max_gap_steps
+    filled: dict[str, np.ndarray] = {}
+    if limit > 0:
+        needs = [halo_needed(v, limit, q in steady) for q, v in means.items()]
+        wanted = (any(n[0] for n in needs), any(n[1] for n in needs))
+        if any(wanted):
+            # Copies first: reading the halo may reuse this thread's buffers.
+            means = {q: np.array(v) for q, v in means.items()}
+            valid = np.array(valid)
+        before, after = _halo_means(context, weights, block, wanted)
+        for quantity, values in means.items():
+            head = before.get(quantity, values[:0])
+            tail = after.get(quantity, values[:0])
+            if quantity in steady and not (len(head) or len(tail)):
+                continue  # each body missing at every step or at none: nothing to fill
+            out, mask = fill_short_gaps(np.concatenate([head, values, tail]), limit)
+            if mask.any():
+                steps = slice(len(head), len(head) + len(values))
+                means[quantity], filled[quantity] = out[steps], mask[steps]
+    return means, valid, count_block(filled, means, steady, context.body_count)
+
+
+def _halo_means(
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    block: slice,
+    wanted: tuple[bool, bool],
+) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+    """The means of up to ``max_gap_steps`` steps before and after ``block``, if wanted.
+
+    Wanted only where a gap touches the block's edge (:func:`lakeloss.gaps.halo_needed`),
+    which is almost no block.
+    """
+    limit = context.max_gap_steps
+    sides = (
+        slice(max(0, block.start - limit), block.start),
+        slice(block.stop, min(len(context.days), block.stop + limit)),
+    )
+    out: list[dict[str, np.ndarray]] = [{}, {}]
+    for k, side in enumerate(sides):
+        if wanted[k] and side.stop > side.start:
+            read = extract_block(context, weights, side)[0]
+            out[k] = {q: np.array(v) for q, v in read.items()}
+    return out[0], out[1]
 
 
 def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndarray, str]]:
@@ -229,7 +345,7 @@ def compute_block(
     A pure function of its arguments: the same block gives the same numbers wherever it
     runs, which is what makes local and cluster runs identical.
     """
-    means, valid = extract_block(context, weights, block)
+    means, valid, gaps = extract_filled(context, weights, block)
     rates = evaporate_block(context, means, static, context.day_of_year[block])
     days = context.days[block][:, None]
     index = context.period_index[block]
@@ -262,10 +378,12 @@ def compute_block(
         precip=precip_sums,
         valid_steps=_segment_sums(finite, index)[1],
         coverage_sum=_to_fixed(valid).sum(axis=0),
+        covered_steps=(valid > 0).sum(axis=0),
         negatives=negatives,
         negatives_per_body=negatives_per_body,
         steps=block.stop - block.start,
         series=series,
+        gaps=gaps,
     )
 
 
@@ -277,8 +395,10 @@ class RunningSums:
     precip: FixedSums
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
+    covered_steps: np.ndarray
     negatives: dict[str, int]
     negatives_per_body: np.ndarray
+    gaps: GapTally
     steps: int = 0
 
     def finish(self) -> PeriodSums:
@@ -288,9 +408,11 @@ class RunningSums:
             precip=self.precip.value(),
             valid_steps=self.valid_steps,
             coverage_sum=self.coverage_sum / _FIXED_POINT_SCALE,
+            covered_steps=self.covered_steps,
             negatives=self.negatives,
             negatives_per_body=self.negatives_per_body,
             steps=self.steps,
+            gaps=self.gaps,
         )
 
 
@@ -303,17 +425,22 @@ def merge_block(sums: RunningSums, part: BlockResult) -> None:
         sums.precip.add(part.periods, part.precip)
     sums.valid_steps[part.periods] += part.valid_steps
     sums.coverage_sum += part.coverage_sum
+    sums.covered_steps += part.covered_steps
     sums.negatives_per_body += part.negatives_per_body
     sums.steps += part.steps
+    if part.gaps is not None:
+        sums.gaps.add(part.block, part.gaps)
 
 
-def new_sums(methods: tuple[str, ...], n_periods: int, n: int) -> RunningSums:
-    """Zero sums for ``methods`` over (period, water body)."""
+def new_sums(methods: tuple[str, ...], n_periods: int, n: int, n_steps: int = 0) -> RunningSums:
+    """Zero sums for ``methods`` over (period, water body), and no gaps over ``n_steps``."""
     return RunningSums(
         depth={m: FixedSums.zeros(n_periods, n) for m in methods},
         precip=FixedSums.zeros(n_periods, n),
         valid_steps=np.zeros((n_periods, n), dtype=np.int64),
         coverage_sum=np.zeros(n, dtype=np.int64),
+        covered_steps=np.zeros(n, dtype=np.int64),
         negatives={},
         negatives_per_body=np.zeros(n, dtype=np.int64),
+        gaps=GapTally(n_steps, n),
     )

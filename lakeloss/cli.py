@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import functools
 import logging
+import os
 import sys
 import warnings
 from collections.abc import Callable
@@ -21,6 +22,12 @@ EXIT_USER_ERROR = 2
 EXIT_UNEXPECTED = 1
 
 
+# Libraries that log progress at INFO (a dask cluster prints some 30 lines starting up);
+# kept at WARNING unless -v. Worker processes read the environment variable.
+_LIBRARY_LOGGERS = ("distributed", "dask", "tornado", "asyncio", "bokeh", "rasterio", "pyogrio")
+_DASK_LOGGING = "DASK_LOGGING__DISTRIBUTED"
+
+
 def _configure_logging(verbose: int, quiet: bool) -> None:
     level = (
         logging.WARNING
@@ -28,6 +35,14 @@ def _configure_logging(verbose: int, quiet: bool) -> None:
         else (logging.DEBUG if verbose > 1 else logging.INFO if verbose else logging.WARNING)
     )
     logging.basicConfig(level=level, stream=sys.stderr, format="%(levelname)s: %(message)s")
+    if level > logging.INFO:
+        os.environ.setdefault(_DASK_LOGGING, "warning")  # read by dask in every worker
+        if "dask" in sys.modules:  # already imported: its configuration was read
+            import dask
+
+            dask.config.set({"logging.distributed": os.environ[_DASK_LOGGING]})
+        for name in _LIBRARY_LOGGERS:
+            logging.getLogger(name).setLevel(logging.WARNING)
 
 
 def _show_warning(message: Any, category: Any, *args: Any, **kwargs: Any) -> None:
@@ -159,29 +174,27 @@ def run(
     """Compute evaporation for every water body and write the outputs."""
     from lakeloss.io.atomic import OutputDirectory
     from lakeloss.pipeline import run_stages
+    from lakeloss.results import flag_notes, summary_line
 
     config = _load(config_path, strict, workers, scheduler, chunk_steps)
     OutputDirectory(config.output.dir, overwrite=overwrite).check()  # fail before computing
     result = run_stages(config, progress=_progress(quiet))
     target = result.write(config.output.dir, overwrite=overwrite, progress=_progress(quiet))
     if not quiet:
-        counts = result.provenance["counts"]
-        total = float(result.waterbodies["evap_m3"].sum())
-        click.echo(
-            f"{counts['waterbodies']} water bodies, {counts['periods']} periods, "
-            f"{total:,.0f} m3 evaporated ({config.method.name}); "
-            f"{counts['flagged']} flagged; outputs in {target}",
-            err=True,
-        )
+        for note in flag_notes(result):
+            click.echo(f"note: {note}", err=True)
+        click.echo(summary_line(result, target))  # the result: stdout; the rest: stderr
 
 
 @cli.command()
 @click.argument("config_path", metavar="CONFIG", type=click.Path())
+@click.option("--overwrite", is_flag=True, help="Accept an existing output directory (as run).")
 @_execution
 @_verbosity
 @_guarded
 def check(
     config_path: str,
+    overwrite: bool,
     workers: int | None,
     scheduler: str | None,
     chunk_steps: int | None,
@@ -189,10 +202,12 @@ def check(
     verbose: int,
     quiet: bool,
 ) -> None:
-    """Validate every input and print the plan, without computing."""
+    """Validate every input and the output directory, and print the plan, without computing."""
+    from lakeloss.io.atomic import OutputDirectory
     from lakeloss.plan import make_plan
 
     config = _load(config_path, strict, workers, scheduler, chunk_steps)
+    OutputDirectory(config.output.dir, overwrite=overwrite).check()  # as run refuses it
     plan = make_plan(config)
     click.echo(plan.describe())
 

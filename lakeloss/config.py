@@ -109,6 +109,9 @@ class RunConfig:
     output: OutputConfig
     compute: ComputeConfig = field(default_factory=ComputeConfig)
     strict: bool = True
+    max_gap_steps: int | None = None
+    """``[checks] max_gap_steps``: longest climate gap filled by interpolation, in time
+    steps; None: the default for the time step (:func:`lakeloss.pipeline.gap_limit`)."""
     source: Mapping[str, Any] = field(default_factory=dict)
     config_path: Path | None = None
 
@@ -169,7 +172,7 @@ _COMPUTE_KEYS = {
     "memory_limit": str,
     "cache_dir": str,
 }
-_CHECKS_KEYS = {"strict": bool}
+_CHECKS_KEYS = {"strict": bool, "max_gap_steps": int}
 _CLIMATE_NAMES = tuple(sorted({*QUANTITIES, *ALIASES}))
 
 
@@ -490,6 +493,8 @@ def config_from_mapping(raw: Mapping[str, Any], config_path: Path | None = None)
     output = _output(raw, base)
     _check_precipitation(climate, output)
     checks = _typed(_table(raw, "checks", False), _CHECKS_KEYS, "[checks]")
+    if checks.get("max_gap_steps", 0) < 0:
+        raise ConfigError("[checks].max_gap_steps must be 0 (no filling) or a positive number")
     return RunConfig(
         waterbodies=_waterbodies(raw, base),
         climate=climate,
@@ -498,6 +503,7 @@ def config_from_mapping(raw: Mapping[str, Any], config_path: Path | None = None)
         output=output,
         compute=_compute(raw, base),
         strict=checks.get("strict", True),
+        max_gap_steps=checks.get("max_gap_steps"),
         source=raw,
         config_path=config_path,
     )

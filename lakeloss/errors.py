@@ -94,3 +94,11 @@ class ImplausibleValuesWarning(LakelossWarning):
 class TimeAlignedWarning(LakelossWarning):
     """Variables stamped at different times of the same day (or days of the same month) were
     aligned by calendar date (or month)."""
+
+
+class ClimateGapsWarning(LakelossWarning):
+    """Climate missing over gaps too long to fill: some periods have no result."""
+
+
+class NoResultError(InputDataError):
+    """No water body got a result (all outside the grid, or without valid climate)."""

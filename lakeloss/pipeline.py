@@ -47,6 +47,7 @@ from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of th
 from lakeloss.config import RunConfig, load_config
 from lakeloss.distinct import distinct_bodies, inputs_used
 from lakeloss.errors import (
+    ClimateGapsWarning,
     ConfigError,
     GeometryError,
     GeometryRepairedWarning,
@@ -55,8 +56,11 @@ from lakeloss.errors import (
     LakelossWarning,
     MissingInputError,
     TimeAlignedWarning,
+    NoResultError,
     ValuesAdjustedWarning,
 )
+from lakeloss.gaps import DEFAULT_LIMIT, GapReport, steps_text
+from lakeloss.gaps import report as gap_report
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
@@ -454,7 +458,16 @@ def block_context(
         period_index=inputs.periods.index,
         keep_series=keep_series,
         body_count=body_count,
+        max_gap_steps=gap_limit(config, inputs.axis),
     )
+
+
+def gap_limit(config: RunConfig, axis: timeaxis.TimeAxis) -> int:
+    """Longest climate gap filled by interpolation [step]: ``[checks] max_gap_steps``, or
+    the default for the time step (:data:`lakeloss.gaps.DEFAULT_LIMIT`)."""
+    if config.max_gap_steps is not None:
+        return config.max_gap_steps
+    return DEFAULT_LIMIT[axis.step]
 
 
 ProgressFactory = Callable[[int, str], Any]
@@ -478,7 +491,8 @@ def compute_sums(
     static = _static_inputs(config, inputs, weights)
     groups = distinct_bodies(weights, static, inputs_used(config.method.all))
     context = block_context(config, inputs, series_sink is not None, groups.count)
-    sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups)
+    n_steps = len(inputs.axis.days)
+    sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
     steps = _aligned(block_steps(config, inputs, groups.n_groups), _read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
@@ -507,6 +521,22 @@ def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
     )
     warnings.warn(message, ValuesAdjustedWarning, stacklevel=2)
     return message
+
+
+def gap_warnings(gaps: GapReport) -> list[str]:
+    """One warning per variable with gaps too long to fill (or at the ends of the data)."""
+    messages = []
+    for name, gap in gaps.long.items():
+        message = (
+            f"{name} is missing for {gap['bodies']} water bodies at "
+            f"{steps_text(int(gap['steps']))} ({gap['dates']}), in gaps longer than [checks] "
+            f"max_gap_steps = {gaps.limit} "
+            "or at the start or end of the data; those bodies have no total for the run "
+            "nor for the periods with a gap (flagged climate_gaps)"
+        )
+        warnings.warn(message, ClimateGapsWarning, stacklevel=2)
+        messages.append(message)
+    return messages
 
 
 def run_stages(
@@ -552,6 +582,9 @@ def _stages(
         message = negative_warning(config, sums)
         if message:
             run_warnings.append(message)
+        assert sums.gaps is not None  # compute_sums always tallies the gaps
+        gaps = gap_report(sums.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
+        run_warnings += gap_warnings(gaps)
         result = assemble(
             config,
             inputs,
@@ -562,10 +595,27 @@ def _stages(
             series=collector.dataset() if collector else None,
             weights_cached=cached,
             inputs_record=record.result(),
+            gaps=gaps,
         )
     for note in result.provenance["notes"]:
         log.warning(note)
+    refuse_empty(result)
     return result
+
+
+def refuse_empty(result: Any) -> None:
+    """Raise :class:`NoResultError` when no water body has a result for any period."""
+    bodies = result.waterbodies
+    if result.provenance["counts"]["without_any_result"] < len(bodies):
+        return
+    flags = result.provenance["counts"]["qa_flags"]
+    reasons = ", ".join(f"{count} {flag}" for flag, count in flags.items()) or "no flag"
+    raise NoResultError(
+        f"none of the {len(bodies)} water bodies has an evaporation result for any period "
+        f"({reasons}); "
+        "nothing was written; check that the climate covers the layer and has values over "
+        "the whole run (see the warnings above)"
+    )
 
 
 def _repairs_from_cache(weights: Mapping[str, ZonalWeights]) -> list[str]:

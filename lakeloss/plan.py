@@ -11,14 +11,23 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import dask
 import numpy as np
 import pyproj
 import shapely
 
 from lakeloss.config import RunConfig
 from lakeloss.distinct import inputs_used
+from lakeloss.gaps import date_ranges, fill_short_gaps, steps_text
 from lakeloss.io.climate import crs_label
-from lakeloss.pipeline import Inputs, block_steps, check_overlap, check_values, load_inputs
+from lakeloss.pipeline import (
+    Inputs,
+    block_steps,
+    check_overlap,
+    check_values,
+    gap_limit,
+    load_inputs,
+)
 
 # Wall seconds per unit of work, from the end-to-end benchmark of 10^6 ponds on the 2-core
 # reference machine, two threads, 2026-12-02 (benchmarks/README.md, "Session 2"): 62-73 s
@@ -41,6 +50,8 @@ class Plan:
     memory_bytes: float
     seconds: float
     value_warnings: list[str] = field(default_factory=list)
+    gap_lines: list[str] = field(default_factory=list)
+    """What the whole-grid gaps of the climate will become (filled, or left missing)."""
 
     def describe(self) -> str:
         inputs, config = self.inputs, self.config
@@ -71,8 +82,12 @@ class Plan:
             f"memory       : about {self.memory_bytes / 2**30:.2f} GiB peak (rough estimate)",
             f"time         : about {self.seconds:.0f} s on a 2-core machine (rough estimate)",
         ]
+        lines += self.gap_lines
         lines += [f"warning      : {w}" for w in [*inputs.warnings, *self.value_warnings]]
-        lines.append("all inputs checked: ready to run")
+        warned = any(line.startswith("warning") for line in lines)
+        lines.append(
+            "all inputs checked: ready to run" + (", with the warnings above" if warned else "")
+        )
         return "\n".join(lines)
 
 
@@ -138,6 +153,40 @@ def _cell_index(edges: np.ndarray, values: np.ndarray) -> np.ndarray:
     return index
 
 
+def grid_gaps(config: RunConfig, inputs: Inputs) -> list[str]:
+    """The steps at which a variable is missing on its whole grid, and what the run will do.
+
+    These are the gaps visible without computing (a day the product did not deliver);
+    gaps in only some cells show in the run, per water body. One pass over every field.
+    """
+    fields = list(inputs.fields.values())
+    empty = dask.compute(*[f.data.isnull().all(dim=("y", "x")) for f in fields])
+    limit = gap_limit(config, inputs.axis)
+    starts = inputs.axis.starts
+    lines = []
+    for item, missing in zip(fields, empty, strict=True):
+        mask = np.asarray(missing, dtype=bool)
+        if not mask.any():
+            continue
+        filled, _ = fill_short_gaps(np.where(mask, np.nan, 0.0)[:, np.newaxis], limit)
+        short = mask & np.isfinite(filled[:, 0])
+        if short.any():
+            lines.append(
+                f"gap          : {item.quantity} missing on the whole grid at "
+                f"{steps_text(int(short.sum()))} ({date_ranges(starts, short)}): filled by linear "
+                f"interpolation in time ([checks] max_gap_steps = {limit}), flagged "
+                "climate_gaps_filled"
+            )
+        if (mask & ~short).any():
+            lines.append(
+                f"warning      : {item.quantity} missing on the whole grid at "
+                f"{steps_text(int((mask & ~short).sum()))} ({date_ranges(starts, mask & ~short)}), "
+                f"longer than [checks] max_gap_steps = {limit} or at the start or end of the "
+                "data: no result for the periods holding them nor for the whole run"
+            )
+    return lines
+
+
 def make_plan(config: RunConfig) -> Plan:
     """Check every input of ``config`` and return the plan (raises the run's errors)."""
     inputs = load_inputs(config)
@@ -153,4 +202,5 @@ def make_plan(config: RunConfig) -> Plan:
         memory_bytes=_memory(config, inputs, steps, columns),
         seconds=_seconds(config, inputs, columns),
         value_warnings=value_warnings,
+        gap_lines=grid_gaps(config, inputs),
     )

@@ -245,7 +245,12 @@ _NO_RESULT_GEOMETRY = {"geometry_empty", "geometry_null", "outside_grid"}
 
 
 def _flags(
-    config: RunConfig, inputs: Any, weights: Any, sums: Any, coverage: np.ndarray
+    config: RunConfig,
+    inputs: Any,
+    weights: Any,
+    sums: Any,
+    coverage: np.ndarray,
+    filled_steps: np.ndarray,
 ) -> np.ndarray:
     """Per-body QA flags: geometry flags, then climate-coverage and clipping flags.
 
@@ -257,14 +262,18 @@ def _flags(
     valid_steps = sums.valid_steps.sum(axis=0)
     no_climate = valid_steps == 0
     gaps = (valid_steps > 0) & (valid_steps < sums.steps)
-    partial = (coverage > 0.0) & (coverage < _COVERAGE_FLAG_BELOW)
+    # Judged over the steps with data: a day missing on the whole grid is a gap (flagged as
+    # such), not a part of the polygon without climate.
+    spatial = first.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
+    partial = (coverage > 0.0) & (spatial < _COVERAGE_FLAG_BELOW)
     negative = sums.negatives_per_body > 0
     negative_token = (
         "negative_rates_clipped"
         if config.parameters.get("clip_negative", True)
         else "negative_rates_kept"
     )
-    any_flag = no_climate | gaps | partial | negative
+    filled = filled_steps > 0
+    any_flag = no_climate | gaps | filled | partial | negative
     for source in sources:
         any_flag |= source != ""
     out = np.full(inputs.n_waterbodies, "", dtype=object)
@@ -277,6 +286,8 @@ def _flags(
             tokens.append("no_valid_climate")
         if gaps[i]:
             tokens.append("climate_gaps")
+        if filled[i]:
+            tokens.append("climate_gaps_filled")
         if partial[i] and "partly_outside_grid" not in tokens:
             tokens.append("partial_climate_coverage")
         if negative[i]:
@@ -285,7 +296,9 @@ def _flags(
     return out
 
 
-def _body_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> Any:
+def _body_table(
+    config: RunConfig, inputs: Any, weights: Any, sums: Any, filled_steps: np.ndarray
+) -> Any:
     first = next(iter(weights.values()))
     frame = inputs.layer.frame.copy()
     area = first.polygon_area_m2
@@ -311,18 +324,23 @@ def _body_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> Any:
         frame[f"evap_{unit}"] = frame["evap_m3"] * VOLUME_UNITS[unit]
         frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
     frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
-    frame["qa_flags"] = _flags(config, inputs, weights, sums, frame["climate_coverage"].to_numpy())
+    coverage = frame["climate_coverage"].to_numpy()
+    frame["qa_flags"] = _flags(config, inputs, weights, sums, coverage, filled_steps)
     geometry = frame.geometry.name
     return frame[[c for c in frame.columns if c != geometry] + [geometry]]
 
 
-def _rank(volume: np.ndarray, ids: pd.Series) -> np.ndarray:
-    """Rank 1 = largest loss; ties broken by id so the order is reproducible; NaN last."""
-    key = np.where(np.isfinite(volume), -volume, np.inf)
+def _rank(volume: np.ndarray, ids: pd.Series) -> pd.arrays.IntegerArray:
+    """Rank 1 = largest loss; ties broken by id so the order is reproducible.
+
+    A body without a volume (no result) gets no rank (null), not the last ones.
+    """
+    has = np.isfinite(volume)
+    key = np.where(has, -volume, np.inf)
     order = np.lexsort((ids.to_numpy(), key))
     rank = np.empty(len(volume), dtype=np.int64)
     rank[order] = np.arange(1, len(volume) + 1)
-    return rank
+    return pd.arrays.IntegerArray(rank, ~has)
 
 
 _PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
@@ -585,13 +603,18 @@ def assemble(
     series: Any = None,
     weights_cached: bool = False,
     inputs_record: list[dict[str, Any]] | None = None,
+    gaps: Any = None,
 ) -> RunResult:
     """Build the result tables and the provenance from the period sums.
 
     ``inputs_record`` is :func:`inputs_provenance`'s result when the caller already has it
-    (the pipeline hashes the inputs in a background thread while it computes).
+    (the pipeline hashes the inputs in a background thread while it computes); ``gaps`` the
+    :class:`lakeloss.gaps.GapReport` of the run.
     """
-    bodies = _body_table(config, inputs, weights, sums)
+    filled_steps = (
+        gaps.filled_steps_per_body if gaps is not None else np.zeros(len(inputs.layer.frame), int)
+    )
+    bodies = _body_table(config, inputs, weights, sums, filled_steps)
     by_period = _period_table(config, inputs, weights, sums)
     summary_period, summary_group = _summaries(
         config, bodies, by_period, len(inputs.periods.starts)
@@ -617,12 +640,19 @@ def assemble(
             "periods": int(len(inputs.periods.starts)),
             "time_steps": int(len(inputs.axis.days)),
             "flagged": int((flags != "").sum()),
+            "without_result": int(bodies["evap_mm"].isna().sum()),
+            "without_any_result": int(
+                (~np.isfinite(sums.depth[config.method.name]).any(axis=0)).sum()
+            ),
+            "qa_flags": flag_counts(flags),
             "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
+            "filled_climate_steps": int(filled_steps.sum()),
             "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
             "negative_rates_clipped": int(sum(sums.negatives.values()))
             if config.parameters.get("clip_negative", True)
             else 0,
         },
+        "climate_gaps": _gaps_record(gaps),
         "weights_from_cache": bool(weights_cached),
         "warnings": list(run_warnings),
         "timings_s": {k: round(v, 3) for k, v in timings.items()},
@@ -638,6 +668,82 @@ def assemble(
         id_field=inputs.layer.id_field,
         field_info=_field_info(config, bodies, inputs.layer.id_field),
     )
+
+
+def summary_line(result: RunResult, target: Path) -> str:
+    """One line for the end of a run: what was computed, over what span, what is missing.
+
+    The volume is the sum over the bodies with a result, over the whole run; its span is
+    named, and a run of more than a year gives the volume per year as well.
+    """
+    counts = result.provenance["counts"]
+    bodies = result.waterbodies
+    n_periods = int(counts["periods"])
+    periods = result.by_period.iloc[:n_periods]
+    days = int(periods["days"].sum())
+    years = days / 365.2425
+    with_result = int(bodies["evap_mm"].notna().sum())
+    total = float(bodies["evap_m3"].sum(skipna=True))
+    span = f"{periods['period_start'].iloc[0]}..{periods['period_end'].iloc[-1]}"
+    over = f"over {days} days" if years < 0.95 else f"over {years:.1f} years"
+    per_year = f", {total / years:,.0f} m3 per year" if years >= 1.5 else ""
+    head = f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "
+    method = result.config.method.name
+    volume = (
+        f"{total:,.0f} m3 evaporated {over}{per_year} ({method}) "
+        f"by the {with_result} with a whole-run result"
+        if with_result
+        else f"no whole-run evaporation volume ({method})"
+    )
+    return f"{head}{volume}; {without_result(counts)}; {counts['flagged']} flagged; outputs in {target}"
+
+
+def without_result(counts: Mapping[str, Any]) -> str:
+    """How many bodies have no whole-run result, and how many of those have some periods."""
+    text = f"{counts['without_result']} without"
+    some = int(counts["without_result"]) - int(counts["without_any_result"])
+    return text + (f" ({some} of them with results for some periods)" if some else "")
+
+
+def flag_notes(result: RunResult, examples: int = 5) -> list[str]:
+    """One note per qa flag that occurs: how many bodies, and the first ids."""
+    flags = result.waterbodies["qa_flags"].astype(str)
+    ids = result.waterbodies[result.id_field]
+    notes = []
+    tokens = flags[flags != ""].str.split(";")
+    for flag, count in result.provenance["counts"]["qa_flags"].items():
+        first = ids.loc[tokens.index[tokens.map(lambda t, f=flag: f in t)]].head(examples)
+        more = ", ..." if count > examples else ""
+        shown = ", ".join(str(v) for v in first)
+        notes.append(
+            f"{count} water bodies flagged {flag} ({result.id_field} {shown}{more}); "
+            "see qa_flags in the outputs"
+        )
+    if result.provenance["counts"]["without_result"]:
+        notes.append(
+            f"{result.provenance['counts']['without_result']} water bodies have no "
+            "whole-run result (evap_mm empty) and no loss_rank"
+        )
+    return notes
+
+
+def flag_counts(flags: pd.Series) -> dict[str, int]:
+    """Water bodies per qa flag, most frequent first (only flags that occur)."""
+    tokens = flags[flags != ""].astype(str).str.split(";").explode()
+    counts = tokens[tokens != ""].value_counts(sort=False)
+    ordered = sorted(counts.items(), key=lambda item: (-item[1], item[0]))
+    return {str(flag): int(count) for flag, count in ordered}
+
+
+def _gaps_record(gaps: Any) -> dict[str, Any]:
+    """run.json's ``climate_gaps``: per variable, the steps filled and the steps left out."""
+    if gaps is None:
+        return {"filled": {}, "not_filled": {}}
+    return {
+        "max_gap_steps": gaps.limit,
+        "filled": _jsonable(gaps.filled),
+        "not_filled": _jsonable(gaps.long),
+    }
 
 
 def _jsonable(value: Any) -> Any:

@@ -106,9 +106,10 @@ class Case:
     def invoke(
         self, command: str = "run", *extra: str, config: dict | None = None, overwrite=True
     ) -> Outcome:
-        """Run ``lakeloss <command> run.toml <extra>``; ``run`` gets --overwrite by default."""
+        """Run ``lakeloss <command> run.toml <extra>``; ``run`` and ``check`` get --overwrite
+        by default (``check`` refuses an existing output directory as ``run`` does)."""
         args = [command, str(self.toml(config)), *extra]
-        if command == "run" and overwrite and "--overwrite" not in extra:
+        if command in ("run", "check") and overwrite and "--overwrite" not in extra:
             args.append("--overwrite")
         result = CliRunner().invoke(cli, args)
         return Outcome(result.exit_code, result.stdout, result.stderr)

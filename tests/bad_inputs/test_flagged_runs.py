@@ -13,7 +13,7 @@ import pandas as pd
 import pyogrio
 import pytest
 import shapely
-from bad_inputs.corpus import BASE_FIELDS, TIMES
+from bad_inputs.corpus import BASE_FIELDS, TIMES, Case, assert_refused
 from builders import LAYER_CRS, climate_dataset, pond_layer
 from pyproj import Transformer
 
@@ -56,23 +56,46 @@ def test_ponds_off_and_over_the_edge_of_the_grid(case):
     assert run["counts"]["no_valid_climate"] == int("no_valid_climate" in _tokens(layer, 201))
 
 
-def test_gaps_in_the_climate(case):
+def test_a_short_gap_in_the_climate_is_filled(case):
     rnet = np.full((len(TIMES), 6, 8), 200.0)
-    rnet[1] = np.nan  # one day missing everywhere
+    rnet[1] = np.nan  # one day missing everywhere, between two valid days
     case.write_climate(climate_dataset(TIMES, {**BASE_FIELDS, "rnet": (rnet, "W m-2", "x")}))
-    layer, run, _ = _completed(case)
-    # Coverage is averaged over time, so a day missing everywhere also lowers it to 3/4.
+    layer, run, outcome = _completed(case)
+    # Coverage is averaged over time, so a day missing everywhere lowers it to 3/4; but that
+    # is a gap, not a part of the ponds without climate: no partial_climate_coverage.
     for pond_id in layer.index:
-        assert _tokens(layer, pond_id) == {"climate_gaps", "partial_climate_coverage"}
+        assert _tokens(layer, pond_id) == {"climate_gaps_filled"}
     np.testing.assert_allclose(layer["climate_coverage"], 0.75, rtol=1e-9)
-    # No gap is filled: the period holding the missing day (here the whole run) has no total.
-    assert layer["evap_mm"].isna().all()
-    # The period stays in the summary, with no water body counted and no total.
-    by_period = pd.read_csv(case.out / "summary_by_period.csv")
-    assert list(by_period["period_start"]) == ["2031-01-01"]
-    assert list(by_period["n_waterbodies"]) == [0]
-    assert by_period[["area_m2", "evap_m3", "net_m3"]].isna().all().all()
-    assert run["counts"]["flagged"] == len(layer)
+    # Filled from its neighbours (both 200 W m-2): the same as the run without the gap.
+    (case.tmp / "clean").mkdir()
+    clean = Case(case.tmp / "clean")
+    reference, _, _ = _completed(clean)
+    np.testing.assert_allclose(layer["evap_mm"], reference["evap_mm"], rtol=1e-12)
+    assert run["counts"]["filled_climate_steps"] == len(layer)
+    assert run["counts"]["qa_flags"]["climate_gaps_filled"] == len(layer)
+    assert run["climate_gaps"]["filled"]["surface_net_downward_radiative_flux"] == {
+        "steps": 1,
+        "values": len(layer),
+        "dates": "2031-01-02",
+    }
+    assert "note: 4 water bodies flagged climate_gaps_filled" in outcome.stderr
+
+
+@shows_warnings
+@pytest.mark.parametrize(("day", "limit"), [(1, 0), (0, None), (3, None)])
+def test_a_gap_that_cannot_be_filled_leaves_no_result(case, day, limit):
+    # With no filling, or a gap on the first or last day (one neighbour only), the single
+    # period of the run has no total for any body: the run refuses in one line.
+    rnet = np.full((len(TIMES), 6, 8), 200.0)
+    rnet[day] = np.nan
+    case.write_climate(climate_dataset(TIMES, {**BASE_FIELDS, "rnet": (rnet, "W m-2", "x")}))
+    if limit is not None:
+        case.config["checks"] = {"max_gap_steps": limit}
+    outcome = case.invoke("run")
+    line = assert_refused(outcome, "none of the 4 water bodies", "4 climate_gaps")
+    assert "nothing was written" in line
+    assert "surface_net_downward_radiative_flux is missing for 4 water bodies" in outcome.stderr
+    assert case.snapshot() is None
 
 
 @shows_warnings
