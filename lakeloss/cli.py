@@ -20,6 +20,8 @@ from lakeloss.errors import LakelossError, LakelossWarning
 
 EXIT_USER_ERROR = 2
 EXIT_UNEXPECTED = 1
+EXIT_NO_TOTAL = 3
+"""Outputs written, but no water body has a whole-run total (gaps in every body's climate)."""
 
 
 # Libraries that log progress at INFO (a dask cluster prints some 30 lines starting up);
@@ -174,7 +176,7 @@ def run(
     """Compute evaporation for every water body and write the outputs."""
     from lakeloss.io.atomic import OutputDirectory
     from lakeloss.pipeline import run_stages
-    from lakeloss.results import flag_notes, summary_line
+    from lakeloss.results import flag_notes, no_total_message, summary_line
 
     config = _load(config_path, strict, workers, scheduler, chunk_steps)
     OutputDirectory(config.output.dir, overwrite=overwrite).check()  # fail before computing
@@ -184,6 +186,10 @@ def run(
         for note in flag_notes(result):
             click.echo(f"note: {note}", err=True)
         click.echo(summary_line(result, target))  # the result: stdout; the rest: stderr
+    message = no_total_message(result, target)
+    if message:
+        click.echo(f"error: {message}", err=True)
+        sys.exit(EXIT_NO_TOTAL)
 
 
 @cli.command()

@@ -670,6 +670,23 @@ def assemble(
     )
 
 
+def no_total_message(result: RunResult, target: Path) -> str | None:
+    """Why a run that wrote its outputs must still fail: no body has a whole-run total.
+
+    Some periods have results (a run without any is refused before writing), so the outputs
+    are kept for them; the exit status tells scripts that the run's totals are missing.
+    """
+    counts = result.provenance["counts"]
+    if not counts["waterbodies"] or counts["without_result"] < counts["waterbodies"]:
+        return None
+    return (
+        f"none of the {counts['waterbodies']} water bodies has a whole-run evaporation total "
+        f"(gaps in the climate too long to fill, see the warnings above); the periods that "
+        f"have results are written to {target}; fill the gaps (raise [checks] max_gap_steps) "
+        "or limit the run to the dates with data"
+    )
+
+
 def summary_line(result: RunResult, target: Path) -> str:
     """One line for the end of a run: what was computed, over what span, what is missing.
 
@@ -684,7 +701,9 @@ def summary_line(result: RunResult, target: Path) -> str:
     years = days / 365.2425
     with_result = int(bodies["evap_mm"].notna().sum())
     total = float(bodies["evap_m3"].sum(skipna=True))
-    span = f"{periods['period_start'].iloc[0]}..{periods['period_end'].iloc[-1]}"
+    # Dates are Timestamps or cftime dates in the API; the line names the calendar days.
+    first, last = periods["period_start"].iloc[0], periods["period_end"].iloc[-1]
+    span = f"{str(first)[:10]}..{str(last)[:10]}"
     over = f"over {days} days" if years < 0.95 else f"over {years:.1f} years"
     per_year = f", {total / years:,.0f} m3 per year" if years >= 1.5 else ""
     head = f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "

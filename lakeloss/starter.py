@@ -61,6 +61,7 @@ _EXAMPLES: dict[str, object] = {
     "format": "netcdf",
     "scheduler": "tcp://127.0.0.1:8786",
     "cache_dir": "lakeloss-cache",
+    "max_gap_steps": 3,  # unset: 3 for daily steps, 0 for monthly (README "Gaps in the climate")
     "group_by": ["field name"],
     "extra_volume_units": list(config_schema.VOLUME_UNITS),
 }
@@ -450,7 +451,7 @@ def render(result: Draft, base: Path) -> str:
     lines += _table_lines(
         "compute", {}, _section_defaults(loaded.compute, config_schema._COMPUTE_KEYS)
     )
-    lines += _table_lines("checks", {}, {"strict": loaded.strict})
+    lines += _table_lines("checks", {}, _section_defaults(loaded, config_schema._CHECKS_KEYS))
     return "\n".join(lines).rstrip() + "\n"
 
 

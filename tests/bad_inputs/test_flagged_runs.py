@@ -99,6 +99,28 @@ def test_a_gap_that_cannot_be_filled_leaves_no_result(case, day, limit):
 
 
 @shows_warnings
+def test_no_whole_run_total_for_any_body_writes_the_periods_and_fails(case):
+    # Daily periods; day 2 missing everywhere and no filling: every body keeps 3 of its 4
+    # periods but has no whole-run total. The outputs hold those periods, the summary line
+    # is printed, and the run ends with one error line and exit status 3.
+    rnet = np.full((len(TIMES), 6, 8), 200.0)
+    rnet[1] = np.nan
+    case.write_climate(climate_dataset(TIMES, {**BASE_FIELDS, "rnet": (rnet, "W m-2", "x")}))
+    case.config["checks"] = {"max_gap_steps": 0}
+    case.config["output"] = {**case.config["output"], "period": "day"}
+    outcome = case.invoke("run")
+    assert outcome.code == 3, outcome.stderr
+    [line] = outcome.error_lines
+    assert "none of the 4 water bodies has a whole-run evaporation total" in line
+    assert "max_gap_steps" in line
+    layer = pyogrio.read_dataframe(case.out / "waterbodies.gpkg", layer="waterbodies")
+    assert layer["evap_mm"].isna().all()
+    periods = pd.read_csv(case.out / "summary_by_period.csv")
+    assert periods["evap_m3"].isna().tolist() == [False, True, False, False]
+    assert len(outcome.stdout.splitlines()) == 1
+
+
+@shows_warnings
 @pytest.mark.parametrize(
     ("clip", "token"), [(True, "negative_rates_clipped"), (False, "negative_rates_kept")]
 )
