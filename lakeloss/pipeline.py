@@ -55,8 +55,8 @@ from lakeloss.errors import (
     ImplausibleValuesWarning,
     LakelossWarning,
     MissingInputError,
-    TimeAlignedWarning,
     NoResultError,
+    TimeAlignedWarning,
     ValuesAdjustedWarning,
 )
 from lakeloss.gaps import DEFAULT_LIMIT, GapReport, steps_text
