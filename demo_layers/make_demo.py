@@ -91,7 +91,7 @@ class SmallKind:
     label: str
 
 
-# Size and depth ranges follow the sanity ranges of METHODS.md section 6 (farm dams
+# Size and depth ranges follow the sanity ranges of docs/methods.md#plausible-ranges (farm dams
 # 0.05-1 ha and 2-5 m, stock ponds 0.1-2 ha, detention 0.1-5 ha, tailings 10-1000+ ha).
 SMALL_KINDS = (
     SmallKind("farm_dam", 226, (0.05, 1.0), (2.0, 5.0), "Dam"),

@@ -11,7 +11,7 @@ calendar date of its stamp and a monthly value to the calendar month of its stam
 variables stamped at different times of that day (00:00 and 12:00) or on different days of
 that month (the 1st, the 15th, the last) share an axis; :func:`alignment_note` says when that
 happened. Monthly values are daily rates, so a month's total is the rate times that month's
-calendar days (METHODS §7.6).
+calendar days (docs/methods.md#monthly-inputs).
 """
 
 from __future__ import annotations

@@ -2,8 +2,8 @@
 
 Polygons are tiny, huge, holed, or snapped to cell edges; climate values are drawn from
 physically valid ranges. Every run must finish, give no NaN where every input is valid,
-conserve area in the weights, and give finite depths within the sanity ranges of METHODS.md
-§6 (daily rates 0-10 mm/day typical, above 12-15 suspicious outside extreme arid advection;
+conserve area in the weights, and give finite depths within the sanity ranges of docs/methods.md#plausible-ranges
+(daily rates 0-10 mm/day typical, above 12-15 suspicious outside extreme arid advection;
 with clipping on, rates are >= 0; the upper bound here, 25 mm/day, is generous because the
 climate is random, not a real season).
 """

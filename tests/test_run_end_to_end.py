@@ -50,9 +50,9 @@ def chow_run(make_case, tmp_path):
 
 
 def test_uniform_grid_reproduces_chow_energy_balance(chow_run):
-    # Chow, Maidment & Mays (1988) Example 3.5.1 (from memory, METHODS.md §5.4): Rn = 200 W m-2
+    # Chow, Maidment & Mays (1988) Example 3.5.1 (from memory, docs/methods.md#chow-examples): Rn = 200 W m-2
     # at 25 °C gives 7.10 mm/day with rho_w = 997 kg m-3. lakeloss converts mass to depth with
-    # exactly 1000 kg m-3 (METHODS.md §7.7), so the expected rate is 7.10 * 997 / 1000.
+    # exactly 1000 kg m-3 (docs/methods.md#units-and-conventions), so the expected rate is 7.10 * 997 / 1000.
     # Tolerance: half a unit of the printed 7.10 (7e-4) plus lambda 2441 vs 2441.75 kJ/kg.
     config, out = chow_run
     layer = pyogrio.read_dataframe(out / "waterbodies.gpkg", layer="waterbodies")

@@ -71,7 +71,7 @@ def test_latlon_file_is_lazy_converted_and_assumes_wgs84(tmp_path, build):
     assert field.crs_assumed and field.crs.to_epsg() == 4326
     assert field.quantity == "air_temperature" and field.source_units == "K"
     assert field.data.attrs["units"] == "degC"
-    # 293.15 K = 20 °C (offset-aware conversion, T_K = T + 273.15, METHODS §1)
+    # 293.15 K = 20 °C (offset-aware conversion, T_K = T + 273.15, docs/methods.md#units-and-conventions)
     np.testing.assert_allclose(field.data.values, _kelvin_cube() - 273.15, atol=1e-9)
     assert isinstance(field.times[0], cftime.datetime)
     assert field.calendar == "standard"
@@ -163,7 +163,7 @@ def test_wrong_dimensionality_is_units_error(tmp_path, build):
     ("calendar", "month_days"), [("noleap", [31.0, 28.0, 31.0]), ("360_day", [30.0, 30.0, 30.0])]
 )
 def test_monthly_amounts_use_calendar_month_lengths(tmp_path, build, calendar, month_days):
-    # Monthly totals of 60 kg m-2 become 60/days mm/day (rho_w = 1000 exactly, METHODS §7.7).
+    # Monthly totals of 60 kg m-2 become 60/days mm/day (rho_w = 1000 exactly, docs/methods.md#units-and-conventions).
     stamps = [cftime.datetime(2021, m, 15, calendar=calendar) for m in (1, 2, 3)]
     dataset = build.grid_dataset(
         np.full((3, 2, 2), 60.0), times=stamps, units="kg m-2", variable="pr"
@@ -177,7 +177,7 @@ def test_monthly_amounts_use_calendar_month_lengths(tmp_path, build, calendar, m
 
 
 def test_daily_energy_per_step_becomes_mean_flux(tmp_path, build):
-    # 8.64 MJ m-2 accumulated over one day = 100 W m-2 (W m-2 x 0.0864 = MJ m-2 d-1, METHODS §1).
+    # 8.64 MJ m-2 accumulated over one day = 100 W m-2 (W m-2 x 0.0864 = MJ m-2 d-1, docs/methods.md#units-and-conventions).
     dataset = build.grid_dataset(
         np.full((2, 2, 2), 8.64e6), times=build.daily_times(2), units="J m-2", variable="ssrd"
     )
@@ -278,7 +278,7 @@ def test_geotiff_stack_reads_bands_lazily_with_nodata(tmp_path, build):
     assert field.source_units == "km h-1"
     values = field.data.values
     assert np.isnan(values[2, 1, 3])
-    np.testing.assert_allclose(values[1, 0, 1], 9.0 / 3.6)  # km/h ÷ 3.6 = m/s (METHODS §1)
+    np.testing.assert_allclose(values[1, 0, 1], 9.0 / 3.6)  # km/h ÷ 3.6 = m/s (docs/methods.md#units-and-conventions)
     assert [str(t)[:10] for t in field.times] == ["2021-03-30", "2021-03-31", "2021-04-01"]
     np.testing.assert_allclose(field.x, [500_500.0, 501_500.0, 502_500.0, 503_500.0])
     np.testing.assert_allclose(field.y, [6_004_500.0, 6_003_500.0])

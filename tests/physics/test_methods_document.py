@@ -16,8 +16,11 @@ DOCUMENT = ROOT / "docs" / "methods.md"
 CITING = sorted(
     path
     for path in [
-        *ROOT.joinpath("lakeloss", "physics").glob("*.py"),
-        *ROOT.joinpath("tests", "physics").glob("*.py"),
+        *ROOT.joinpath("lakeloss").rglob("*.py"),
+        *ROOT.joinpath("tests").rglob("*.py"),
+        *ROOT.joinpath("demo_layers").glob("*.py"),
+        *ROOT.glob("*.md"),
+        *ROOT.joinpath("demo_layers").glob("*.md"),
     ]
     if path.name != Path(__file__).name
 )
