@@ -12,6 +12,7 @@ file) resolves them against the current working directory.
 from __future__ import annotations
 
 import difflib
+import os
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -281,7 +282,8 @@ def _str_list(values: list, where: str) -> tuple[str, ...]:
 def _resolve(written: str, base: Path | None) -> Path:
     """A path as written in the configuration, made absolute against ``base`` if relative."""
     path = Path(written).expanduser()
-    return path if base is None or path.is_absolute() else base / path
+    # Lexically normalised so that messages and run.json show "out/demo", not "config/../out".
+    return path if base is None or path.is_absolute() else Path(os.path.normpath(base / path))
 
 
 def _input_path(written: str, base: Path | None, where: str) -> Path:

@@ -159,13 +159,14 @@ def test_relative_paths_resolve_against_the_config_files_folder(tmp_path, monkey
     (tmp_path / "elsewhere").mkdir()
     monkeypatch.chdir(tmp_path / "elsewhere")
     config = load_config(Path("..") / "project" / "config" / "run.toml")
-    folder = (tmp_path / "elsewhere" / ".." / "project" / "config").absolute()
-    assert config.waterbodies.path == folder / "../data/a.gpkg"
-    assert config.waterbodies.path.resolve() == (tmp_path / "project/data/a.gpkg").resolve()
-    assert all(c.path == folder / "../data/c.nc" for c in config.climate)
-    assert config.output.dir == folder / "../out/run1"
-    assert config.compute.cache_dir == folder / "../cache"
-    assert config.compute.scheduler == str(folder / "cluster/scheduler.json")
+    # Resolved against the file's folder and normalised lexically: no "config/.." left in
+    # the paths that messages and run.json show.
+    project = tmp_path.absolute() / "project"
+    assert config.waterbodies.path == project / "data/a.gpkg"
+    assert all(c.path == project / "data/c.nc" for c in config.climate)
+    assert config.output.dir == project / "out/run1"
+    assert config.compute.cache_dir == project / "cache"
+    assert config.compute.scheduler == str(project / "config/cluster/scheduler.json")
     assert config.source["output"]["dir"] == "../out/run1"  # run.json keeps what was written
     assert path.is_file()
 
@@ -192,8 +193,8 @@ def test_missing_relative_input_says_what_it_was_resolved_against(tmp_path, monk
         load_config(path)
     message = str(err.value)
     assert "[climate].air_temperature.path '../data/c.nc' does not exist" in message
-    folder = (tmp_path / "project" / "config").absolute()
-    assert f"resolved against the config file's folder: {folder / '../data/c.nc'}" in message
+    resolved = (tmp_path / "project" / "data" / "c.nc").absolute()
+    assert f"resolved against the config file's folder: {resolved}" in message
     assert "exists in the current directory" in message and "\n" not in message
 
 
