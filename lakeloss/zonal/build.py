@@ -416,9 +416,9 @@ def _assemble(pairs: _Pairs, share: np.ndarray, areas: _LayerAreas, grid: GridSp
         scale = np.where(raw_total > 0, grid_area / raw_total, 0.0)
         coverage = np.where(areas.empty, np.nan, grid_area / areas.weight)
     ny, nx = grid.shape
-    matrix = sp.csr_matrix(
-        (raw * scale[pairs.body], (pairs.body, pairs.row * nx + pairs.col)), shape=(n, ny * nx)
-    )
+    weight = raw * scale[pairs.body]
+    weight[areas.point[pairs.body]] = 1.0  # exactly, not cell area / cell area
+    matrix = sp.csr_matrix((weight, (pairs.body, pairs.row * nx + pairs.col)), shape=(n, ny * nx))
     return ZonalWeights(
         matrix=matrix,
         polygon_area_m2=areas.area,
