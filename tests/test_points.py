@@ -27,6 +27,7 @@ from pyproj import Geod
 import lakeloss
 from lakeloss.io.vector import read_waterbodies
 from lakeloss.zonal import GridSpec, build_weights
+from lakeloss.zonal.partition import build_weights_in_blocks
 
 # International acre: 66 x 660 international feet of 0.3048 m (NIST Handbook 44, App. C).
 SQUARE_METRES = {"m2": 1.0, "ha": 10_000.0, "km2": 1.0e6, "acre": (66 * 660) * 0.3048**2}
@@ -109,11 +110,22 @@ def test_multipoint_of_one_location_is_that_point(tmp_path):
     np.testing.assert_array_equal(read.stated_area_m2, [10_000.0])
 
 
+def test_points_built_in_spatial_blocks_match_one_build():
+    """Big registers are built in blocks; an all-point block has no area and is not empty."""
+    grid = GridSpec.from_centres(LON, LAT, "EPSG:4326")
+    layer = _points((12.0, 47.3), (11.5, 47.0), (15.2, 45.1), (10.1, 49.9), (40.0, 40.0))
+    whole = build_weights(layer, grid)
+    blocks = build_weights_in_blocks(layer, grid, block_size=2)
+    assert (whole.matrix != blocks.matrix).nnz == 0
+    assert list(blocks.flags) == ["", "", "", "", "outside_grid"]
+
+
 # --------------------------------------------------------------------------- whole runs
 
 
 def _run(tmp_path, layer, method="penman_open_water", lat=LAT, **waterbodies):
     """Run ``layer`` (EPSG:4326, column ``dam``) on the varying-temperature grid."""
+    tmp_path.mkdir(parents=True, exist_ok=True)
     tas = 285.0 + np.arange(LON.size)[None, None, :] + 2.0 * np.arange(LAT.size)[None, :, None]
     if lat is not LAT:
         tas = tas[:, ::-1, :]  # the same climate per place, rows stored the other way
@@ -194,6 +206,28 @@ def test_area_dependent_method_uses_the_stated_area(tmp_path):
     np.testing.assert_array_equal(bodies["area_m2"], [50_000.0, 50_000.0, 5.0e7])
     # the polygon (about 1.6 km2) states 5 ha: more than a factor 2 apart
     assert bodies.loc[2, "qa_flags"] == "area_field_disagrees"
+
+
+def test_points_group_with_bodies_of_identical_inputs_only(tmp_path):
+    """Bodies in one cell are computed once when their inputs are equal (lakeloss.distinct):
+    a grouped run must give each body the bits it gets when run alone."""
+    layer = gpd.GeoDataFrame(
+        {"dam": [1, 2, 3, 4], "area_ha": [5.0, 5.0, 5000.0, 5.0]},
+        geometry=[
+            shapely.Point(12.4, 47.6),
+            _square(12.5, 47.5),
+            shapely.Point(12.6, 47.4),
+            shapely.Point(13.5, 47.5),
+        ],
+        crs="EPSG:4326",
+    )
+    options = {"area_field": "area_ha", "area_units": "ha", "area_source": "field"}
+    _, together = _run(tmp_path / "all", layer, "penman_small_water_body", **options)
+    for row in range(len(layer)):
+        alone_dir = tmp_path / f"alone{row}"
+        _, alone = _run(alone_dir, layer.iloc[[row]], "penman_small_water_body", **options)
+        dam = int(layer["dam"].iloc[row])
+        assert alone.loc[dam, "evap_mm"] == together.loc[dam, "evap_mm"]
 
 
 @pytest.mark.filterwarnings("ignore::lakeloss.errors.GeometryRepairedWarning")
