@@ -525,7 +525,7 @@ def _refuse_curvilinear(dataset: xr.Dataset, variable: str, where: str) -> None:
             )
         ):
             return  # a regular lat/lon grid that also carries 2-D copies of its coordinates
-    found = {}
+    found: dict[str, str] = {}
     for name, candidate in dataset.variables.items():
         role = candidate.attrs.get("standard_name")
         if role in ("latitude", "longitude") and candidate.ndim == 2:
