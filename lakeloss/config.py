@@ -14,7 +14,7 @@ from __future__ import annotations
 import difflib
 import os
 import tomllib
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -41,6 +41,18 @@ class WaterBodiesConfig:
     group_by: tuple[str, ...] = ()
     crs: str | None = None
     elevation_field: str | None = None
+    area_field: str | None = None
+    area_units: str = "m2"
+    area_source: str = "geometry"
+
+
+AREA_UNITS = {"m2": 1.0, "ha": 1.0e4, "km2": 1.0e6, "acre": 4046.8564224}
+"""Units of ``[waterbodies] area_field``: factor to m2. The acre is the international acre,
+exactly 4046.8564224 m2 (66 x 660 international feet of 0.3048 m)."""
+
+AREA_SOURCES = ("geometry", "field")
+"""Where a polygon's area comes from (``[waterbodies] area_source``); points always use the
+field."""
 
 
 @dataclass(frozen=True)
@@ -145,6 +157,9 @@ _WATERBODY_KEYS = {
     "group_by": list,
     "crs": str,
     "elevation_field": str,
+    "area_field": str,
+    "area_units": str,
+    "area_source": str,
 }
 _CLIMATE_KEYS = {
     "path": str,
@@ -318,7 +333,22 @@ def _waterbodies(raw: Mapping[str, Any], base: Path | None) -> WaterBodiesConfig
         group_by=_str_list(table.get("group_by", []), "[waterbodies].group_by"),
         crs=table.get("crs"),
         elevation_field=table.get("elevation_field"),
+        area_field=table.get("area_field"),
+        area_units=_choice(table, "area_units", AREA_UNITS, "m2"),
+        area_source=_choice(table, "area_source", AREA_SOURCES, "geometry"),
     )
+
+
+def _choice(table: Mapping[str, Any], key: str, allowed: Iterable[str], default: str) -> str:
+    value = table.get(key, default)
+    if value not in allowed:
+        options = ", ".join(repr(v) for v in allowed)
+        close = difflib.get_close_matches(str(value), list(allowed), n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        raise ConfigError(
+            f"[waterbodies].{key} is {value!r}{hint}; expected one of {options}; fix {key}"
+        )
+    return str(value)
 
 
 def _climate_format(path: Path, given: str | None, where: str) -> str:

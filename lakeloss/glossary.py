@@ -181,7 +181,7 @@ ALIASES: dict[str, str] = {
 DERIVED_INPUTS: dict[str, tuple[str, str]] = {
     "latitude": ("degrees_north", "latitude of the water body's centroid"),
     "day_of_year": ("1", "day of year at the middle of the time step (1..366)"),
-    "area_m2": ("m**2", "true (ellipsoidal) area of the water body"),
+    "area_m2": ("m**2", "water-surface area: the polygon's true area, or its area attribute"),
     "elevation": ("m", "water-surface elevation (constant, attribute or raster)"),
 }
 

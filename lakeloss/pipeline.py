@@ -173,7 +173,15 @@ def load_inputs(config: RunConfig) -> Inputs:
     """Read the layer, open every climate field lazily, and join their time axes."""
     _check_methods(config)
     wb = config.waterbodies
-    layer = vector_io.read_waterbodies(wb.path, layer=wb.layer, id_field=wb.id_field, crs=wb.crs)
+    layer = vector_io.read_waterbodies(
+        wb.path,
+        layer=wb.layer,
+        id_field=wb.id_field,
+        crs=wb.crs,
+        area_field=wb.area_field,
+        area_units=wb.area_units,
+        area_source=wb.area_source,
+    )
     _check_attributes(config, layer)
     caught: list[str] = []
     fields: dict[str, climate_io.ClimateField] = {}
@@ -344,6 +352,11 @@ def build_weights(
                 bar.update(max(0, done - bar.n))
     if bar is not None:
         bar.close()
+    layer = inputs.layer
+    if layer.stated_area_m2 is not None and layer.field_area_m2 is not None:
+        # the cache keeps geometry only; the stated areas join every run afresh
+        stated, field = layer.stated_area_m2, layer.field_area_m2
+        out = {key: w.with_stated_areas(stated, field) for key, w in out.items()}
     return out, not missing
 
 

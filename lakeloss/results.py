@@ -32,7 +32,12 @@ CAUTION = (
 
 # Result columns of the water-body layer: title, description, unit.
 _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
-    "area_m2": ("Water-surface area", "true (ellipsoidal) area of the polygon", "m2"),
+    "area_m2": (
+        "Water-surface area",
+        "area the run uses: true (ellipsoidal) area of the polygon, or the area attribute "
+        "(area_field) for points and with area_source = field",
+        "m2",
+    ),
     "area_before_repair_m2": (
         "Area before repair",
         "true area of the invalid input polygon before repair; empty where none was needed",

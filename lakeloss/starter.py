@@ -52,6 +52,7 @@ _EXAMPLES: dict[str, object] = {
     "id_field": "field name",
     "crs": "EPSG:4326",
     "elevation_field": "field name",
+    "area_field": "field name",
     "variable": "name in the file",
     "units": "unit, e.g. mm d-1",
     "height_m": 10.0,

@@ -502,6 +502,45 @@ def open_netcdf(
         raise
 
 
+def _refuse_curvilinear(dataset: xr.Dataset, variable: str, where: str) -> None:
+    """Refuse a grid located only by 2-D latitude and longitude, with no grid mapping.
+
+    Such a grid (ocean-model and swath grids, or a projected grid whose file lost its
+    mapping) has cells that are not bounded by lines of a CRS: its x and y are indices, and
+    taking them for degrees or metres would put the climate in the wrong place.
+    """
+    data = dataset[variable]
+    if data.attrs.get("grid_mapping") or data.encoding.get("grid_mapping"):
+        return
+    if any(dataset.attrs.get(key) or data.attrs.get(key) for key in ("crs_wkt", "spatial_ref")):
+        return
+    for dim in data.dims:
+        axis = dataset.variables.get(dim)
+        if (
+            axis is not None
+            and axis.ndim == 1
+            and (
+                axis.attrs.get("standard_name") in ("latitude", "longitude")
+                or axis.attrs.get("units") in (*_GEOGRAPHIC_UNITS["y"], *_GEOGRAPHIC_UNITS["x"])
+            )
+        ):
+            return  # a regular lat/lon grid that also carries 2-D copies of its coordinates
+    found: dict[str, str] = {}
+    for name, candidate in dataset.variables.items():
+        role = candidate.attrs.get("standard_name")
+        if role in ("latitude", "longitude") and candidate.ndim == 2:
+            if set(candidate.dims) <= set(data.dims):
+                found.setdefault(role, str(name))
+    if len(found) == 2:
+        raise GridError(
+            f"{where} is on a curvilinear grid, located only by 2-D {found['latitude']!r}/"
+            f"{found['longitude']!r} arrays with no grid_mapping; expected 1-D x/y cell "
+            "centres in a CRS; add the CF grid_mapping of its projection (e.g. "
+            "rotated_latitude_longitude), set crs for this input in [climate] if its x/y are "
+            "coordinates in that CRS, or regrid it to a regular grid"
+        )
+
+
 def _netcdf_field(
     dataset: xr.Dataset,
     source: Path,
@@ -518,6 +557,8 @@ def _netcdf_field(
             f"variable {variable!r} is not in {str(source)!r}; the variables are {listing}; "
             "set variable for this input in [climate]"
         )
+    if crs is None:
+        _refuse_curvilinear(dataset, variable, where)
     data, roles = _to_time_y_x(dataset, variable)
     times, calendar = _decode_times(dataset, roles["time"], source)
     axis = _named_axis(lambda: timeaxis.from_times(times, calendar), where)

@@ -1,7 +1,12 @@
-"""Reading the layer of water bodies (polygons) from any vector format GDAL reads.
+"""Reading the layer of water bodies (polygons, or points with an area) from any vector
+format GDAL reads.
 
-The reader checks identifiers and geometry types up front and leaves geometry repair to the
-zonal engine: invalid and empty polygons are kept as they are. Geometry collections keep
+The reader checks identifiers, geometry types and stated areas up front and leaves geometry
+repair to the zonal engine: invalid and empty polygons are kept as they are. A point (a
+register of farm dams or wells) has no area of its own: it needs ``[waterbodies]
+area_field``, read here and converted to m2. A MultiPoint whose parts are all one location
+is that point; one of several locations is refused, since lakeloss cannot know how the area
+divides between them. Geometry collections keep
 their polygonal parts, flagged ``collection_polygons_kept``; a null geometry becomes an empty
 polygon, flagged ``geometry_null``. Longitude/latitude polygons that cross 180 degrees are
 made contiguous (longitudes beyond 180) so that they land whole on the grid.
@@ -23,6 +28,7 @@ import pyproj
 import shapely
 from shapely.geometry import MultiPolygon, Polygon
 
+from lakeloss.config import AREA_UNITS
 from lakeloss.errors import ConfigError, CRSError, GeometryError, InputDataError
 
 DEFAULT_ID_FIELD = "waterbody_id"
@@ -30,6 +36,7 @@ DEFAULT_ID_FIELD = "waterbody_id"
 
 _PARQUET_SUFFIXES = (".parquet", ".geoparquet")
 _POLYGONAL = ("Polygon", "MultiPolygon")
+_ACCEPTED = (*_POLYGONAL, "Point")
 _EXAMPLES = 5
 
 # What GDAL, its drivers and the parquet reader raise for unreadable input.
@@ -67,6 +74,14 @@ class WaterBodyLayer:
         Layer name inside the source (None for single-layer formats such as GeoParquet).
     crs_assumed : bool
         True when the CRS came from the configuration because the file had none.
+    stated_area_m2 : numpy.ndarray or None
+        Per row, the area the run uses instead of the geometry's: the ``area_field`` value
+        in m2 for points (and for polygons with ``area_source = "field"``), NaN where the
+        geometry's own area applies. None without ``area_field``. [m2]
+    field_area_m2 : numpy.ndarray or None
+        Per row, the ``area_field`` value in m2 wherever it is a positive number (NaN
+        elsewhere), used or not: polygons are compared with it. None without
+        ``area_field``. [m2]
     """
 
     frame: geopandas.GeoDataFrame
@@ -75,6 +90,8 @@ class WaterBodyLayer:
     path: str
     layer: str | None
     crs_assumed: bool
+    stated_area_m2: np.ndarray | None = None
+    field_area_m2: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.frame)
@@ -276,8 +293,30 @@ def _polygonal_part(geometry):
     return polygons[0] if len(polygons) == 1 else MultiPolygon(polygons)
 
 
+def _single_points(geometries: np.ndarray, ids: pd.Series) -> None:
+    """Make each MultiPoint of one location a Point in place; refuse those of several."""
+    kinds = shapely.get_type_id(geometries)
+    rows = np.flatnonzero(kinds == shapely.GeometryType.MULTIPOINT)
+    scattered = []
+    for row in rows:
+        if geometries[row].is_empty:
+            geometries[row] = Polygon()
+            continue
+        locations = np.unique(shapely.get_coordinates(geometries[row]), axis=0)
+        if len(locations) == 1:
+            geometries[row] = shapely.Point(locations[0])
+        else:
+            scattered.append(row)
+    if scattered:
+        raise GeometryError(
+            f"water-body layer has {len(scattered)} MultiPoint features of several locations "
+            f"(ids {_examples(ids.iloc[scattered].tolist())}); expected one point per water "
+            "body; split them into single points, each with its own area"
+        )
+
+
 def _normalise_geometries(frame: geopandas.GeoDataFrame, id_field: str) -> np.ndarray:
-    """Make every geometry a (multi)polygon in place and return the per-row flags."""
+    """Make every geometry a (multi)polygon or point in place; return the per-row flags."""
     flags = np.full(len(frame), "", dtype=object)
     geometries = frame.geometry.to_numpy().copy()
     nulls = np.array([g is None for g in geometries])
@@ -302,6 +341,11 @@ def _normalise_geometries(frame: geopandas.GeoDataFrame, id_field: str) -> np.nd
             f"{_examples(frame[id_field].iloc[barren].tolist())}); expected polygons; "
             "remove those features or replace them with their outlines as polygons"
         )
+    _single_points(geometries, frame[id_field])
+    empty_points = (shapely.get_type_id(geometries) == shapely.GeometryType.POINT) & (
+        shapely.is_empty(geometries)
+    )
+    geometries[empty_points] = Polygon()
     _refuse_non_polygons(geometries, frame[id_field])
     frame["geometry"] = geopandas.GeoSeries(geometries, crs=frame.crs, index=frame.index)
     return flags
@@ -309,15 +353,78 @@ def _normalise_geometries(frame: geopandas.GeoDataFrame, id_field: str) -> np.nd
 
 def _refuse_non_polygons(geometries: np.ndarray, ids: pd.Series) -> None:
     types = pd.Series([g.geom_type for g in geometries], index=ids.index)
-    wrong = ~types.isin(_POLYGONAL)
+    wrong = ~types.isin(_ACCEPTED)
     if not wrong.any():
         return
     counts = types[wrong].value_counts()
     summary = ", ".join(f"{n} {kind}" for kind, n in counts.items())
     raise GeometryError(
         f"water-body layer has {summary} features (ids {_examples(ids[wrong].tolist())}); "
-        "expected polygons or multipolygons; buffer or remove the points and lines"
+        "expected polygons or multipolygons, or points with an area attribute; buffer "
+        "or remove the lines"
     )
+
+
+def _is_point(frame: geopandas.GeoDataFrame) -> np.ndarray:
+    return shapely.get_type_id(frame.geometry.to_numpy()) == shapely.GeometryType.POINT
+
+
+def _refuse_points_without_area(frame: geopandas.GeoDataFrame, id_field: str) -> None:
+    points = _is_point(frame)
+    if points.any():
+        raise GeometryError(
+            f"water-body layer has {int(points.sum())} Point features (ids "
+            f"{_examples(frame[id_field][points].tolist())}) but no area attribute; expected "
+            "polygons, or points with their area; set [waterbodies] area_field to the "
+            "attribute holding each point's area (area_units for its units)"
+        )
+
+
+def _stated_areas(
+    frame: geopandas.GeoDataFrame,
+    id_field: str,
+    area_field: str,
+    area_units: str,
+    area_source: str,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The area each body states (NaN where its geometry's applies) and every usable value.
+
+    Returns (stated, field) in m2; see :class:`WaterBodyLayer`. The rows whose area the run
+    takes from the field (points; every polygon with a geometry when ``area_source`` is
+    "field") must hold a positive number.
+    """
+    fields = [c for c in frame.columns if c != "geometry"]
+    if area_field not in fields:
+        close = difflib.get_close_matches(area_field, fields, n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise ConfigError(
+            f"area field {area_field!r} is not in the water-body layer; {hint}the fields are "
+            f"{', '.join(repr(f) for f in fields) or 'none'}; set [waterbodies] area_field"
+        )
+    raw = frame[area_field]
+    values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+    present = ~shapely.is_empty(frame.geometry.to_numpy())
+    used = _is_point(frame) | (present & (area_source == "field"))
+    problems = (
+        (raw.notna().to_numpy() & np.isnan(values), "non-numeric"),
+        (raw.isna().to_numpy(), "empty (NaN)"),
+        (np.isinf(values), "infinite"),
+        (values == 0, "zero"),
+        (values < 0, "negative"),
+    )
+    for mask, kind in problems:
+        bad = used & mask
+        if bad.any():
+            raise GeometryError(
+                f"area field {area_field!r} is {kind} for {int(bad.sum())} water bodies that "
+                f"take their area from it (ids {_examples(frame[id_field][bad].tolist())}); "
+                f"expected a positive area in {area_units}; fix those values or remove "
+                "those features"
+            )
+    with np.errstate(invalid="ignore"):
+        usable = np.isfinite(values) & (values > 0)
+    field_m2 = np.where(usable, values * AREA_UNITS[area_units], np.nan)
+    return np.where(used, field_m2, np.nan), field_m2
 
 
 def _unwrap_antimeridian(frame: geopandas.GeoDataFrame) -> None:
@@ -354,9 +461,16 @@ def _unwrap_antimeridian(frame: geopandas.GeoDataFrame) -> None:
 
 
 def read_waterbodies(
-    path, *, layer: str | None = None, id_field: str | None = None, crs: str | None = None
+    path,
+    *,
+    layer: str | None = None,
+    id_field: str | None = None,
+    crs: str | None = None,
+    area_field: str | None = None,
+    area_units: str = "m2",
+    area_source: str = "geometry",
 ) -> WaterBodyLayer:
-    """Read and check the layer of water-body polygons.
+    """Read and check the layer of water bodies (polygons, or points with an area).
 
     Parameters
     ----------
@@ -369,6 +483,13 @@ def read_waterbodies(
         Attribute holding unique ids; when None, ``waterbody_id`` = 1..N in file order.
     crs : str, optional
         CRS to use when the file has none (e.g. ``"EPSG:28355"``).
+    area_field : str, optional
+        Attribute holding each body's area; required when the layer has points.
+    area_units : str, optional
+        Units of ``area_field``: "m2" (default), "ha", "km2" or "acre".
+    area_source : str, optional
+        "geometry" (default): polygons keep their own area; "field": polygons take
+        ``area_field`` as well. Points always take ``area_field``.
 
     Returns
     -------
@@ -383,7 +504,9 @@ def read_waterbodies(
     CRSError
         No CRS in the file and none configured, or an unparseable ``crs``.
     GeometryError
-        Null or duplicate ids; point or line features; collections without polygons.
+        Null or duplicate ids; line features; MultiPoints of several locations; points
+        without ``area_field``; collections without polygons; an ``area_field`` value that
+        is used and is not a positive number.
     """
     source = Path(path)
     chosen = _choose_layer(source, layer)
@@ -396,6 +519,11 @@ def read_waterbodies(
     frame, crs_assumed = _apply_crs(frame, source, crs)
     chosen_id = _id_column(frame, source, id_field)
     flags = _normalise_geometries(frame, chosen_id)
+    stated = field = None
+    if area_field is None:
+        _refuse_points_without_area(frame, chosen_id)
+    else:
+        stated, field = _stated_areas(frame, chosen_id, area_field, area_units, area_source)
     _unwrap_antimeridian(frame)
     return WaterBodyLayer(
         frame=frame,
@@ -404,4 +532,6 @@ def read_waterbodies(
         path=os.fspath(path),
         layer=chosen,
         crs_assumed=crs_assumed,
+        stated_area_m2=stated,
+        field_area_m2=field,
     )

@@ -38,6 +38,8 @@ _NOISE_AREA = 1e-12
 # polygon's own area by far less than this.
 _OUTSIDE_TOLERANCE = 1e-6
 
+_POINT = int(shapely.GeometryType.POINT)
+
 
 @dataclass(frozen=True)
 class _Axis:
@@ -80,6 +82,20 @@ class _Axis:
         last = np.searchsorted(self.edges, high, side="left") - 1
         return np.clip(first, 0, self.size - 1), np.clip(last, 0, self.size - 1)
 
+    def locate(self, value: np.ndarray) -> np.ndarray:
+        """Ascending index of the cell holding each coordinate; -1 outside the grid.
+
+        A coordinate on the edge between two cells goes to the cell above it (east on x,
+        north on y, whichever way the file stores them); one on the grid's own last edge
+        goes to the last cell, so the grid's outline is inside. On a wrapping axis the seam
+        is an edge like any other: a point on it goes to the cell east of it.
+        """
+        index = np.searchsorted(self.edges, value, side="right") - 1
+        index = np.where(value == self.edges[-1], self.size - 1, index)
+        with np.errstate(invalid="ignore"):
+            inside = (value >= self.edges[0]) & (value <= self.edges[-1])
+        return np.where(inside, index, -1)
+
     def stored(self, index: np.ndarray) -> np.ndarray:
         index = index % self.period
         return self.stored_size - 1 - index if self.flipped else index
@@ -102,6 +118,12 @@ class _LayerAreas:
     empty: np.ndarray
     centroid_lon: np.ndarray
     centroid_lat: np.ndarray
+    point: np.ndarray
+
+    @property
+    def weight(self) -> np.ndarray:
+        """What each body's weights sum to in the grid: its true area, or 1 for a point."""
+        return np.where(self.point, 1.0, self.area)
 
 
 def _repair_layer(original: np.ndarray, reprojected: gpd.GeoSeries | None):
@@ -124,7 +146,8 @@ def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS, reprojected) -> _LayerAre
     lon, lat = equal_area.centroid_lonlat()
     lon[repaired.empty] = np.nan
     lat[repaired.empty] = np.nan
-    return _LayerAreas(area, before, repaired.repaired, repaired.empty, lon, lat)
+    point = ~repaired.empty & (shapely.get_type_id(repaired.geometry) == _POINT)
+    return _LayerAreas(area, before, repaired.repaired, repaired.empty, lon, lat, point)
 
 
 @dataclass
@@ -203,9 +226,24 @@ def _clipped_pairs(geometry: np.ndarray, x: _Axis, y: _Axis, bounds: np.ndarray)
     return _Pairs(body, y.stored(row), x.stored(col), coverage), inside_planar
 
 
-def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygon_area):
-    """All (body, cell) pairs and the share of each polygon's true area inside the grid."""
+def _point_pairs(in_grid: np.ndarray, x: _Axis, y: _Axis, point: np.ndarray):
+    """The cell each point falls in (weight 1), and whether it is inside the grid."""
+    rows = np.flatnonzero(point)
+    xy = shapely.get_coordinates(in_grid[rows])
+    col, row = x.locate(xy[:, 0]), y.locate(xy[:, 1])
+    inside = (col >= 0) & (row >= 0)
+    share = np.zeros(in_grid.size)
+    share[rows[inside]] = 1.0
+    body = rows[inside]
+    pairs = _Pairs(body, y.stored(row[inside]), x.stored(col[inside]), np.ones(body.size))
+    return pairs, share
+
+
+def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, areas: _LayerAreas):
+    """All (body, cell) pairs and the share of each body's true area inside the grid."""
     x, y = _grid_axes(grid)
+    present = ~areas.empty & ~areas.point
+    polygon_area = areas.area
     bounds = shapely.bounds(in_grid)
     with np.errstate(invalid="ignore"):
         within = (
@@ -230,6 +268,10 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygo
     pairs = _Pairs(
         single, y.stored(first_row[single]), x.stored(first_col[single]), np.ones(single.size)
     )
+    if areas.point.any():
+        located, share_of_points = _point_pairs(in_grid, x, y, areas.point)
+        share = np.where(areas.point, share_of_points, share)
+        pairs = _concat(pairs, located)
     crossing = np.flatnonzero(overlaps & ~one_cell)
     if crossing.size:
         clipped, inside_planar = _clipped_pairs(in_grid[crossing], x, y, bounds[crossing])
@@ -237,13 +279,18 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, present: np.ndarray, polygo
         inside = _true_area_inside(in_grid[partial], grid, x, y) / polygon_area[partial]
         # below the tolerance the difference is the two area computations, not real overhang
         share[partial] = np.where(inside > 1.0 - _OUTSIDE_TOLERANCE, 1.0, inside)
-        pairs = _Pairs(
-            np.concatenate([pairs.body, crossing[clipped.body]]),
-            np.concatenate([pairs.row, clipped.row]),
-            np.concatenate([pairs.col, clipped.col]),
-            np.concatenate([pairs.raw, clipped.raw]),
-        )
+        clipped.body = crossing[clipped.body]
+        pairs = _concat(pairs, clipped)
     return pairs, share, within
+
+
+def _concat(first: _Pairs, second: _Pairs) -> _Pairs:
+    return _Pairs(
+        np.concatenate([first.body, second.body]),
+        np.concatenate([first.row, second.row]),
+        np.concatenate([first.col, second.col]),
+        np.concatenate([first.raw, second.raw]),
+    )
 
 
 def _true_area_inside(geometry: np.ndarray, grid: GridSpec, x: _Axis, y: _Axis) -> np.ndarray:
@@ -298,7 +345,7 @@ def build_weights(
     Parameters
     ----------
     polygons : geopandas.GeoDataFrame
-        Water bodies (Polygon / MultiPolygon, any CRS); row order is kept.
+        Water bodies (Polygon / MultiPolygon / Point, any CRS); row order is kept.
     grid : GridSpec
         The climate grid.
     reprojected : geopandas.GeoSeries, optional
@@ -325,6 +372,11 @@ def build_weights(
     excluded and the parts of a multipolygon summed because clipping works on the whole
     geometry.
 
+    A point takes the one cell it falls in, with weight 1 (it has no area of its own: its
+    true area is 0, and the run takes its area from an attribute); a point on the edge
+    between two cells goes to the cell east or north of it (:meth:`_Axis.locate`), one
+    outside the grid is flagged ``outside_grid``.
+
     A geographic grid spanning 360° of longitude (:attr:`GridSpec.wraps_longitude`) has no
     east or west edge: a polygon over its storage seam takes cells on both sides of it, the
     ones beyond the seam found one turn away and mapped back to their stored columns.
@@ -344,7 +396,7 @@ def build_weights(
             "polygon with area; check the layer"
         )
     in_grid = np.asarray(reprojected.array, dtype=object)
-    pairs, share, _ = _cell_pairs(in_grid, grid, ~areas.empty, areas.area)
+    pairs, share, _ = _cell_pairs(in_grid, grid, areas)
     if not pairs.body.size and require_overlap:
         raise GridError(
             f"none of the {int((~areas.empty).sum())} water bodies overlaps the climate grid "
@@ -359,14 +411,14 @@ def _assemble(pairs: _Pairs, share: np.ndarray, areas: _LayerAreas, grid: GridSp
     n = share.size
     raw = pairs.raw * cell_true_area(grid, pairs.row, pairs.col)
     raw_total = np.bincount(pairs.body, weights=raw, minlength=n)
-    grid_area = areas.area * share
+    grid_area = areas.weight * share
     with np.errstate(invalid="ignore", divide="ignore"):
         scale = np.where(raw_total > 0, grid_area / raw_total, 0.0)
-        coverage = np.where(areas.empty, np.nan, grid_area / areas.area)
+        coverage = np.where(areas.empty, np.nan, grid_area / areas.weight)
     ny, nx = grid.shape
-    matrix = sp.csr_matrix(
-        (raw * scale[pairs.body], (pairs.body, pairs.row * nx + pairs.col)), shape=(n, ny * nx)
-    )
+    weight = raw * scale[pairs.body]
+    weight[areas.point[pairs.body]] = 1.0  # exactly, not cell area / cell area
+    matrix = sp.csr_matrix((weight, (pairs.body, pairs.row * nx + pairs.col)), shape=(n, ny * nx))
     return ZonalWeights(
         matrix=matrix,
         polygon_area_m2=areas.area,

@@ -19,6 +19,7 @@ _POLYGONAL = np.array(
     [shapely.GeometryType.POLYGON, shapely.GeometryType.MULTIPOLYGON], dtype=np.int64
 )
 _COLLECTION = int(shapely.GeometryType.GEOMETRYCOLLECTION)
+_POINT = int(shapely.GeometryType.POINT)
 
 #: Key in ``reproject_to_grid(...).attrs`` recording which rows were repaired / are empty.
 REPAIR_ATTRS = "lakeloss_repair"
@@ -49,7 +50,8 @@ class RepairedGeometry:
 
 
 def check_layer(polygons: gpd.GeoDataFrame) -> CRS:
-    """Refuse a layer without CRS or with non-polygon geometries; return its CRS."""
+    """Refuse a layer without CRS or with geometries other than polygons and points; return
+    its CRS."""
     if polygons.crs is None:
         raise CRSError(
             "the water-body layer has no CRS; expected a layer with a defined CRS; "
@@ -58,14 +60,14 @@ def check_layer(polygons: gpd.GeoDataFrame) -> CRS:
     geometry = np.asarray(polygons.geometry.array, dtype=object)
     present = ~(shapely.is_missing(geometry) | shapely.is_empty(geometry))
     kinds = shapely.get_type_id(geometry)
-    wrong = present & ~np.isin(kinds, _POLYGONAL)
+    wrong = present & ~np.isin(kinds, _POLYGONAL) & (kinds != _POINT)
     if wrong.any():
         first = int(np.flatnonzero(wrong)[0])
         kind = shapely.get_type_id(geometry[first])
         raise GeometryError(
             f"{int(wrong.sum())} water bodies are not polygons (first at row {first}: "
-            f"{shapely.GeometryType(kind).name.lower()}); expected Polygon or MultiPolygon; "
-            "buffer or drop the point and line features"
+            f"{shapely.GeometryType(kind).name.lower()}); expected Polygon, MultiPolygon or "
+            "Point; buffer or drop the line features"
         )
     return polygons.crs
 
@@ -101,7 +103,9 @@ def repair_geometry(geometry: np.ndarray) -> RepairedGeometry:
     if repaired.any():
         fixed = shapely.make_valid(geometry[repaired], method="structure", keep_collapsed=False)
         geometry[repaired] = _polygonal_part(fixed)
-    empty = shapely.is_empty(geometry) | (shapely.area(geometry) == 0)
+    # a point has no area and is not empty: it stands for a body whose area is stated
+    flat = (shapely.area(geometry) == 0) & (shapely.get_type_id(geometry) != _POINT)
+    empty = shapely.is_empty(geometry) | flat
     return RepairedGeometry(geometry=geometry, repaired=repaired, empty=empty)
 
 

@@ -81,7 +81,7 @@ def combine_blocks(
     order[index] = np.arange(index.size)
     matrix = sp.vstack([p.matrix for p in parts], format="csr")[order]
     rows = {name: np.concatenate([getattr(p, name) for p in parts])[order] for name in _ROW_FIELDS}
-    if np.all(rows["polygon_area_m2"] == 0):
+    if all("geometry_empty" in str(flag).split(";") for flag in rows["flags"]):
         raise GeometryError(
             f"all {index.size} water-body geometries are empty; expected at least one polygon "
             "with area; check the layer"

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import tempfile
 import zipfile
@@ -17,6 +18,11 @@ from lakeloss.zonal.grid import GridSpec
 
 SAVE_FORMAT_VERSION = 1
 
+# Stated and measured areas of a polygon that differ by more than this factor flag it: a
+# register's area rounded or of the full-supply level differs by far less, a wrong unit
+# (ha read as m2) or a wrong feature by far more. Our own choice, no source.
+_AREA_RATIO_LIMIT = 2.0
+
 
 @dataclass
 class ZonalWeights:
@@ -28,16 +34,20 @@ class ZonalWeights:
         ``n_waterbodies x ny*nx``; column ``row * nx + col`` indexes ``values[t, row, col]``
         as stored; entry = true area of (water body ∩ cell). [m2]
     polygon_area_m2 : numpy.ndarray
-        True area of each (repaired) polygon; 0 for empty geometry. [m2]
+        True area of each (repaired) polygon; 0 for empty geometry and for points. After
+        :meth:`with_stated_areas`, the area the run uses. [m2]
     grid_area_m2 : numpy.ndarray
-        True area of each polygon inside the grid (= row sum of ``matrix``). [m2]
+        True area of each polygon inside the grid (= row sum of ``matrix``); for a point,
+        1 inside the grid (its nominal weight) and 0 outside. [m2, or 1 for points]
     grid_coverage : numpy.ndarray
-        ``grid_area_m2 / polygon_area_m2``; NaN for empty geometry. [1]
+        Share of the polygon inside the grid (1 or 0 for a point); NaN for empty
+        geometry. [1]
     area_before_repair_m2 : numpy.ndarray
         True area of the invalid input polygon; NaN where no repair was needed. [m2]
     flags : numpy.ndarray of str
         ``;``-joined tokens, ``""`` when clean: ``geometry_repaired``, ``geometry_empty``,
-        ``outside_grid``, ``partly_outside_grid``.
+        ``outside_grid``, ``partly_outside_grid`` (and ``area_field_disagrees`` after
+        :meth:`with_stated_areas`).
     centroid_lon, centroid_lat : numpy.ndarray
         Centroid of each polygon in WGS84; NaN for empty geometry. [degrees]
     grid_key : str
@@ -99,6 +109,37 @@ class ZonalWeights:
             grid_key=self.grid_key,
             grid=self.grid,
         )
+
+    def with_stated_areas(self, stated_m2: np.ndarray, field_m2: np.ndarray) -> ZonalWeights:
+        """The same weights with the areas a layer states for its bodies (a new object).
+
+        Parameters
+        ----------
+        stated_m2 : numpy.ndarray
+            Per body, the area to use instead of the polygon's; NaN keeps the polygon's
+            true area. [m2]
+        field_m2 : numpy.ndarray
+            Per body, the area the layer states, used or not (NaN where none). [m2]
+
+        Returns
+        -------
+        ZonalWeights
+            ``polygon_area_m2`` is the area the run uses (volumes and area-dependent
+            physics); the flag ``area_field_disagrees`` marks polygons whose stated area
+            and true area differ by more than a factor of 2. The matrix, and so every
+            mean, is unchanged: a polygon's climate still comes from the cells under it.
+        """
+        polygon = self.polygon_area_m2
+        area = np.where(np.isnan(stated_m2), polygon, stated_m2)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ratio = field_m2 / polygon
+            disagree = (polygon > 0) & (
+                (ratio > _AREA_RATIO_LIMIT) | (ratio < 1 / _AREA_RATIO_LIMIT)
+            )
+        flags = np.asarray(self.flags, dtype=object).copy()
+        token = "area_field_disagrees"
+        flags[disagree] = np.where(flags[disagree] == "", token, flags[disagree] + ";" + token)
+        return dataclasses.replace(self, polygon_area_m2=area, flags=flags)
 
     def apply(self, values, out: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Area-weighted mean of gridded values over each water body, per time step.

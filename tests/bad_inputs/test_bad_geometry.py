@@ -80,17 +80,18 @@ def test_null_ids(case):
 
 
 @pytest.mark.parametrize(
-    ("geometry", "kind"),
+    ("geometry", "words"),
     [
-        (shapely.Point(0, 0), "Point"),
-        (shapely.LineString([(0, 0), (100, 100)]), "LineString"),
-        (shapely.MultiPoint([(0, 0), (5, 5)]), "MultiPoint"),
+        # a point is a water body only with its area (tests/test_points.py)
+        (shapely.Point(0, 0), ("Point", "expected polygons", "area_field")),
+        (shapely.LineString([(0, 0), (100, 100)]), ("LineString", "expected polygons")),
+        (shapely.MultiPoint([(0, 0), (5, 5)]), ("MultiPoint", "several locations")),
     ],
 )
-def test_points_and_lines_are_refused(case, geometry, kind):
+def test_points_and_lines_are_refused(case, geometry, words):
     x, y = _pond_origin()
     _layer_with(case, shapely.affinity.translate(geometry, x, y))
-    refused_everywhere(case, kind, "102", "expected polygons")
+    refused_everywhere(case, "102", *words)
 
 
 def test_collection_without_polygons_is_refused(case):

@@ -284,11 +284,24 @@ def test_layer_without_crs_is_refused(projected_grid):
         build_weights(layer, projected_grid)
 
 
-def test_points_are_refused(projected_grid):
+def test_lines_are_refused(projected_grid):
     x0, y0 = projected_grid.x_edges[0], projected_grid.y_edges[0]
-    layer = _layer([_two_cell_pond(projected_grid), shapely.Point(x0 + 10, y0 - 10)], 3035)
-    with pytest.raises(GeometryError, match="first at row 1: point"):
+    line = shapely.LineString([(x0 + 10, y0 - 10), (x0 + 20, y0 - 20)])
+    layer = _layer([_two_cell_pond(projected_grid), line], 3035)
+    with pytest.raises(GeometryError, match="first at row 1: linestring"):
         build_weights(layer, projected_grid)
+
+
+def test_point_takes_the_cell_it_falls_in_with_weight_one(projected_grid):
+    """A point has no area: one cell, weight 1, true area 0 (its area is stated)."""
+    x0, y0 = projected_grid.x_edges[0], projected_grid.y_edges[0]
+    dx = projected_grid.x_edges[1] - x0
+    dy = projected_grid.y_edges[1] - y0
+    point = shapely.Point(x0 + 1.5 * dx, y0 + 0.5 * dy)
+    weights = build_weights(_layer([_two_cell_pond(projected_grid), point], 3035), projected_grid)
+    row = weights.matrix[1]
+    assert row.indices.tolist() == [1] and row.data.tolist() == [1.0]
+    assert weights.polygon_area_m2[1] == 0.0 and weights.grid_coverage[1] == 1.0
 
 
 def test_layer_not_overlapping_the_grid_is_refused(projected_grid):
