@@ -137,10 +137,11 @@ def test_water_year_from_october_and_from_january(daily):
 
 
 def test_water_year_totals_do_not_depend_on_the_block_length(daily):
-    tables = [
+    # Blocks of 5 and 64 steps cut the water years at other days than the automatic length.
+    tables = [run(daily, period="water_year")] + [
         run(with_section(daily, "compute", {**daily["compute"], "chunk_steps": steps}),
             period="water_year")
-        for steps in (5, 64, 400)
+        for steps in (5, 64)
     ]  # fmt: skip
     for table in tables[1:]:
         for column in COLUMNS:
