@@ -673,6 +673,7 @@ def assemble(
             "waterbodies": int(len(bodies)),
             "periods": int(len(inputs.periods.rows)),
             "time_steps": int(len(inputs.axis.days)),
+            "days": int(round(float(inputs.axis.days.sum()))),
             "flagged": int((flags != "").sum()),
             "without_result": int(bodies["evap_mm"].isna().sum()),
             "without_any_result": int(
@@ -733,13 +734,17 @@ def summary_line(result: RunResult, target: Path) -> str:
     bodies = result.waterbodies
     n_periods = int(counts["periods"])
     periods = result.by_period.iloc[:n_periods]
-    days = int(periods["days"].sum())
+    # The whole-run volume covers every day of the run, also those between the periods of
+    # a custom period table: its span and days are the run's (the time axis').
+    days = int(counts.get("days", periods["days"].sum()))
     years = days / 365.2425
     with_result = int(bodies["evap_mm"].notna().sum())
     total = float(bodies["evap_m3"].sum(skipna=True))
     # Dates are Timestamps or cftime dates in the API; the line names the calendar days.
     first, last = periods["period_start"].iloc[0], periods["period_end"].iloc[-1]
-    span = f"{str(first)[:10]}..{str(last)[:10]}"
+    span = str(result.provenance.get("time_axis", "")).split(",")[0] or (
+        f"{str(first)[:10]}..{str(last)[:10]}"
+    )
     over = f"over {days} days" if years < 0.95 else f"over {years:.1f} years"
     per_year = f", {total / years:,.0f} m3 per year" if years >= 1.5 else ""
     head = f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "

@@ -483,9 +483,13 @@ def window(axis: TimeAxis, start: str | None, end: str | None) -> slice:
             f"[time] start {begin} is after [time] end {finish}; expected start <= end"
         )
     if begin < first_day or begin > last_day:
-        raise ConfigError(f"[time] start {begin} is outside the data: {held}; set a date inside")
+        raise ConfigError(
+            f"[time] start {begin} is outside the data: {held}; set a date inside that span"
+        )
     if finish > last_day or finish < first_day:
-        raise ConfigError(f"[time] end {finish} is outside the data: {held}; set a date inside")
+        raise ConfigError(
+            f"[time] end {finish} is outside the data: {held}; set a date inside that span"
+        )
     if axis.step == "month":
         if begin not in axis.starts:
             raise ConfigError(

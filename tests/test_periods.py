@@ -366,3 +366,23 @@ def test_period_columns_are_written_and_described(daily, tmp_path):
         "period_label", "period_start", "period_end", "days", "days_in_period", "period_complete"
     ]  # fmt: skip
     assert summary["period_label"].tolist() == ["2029-30", "2030-31", "2031-32", "2032-33"]
+
+
+def test_summary_line_counts_the_days_between_custom_periods(daily, tmp_path):
+    from lakeloss.results import summary_line
+
+    (tmp_path / "p.csv").write_text("name,start,end\nmid,2031-01-01,2031-01-31\n")
+    config = with_section(daily, "time", {"start": "2030-12-01", "end": "2031-02-28"})
+    config["output"] = {
+        **daily["output"],
+        "period": "table",
+        "period_table": str(tmp_path / "p.csv"),
+    }
+    result = lakeloss.run(config)
+    assert result.provenance["counts"]["days"] == 90
+    assert result.provenance["counts"]["periods"] == 1
+    line = summary_line(result, tmp_path)
+    # The whole-run volume covers the window's 90 days, not only the period's 31.
+    assert "1 periods (2030-12-01..2031-02-28)" in line and "over 90 days" in line
+    volume = float(result.waterbodies["evap_m3"].sum())
+    assert volume > 2.5 * float(result.by_period["evap_m3"].sum())
