@@ -366,6 +366,7 @@ def test_period_columns_are_written_and_described(daily, tmp_path):
         "period_label", "period_start", "period_end", "days", "days_in_period", "period_complete"
     ]  # fmt: skip
     assert summary["period_label"].tolist() == ["2029-30", "2030-31", "2031-32", "2032-33"]
+    assert summary["period_complete"].tolist() == ["false", "true", "true", "false"]
 
 
 def test_summary_line_counts_the_days_between_custom_periods(daily, tmp_path):
