@@ -11,8 +11,10 @@ file) resolves them against the current working directory.
 
 from __future__ import annotations
 
+import datetime as _dt
 import difflib
 import os
+import re
 import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
@@ -22,7 +24,7 @@ from typing import Any
 from lakeloss.errors import ConfigError, InputDataError
 from lakeloss.glossary import ALIASES, QUANTITIES
 
-PERIODS = ("day", "month", "year")
+PERIODS = ("day", "month", "year", "water_year", "season", "table")
 VOLUME_UNITS = {"ML": 1.0e-3, "acre_ft": 1.0 / 1233.48183754752}
 """Extra volume units: factor from m3. 1 acre-foot = 1233.48183754752 m3 (exact by definition
 of the international foot and acre)."""
@@ -98,6 +100,18 @@ class OutputConfig:
     extra_volume_units: tuple[str, ...] = ()
     series: bool = False
     precipitation: bool = True
+    year_start_month: int | None = None
+    """First month of a water year (period ``water_year``); None: July (7)."""
+    period_table: Path | None = None
+    """CSV of custom periods (``name,start,end``); set, the period is ``"table"``."""
+
+
+@dataclass(frozen=True)
+class TimeConfig:
+    """``[time]``: the window of the climate files a run covers (inclusive ISO dates)."""
+
+    start: str | None = None
+    end: str | None = None
 
 
 @dataclass(frozen=True)
@@ -121,6 +135,7 @@ class RunConfig:
     parameters: Mapping[str, object]
     output: OutputConfig
     compute: ComputeConfig = field(default_factory=ComputeConfig)
+    time: TimeConfig = field(default_factory=TimeConfig)
     strict: bool = True
     max_gap_steps: int | None = None
     """``[checks] max_gap_steps``: longest climate gap filled by interpolation, in time
@@ -149,7 +164,16 @@ class RunConfig:
 
 # --------------------------------------------------------------------------- schema helpers
 
-_SECTIONS = ("waterbodies", "climate", "method", "parameters", "output", "compute", "checks")
+_SECTIONS = (
+    "waterbodies",
+    "climate",
+    "method",
+    "parameters",
+    "time",
+    "output",
+    "compute",
+    "checks",
+)
 _WATERBODY_KEYS = {
     "path": str,
     "layer": str,
@@ -180,7 +204,10 @@ _OUTPUT_KEYS = {
     "extra_volume_units": list,
     "series": bool,
     "precipitation": bool,
+    "year_start_month": int,
+    "period_table": str,
 }
+_TIME_KEYS = {"start": str, "end": str}
 _COMPUTE_KEYS = {
     "chunk_steps": int,
     "workers": int,
@@ -198,6 +225,7 @@ _TABLE_KEYS: dict[str, Mapping[str, type]] = {
     "waterbodies": _WATERBODY_KEYS,
     "climate.<name>": _CLIMATE_KEYS,
     "method": _METHOD_KEYS,
+    "time": _TIME_KEYS,
     "output": _OUTPUT_KEYS,
     "compute": _COMPUTE_KEYS,
     "checks": _CHECKS_KEYS,
@@ -463,9 +491,10 @@ def _parameters(
 
 def _output(raw: Mapping[str, Any], base: Path | None) -> OutputConfig:
     table = _typed(_table(raw, "output", True), _OUTPUT_KEYS, "[output]")
-    period = table.get("period", "month")
+    period = table.get("period", "table" if "period_table" in table else "month")
     if period not in PERIODS:
         raise ConfigError(f"[output].period must be one of {', '.join(PERIODS)}, got '{period}'")
+    first_month, period_table = _period_settings(table, period, base)
     units = _str_list(table.get("extra_volume_units", []), "[output].extra_volume_units")
     for unit in units:
         if unit not in VOLUME_UNITS:
@@ -479,7 +508,64 @@ def _output(raw: Mapping[str, Any], base: Path | None) -> OutputConfig:
         extra_volume_units=units,
         series=table.get("series", False),
         precipitation=table.get("precipitation", True),
+        year_start_month=first_month,
+        period_table=period_table,
     )
+
+
+def _period_settings(
+    table: Mapping[str, Any], period: str, base: Path | None
+) -> tuple[int | None, Path | None]:
+    """``[output] year_start_month`` and ``period_table``, checked against the period."""
+    first_month = table.get("year_start_month")
+    if first_month is not None:
+        if not 1 <= first_month <= 12:
+            raise ConfigError(
+                f"[output].year_start_month is {first_month}; expected a month number 1..12 "
+                "(7 = July-June, 10 = October-September)"
+            )
+        if period != "water_year":
+            raise ConfigError(
+                f"[output].year_start_month applies to period = 'water_year' only, but the "
+                f"period is '{period}'; remove it or set period = \"water_year\""
+            )
+    written = table.get("period_table")
+    if period == "table" and written is None:
+        raise ConfigError(
+            "[output].period = 'table' needs period_table = \"periods.csv\" (a CSV of "
+            "name,start,end)"
+        )
+    if written is not None and period != "table":
+        raise ConfigError(
+            f"[output].period_table gives custom periods, but period is '{period}'; remove "
+            "period (or set it to 'table') to report by the table"
+        )
+    path = None if written is None else _input_path(written, base, "[output].period_table")
+    return first_month, path
+
+
+_ISO_DAY = re.compile(r"^\d{4}-\d{2}-\d{2}$")
+
+
+def _time(raw: Mapping[str, Any]) -> TimeConfig:
+    """``[time] start`` and ``end``: ISO dates (TOML dates too), start <= end. Whether
+    they exist in the files' calendar and lie inside the data is checked once the files
+    are open."""
+    written = dict(_table(raw, "time", False))
+    for key, value in written.items():
+        if isinstance(value, _dt.date) and not isinstance(value, _dt.datetime):
+            written[key] = value.isoformat()  # start = 2031-01-01 unquoted is a TOML date
+    table = _typed(written, _TIME_KEYS, "[time]")
+    for key, value in table.items():
+        if not _ISO_DAY.match(value.strip()):
+            raise ConfigError(
+                f"[time].{key} = {value!r} is not a date; expected YYYY-MM-DD, e.g. 2031-01-01"
+            )
+        table[key] = value.strip()
+    start, end = table.get("start"), table.get("end")
+    if start is not None and end is not None and start > end:
+        raise ConfigError(f"[time].start {start} is after [time].end {end}; expected start <= end")
+    return TimeConfig(start=start, end=end)
 
 
 def _compute(raw: Mapping[str, Any], base: Path | None) -> ComputeConfig:
@@ -534,6 +620,7 @@ def config_from_mapping(raw: Mapping[str, Any], config_path: Path | None = None)
         parameters=_parameters(raw, climate, method),
         output=output,
         compute=_compute(raw, base),
+        time=_time(raw),
         strict=checks.get("strict", True),
         max_gap_steps=checks.get("max_gap_steps"),
         source=raw,

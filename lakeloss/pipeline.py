@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import atexit
 import contextlib
+import dataclasses
 import functools
 import logging
 import os
@@ -64,6 +65,7 @@ from lakeloss.gaps import report as gap_report
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
+from lakeloss.io.period_table import read_period_table
 from lakeloss.physics import registry
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
@@ -200,6 +202,8 @@ def load_inputs(config: RunConfig) -> Inputs:
     caught.extend(str(w.message) for w in recorded)
     if config.output.period == "day" and axis.step == "month":
         raise ConfigError("[output].period = 'day' needs daily climate; these inputs are monthly")
+    axis, fields = _in_window(config, axis, fields)
+    periods = _periods(config, axis)
     grids: dict[str, GridSpec] = {}
     field_grid: dict[str, str] = {}
     for quantity, opened in fields.items():
@@ -221,12 +225,44 @@ def load_inputs(config: RunConfig) -> Inputs:
         layer=layer,
         fields=fields,
         axis=axis,
-        periods=timeaxis.periods(axis, config.output.period),
+        periods=periods,
         grids=grids,
         field_grid=field_grid,
         warnings=caught,
         static_fields=static_fields,
         recorded=recorded,
+    )
+
+
+def _in_window(
+    config: RunConfig, axis: timeaxis.TimeAxis, fields: dict[str, climate_io.ClimateField]
+) -> tuple[timeaxis.TimeAxis, dict[str, climate_io.ClimateField]]:
+    """The axis and the lazy fields cut to ``[time] start``..``end``: only those steps are
+    ever read (gap filling too sees only the window's steps)."""
+    window = config.time
+    if window.start is None and window.end is None:
+        return axis, fields
+    steps = timeaxis.window(axis, window.start, window.end)
+    if steps == slice(0, len(axis)):
+        return axis, fields
+    cut = {
+        q: dataclasses.replace(f, data=f.data.isel(time=steps), times=f.times[steps])
+        for q, f in fields.items()
+    }
+    return axis.take(steps), cut
+
+
+def _periods(config: RunConfig, axis: timeaxis.TimeAxis) -> timeaxis.Periods:
+    output = config.output
+    table = None
+    if output.period_table is not None:
+        table = read_period_table(output.period_table)
+    return timeaxis.periods(
+        axis,
+        output.period,
+        year_start_month=output.year_start_month,
+        table=table,
+        table_name=f"period table '{output.period_table}'",
     )
 
 

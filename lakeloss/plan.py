@@ -59,7 +59,7 @@ class Plan:
             f"water bodies : {inputs.n_waterbodies} from {config.waterbodies.path} "
             f"(id field '{inputs.layer.id_field}', CRS {crs_label(inputs.layer.frame.crs)})",
             f"time axis    : {inputs.axis.describe()}",
-            f"periods      : {len(inputs.periods.starts)} x {config.output.period}",
+            f"periods      : {len(inputs.periods.rows)} x {config.output.period}",
             f"method       : {config.method.name}"
             + (
                 f" (compared with {', '.join(config.method.compare)})"

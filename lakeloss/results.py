@@ -68,9 +68,27 @@ _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
 # Columns of the per-period table: each row is one water body in one period, so every
 # amount is the period's, not the run's.
 _PERIOD_FIELDS: dict[str, tuple[str, str, str | None]] = {
-    "period_start": ("Period start", "first day of the period", None),
-    "period_end": ("Period end", "last day of the period, inclusive", None),
-    "days": ("Days", "days of climate data in the period", "d"),
+    "period_label": (
+        "Period",
+        "name of the period: 2031-01 (month), 2031 (year), 2030-31 (water year), 2031-DJF "
+        "(season, December counted to the next year), the date (day) or the custom name",
+        None,
+    ),
+    "period_start": (
+        "Period start",
+        "first day of the period covered by the data (later than the period's own first day "
+        "when period_complete is false)",
+        None,
+    ),
+    "period_end": ("Period end", "last day of the period covered by the data, inclusive", None),
+    "days": ("Days", "days of climate data in the period (the days summed)", "d"),
+    "days_in_period": ("Days in period", "calendar days of the whole period", "d"),
+    "period_complete": (
+        "Period complete",
+        "1 when the data cover every day of the period; 0 for a partial period at the ends "
+        "of the data or of the time window (its totals cover only the days column)",
+        None,
+    ),
     "evap_mm": (
         "Evaporation depth",
         "open-water evaporation in this period, primary method",
@@ -348,6 +366,15 @@ def _rank(volume: np.ndarray, ids: pd.Series) -> pd.arrays.IntegerArray:
     return pd.arrays.IntegerArray(rank, ~has)
 
 
+_PERIOD_KEYS = (
+    "period_label",
+    "period_start",
+    "period_end",
+    "days",
+    "days_in_period",
+    "period_complete",
+)
+"""Columns that describe a period, first in the period table and the summaries."""
 _PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
 
 
@@ -355,12 +382,14 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     """One row per water body and period, indexed by the water-body id (rows by body)."""
     first = next(iter(weights.values()))
     periods = inputs.periods
-    n_periods, n = sums.depth[config.method.name].shape
+    # Segments between the periods of a custom table are summed but not reported.
+    kept = periods.rows
+    n_periods, n = len(kept), sums.depth[config.method.name].shape[1]
     ids = inputs.layer.frame[inputs.layer.id_field]
     body_of_row = np.repeat(np.arange(n), n_periods)
     period_of_row = np.tile(np.arange(n_periods), n)
-    evap = sums.depth[config.method.name].T
-    precip = sums.precip.T if config.output.precipitation else np.full((n, n_periods), np.nan)
+    evap = sums.depth[config.method.name][kept].T
+    precip = sums.precip[kept].T if config.output.precipitation else np.full((n, n_periods), np.nan)
     area = first.polygon_area_m2[:, None]
     compared = config.method.all[1:]
     # Rows by water body, then period: the (period, body) sums transposed, so no sort of
@@ -374,13 +403,20 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     np.subtract(evap, precip, out=block[3])
     np.divide(np.multiply(block[3], area, out=block[4]), 1000.0, out=block[4])
     for i, name in enumerate(compared, start=len(_PERIOD_NUMBERS)):
-        block[i] = sums.depth[name].T
+        block[i] = sums.depth[name][kept].T
     index = pd.Index(_repeat_rows(ids, body_of_row), name=inputs.layer.id_field)
     table = pd.DataFrame(block.reshape(len(names), -1).T, columns=names, index=index, copy=False)
-    starts, ends = period_dates(periods.starts, periods.ends, inputs.axis.calendar)
-    table.insert(0, "period_start", starts.take(period_of_row))
-    table.insert(1, "period_end", ends.take(period_of_row))
-    table.insert(2, "days", np.rint(periods.days).astype(np.int64)[period_of_row])
+    starts, ends = period_dates(
+        [periods.starts[k] for k in kept], [periods.ends[k] for k in kept], inputs.axis.calendar
+    )
+    labels = np.array([periods.labels[k] for k in kept] if periods.labels else [""] * len(kept))
+    days_in = periods.days if periods.days_in_period is None else periods.days_in_period
+    table.insert(0, "period_label", pd.array(labels[period_of_row], dtype="string"))
+    table.insert(1, "period_start", starts.take(period_of_row))
+    table.insert(2, "period_end", ends.take(period_of_row))
+    table.insert(3, "days", np.rint(periods.days[kept]).astype(np.int64)[period_of_row])
+    table.insert(4, "days_in_period", np.rint(days_in[kept]).astype(np.int64)[period_of_row])
+    table.insert(5, "period_complete", periods.complete[kept][period_of_row])
     return table
 
 
@@ -443,7 +479,7 @@ def _summaries(
     }
     for name in config.method.all[1:]:
         columns[f"evap_m3_{name}"] = by_body(f"evap_mm_{name}") * area[:, None] / 1000.0
-    keys = ["period_start", "period_end", "days"]
+    keys = list(_PERIOD_KEYS)
     periods = by_period[keys].iloc[:n_periods].reset_index(drop=True)
     by_period_total = _totals(np.zeros(n, dtype=np.int64), None, valid, columns, periods)
     by_group = None
@@ -621,9 +657,7 @@ def assemble(
     )
     bodies = _body_table(config, inputs, weights, sums, filled_steps)
     by_period = _period_table(config, inputs, weights, sums)
-    summary_period, summary_group = _summaries(
-        config, bodies, by_period, len(inputs.periods.starts)
-    )
+    summary_period, summary_group = _summaries(config, bodies, by_period, len(inputs.periods.rows))
     flags = bodies["qa_flags"]
     provenance = {
         "lakeloss_version": __version__,
@@ -642,12 +676,15 @@ def assemble(
         "time_axis": inputs.axis.describe(),
         "counts": {
             "waterbodies": int(len(bodies)),
-            "periods": int(len(inputs.periods.starts)),
+            "periods": int(len(inputs.periods.rows)),
             "time_steps": int(len(inputs.axis.days)),
+            "days": int(round(float(inputs.axis.days.sum()))),
             "flagged": int((flags != "").sum()),
             "without_result": int(bodies["evap_mm"].isna().sum()),
             "without_any_result": int(
-                (~np.isfinite(sums.depth[config.method.name]).any(axis=0)).sum()
+                (
+                    ~np.isfinite(sums.depth[config.method.name][inputs.periods.rows]).any(axis=0)
+                ).sum()
             ),
             "qa_flags": flag_counts(flags),
             "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
@@ -702,13 +739,17 @@ def summary_line(result: RunResult, target: Path) -> str:
     bodies = result.waterbodies
     n_periods = int(counts["periods"])
     periods = result.by_period.iloc[:n_periods]
-    days = int(periods["days"].sum())
+    # The whole-run volume covers every day of the run, also those between the periods of
+    # a custom period table: its span and days are the run's (the time axis').
+    days = int(counts.get("days", periods["days"].sum()))
     years = days / 365.2425
     with_result = int(bodies["evap_mm"].notna().sum())
     total = float(bodies["evap_m3"].sum(skipna=True))
     # Dates are Timestamps or cftime dates in the API; the line names the calendar days.
     first, last = periods["period_start"].iloc[0], periods["period_end"].iloc[-1]
-    span = f"{str(first)[:10]}..{str(last)[:10]}"
+    span = str(result.provenance.get("time_axis", "")).split(",")[0] or (
+        f"{str(first)[:10]}..{str(last)[:10]}"
+    )
     over = f"over {days} days" if years < 0.95 else f"over {years:.1f} years"
     per_year = f", {total / years:,.0f} m3 per year" if years >= 1.5 else ""
     head = f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "

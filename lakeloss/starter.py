@@ -65,6 +65,8 @@ _EXAMPLES: dict[str, object] = {
     "max_gap_steps": 3,  # unset: 3 for daily steps, 0 for monthly (README "Gaps in the climate")
     "group_by": ["field name"],
     "extra_volume_units": list(config_schema.VOLUME_UNITS),
+    "year_start_month": 7,  # unset: 7 (July-June) for period = "water_year"
+    "period_table": "periods.csv",
 }
 OUTPUT_DIR = "lakeloss-output"
 """Output folder written into a draft, next to the configuration file."""
@@ -446,6 +448,7 @@ def render(result: Draft, base: Path) -> str:
     lines += _waterbodies_lines(result.layer, mapping["waterbodies"], loaded)
     lines += _climate_lines(result, mapping["climate"])
     lines += _method_lines(result, mapping, loaded)
+    lines += _table_lines("time", {}, _section_defaults(loaded.time, config_schema._TIME_KEYS))
     lines += _table_lines(
         "output", mapping["output"], _section_defaults(loaded.output, config_schema._OUTPUT_KEYS)
     )

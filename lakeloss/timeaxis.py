@@ -27,7 +27,9 @@ import numpy as np
 from lakeloss.errors import ConfigError, TimeAxisError
 
 STEPS = ("day", "month")
-PERIODS = ("day", "month", "year")
+PERIODS = ("day", "month", "year", "water_year", "season", "table")
+DEFAULT_YEAR_START_MONTH = 7
+"""First month of a water year when ``[output] year_start_month`` is not set (July-June)."""
 
 # Spellings CF allows for the same calendar; the first form is the one lakeloss reports.
 _CALENDAR_ALIASES = {
@@ -85,6 +87,18 @@ class TimeAxis:
         if self.step == "day":
             return self.starts
         return tuple(f"{s[:8]}{int(d):02d}" for s, d in zip(self.starts, self.days, strict=True))
+
+    def take(self, steps: slice) -> TimeAxis:
+        """The axis of the steps in ``steps`` (a time window of the run)."""
+        return TimeAxis(
+            times=self.times[steps],
+            calendar=self.calendar,
+            step=self.step,
+            starts=self.starts[steps],
+            days=self.days[steps],
+            day_of_year=self.day_of_year[steps],
+            hour=self.hour,
+        )
 
     def describe(self) -> str:
         """One line naming span, step, calendar and stamp time, for messages."""
@@ -438,6 +452,78 @@ def _refuse_offset_stamps(name: str, axis: TimeAxis, other_name: str, other: Tim
     )
 
 
+def window(axis: TimeAxis, start: str | None, end: str | None) -> slice:
+    """The steps of ``axis`` from ``start`` to ``end`` (inclusive ISO dates; None: the ends).
+
+    Parameters
+    ----------
+    axis : TimeAxis
+        The time axis the climate files hold.
+    start, end : str or None
+        First and last day of the window, ``YYYY-MM-DD`` (``[time] start`` and ``end``).
+
+    Returns
+    -------
+    slice
+        Positions of the selected steps.
+
+    Raises
+    ------
+    ConfigError
+        A date that does not exist in the axis's calendar, a window reaching outside the
+        days the files hold (the message names them), start after end, or, on a monthly
+        axis, a window that cuts a month (monthly values cover whole months).
+    """
+    first_day, last_day = axis.starts[0], axis.ends[-1]
+    held = f"the climate files hold {first_day}..{last_day} ({axis.calendar} calendar)"
+    begin = _window_date(start, "start", axis.calendar) if start is not None else first_day
+    finish = _window_date(end, "end", axis.calendar) if end is not None else last_day
+    if begin > finish:
+        raise ConfigError(
+            f"[time] start {begin} is after [time] end {finish}; expected start <= end"
+        )
+    if begin < first_day or begin > last_day:
+        raise ConfigError(
+            f"[time] start {begin} is outside the data: {held}; set a date inside that span"
+        )
+    if finish > last_day or finish < first_day:
+        raise ConfigError(
+            f"[time] end {finish} is outside the data: {held}; set a date inside that span"
+        )
+    if axis.step == "month":
+        if begin not in axis.starts:
+            raise ConfigError(
+                f"[time] start {begin} cuts a month of monthly climate; expected the first day "
+                f"of a month, e.g. {begin[:8]}01"
+            )
+        if finish not in axis.ends:
+            last = axis.ends[axis.starts.index(f"{finish[:8]}01")]
+            raise ConfigError(
+                f"[time] end {finish} cuts a month of monthly climate; expected the last day "
+                f"of a month, e.g. {last}"
+            )
+    chosen = [i for i, day in enumerate(axis.starts) if begin <= day <= finish]
+    return slice(chosen[0], chosen[-1] + 1)
+
+
+def _window_date(text: str, key: str, calendar: str) -> str:
+    try:
+        return _iso(_parse_start(text, calendar))
+    except TimeAxisError as err:
+        raise ConfigError(f"[time] {key}: {err}") from err
+
+
+@dataclass(frozen=True)
+class PeriodRow:
+    """One row of a custom period table: a name and its first and last (inclusive) day."""
+
+    name: str
+    start: str
+    end: str
+    line: int
+    """Line of the row in the file (the header is line 1), for messages."""
+
+
 @dataclass(frozen=True)
 class Periods:
     """Reporting periods over a time axis.
@@ -445,32 +531,103 @@ class Periods:
     Attributes
     ----------
     index : numpy.ndarray
-        Period number (0-based, int) of each time step.
+        Segment number (0-based, int, non-decreasing) of each time step.
     starts, ends : tuple of str
-        ISO first and last (inclusive) covered day of each period: a period only partly
+        ISO first and last (inclusive) covered day of each segment: a period only partly
         covered by the axis starts or ends where the data does.
     days : numpy.ndarray
-        Covered days in each period [day] (sum of its step lengths).
+        Covered days in each segment [day] (sum of its step lengths).
+    labels : tuple of str
+        Name of each segment's period (``2031-01``, ``2030-31``, ``2031-DJF``, a custom name).
+    days_in_period : numpy.ndarray
+        Calendar days of each segment's whole period [day], in the axis's calendar.
+    reported : numpy.ndarray
+        Whether a segment is a reported period (bool); False only for the days between
+        the periods of a custom table, which are computed (they belong to the run) but not
+        reported per period.
     """
 
     index: np.ndarray
     starts: tuple[str, ...]
     ends: tuple[str, ...]
     days: np.ndarray
+    labels: tuple[str, ...] = ()
+    days_in_period: np.ndarray | None = None
+    reported: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.starts)
 
+    @property
+    def rows(self) -> np.ndarray:
+        """Positions of the reported periods among the segments."""
+        if self.reported is None:
+            return np.arange(len(self.starts))
+        return np.flatnonzero(self.reported)
 
-def periods(axis: TimeAxis, period: str) -> Periods:
-    """Group the steps of ``axis`` into days, calendar months or calendar years.
+    @property
+    def complete(self) -> np.ndarray:
+        """Whether the data cover every calendar day of each segment's period (bool)."""
+        if self.days_in_period is None:
+            return np.ones(len(self.starts), dtype=bool)
+        return np.rint(self.days).astype(int) == np.rint(self.days_in_period).astype(int)
+
+
+_SEASONS = ("DJF", "MAM", "JJA", "SON")
+
+
+def _calendar_period(
+    period: str, year: int, month: int, first_month: int
+) -> tuple[str, int, int, int]:
+    """Label, first year, first month and length in months of the period holding a month."""
+    if period == "month":
+        return f"{year:04d}-{month:02d}", year, month, 1
+    if period == "year":
+        return f"{year:04d}", year, 1, 12
+    if period == "water_year":
+        begin = year if month >= first_month else year - 1
+        label = f"{begin:04d}" if first_month == 1 else f"{begin:04d}-{(begin + 1) % 100:02d}"
+        return label, begin, first_month, 12
+    # Seasons: December belongs to the DJF of the following year.
+    season = (month % 12) // 3
+    named = year + 1 if month == 12 else year
+    first = (named - 1, 12) if season == 0 else (named, 3 * season)
+    return f"{named:04d}-{_SEASONS[season]}", first[0], first[1], 3
+
+
+def _months_days(year: int, month: int, count: int, calendar: str) -> int:
+    total = 0
+    for k in range(count):
+        months = month - 1 + k
+        total += month_length(year + months // 12, months % 12 + 1, calendar)
+    return total
+
+
+def periods(
+    axis: TimeAxis,
+    period: str,
+    *,
+    year_start_month: int | None = None,
+    table: Sequence[PeriodRow] | None = None,
+    table_name: str = "period table",
+) -> Periods:
+    """Group the steps of ``axis`` into reporting periods.
 
     Parameters
     ----------
     axis : TimeAxis
         The run's time axis.
     period : str
-        ``"day"``, ``"month"`` or ``"year"``.
+        ``"day"``, ``"month"``, ``"year"``, ``"water_year"`` (twelve months from
+        ``year_start_month``, labelled ``2030-31``, or ``2030`` when it starts in January),
+        ``"season"`` (DJF, MAM, JJA, SON; December counts to the next year's DJF, labelled
+        ``2031-DJF``) or ``"table"`` (the rows of ``table``).
+    year_start_month : int, optional
+        First month of a water year, 1..12 (default :data:`DEFAULT_YEAR_START_MONTH`).
+    table : sequence of PeriodRow, optional
+        Custom periods for ``"table"``: not overlapping; days between them are not reported.
+    table_name : str
+        The table's file, for messages.
 
     Returns
     -------
@@ -479,7 +636,9 @@ def periods(axis: TimeAxis, period: str) -> Periods:
     Raises
     ------
     ConfigError
-        Unknown period, or daily periods asked of a monthly axis.
+        Unknown period, daily periods of a monthly axis, a bad custom table (dates invalid in
+        the calendar, end before start, overlaps, duplicate names, a period wholly outside
+        the data, or one that splits a month of monthly data).
     """
     if period not in PERIODS:
         raise ConfigError(
@@ -490,9 +649,133 @@ def periods(axis: TimeAxis, period: str) -> Periods:
             "daily reporting periods were asked for monthly climate data; expected period "
             '"month" or "year"; set the period to "month" or supply daily data'
         )
-    width = {"day": 10, "month": 7, "year": 4}[period]
-    keys = [start[:width] for start in axis.starts]
-    return _group(keys, axis.starts, axis.ends, axis.days)
+    if period == "table":
+        return _table_periods(axis, table or (), table_name)
+    if period == "day":
+        grouped = _group(list(axis.starts), axis.starts, axis.ends, axis.days)
+        count = len(grouped)
+        return _with(grouped, grouped.starts, np.ones(count), np.ones(count, dtype=bool))
+    first_month = DEFAULT_YEAR_START_MONTH if year_start_month is None else year_start_month
+    if not 1 <= first_month <= 12:
+        raise ConfigError(f"[output].year_start_month is {first_month}; expected 1..12")
+    keys: list[str] = []
+    lengths: dict[str, int] = {}
+    for start in axis.starts:
+        label, year, month, count = _calendar_period(
+            period, int(start[:4]), int(start[5:7]), first_month
+        )
+        keys.append(label)
+        if label not in lengths:
+            lengths[label] = _months_days(year, month, count, axis.calendar)
+    grouped = _group(keys, axis.starts, axis.ends, axis.days)
+    labels = tuple(keys[i] for i in _firsts(grouped.index))
+    calendar_days = np.array([lengths[label] for label in labels], dtype=float)
+    return _with(grouped, labels, calendar_days, np.ones(len(labels), dtype=bool))
+
+
+def _firsts(index: np.ndarray) -> np.ndarray:
+    return np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
+
+
+def _with(grouped: Periods, labels: Sequence[str], days_in: np.ndarray, reported: np.ndarray):
+    return Periods(
+        index=grouped.index,
+        starts=grouped.starts,
+        ends=grouped.ends,
+        days=grouped.days,
+        labels=tuple(labels),
+        days_in_period=np.asarray(days_in, dtype=float),
+        reported=reported,
+    )
+
+
+def _table_periods(axis: TimeAxis, table: Sequence[PeriodRow], where: str) -> Periods:
+    rows = _checked_rows(axis, table, where)
+    first_day, last_day = axis.starts[0], axis.ends[-1]
+    starts = [r[1] for r in rows]
+    keys: list[str] = []
+    for day in axis.starts:
+        j = int(np.searchsorted(starts, day, side="right")) - 1
+        inside = j >= 0 and day <= rows[j][2]
+        # Days between periods form segments of their own, keyed by the next period.
+        keys.append(f"p{j}" if inside else f"gap{j + 1}")
+    grouped = _group(keys, axis.starts, axis.ends, axis.days)
+    seg_keys = [keys[i] for i in _firsts(grouped.index)]
+    used = {int(k[1:]) for k in seg_keys if k.startswith("p")}
+    for j, (row, start, end, _days) in enumerate(rows):
+        if j not in used:
+            raise ConfigError(
+                f"{where} line {row.line}: period '{row.name}' ({start}..{end}) is outside "
+                f"the data, which cover {first_day}..{last_day}; remove the row or widen "
+                "[time] start/end"
+            )
+    labels, days_in, reported = [], [], []
+    for key in seg_keys:
+        if key.startswith("p"):
+            j = int(key[1:])
+            labels.append(rows[j][0].name)
+            days_in.append(rows[j][3])
+            reported.append(True)
+        else:
+            labels.append("")
+            days_in.append(0)
+            reported.append(False)
+    return _with(grouped, labels, np.array(days_in, float), np.array(reported, dtype=bool))
+
+
+def _checked_rows(
+    axis: TimeAxis, table: Sequence[PeriodRow], where: str
+) -> list[tuple[PeriodRow, str, str, int]]:
+    """The table's rows in time order with ISO dates and calendar days, checked."""
+    if not table:
+        raise ConfigError(f"{where} holds no periods; expected rows of name,start,end")
+    rows = []
+    names: dict[str, int] = {}
+    for row in table:
+        at = f"{where} line {row.line}"
+        if row.name in names:
+            raise ConfigError(
+                f"{at}: period name '{row.name}' is used on line {names[row.name]} too; "
+                "expected each name once"
+            )
+        names[row.name] = row.line
+        dates = []
+        for column, text in (("start", row.start), ("end", row.end)):
+            try:
+                dates.append(_parse_start(text, axis.calendar))
+            except TimeAxisError as err:
+                raise ConfigError(
+                    f"{at}: {column} {text!r} is not a date of the {axis.calendar} calendar; "
+                    "expected YYYY-MM-DD"
+                ) from err
+        begin, end = dates
+        if end < begin:
+            raise ConfigError(
+                f"{at}: period '{row.name}' ends ({_iso(end)}) before it starts "
+                f"({_iso(begin)}); expected start <= end"
+            )
+        if axis.step == "month":
+            _require_whole_months(begin, end, axis.calendar, at, row.name)
+        rows.append((row, _iso(begin), _iso(end), (end - begin).days + 1))
+    rows.sort(key=lambda r: r[1])
+    for before, after in zip(rows, rows[1:], strict=False):
+        if after[1] <= before[2]:
+            raise ConfigError(
+                f"{where} line {after[0].line}: period '{after[0].name}' ({after[1]}..{after[2]}) "
+                f"overlaps '{before[0].name}' on line {before[0].line} ({before[1]}..{before[2]}); "
+                "expected periods that do not overlap"
+            )
+    return rows
+
+
+def _require_whole_months(begin, end, calendar: str, at: str, name: str) -> None:
+    last = month_length(end.year, end.month, calendar)
+    if begin.day != 1 or end.day != last:
+        raise ConfigError(
+            f"{at}: period '{name}' ({_iso(begin)}..{_iso(end)}) splits a month, but the "
+            "climate is monthly; expected periods of whole months (from the 1st to the last "
+            "day of a month)"
+        )
 
 
 def _group(

@@ -52,7 +52,7 @@ def test_period_table_indexed_by_id_with_dates(make_case):
     result = lakeloss.run(make_case("energy_balance"))
     table = result.by_period
     assert table.index.name == "pond_id"
-    assert list(table.columns[:3]) == ["period_start", "period_end", "days"]
+    assert list(table.columns[:4]) == ["period_label", "period_start", "period_end", "days"]
     assert table["period_start"].dtype.kind == "M" and table["period_end"].dtype.kind == "M"
     one = table.loc[105]
     assert one["period_start"].tolist() == [pd.Timestamp("2031-01-01"), pd.Timestamp("2031-02-01")]

@@ -133,9 +133,12 @@ def test_outputs_and_columns(chow_run):
     assert by_body.iloc[0]["name"] == "reservoir"  # the largest loss ranks first
     by_period = pd.read_csv(out / "summary_by_period.csv")
     assert list(by_period.columns) == [
+        "period_label",
         "period_start",
         "period_end",
         "days",
+        "days_in_period",
+        "period_complete",
         "n_waterbodies",
         "area_m2",
         "evap_m3",

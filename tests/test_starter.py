@@ -211,6 +211,7 @@ def test_every_optional_key_is_listed_with_the_loaders_default(tmp_path, layer_p
         "output": config_schema._OUTPUT_KEYS,
         "compute": config_schema._COMPUTE_KEYS,
         "checks": config_schema._CHECKS_KEYS,
+        "time": config_schema._TIME_KEYS,
         "method": config_schema._METHOD_KEYS,
         "climate": config_schema._CLIMATE_KEYS,
     }

@@ -272,3 +272,53 @@ def test_daily_periods_of_monthly_steps_are_refused():
         timeaxis.periods(timeaxis.from_start("2021-01-01", "month", 2), "day")
     with pytest.raises(ConfigError, match="'decade'"):
         timeaxis.periods(timeaxis.from_start("2021-01-01", "month", 2), "decade")
+
+
+# ----------------------------------------------------------------------------- period labels
+
+
+def test_water_year_labels_across_a_century_and_from_january():
+    axis = timeaxis.from_start("2099-05-01", "month", 4)  # May-August 2099
+    july = timeaxis.periods(axis, "water_year")
+    assert july.labels == ("2098-99", "2099-00")
+    assert july.days.tolist() == [61.0, 62.0] and july.days_in_period.tolist() == [
+        365.0,
+        365.0,
+    ]  # 2100: no leap day
+    january = timeaxis.periods(axis, "water_year", year_start_month=1)
+    assert january.labels == ("2099",) and january.days_in_period.tolist() == [365.0]
+
+
+@pytest.mark.parametrize(
+    ("calendar", "winter"), [("standard", 91), ("noleap", 90), ("360_day", 90)]
+)
+def test_season_of_december_is_the_next_years_djf(calendar, winter):
+    # December 2031 to February 2032: 2032 is a leap year in the standard calendar only.
+    axis = timeaxis.from_times(_daily(100, calendar, start="2031-11-25"), calendar)
+    seasons = timeaxis.periods(axis, "season")
+    assert seasons.labels[:2] == ("2031-SON", "2032-DJF")
+    assert seasons.starts[1] == "2031-12-01"
+    assert seasons.days_in_period[1] == winter
+    assert seasons.complete.tolist()[:2] == [False, True]
+
+
+def test_window_selects_inclusive_days():
+    axis = timeaxis.from_start("2031-01-01", "day", 10)
+    steps = timeaxis.window(axis, "2031-01-03", "2031-01-05")
+    assert axis.take(steps).starts == ("2031-01-03", "2031-01-04", "2031-01-05")
+    assert timeaxis.window(axis, None, None) == slice(0, 10)
+
+
+def test_custom_table_periods_leave_the_days_between_them_unreported():
+    axis = timeaxis.from_start("2031-01-01", "day", 10)
+    rows = [
+        timeaxis.PeriodRow("late", "2031-01-07", "2031-01-20", 3),
+        timeaxis.PeriodRow("early", "2030-12-30", "2031-01-03", 2),
+    ]
+    table = timeaxis.periods(axis, "table", table=rows)
+    assert table.labels == ("early", "", "late")
+    assert table.reported.tolist() == [True, False, True]
+    assert table.index.tolist() == [0, 0, 0, 1, 1, 1, 2, 2, 2, 2]
+    assert table.days.tolist() == [3.0, 3.0, 4.0]
+    assert table.days_in_period[table.rows].tolist() == [5.0, 14.0]
+    assert table.complete[table.rows].tolist() == [False, False]
