@@ -101,8 +101,10 @@ def expand(path) -> list[Path]:
     return files
 
 
-def _label(files: Sequence[Path]) -> str:
-    return f"{os.fspath(files[0])} .. {os.fspath(files[-1])} ({len(files)} files)"
+def _label(files: Sequence[Path], segments: Sequence[Segment] = ()) -> str:
+    """``first .. last (N files)``, in time order once the files are joined."""
+    ends = (segments[0].piece.path, segments[-1].piece.path) if segments else (files[0], files[-1])
+    return f"{os.fspath(ends[0])} .. {os.fspath(ends[1])} ({len(files)} files)"
 
 
 def _stamp(value) -> str:
@@ -422,7 +424,7 @@ def _join_netcdf(
         y=first.y,
         crs=first.crs,
         transform=None,
-        source_path=_label(files),
+        source_path=_label(files, segments),
         variable=first.variable,
         source_units=first.source_units,
         crs_assumed=first.crs_assumed,
@@ -555,7 +557,9 @@ def open_geotiff_files(
     x, y = climate._cell_centres(first.transform, first.width, first.height, where)
     stack = _tiff_stack(segments, header_of, (first.height, first.width), dtype, chunk_steps)
     data = xr.DataArray(stack, dims=climate.DIMS, coords={"time": axis.times, "y": y, "x": x})
-    variable = os.path.commonprefix([f.stem for f in files]).rstrip("_-. ") or files[0].stem
+    # What the names share before the date: "tas" of tas_20310101.tif, tas_20310102.tif ...
+    shared = os.path.commonprefix([f.stem for f in files]).rstrip("0123456789_-. ")
+    variable = shared or files[0].stem
     converted = units_io.convert(data, declared, quantity, step_days=axis.days, variable=variable)
     return climate.ClimateField(
         quantity=name,
@@ -566,7 +570,7 @@ def open_geotiff_files(
         y=y,
         crs=field_crs,
         transform=first.transform,
-        source_path=_label(files) if len(files) > 1 else os.fspath(files[0]),
+        source_path=_label(files, segments) if len(files) > 1 else os.fspath(files[0]),
         variable=variable,
         source_units=declared,
         crs_assumed=assumed,
