@@ -401,17 +401,27 @@ def _join_netcdf(
     segments = join(list(field_of), fields[0].calendar, None)
     times = joined_times(segments)
     axis = _axis(times, fields[0].calendar, files)
-    arrays, offset = [], 0
+    parts, sizes, offset = [], [], 0
     for segment in segments:
         length = segment.stop - segment.first
-        data = field_of[segment.piece].data.isel(time=slice(segment.first, segment.stop))
-        chunks = aligned_chunks(offset, length, chunk_steps)
-        arrays.append(data.chunk({"time": chunks, "y": -1, "x": -1}).data)
+        parts.append(
+            (offset, field_of[segment.piece].data.isel(time=slice(segment.first, segment.stop)))
+        )
+        sizes.extend(aligned_chunks(offset, length, chunk_steps))
         offset += length
-    first = fields[0]
-    stacked = xr.DataArray(
-        da.concatenate(arrays, axis=0), dims=climate.DIMS, coords={"y": first.y, "x": first.x}
+    joined = _TimeJoined(parts, np.result_type(*[f.data.dtype for f in fields]))
+    # One dask layer, as for a single file: a stack of per-file arrays costs dask several
+    # times more per block in graph work than the reads themselves.
+    name = "multifile-" + dask.base.tokenize(
+        [(f.source_path, os.path.getmtime(f.source_path)) for f in fields],
+        fields[0].variable,
+        sizes,
     )
+    lazy = da.from_array(
+        joined, chunks=(tuple(sizes), -1, -1), name=name, meta=np.empty((0, 0, 0), joined.dtype)
+    )
+    first = fields[0]
+    stacked = xr.DataArray(lazy, dims=climate.DIMS, coords={"y": first.y, "x": first.x})
     converted = units_io.convert(
         stacked, first.source_units, first.quantity, step_days=axis.days, variable=first.variable
     )
@@ -429,6 +439,35 @@ def _join_netcdf(
         source_units=first.source_units,
         crs_assumed=first.crs_assumed,
     )
+
+
+class _TimeJoined:
+    """Several files' lazily indexed (time, y, x) arrays as one array, joined along time.
+
+    ``parts`` are (first step in the joined series, array) in time order. Indexing reads
+    only the files a time range spans; dask calls it once per chunk.
+    """
+
+    ndim = 3
+
+    def __init__(self, parts: list[tuple[int, xr.DataArray]], dtype: np.dtype) -> None:
+        self.parts = parts
+        self.dtype = np.dtype(dtype)
+        last_offset, last = parts[-1]
+        self.shape = (last_offset + last.sizes["time"], *last.shape[1:])
+
+    def __getitem__(self, key) -> np.ndarray:
+        times, rest = key[0], tuple(key[1:])
+        start, stop, _ = times.indices(self.shape[0])
+        pieces = []
+        for offset, data in self.parts:
+            low, high = max(start, offset), min(stop, offset + data.sizes["time"])
+            if low < high:
+                window = data[(slice(low - offset, high - offset), *rest)]
+                pieces.append(np.asarray(window.values, dtype=self.dtype))
+        if not pieces:
+            return np.empty((0, *self.shape[1:]), self.dtype)[(slice(None), *rest)]
+        return np.concatenate(pieces) if len(pieces) > 1 else pieces[0]
 
 
 def _netcdf_reader(data: xr.DataArray) -> Callable[[int, int], np.ndarray]:
