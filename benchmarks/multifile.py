@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import argparse
 import datetime as dt
+import os
 import platform
 import statistics
 import subprocess
@@ -192,6 +193,12 @@ def _config(ponds: int, paths: dict[str, str], out: Path, cache: Path) -> Path:
     return path
 
 
+def _env() -> dict[str, str]:
+    """This checkout's lakeloss first, whichever one the virtualenv has installed."""
+    here = str(Path(__file__).resolve().parent.parent)
+    return {**os.environ, "PYTHONPATH": os.pathsep.join([here, os.environ.get("PYTHONPATH", "")])}
+
+
 def run_benchmark(ponds: int, single: Path, yearly: Path, runs: int) -> None:
     root = single.parent
     cache = root / "weights"
@@ -203,7 +210,9 @@ def run_benchmark(ponds: int, single: Path, yearly: Path, runs: int) -> None:
     for repeat in range(runs + 1):  # the first round builds the weights cache: not counted
         for name, config in configs.items():
             started = time.perf_counter()
-            subprocess.run([str(LAKELOSS), "run", str(config), "-q", "--overwrite"], check=True)
+            subprocess.run(
+                [str(LAKELOSS), "run", str(config), "-q", "--overwrite"], check=True, env=_env()
+            )
             if repeat:
                 times[name].append(time.perf_counter() - started)
     medians = {name: statistics.median(values) for name, values in times.items()}
