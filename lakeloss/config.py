@@ -489,6 +489,11 @@ def _climate_input(key: str, value: Any, base: Path | None) -> ClimateInput:
     if key == "elevation" and isinstance(path, tuple):
         raise ConfigError(f"{where}.path must name one raster; elevation does not vary in time")
     _check_dates(table, fmt, key, where)
+    if fmt == "geotiff" and isinstance(path, tuple) and "date_pattern" not in table:
+        raise ConfigError(
+            f"{where}.path lists several GeoTIFFs but no date_pattern; expected date_pattern "
+            '(e.g. "%Y%m%d") so that each file\'s date comes from its name; add it'
+        )
     if "height_m" in table and key != "wind_speed":
         raise ConfigError(f"{where}.height_m only applies to wind_speed")
     if "height_m" in table and not 0.5 <= table["height_m"] <= 100.0:

@@ -73,6 +73,11 @@ def test_date_pattern_replaces_start_and_step_for_geotiffs():
         _temperature(path="tas/*.tif", date_pattern="%Y", step="year")
 
 
+def test_a_list_of_geotiffs_needs_date_pattern():
+    with pytest.raises(ConfigError, match=r"lists several GeoTIFFs but no date_pattern"):
+        _temperature(path=["a.tif", "b.tif"], start="2031-01-01", step="day")
+
+
 def test_elevation_takes_one_raster():
     raw = copy.deepcopy(BASE)
     raw["climate"]["elevation"] = {"path": ["a.tif", "b.tif"]}
