@@ -401,7 +401,9 @@ def _join_netcdf(
     segments = join(list(field_of), fields[0].calendar, None)
     times = joined_times(segments)
     axis = _axis(times, fields[0].calendar, files)
-    parts, sizes, offset = [], [], 0
+    parts: list[tuple[int, xr.DataArray]] = []
+    sizes: list[int] = []
+    offset = 0
     for segment in segments:
         length = segment.stop - segment.first
         parts.append(
