@@ -135,3 +135,15 @@ def test_a_glob_matching_nothing_stops_the_run(split_case, tmp_path):
     assert output.strip().startswith("error: climate path pattern")
     assert "matches no file" in output and len(output.strip().splitlines()) == 1
     assert not (tmp_path / "none").exists()
+
+
+def test_split_files_on_a_cluster_with_short_blocks_give_the_same_csvs(split_case, tmp_path):
+    # Worker processes get the joined field pickled; 7-step blocks straddle both file ends.
+    config, parts = split_case
+    code, output = _run(tmp_path, "single", config)
+    assert code == 0, output
+    clustered = {**_with_path(config, [str(p) for p in parts]), "compute": {
+        **config["compute"], "workers": 2, "chunk_steps": 7}}  # fmt: skip
+    code, output = _run(tmp_path, "cluster", clustered)
+    assert code == 0, output
+    assert _csvs(tmp_path / "cluster") == _csvs(tmp_path / "single")
