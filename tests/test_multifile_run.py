@@ -117,6 +117,16 @@ def test_daily_geotiffs_named_by_date_give_the_stack_s_csvs(tmp_path):
         assert (tmp_path / "series" / name).read_bytes() == (tmp_path / "stack" / name).read_bytes()
 
 
+def test_check_names_the_files_of_a_glob(split_case, tmp_path):
+    config, parts = split_case
+    path = tmp_path / "check.toml"
+    path.write_text(tomli_w.dumps(_with_path(config, str(tmp_path / "pieces" / "*.nc"))))
+    result = CliRunner().invoke(cli, ["check", str(path)])
+    assert result.exit_code == 0, result.output
+    assert f"air_temperature <- {parts[0]} .. {parts[2]} (3 files):tas [K]" in result.output
+    assert "2031-01-01..2031-02-28, daily" in result.output
+
+
 def test_a_gap_between_files_stops_the_run_before_anything_is_written(split_case, tmp_path):
     config, parts = split_case
     code, output = _run(tmp_path, "gap", _with_path(config, [str(parts[0]), str(parts[2])]))
