@@ -197,10 +197,11 @@ def _step_kind(ordered: Sequence[Piece], calendar: str) -> str:
         )
     if kinds:
         return next(iter(kinds.values()))
-    if len(ordered) < 2:
-        return "day"
-    gap = ordered[1].times[0] - ordered[0].times[-1]
-    return "day" if gap == datetime.timedelta(days=1) else "month"
+    # Files of one step each: the shortest step between them tells daily from monthly (a
+    # month has at least 28 days), so a missing day is reported as a gap of daily steps.
+    gaps = [b.times[0] - a.times[-1] for a, b in zip(ordered[:-1], ordered[1:], strict=True)]
+    positive = [gap for gap in gaps if gap > datetime.timedelta(0)]
+    return "month" if positive and min(positive) >= datetime.timedelta(days=28) else "day"
 
 
 def _first_two_different(kinds: dict[str, str]):

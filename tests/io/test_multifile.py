@@ -318,6 +318,34 @@ def test_a_missing_day_names_the_files_on_either_side(build, tmp_path):
         )  # fmt: skip
 
 
+def test_a_missing_first_day_is_a_gap_of_daily_steps(build, tmp_path):
+    # Two single-band files two days apart: daily steps with a day missing, not months.
+    values = _values(3)
+    _daily_tiffs(build, tmp_path, values, ["t_20210101.tif", "t_20210103.tif", "t_20210104.tif"])
+    with pytest.raises(TimeAxisError, match=r"expected 2021-01-02 \(daily steps\)"):
+        climate.open_geotiff_stack(
+            str(tmp_path / "*.tif"), TEMPERATURE, start=None, step=None, units=None,
+            date_pattern="%Y%m%d",
+        )  # fmt: skip
+
+
+def test_monthly_files_named_by_month(build, tmp_path):
+    values = _values(3)
+    _daily_tiffs(build, tmp_path, values, ["t_2031-01.tif", "t_2031-02.tif", "t_2031-04.tif"])
+    with pytest.raises(TimeAxisError, match=r"starts 2031-04-01, expected 2031-03 \(monthly"):
+        climate.open_geotiff_stack(
+            str(tmp_path / "*.tif"), TEMPERATURE, start=None, step=None, units=None,
+            date_pattern="%Y-%m",
+        )  # fmt: skip
+    (tmp_path / "t_2031-04.tif").rename(tmp_path / "t_2031-03.tif")
+    series = climate.open_geotiff_stack(
+        str(tmp_path / "*.tif"), TEMPERATURE, start=None, step="month", units=None,
+        date_pattern="%Y-%m",
+    )  # fmt: skip
+    assert series.time_axis.step == "month"
+    assert list(series.time_axis.days) == [31, 28, 31]
+
+
 def test_two_files_of_one_date_with_other_values_are_refused(build, tmp_path):
     values = _values(3)
     _daily_tiffs(build, tmp_path / "a", values[:2], ["tas_20210101.tif", "tas_20210102.tif"])
