@@ -22,6 +22,7 @@ import datetime
 import glob
 import os
 import re
+import threading
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -378,10 +379,9 @@ def open_netcdf_files(
                 )
         _reemit(caught, files)
         return _join_netcdf(fields, files, max(1, int(chunk_steps)))
-    except BaseException:
+    finally:
         for dataset in datasets:
-            dataset.close()  # the joined field keeps the files open only when it is returned
-        raise
+            dataset.close()  # the joined field opens each file again when it reads it
 
 
 def _agree(fields: Sequence[climate.ClimateField]) -> None:
@@ -402,17 +402,15 @@ def _join_netcdf(
     segments = join(list(field_of), fields[0].calendar, None)
     times = joined_times(segments)
     axis = _axis(times, fields[0].calendar, files)
-    parts: list[tuple[int, xr.DataArray]] = []
+    parts: list[_Window] = []
     sizes: list[int] = []
     offset = 0
     for segment in segments:
-        length = segment.stop - segment.first
-        parts.append(
-            (offset, field_of[segment.piece].data.isel(time=slice(segment.first, segment.stop)))
-        )
-        sizes.extend(aligned_chunks(offset, length, chunk_steps))
-        offset += length
-    joined = _TimeJoined(parts, np.result_type(*[f.data.dtype for f in fields]))
+        parts.append(_Window(offset, segment.piece.path, segment.first, segment.stop))
+        sizes.extend(aligned_chunks(offset, segment.stop - segment.first, chunk_steps))
+        offset += segment.stop - segment.first
+    dtype = np.result_type(*[f.data.dtype for f in fields])
+    joined = _TimeJoined(parts, fields[0].variable, dtype, fields[0].data.shape[1:])
     # One dask layer, as for a single file: a stack of per-file arrays costs dask several
     # times more per block in graph work than the reads themselves.
     name = "multifile-" + dask.base.tokenize(
@@ -444,33 +442,78 @@ def _join_netcdf(
     )
 
 
-class _TimeJoined:
-    """Several files' lazily indexed (time, y, x) arrays as one array, joined along time.
+@dataclass(frozen=True)
+class _Window:
+    """Steps ``first``..``stop - 1`` of a file, from step ``offset`` of the joined series."""
 
-    ``parts`` are (first step in the joined series, array) in time order. Indexing reads
-    only the files a time range spans; dask calls it once per chunk.
+    offset: int
+    path: Path
+    first: int
+    stop: int
+
+
+class _TimeJoined:
+    """Several files' (time, y, x) variable as one array, joined along time.
+
+    Indexing reads only the files a time range spans; dask calls it once per chunk. A file
+    is opened when first read and closed once each of its steps has been read since (in any
+    order): a series is read in time order, so only one or two
+    files per variable are open at a time (each open NetCDF file keeps a chunk cache of up to
+    64 MiB per variable). A file read again is opened again.
     """
 
     ndim = 3
 
-    def __init__(self, parts: list[tuple[int, xr.DataArray]], dtype: np.dtype) -> None:
-        self.parts = parts
+    def __init__(
+        self, parts: list[_Window], variable: str, dtype, grid_shape: tuple[int, ...]
+    ) -> None:
+        self.parts, self.variable = parts, variable
         self.dtype = np.dtype(dtype)
-        last_offset, last = parts[-1]
-        self.shape = (last_offset + last.sizes["time"], *last.shape[1:])
+        self.shape = (parts[-1].offset + parts[-1].stop - parts[-1].first, *grid_shape)
+        self._start_closed()
+
+    def _start_closed(self) -> None:
+        self._locks = [threading.Lock() for _ in self.parts]
+        self._open: list[tuple[xr.Dataset, xr.DataArray] | None] = [None] * len(self.parts)
+        self._unread = [np.ones(p.stop - p.first, dtype=bool) for p in self.parts]
+
+    def __getstate__(self) -> dict:
+        # Pickled for cluster workers: open files and locks stay behind.
+        return {k: v for k, v in self.__dict__.items() if k not in ("_locks", "_open", "_unread")}
+
+    def __setstate__(self, state: dict) -> None:
+        self.__dict__.update(state)
+        self._start_closed()
 
     def __getitem__(self, key) -> np.ndarray:
         times, rest = key[0], tuple(key[1:])
         start, stop, _ = times.indices(self.shape[0])
         pieces = []
-        for offset, data in self.parts:
-            low, high = max(start, offset), min(stop, offset + data.sizes["time"])
+        for index, part in enumerate(self.parts):
+            end = part.offset + part.stop - part.first
+            low, high = max(start, part.offset), min(stop, end)
             if low < high:
-                window = data[(slice(low - offset, high - offset), *rest)]
-                pieces.append(np.asarray(window.values, dtype=self.dtype))
+                local = slice(part.first + low - part.offset, part.first + high - part.offset)
+                pieces.append(self._read(index, local, rest))
         if not pieces:
             return np.empty((0, *self.shape[1:]), self.dtype)[(slice(None), *rest)]
         return np.concatenate(pieces) if len(pieces) > 1 else pieces[0]
+
+    def _read(self, index: int, local: slice, rest: tuple) -> np.ndarray:
+        part = self.parts[index]
+        with self._locks[index]:
+            if self._open[index] is None:
+                dataset = climate._open_dataset(part.path)
+                self._open[index] = (dataset, climate._to_time_y_x(dataset, self.variable)[0])
+            dataset, data = self._open[index]  # type: ignore[misc]
+            values = np.asarray(data[(local, *rest)].values, dtype=self.dtype)
+            unread = self._unread[index]
+            unread[local.start - part.first : local.stop - part.first] = False
+            if not unread.any():
+                dataset.close()
+                self._open[index] = None
+                unread[:] = True
+        return values
 
 
 def _netcdf_reader(data: xr.DataArray) -> Callable[[int, int], np.ndarray]:

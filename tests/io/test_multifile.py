@@ -8,6 +8,8 @@ value, and every disagreement between files must be a one-line error naming both
 
 from __future__ import annotations
 
+import contextlib
+import os
 import warnings
 
 import numpy as np
@@ -397,3 +399,28 @@ def test_an_existing_file_with_glob_characters_is_a_file(tmp_path):
     assert not multifile.several(str(odd))
     assert multifile.several(str(tmp_path / "tas[12].nc"))
     assert multifile.expand([odd, str(odd)]) == [odd]
+
+
+def _open_files() -> set[str]:
+    names = set()
+    for fd in os.listdir("/proc/self/fd"):
+        with contextlib.suppress(OSError):
+            names.add(os.readlink(f"/proc/self/fd/{fd}"))
+    return names
+
+
+def test_files_are_closed_once_read_and_reopened_when_read_again(build, tmp_path):
+    # Each open NetCDF file holds a chunk cache (up to 64 MiB a variable): a 20-year series
+    # read in time order must not keep every year open.
+    values, times = _values(40), build.daily_times(40)
+    parts = {str(p) for p in _write_split(build, tmp_path, values, times, [15, 33])}
+    joined = _open(sorted(parts))
+    assert not parts & _open_files()
+    whole = joined.data.values  # every chunk once, in any order (threads)
+    assert not parts & _open_files()
+    first = joined.data.isel(time=slice(0, 16)).values  # the pipeline's blocks, in order
+    assert _open_files() & parts == {str(tmp_path / "tas_1.nc")}  # 1 of its 18 steps read
+    rest = joined.data.isel(time=slice(16, 40)).values
+    assert not parts & _open_files()
+    assert np.array_equal(np.concatenate([first, rest]), whole)
+    assert np.array_equal(whole, values - 273.15)
