@@ -378,10 +378,11 @@ def open_netcdf_files(
                     climate._netcdf_field(datasets[-1], source, variable, name, units, crs, None)
                 )
         _reemit(caught, files)
-        return _join_netcdf(fields, files, max(1, int(chunk_steps)))
-    finally:
+        return _join_netcdf(fields, datasets, files, max(1, int(chunk_steps)))
+    except BaseException:
         for dataset in datasets:
-            dataset.close()  # the joined field opens each file again when it reads it
+            dataset.close()
+        raise
 
 
 def _agree(fields: Sequence[climate.ClimateField]) -> None:
@@ -395,13 +396,17 @@ def _agree(fields: Sequence[climate.ClimateField]) -> None:
 
 
 def _join_netcdf(
-    fields: Sequence[climate.ClimateField], files: Sequence[Path], chunk_steps: int
+    fields: Sequence[climate.ClimateField],
+    datasets: Sequence[xr.Dataset],
+    files: Sequence[Path],
+    chunk_steps: int,
 ) -> climate.ClimateField:
     _agree(fields)
     field_of = {Piece(Path(f.source_path), f.times, _netcdf_reader(f.data)): f for f in fields}
     segments = join(list(field_of), fields[0].calendar, None)
     times = joined_times(segments)
     axis = _axis(times, fields[0].calendar, files)
+    dataset_of = {id(f): d for f, d in zip(fields, datasets, strict=True)}
     parts: list[_Window] = []
     sizes: list[int] = []
     offset = 0
@@ -410,7 +415,11 @@ def _join_netcdf(
         sizes.extend(aligned_chunks(offset, segment.stop - segment.first, chunk_steps))
         offset += segment.stop - segment.first
     dtype = np.result_type(*[f.data.dtype for f in fields])
-    joined = _TimeJoined(parts, fields[0].variable, dtype, fields[0].data.shape[1:])
+    # The files stay open for their first read; those whose steps were all dropped close now.
+    opened = [dataset_of.pop(id(field_of[s.piece])) for s in segments]
+    for unused in dataset_of.values():
+        unused.close()
+    joined = _TimeJoined(parts, fields[0].variable, dtype, fields[0].data.shape[1:], opened)
     # One dask layer, as for a single file: a stack of per-file arrays costs dask several
     # times more per block in graph work than the reads themselves.
     name = "multifile-" + dask.base.tokenize(
@@ -465,12 +474,19 @@ class _TimeJoined:
     ndim = 3
 
     def __init__(
-        self, parts: list[_Window], variable: str, dtype, grid_shape: tuple[int, ...]
+        self,
+        parts: list[_Window],
+        variable: str,
+        dtype,
+        grid_shape: tuple[int, ...],
+        opened: Sequence[xr.Dataset] = (),
     ) -> None:
         self.parts, self.variable = parts, variable
         self.dtype = np.dtype(dtype)
         self.shape = (parts[-1].offset + parts[-1].stop - parts[-1].first, *grid_shape)
         self._start_closed()
+        for index, dataset in enumerate(opened):
+            self._open[index] = (dataset, climate._to_time_y_x(dataset, variable)[0])
 
     def _start_closed(self) -> None:
         self._locks = [threading.Lock() for _ in self.parts]
