@@ -264,6 +264,7 @@ def reference_keys() -> dict[tuple[str, str], str]:
         for key, kind in schema.items()
     }
     keys.update({("climate", name): "table" for name in _CLIMATE_NAMES})
+    keys[("climate.<name>", "path")] = "string or list of strings"  # see _climate_path
     for name, spec in registry.parameter_specs().items():
         keys[("parameters", name)] = "string" if spec.choices else "number"
     keys.update({("parameters", k): _TYPE_NAMES[v] for k, v in PIPELINE_PARAMETERS.items()})
