@@ -157,3 +157,15 @@ def test_split_files_on_a_cluster_with_short_blocks_give_the_same_csvs(split_cas
     code, output = _run(tmp_path, "cluster", clustered)
     assert code == 0, output
     assert _csvs(tmp_path / "cluster") == _csvs(tmp_path / "single")
+
+
+def test_relative_globs_and_lists_resolve_against_the_config_file_s_folder(split_case, tmp_path):
+    # The configuration sits in tmp_path; the run starts elsewhere (the test's own folder).
+    config, parts = split_case
+    code, output = _run(tmp_path, "single", config)
+    assert code == 0, output
+    for name, path in (("rel_glob", "pieces/climate_*.nc"), ("rel_list", ["pieces/climate_1.nc",
+                       "pieces/climate_0.nc", "pieces/climate_2.nc"])):  # fmt: skip
+        code, output = _run(tmp_path, name, _with_path(config, path))
+        assert code == 0, f"{name}: {output}"
+        assert _csvs(tmp_path / name) == _csvs(tmp_path / "single"), name
