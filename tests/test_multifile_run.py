@@ -169,3 +169,15 @@ def test_relative_globs_and_lists_resolve_against_the_config_file_s_folder(split
         code, output = _run(tmp_path, name, _with_path(config, path))
         assert code == 0, f"{name}: {output}"
         assert _csvs(tmp_path / name) == _csvs(tmp_path / "single"), name
+
+
+def test_a_time_window_across_file_ends_gives_the_single_file_s_csvs(split_case, tmp_path):
+    config, parts = split_case
+    window = {"time": {"start": "2031-01-10", "end": "2031-02-20"}}
+    code, output = _run(tmp_path, "single", {**config, **window})
+    assert code == 0, output
+    code, output = _run(
+        tmp_path, "window", {**_with_path(config, [str(p) for p in parts]), **window}
+    )
+    assert code == 0, output
+    assert _csvs(tmp_path / "window") == _csvs(tmp_path / "single")
