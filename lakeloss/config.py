@@ -63,11 +63,13 @@ class ClimateInput:
 
     ``key`` is what the user wrote (a CF standard name or alias); ``quantity`` is the
     glossary name it becomes at ingest (``precipitation_flux`` -> ``precipitation``).
+    ``path`` is one file, store or glob pattern, or a tuple of them (joined along time by
+    :mod:`lakeloss.io.multifile`).
     """
 
     key: str
     quantity: str
-    path: Path
+    path: Path | tuple[Path, ...]
     format: str
     variable: str | None = None
     units: str | None = None
@@ -77,6 +79,7 @@ class ClimateInput:
     end: str | None = None
     calendar: str = "standard"
     crs: str | None = None
+    date_pattern: str | None = None
 
 
 @dataclass(frozen=True)
@@ -186,7 +189,7 @@ _WATERBODY_KEYS = {
     "area_source": str,
 }
 _CLIMATE_KEYS = {
-    "path": str,
+    "path": str,  # or a list of str: read by _climate_path
     "variable": str,
     "units": str,
     "height_m": float,
@@ -196,6 +199,7 @@ _CLIMATE_KEYS = {
     "end": str,
     "calendar": str,
     "crs": str,
+    "date_pattern": str,
 }
 _METHOD_KEYS = {"name": str, "compare": list}
 _OUTPUT_KEYS = {
@@ -260,6 +264,7 @@ def reference_keys() -> dict[tuple[str, str], str]:
         for key, kind in schema.items()
     }
     keys.update({("climate", name): "table" for name in _CLIMATE_NAMES})
+    keys[("climate.<name>", "path")] = "string or list of strings"  # see _climate_path
     for name, spec in registry.parameter_specs().items():
         keys[("parameters", name)] = "string" if spec.choices else "number"
     keys.update({("parameters", k): _TYPE_NAMES[v] for k, v in PIPELINE_PARAMETERS.items()})
@@ -379,20 +384,93 @@ def _choice(table: Mapping[str, Any], key: str, allowed: Iterable[str], default:
     return str(value)
 
 
-def _climate_format(path: Path, given: str | None, where: str) -> str:
-    if given is not None:
-        if given not in ("netcdf", "geotiff"):
-            raise ConfigError(f"{where}.format must be 'netcdf' or 'geotiff', got '{given}'")
-        return given
+_FORMATS = ("netcdf", "geotiff", "zarr")
+_GLOB_CHARACTERS = re.compile(r"[*?\[]")
+
+
+def _climate_path(value: Any, where: str, base: Path | None) -> Path | tuple[Path, ...]:
+    """``path``: one file, store or glob pattern, or a list of them, each resolved against
+    ``base``; a pattern is expanded (and refused if it matches nothing) when it is read."""
+    entries = value if isinstance(value, list) else [value]
+    if not entries or not all(isinstance(v, str) and v for v in entries):
+        raise ConfigError(
+            f"{where}.path must be a string or a non-empty list of strings, got {value!r}"
+        )
+    for entry in entries:
+        if re.search(r"\{[^}]*\}", entry):
+            raise ConfigError(
+                f"{where}.path '{entry}' holds a {{placeholder}}; expected glob wildcards "
+                "(e.g. 'rain/*/*.tif'); write * for the varying part, and date_pattern for "
+                "GeoTIFF dates"
+            )
+    paths = tuple(
+        _resolve(entry, base)
+        if _GLOB_CHARACTERS.search(entry) and not _resolve(entry, base).exists()
+        else _input_path(entry, base, f"{where}.path")
+        for entry in entries
+    )
+    return paths[0] if len(paths) == 1 else paths
+
+
+def _suffix_format(path: Path) -> str | None:
     suffix = path.suffix.lower()
     if suffix in (".nc", ".nc4", ".cdf", ".netcdf"):
         return "netcdf"
     if suffix in (".tif", ".tiff", ".gtiff"):
         return "geotiff"
-    raise ConfigError(
-        f"{where}: cannot tell the format of '{path}' from its suffix; "
-        'add format = "netcdf" or format = "geotiff"'
-    )
+    if suffix == ".zarr":
+        return "zarr"
+    return None
+
+
+def _climate_format(path: Path | tuple[Path, ...], given: str | None, where: str) -> str:
+    if given is not None:
+        if given not in _FORMATS:
+            raise ConfigError(f"{where}.format must be one of {', '.join(_FORMATS)}, got '{given}'")
+        return given
+    entries = path if isinstance(path, tuple) else (path,)
+    found = {_suffix_format(entry) for entry in entries}
+    if len(found) > 1 and None not in found:
+        raise ConfigError(
+            f"{where}.path mixes formats ({', '.join(sorted(str(f) for f in found))}); "
+            "expected files of one format for one variable; list one kind of file"
+        )
+    fmt = found.pop() if len(found) == 1 else None
+    if fmt is None:
+        raise ConfigError(
+            f"{where}: cannot tell the format of '{entries[0]}' from its suffix; "
+            'add format = "netcdf", format = "geotiff" or format = "zarr"'
+        )
+    return fmt
+
+
+def _check_dates(table: Mapping[str, Any], fmt: str, key: str, where: str) -> None:
+    """GeoTIFF dates come from start and step, or from the file names (date_pattern)."""
+    if "date_pattern" in table:
+        from lakeloss.filedates import compile_pattern
+
+        if fmt != "geotiff":
+            raise ConfigError(
+                f"{where}.date_pattern only applies to GeoTIFF files ({fmt} files carry their "
+                "own time stamps); remove it"
+            )
+        compile_pattern(table["date_pattern"])  # ConfigError naming what is wrong
+        for unused in ("start", "end"):
+            if unused in table:
+                raise ConfigError(
+                    f"{where}.{unused} cannot be used with date_pattern (the dates come from "
+                    f"the file names); remove {unused}"
+                )
+    elif fmt == "geotiff" and key != "elevation":
+        for needed in ("start", "step"):
+            if needed not in table:
+                raise ConfigError(
+                    f"{where} reads a GeoTIFF stack and needs {needed} = ... "
+                    "(band dates come from start and step; or set date_pattern to read "
+                    "them from the file names)"
+                )
+    if "step" in table and table["step"] not in ("day", "month"):
+        raise ConfigError(f"{where}.step must be 'day' or 'month', got '{table['step']}'")
 
 
 def _climate_input(key: str, value: Any, base: Path | None) -> ClimateInput:
@@ -401,20 +479,22 @@ def _climate_input(key: str, value: Any, base: Path | None) -> ClimateInput:
         raise ConfigError(
             f'{where} must be a table such as {{ path = "climate.nc", variable = "tas" }}'
         )
-    table = _typed(value, _CLIMATE_KEYS, where)
-    written = _require(table, "path", where)
-    fmt = _climate_format(Path(written), table.get("format"), where)
-    if fmt == "netcdf" and "variable" not in table:
-        raise ConfigError(f'{where} reads a NetCDF file and needs variable = "<name in file>"')
-    if fmt == "geotiff" and key != "elevation":
-        for needed in ("start", "step"):
-            if needed not in table:
-                raise ConfigError(
-                    f"{where} reads a GeoTIFF stack and needs {needed} = ... "
-                    "(band dates come from start and step)"
-                )
-        if table["step"] not in ("day", "month"):
-            raise ConfigError(f"{where}.step must be 'day' or 'month', got '{table['step']}'")
+    table = _typed({k: v for k, v in value.items() if k != "path"}, _CLIMATE_KEYS, where)
+    path = _climate_path(_require(value, "path", where), where, base)
+    fmt = _climate_format(path, table.get("format"), where)
+    if fmt in ("netcdf", "zarr") and "variable" not in table:
+        raise ConfigError(
+            f"{where} reads a {'Zarr store' if fmt == 'zarr' else 'NetCDF file'} and needs "
+            'variable = "<name in file>"'
+        )
+    if key == "elevation" and isinstance(path, tuple):
+        raise ConfigError(f"{where}.path must name one raster; elevation does not vary in time")
+    _check_dates(table, fmt, key, where)
+    if fmt == "geotiff" and isinstance(path, tuple) and "date_pattern" not in table:
+        raise ConfigError(
+            f"{where}.path lists several GeoTIFFs but no date_pattern; expected date_pattern "
+            '(e.g. "%Y%m%d") so that each file\'s date comes from its name; add it'
+        )
     if "height_m" in table and key != "wind_speed":
         raise ConfigError(f"{where}.height_m only applies to wind_speed")
     if "height_m" in table and not 0.5 <= table["height_m"] <= 100.0:
@@ -422,7 +502,7 @@ def _climate_input(key: str, value: Any, base: Path | None) -> ClimateInput:
     return ClimateInput(
         key=key,
         quantity=ALIASES.get(key, key),
-        path=_input_path(written, base, f"{where}.path"),
+        path=path,
         format=fmt,
         variable=table.get("variable"),
         units=table.get("units"),
@@ -432,6 +512,7 @@ def _climate_input(key: str, value: Any, base: Path | None) -> ClimateInput:
         end=table.get("end"),
         calendar=table.get("calendar", "standard"),
         crs=table.get("crs"),
+        date_pattern=table.get("date_pattern"),
     )
 
 

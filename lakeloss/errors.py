@@ -102,3 +102,7 @@ class ClimateGapsWarning(LakelossWarning):
 
 class NoResultError(InputDataError):
     """No water body got a result (all outside the grid, or without valid climate)."""
+
+
+class OverlappingStepsWarning(LakelossWarning):
+    """Two files of one climate input held the same steps with identical values (read once)."""

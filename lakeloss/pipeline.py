@@ -133,7 +133,7 @@ class _Stage:
 
 
 def _open_field(item: Any, chunk_steps: int) -> climate_io.ClimateField:
-    if item.format == "netcdf":
+    if item.format in ("netcdf", "zarr"):
         return climate_io.open_netcdf(
             item.path, item.variable, item.key, units=item.units, crs=item.crs,
             chunk_steps=chunk_steps,
@@ -148,6 +148,7 @@ def _open_field(item: Any, chunk_steps: int) -> climate_io.ClimateField:
         crs=item.crs,
         end=item.end,
         chunk_steps=chunk_steps,
+        date_pattern=item.date_pattern,
     )
 
 
@@ -214,6 +215,7 @@ def load_inputs(config: RunConfig) -> Inputs:
     static_fields = {}
     for item in config.climate:
         if item.quantity == "elevation":
+            assert isinstance(item.path, Path)  # the configuration allows one raster
             raster = static_io.read_static_raster(
                 item.path, "elevation", variable=item.variable, units=item.units, crs=item.crs
             )

@@ -22,6 +22,7 @@ import pandas as pd
 from lakeloss import __version__
 from lakeloss.config import VOLUME_UNITS, RunConfig
 from lakeloss.errors import ConfigError
+from lakeloss.io import multifile
 from lakeloss.io.gpkg import FieldInfo
 
 CAUTION = (
@@ -216,10 +217,15 @@ def progress_bars(progress: Any) -> Any:
 
 def _sha256(path: Path) -> str | None:
     digest = hashlib.sha256()
+    # A store (Zarr) is a folder: its files' relative names and contents, in name order.
+    members = sorted(p for p in Path(path).rglob("*") if p.is_file()) if Path(path).is_dir() else []
     try:
-        with open(path, "rb") as handle:
-            for chunk in iter(lambda: handle.read(1 << 20), b""):
-                digest.update(chunk)
+        for member in members or [Path(path)]:
+            if members:
+                digest.update(member.relative_to(path).as_posix().encode() + b"\0")
+            with open(member, "rb") as handle:
+                for chunk in iter(lambda: handle.read(1 << 20), b""):
+                    digest.update(chunk)
     except OSError:
         return None
     return digest.hexdigest()
@@ -587,14 +593,20 @@ def inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
         }
     ]
     for item in config.climate:
-        items.append(
-            {
-                "role": item.key,
-                "path": str(item.path),
-                "variable": item.variable,
-                "sha256": sha256(item.path),
-            }
-        )
+        entry: dict[str, Any] = {
+            "role": item.key,
+            "path": [str(p) for p in item.path] if isinstance(item.path, tuple) else str(item.path),
+            "variable": item.variable,
+        }
+        if isinstance(item.path, tuple) or multifile.several(item.path):
+            # A list or glob: every file it named when the run read it, each with its digest.
+            entry["sha256"] = None
+            entry["files"] = [
+                {"path": str(f), "sha256": sha256(f)} for f in multifile.expand(item.path)
+            ]
+        else:
+            entry["sha256"] = sha256(item.path)
+        items.append(entry)
     return items
 
 

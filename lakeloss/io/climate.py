@@ -41,6 +41,7 @@ from lakeloss.errors import (
 )
 from lakeloss.glossary import ALIASES, QUANTITIES
 from lakeloss.io import units as units_io
+from lakeloss.io import zarr_store
 
 DIMS = ("time", "y", "x")
 
@@ -154,6 +155,8 @@ def _unreadable(path: Path, kind: str, err: Exception) -> InputDataError:
 
 
 def _open_dataset(path: Path) -> xr.Dataset:
+    if zarr_store.is_store(path):
+        return zarr_store.open_store(path)
     _check_file(path, "NetCDF")
     try:
         # Times are decoded here with cftime so that every calendar works the same way.
@@ -452,8 +455,9 @@ def open_netcdf(
 
     Parameters
     ----------
-    path : str or os.PathLike
-        NetCDF file.
+    path : str, os.PathLike or sequence of them
+        NetCDF file or Zarr store; or several, or glob patterns, joined along time
+        (:func:`lakeloss.io.multifile.open_netcdf_files`).
     variable : str
         Variable to read.
     quantity : str
@@ -492,6 +496,12 @@ def open_netcdf(
         EPSG:4326 was assumed for lat/lon coordinates without a grid mapping, or the
         ``crs`` override replaced a broken or different CRS in the file.
     """
+    from lakeloss.io import multifile  # builds on this module
+
+    if multifile.several(path):
+        return multifile.open_netcdf_files(
+            path, variable, quantity, units=units, crs=crs, chunk_steps=chunk_steps
+        )
     source = Path(path)
     name = _glossary_name(quantity)
     dataset = _open_dataset(source)
@@ -548,8 +558,10 @@ def _netcdf_field(
     name: str,
     units: str | None,
     crs: str | None,
-    chunk_steps: int,
+    chunk_steps: int | None,
 ) -> ClimateField:
+    """The field of one file; ``chunk_steps`` None leaves the values as stored (not chunked,
+    not converted) for :mod:`lakeloss.io.multifile` to join files first."""
     where = f"{str(source)!r} variable {variable!r}"
     if variable not in dataset.data_vars:
         listing = ", ".join(repr(v) for v in dataset.data_vars) or "none"
@@ -566,8 +578,11 @@ def _netcdf_field(
     field_crs, assumed = _resolve_crs(found, _is_geographic(dataset, roles), crs, where)
     declared = _source_units(data.attrs.get("units"), units, where, name)
     _probe(data, source)
-    lazy = data.chunk({"time": max(1, int(chunk_steps)), "y": -1, "x": -1})
-    converted = units_io.convert(lazy, declared, name, step_days=axis.days, variable=variable)
+    if chunk_steps is None:
+        converted = data
+    else:
+        lazy = data.chunk({"time": max(1, int(chunk_steps)), "y": -1, "x": -1})
+        converted = units_io.convert(lazy, declared, name, step_days=axis.days, variable=variable)
     return ClimateField(
         quantity=name,
         data=converted.rename(name),
@@ -669,6 +684,7 @@ def open_geotiff_stack(
     crs: str | None = None,
     end: str | None = None,
     chunk_steps: int = 64,
+    date_pattern: str | None = None,
 ) -> ClimateField:
     """Open a GeoTIFF with one band per time step as a lazy field in glossary units.
 
@@ -693,6 +709,10 @@ def open_geotiff_stack(
         ISO date of the last band, checked against the band count.
     chunk_steps : int
         Bands per dask chunk.
+    date_pattern : str, optional
+        How file names give dates (:mod:`lakeloss.filedates`): ``path`` is then one or more
+        files or glob patterns, each file's first band on the date its name gives
+        (:func:`lakeloss.io.multifile.open_geotiff_files`); ``start`` and ``end`` unused.
 
     Returns
     -------
@@ -711,6 +731,13 @@ def open_geotiff_stack(
     GridError
         Rotated geotransform.
     """
+    from lakeloss.io import multifile  # builds on this module
+
+    if date_pattern is not None or multifile.several(path):
+        return multifile.open_geotiff_files(
+            path, quantity, date_pattern=date_pattern, step=step, units=units,
+            calendar=calendar, crs=crs, chunk_steps=chunk_steps,
+        )  # fmt: skip
     source = Path(path)
     name = _glossary_name(quantity)
     _check_file(source, "GeoTIFF")
