@@ -278,7 +278,9 @@ def test_geotiff_stack_reads_bands_lazily_with_nodata(tmp_path, build):
     assert field.source_units == "km h-1"
     values = field.data.values
     assert np.isnan(values[2, 1, 3])
-    np.testing.assert_allclose(values[1, 0, 1], 9.0 / 3.6)  # km/h ÷ 3.6 = m/s (docs/methods.md#units-and-conventions)
+    np.testing.assert_allclose(
+        values[1, 0, 1], 9.0 / 3.6
+    )  # km/h ÷ 3.6 = m/s (docs/methods.md#units-and-conventions)
     assert [str(t)[:10] for t in field.times] == ["2021-03-30", "2021-03-31", "2021-04-01"]
     np.testing.assert_allclose(field.x, [500_500.0, 501_500.0, 502_500.0, 503_500.0])
     np.testing.assert_allclose(field.y, [6_004_500.0, 6_003_500.0])
