@@ -32,9 +32,10 @@ from lakeloss.io import climate as climate_io
 
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 GEOTIFF_SUFFIXES = (".tif", ".tiff")
-# Layer geometry types that hold (or may hold) polygons; "Unknown" is what mixed GeoJSON and
+# Layer geometry types that may hold polygons or points; "Unknown" is what mixed GeoJSON and
 # some drivers report, and the run's reader sorts those out feature by feature.
-_MAYBE_POLYGONAL = ("Unknown", "Geometry", "GeometryCollection")
+_MAYBE_MIXED = ("Unknown", "Geometry", "GeometryCollection")
+_POINT_TYPES = ("Point", "MultiPoint")
 _PARQUET_SUFFIXES = (".parquet", ".geoparquet")
 # Dimensions of cell and time bounds, never data.
 _BOUNDS_DIMS = frozenset({"bnds", "nv", "nb2", "bounds", "vertices", "nbnd"})
@@ -57,13 +58,15 @@ class FieldSummary:
 
 @dataclass(frozen=True)
 class LayerSummary:
-    """What a water-body layer holds: layer name, feature count, CRS and fields."""
+    """What a water-body layer holds: layer name, feature count, CRS, fields, and how many
+    of the features are points (a point register needs an area attribute)."""
 
     path: Path
     layer: str | None
     features: int
     crs: str | None
     fields: tuple[FieldSummary, ...]
+    points: int = 0
 
 
 @dataclass(frozen=True)
@@ -144,16 +147,17 @@ def is_netcdf(path: Path) -> bool:
 
 
 def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
-    """Summarise a polygon layer: its name, feature count, CRS and attribute fields.
+    """Summarise a layer of polygons or points (or both): its name, feature count, CRS,
+    attribute fields and number of points.
 
     Raises
     ------
     InputDataError
         Missing or unreadable file.
     ConfigError
-        Several polygon layers and none chosen, or the chosen one is absent.
+        Several polygon or point layers and none chosen, or the chosen one is absent.
     GeometryError
-        No polygon layer, or a polygon layer with no features.
+        No polygon or point layer, or a layer with no features.
     """
     if not path.exists():
         raise InputDataError(
@@ -162,10 +166,11 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
         )
     if path.suffix.lower() in _PARQUET_SUFFIXES:
         return _survey_parquet(path)
-    chosen = _polygon_layer(path, layer)
+    chosen, kind = _water_body_layer(path, layer)
     try:
         info = pyogrio.read_info(os.fspath(path), layer=chosen)
         frame = pyogrio.read_dataframe(os.fspath(path), layer=chosen, read_geometry=False)
+        points = _count_points(path, chosen, kind, int(info["features"]))
     except _READ_ERRORS as err:
         raise InputDataError(
             f"water-body layer '{path}' cannot be read ({' '.join(str(err).split())}); "
@@ -182,7 +187,18 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
         features=int(info["features"]),
         crs=info.get("crs"),
         fields=tuple(_field_summary(frame[name]) for name in frame.columns),
+        points=points,
     )
+
+
+def _count_points(path: Path, layer: str, kind: str, features: int) -> int:
+    if kind in _POINT_TYPES:
+        return features
+    if kind not in _MAYBE_MIXED:
+        return 0
+    # A mixed layer: only its geometries tell (read without attributes).
+    shapes = pyogrio.read_dataframe(os.fspath(path), layer=layer, columns=[])
+    return int(shapes.geometry.geom_type.isin(_POINT_TYPES).sum())
 
 
 def _survey_parquet(path: Path) -> LayerSummary:
@@ -195,11 +211,12 @@ def _survey_parquet(path: Path) -> LayerSummary:
             f"water-body layer '{path}' cannot be read as GeoParquet "
             f"({' '.join(str(err).split())}); expected a readable file; re-export it"
         ) from err
-    polygons = frame.geometry.geom_type.isin(["Polygon", "MultiPolygon"])
-    if not bool(polygons.any()):
+    kinds = frame.geometry.geom_type
+    points = int(kinds.isin(_POINT_TYPES).sum())
+    if not bool(kinds.isin(["Polygon", "MultiPolygon"]).any()) and not points:
         raise GeometryError(
-            f"water-body layer '{path}' has no polygons ({len(frame)} features); expected "
-            "polygons of water bodies; check the file"
+            f"water-body layer '{path}' has no polygons or points ({len(frame)} features); "
+            "expected polygons of water bodies, or points with their area; check the file"
         )
     attributes = frame.drop(columns=frame.geometry.name)
     return LayerSummary(
@@ -208,14 +225,15 @@ def _survey_parquet(path: Path) -> LayerSummary:
         features=len(frame),
         crs=None if frame.crs is None else frame.crs.to_string(),
         fields=tuple(_field_summary(attributes[name]) for name in attributes.columns),
+        points=points,
     )
 
 
-def _is_polygonal(kind: str) -> bool:
-    return "Polygon" in kind or kind in _MAYBE_POLYGONAL
+def _is_water_body_kind(kind: str) -> bool:
+    return "Polygon" in kind or kind in _POINT_TYPES or kind in _MAYBE_MIXED
 
 
-def _polygon_layer(path: Path, layer: str | None) -> str:
+def _water_body_layer(path: Path, layer: str | None) -> tuple[str, str]:
     try:
         table = pyogrio.list_layers(os.fspath(path))
     except _READ_ERRORS as err:
@@ -230,25 +248,25 @@ def _polygon_layer(path: Path, layer: str | None) -> str:
                 f"layer '{layer}' is not in '{path}'; the layers are "
                 f"{', '.join(kinds) or 'none'}; choose one with --layer"
             )
-        if not _is_polygonal(kinds[layer]):
+        if not _is_water_body_kind(kinds[layer]):
             raise GeometryError(
                 f"layer '{layer}' of '{path}' holds {kinds[layer]} geometries; expected "
-                "polygons of water bodies; choose a polygon layer"
+                "polygons of water bodies, or points with their area; choose another layer"
             )
-        return layer
-    polygons = [name for name, kind in kinds.items() if _is_polygonal(kind)]
-    if not polygons:
+        return layer, kinds[layer]
+    usable = [name for name, kind in kinds.items() if _is_water_body_kind(kind)]
+    if not usable:
         found = ", ".join(f"{n} ({k})" for n, k in kinds.items()) or "no layers"
         raise GeometryError(
-            f"'{path}' has no polygon layer ({found}); expected polygons of water bodies; "
-            "give a polygon layer"
+            f"'{path}' has no polygon or point layer ({found}); expected polygons of water "
+            "bodies, or points with their area; give such a layer"
         )
-    if len(polygons) > 1:
+    if len(usable) > 1:
         raise ConfigError(
-            f"'{path}' has {len(polygons)} polygon layers ({', '.join(polygons)}); "
+            f"'{path}' has {len(usable)} polygon or point layers ({', '.join(usable)}); "
             "choose one with --layer"
         )
-    return polygons[0]
+    return usable[0], kinds[usable[0]]
 
 
 def _field_summary(values: pd.Series) -> FieldSummary:
