@@ -176,10 +176,30 @@ def config_key(quantity: str, units: str, calendar_months: bool) -> str:
 # ----------------------------------------------------------------------------- matching
 
 
+def join_series(variables: Iterable[survey.VariableSummary]) -> list[survey.VariableSummary]:
+    """Variables of one name in files whose names differ only by dates (one file per year,
+    per month, ...) as one variable over all those files, in the order first found."""
+    groups: dict[tuple[str, str], list[survey.VariableSummary]] = {}
+    for variable in variables:
+        key = (variable.name, survey.series_key(variable.path))
+        groups.setdefault(key, []).append(variable)
+    return [
+        group[0] if len(group) == 1
+        else dataclasses.replace(group[0], paths=tuple(v.path for v in group))
+        for group in groups.values()
+    ]  # fmt: skip
+
+
+def _where(variable: survey.VariableSummary) -> str:
+    files = variable.files
+    more = f" (and {len(files) - 1} more files)" if len(files) > 1 else ""
+    return f"{variable.path.name}{more}: {variable.name}"
+
+
 def _match(variable: survey.VariableSummary) -> tuple[Match | None, str | None]:
     """A match for the variable, or None and the reason it is not used."""
     quantity = identify(variable)
-    where = f"{variable.path.name}: {variable.name}"
+    where = _where(variable)
     if quantity is None:
         described = variable.standard_name or variable.long_name or "no standard_name"
         return None, f"{where} ({described}) is not a quantity lakeloss uses"
@@ -198,6 +218,8 @@ def _match(variable: survey.VariableSummary) -> tuple[Match | None, str | None]:
     units, notes = _units_override(variable, quantity, time)
     if units is not None:
         time = survey.survey_time(variable, quantity, units)
+    if len(variable.files) > 1:
+        notes += (f"{variable.name}: {len(variable.files)} files joined along time",)
     if variable.units is None:
         notes += ("the file gives no units: set units = ... for this entry",)
     if quantity in _WIND and _height_of(variable) is None:
@@ -249,8 +271,8 @@ def match_variables(
 
 def _also_found(match: Match) -> str:
     return (
-        f"{match.variable.path.name}: {match.variable.name} is also {match.quantity}; one file "
-        "per quantity is read (the first found is used; join files split by years first)"
+        f"{_where(match.variable)} is also {match.quantity}; one series per quantity is read "
+        "(the first found is used)"
     )
 
 
@@ -261,8 +283,7 @@ def _drop_components_beside_speed(chosen: dict[str, Match], unused: list[str]) -
         match = chosen.pop(component, None)
         if match is not None:
             unused.append(
-                f"{match.variable.path.name}: {match.variable.name} ({component}) is not "
-                "needed: wind_speed was found"
+                f"{_where(match.variable)} ({component}) is not needed: wind_speed was found"
             )
 
 
@@ -392,7 +413,7 @@ def draft(
     summary = survey.survey_layer(layer_path, layer)
     files = survey.climate_files(climate_paths)
     variables = [v for f in files if survey.is_netcdf(f) for v in survey.survey_netcdf(f)]
-    matches, unused = match_variables(variables)
+    matches, unused = match_variables(join_series(variables))
     unused += [f"{f.name}: GeoTIFF stacks need start and step; add it by hand" for f in files
                if not survey.is_netcdf(f)]  # fmt: skip
     methods = choose_methods(m.quantity for m in matches)
@@ -407,6 +428,14 @@ def _relative(path: Path, base: Path) -> str:
         return Path(os.path.relpath(path.absolute(), base)).as_posix()
     except ValueError:  # another drive on Windows
         return path.absolute().as_posix()
+
+
+def _path_setting(variable: survey.VariableSummary, base: Path) -> str | list[str]:
+    """One file's relative path; for several, a glob matching exactly them, else their list."""
+    files = list(variable.files)
+    if len(files) == 1:
+        return _relative(files[0], base)
+    return survey.common_glob(files, base) or [_relative(f, base) for f in files]
 
 
 def _height_of(variable: survey.VariableSummary) -> float | None:
@@ -437,10 +466,10 @@ def settings(result: Draft, base: Path) -> dict[str, Any]:
     climate: dict[str, Any] = {}
     height = _wind_height(result.matches)
     for match in result.matches:
-        entry: dict[str, Any] = {
-            "path": _relative(match.variable.path, base),
-            "variable": match.variable.name,
-        }
+        entry: dict[str, Any] = {"path": _path_setting(match.variable, base)}
+        if survey.is_zarr(match.variable.path) and match.variable.path.suffix.lower() != ".zarr":
+            entry["format"] = "zarr"
+        entry["variable"] = match.variable.name
         if match.units is not None:
             entry["units"] = match.units
         if match.quantity == "wind_speed" and height is not None:

@@ -8,7 +8,9 @@ variable is which quantity, which methods are possible, the TOML text) is in
 
 from __future__ import annotations
 
+import glob
 import os
+import re
 import tempfile
 import warnings
 from dataclasses import dataclass
@@ -29,6 +31,7 @@ from lakeloss.errors import (
     OutputError,
 )
 from lakeloss.io import climate as climate_io
+from lakeloss.io import zarr_store
 
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 GEOTIFF_SUFFIXES = (".tif", ".tiff")
@@ -75,7 +78,8 @@ class VariableSummary:
 
     ``height_m`` comes from a scalar ``height`` coordinate in metres (CMIP's ``sfcWind``
     carries 10 m); ``from_ecmwf`` is True when the variable or file carries ECMWF/GRIB
-    attributes (ERA5 and its monthly means).
+    attributes (ERA5 and its monthly means). ``paths`` lists every file of a variable split
+    over several files (``path`` is the first of them); empty for a single file.
     """
 
     path: Path
@@ -86,6 +90,12 @@ class VariableSummary:
     long_name: str
     height_m: float | None
     from_ecmwf: bool
+    paths: tuple[Path, ...] = ()
+
+    @property
+    def files(self) -> tuple[Path, ...]:
+        """The file or files holding the variable."""
+        return self.paths or (self.path,)
 
 
 @dataclass(frozen=True)
@@ -103,7 +113,7 @@ class TimeSummary:
 
 def climate_files(paths: list[Path]) -> list[Path]:
     """The climate files named, with folders expanded (recursively) to their NetCDF and
-    GeoTIFF files, in name order.
+    GeoTIFF files and Zarr stores, in name order.
 
     Raises
     ------
@@ -117,8 +127,10 @@ def climate_files(paths: list[Path]) -> list[Path]:
                 f"climate path '{path}' does not exist; expected a NetCDF/GeoTIFF file or a "
                 "folder of them; check the path"
             )
-        if path.is_dir():
-            found.extend(sorted(p for p in path.rglob("*") if _is_climate_file(p)))
+        if zarr_store.is_store(path):
+            found.append(path)
+        elif path.is_dir():
+            found.extend(_files_in(path))
         elif _is_climate_file(path):
             found.append(path)
         else:
@@ -135,12 +147,71 @@ def climate_files(paths: list[Path]) -> list[Path]:
     return list(dict.fromkeys(found))
 
 
+def _files_in(folder: Path) -> list[Path]:
+    """Climate files and Zarr stores under ``folder``; a store's own files are not listed."""
+    found: list[Path] = []
+    for root, dirs, names in os.walk(folder):
+        stores = [d for d in dirs if zarr_store.is_store(Path(root, d))]
+        found += [Path(root, d) for d in stores]
+        dirs[:] = [d for d in dirs if d not in stores]
+        found += [Path(root, n) for n in names if _is_climate_file(Path(root, n))]
+    return sorted(found)
+
+
 def _is_climate_file(path: Path) -> bool:
     return path.is_file() and path.suffix.lower() in NETCDF_SUFFIXES + GEOTIFF_SUFFIXES
 
 
 def is_netcdf(path: Path) -> bool:
-    return path.suffix.lower() in NETCDF_SUFFIXES
+    """True for a NetCDF file or a Zarr store (both read as CF datasets)."""
+    return path.suffix.lower() in NETCDF_SUFFIXES or is_zarr(path)
+
+
+def is_zarr(path: Path) -> bool:
+    return zarr_store.is_store(path)
+
+
+# Dates in file and folder names: a year, optionally with month and day (2031, 203101,
+# 2031-01, 20310101), standing alone (not part of a longer number).
+_DATE_IN_NAME = re.compile(r"(?<![0-9])[0-9]{4}(?:[-_.]?[0-9]{2}){0,2}(?![0-9])")
+_SEPARATORS = "_-./"
+
+
+def series_key(path: Path) -> str:
+    """A file's path with the dates in its name and folders blanked out: files of one series
+    split by dates (``tas_day_..._20310101-20311231.nc``, ``era5/2031/t2m_01.nc``) share it."""
+    return _DATE_IN_NAME.sub("#", path.absolute().as_posix())
+
+
+def common_glob(files: list[Path], base: Path) -> str | None:
+    """A glob pattern, relative to ``base``, that matches exactly ``files``; None if none is
+    found (the files share no name pattern, or the pattern matches other files too).
+
+    The pattern keeps what the relative paths share at the start and the end (cut back to a
+    separator ``_ - . /``) and puts ``*`` between; ``*`` matches within one folder name.
+    """
+    if len(files) < 2:
+        return None
+    texts = [_relative_text(f, base) for f in files]
+    head = os.path.commonprefix(texts)
+    tail = os.path.commonprefix([t[::-1] for t in texts])[::-1]
+    cut = max((head.rfind(c) for c in _SEPARATORS), default=-1)
+    head = head[: cut + 1]
+    starts = [i for i in (tail.find(c) for c in _SEPARATORS) if i >= 0]
+    tail = tail[min(starts) :] if starts else ""
+    if glob.has_magic(head + tail) or any(len(t) < len(head) + len(tail) for t in texts):
+        return None
+    pattern = f"{head}*{tail}"
+    anchored = pattern if Path(pattern).is_absolute() else os.path.join(base, pattern)
+    matched = {os.path.realpath(m) for m in glob.glob(anchored)}
+    return pattern if matched == {os.path.realpath(f) for f in files} else None
+
+
+def _relative_text(path: Path, base: Path) -> str:
+    try:
+        return Path(os.path.relpath(path.absolute(), base)).as_posix()
+    except ValueError:  # another drive on Windows
+        return path.absolute().as_posix()
 
 
 # ----------------------------------------------------------------------------- layer
@@ -301,7 +372,10 @@ def survey_netcdf(path: Path) -> list[VariableSummary]:
         The file cannot be opened as NetCDF.
     """
     try:
-        dataset = xr.open_dataset(path, engine="netcdf4", decode_times=False, cache=False)
+        if is_zarr(path):
+            dataset = zarr_store.open_store(path)
+        else:
+            dataset = xr.open_dataset(path, engine="netcdf4", decode_times=False, cache=False)
     except (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError) as err:
         raise InputDataError(
             f"climate file '{path}' is unreadable or not NetCDF ({' '.join(str(err).split())}); "
@@ -357,7 +431,8 @@ def survey_time(variable: VariableSummary, quantity: str, units: str | None) -> 
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LakelossWarning)
-            field = climate_io.open_netcdf(variable.path, variable.name, quantity, units=units)
+            source = list(variable.paths) if len(variable.paths) > 1 else variable.path
+            field = climate_io.open_netcdf(source, variable.name, quantity, units=units)
         axis = field.time_axis
         field.data.close()
     except LakelossError as err:
