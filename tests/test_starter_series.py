@@ -15,8 +15,8 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from builders import LAT, LON
-from test_starter import _draft_and_check, _invoke, layer_path  # noqa: F401  (fixture)
+from builders import LAT, LON, pond_layer
+from test_starter import _draft_and_check, _invoke
 
 # The files have latitude/longitude but no grid mapping: EPSG:4326 is assumed.
 pytestmark = pytest.mark.filterwarnings("ignore::lakeloss.errors.AssumedCRSWarning")
@@ -39,6 +39,14 @@ ERA5_VARIABLES = [
     ("ssrd", 0.5e7, 2.8e7, "J m**-2"),
     ("tp", 0.0, 0.01, "m"),
 ]
+
+
+@pytest.fixture
+def layer_path(tmp_path):
+    path = tmp_path / "data" / "ponds.gpkg"
+    path.parent.mkdir()
+    pond_layer().to_file(path, layer="ponds", driver="GPKG")
+    return path
 
 
 def _random(low, high, steps, seed):
