@@ -171,3 +171,17 @@ def test_a_line_layer_is_refused(tmp_path):
 )
 def test_area_units_are_read_from_the_field_name_only_where_it_says(name, units):
     assert area_units_of(name) == units
+
+
+def test_points_with_heights_in_a_shapefile_are_a_point_register(tmp_path, monkeypatch):
+    # GPS surveys give points with a height (layer type "Point Z").
+    dams = _dam_points()
+    dams["Area_m2"] = np.round(dams["area_ha"] * 1.0e4)
+    xyz = shapely.points(dams.geometry.x, dams.geometry.y, np.full(len(dams), 250.0))
+    dams = dams.drop(columns="area_ha").set_geometry(xyz)
+    layer = tmp_path / "dams.shp"
+    dams.to_file(layer)
+    assert pyogrio.list_layers(layer)[0][1] == "Point Z"
+    climate = write_cmip_folder(tmp_path / "cmip")
+    text, config = _draft_and_check(monkeypatch, tmp_path / "z.toml", layer, climate)
+    assert (config.waterbodies.area_field, config.waterbodies.area_units) == ("Area_m2", "m2")

@@ -263,9 +263,9 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
 
 
 def _count_points(path: Path, layer: str, kind: str, features: int) -> int:
-    if kind in _POINT_TYPES:
+    if _base_kind(kind) in _POINT_TYPES:
         return features
-    if kind not in _MAYBE_MIXED:
+    if _base_kind(kind) not in _MAYBE_MIXED:
         return 0
     # A mixed layer: only its geometries tell (read without attributes).
     shapes = pyogrio.read_dataframe(os.fspath(path), layer=layer, columns=[])
@@ -300,8 +300,15 @@ def _survey_parquet(path: Path) -> LayerSummary:
     )
 
 
+def _base_kind(kind: str) -> str:
+    """The geometry type without its dimensions: "Point Z" -> "Point"."""
+    words = [w for w in kind.split() if w not in ("Z", "M", "ZM", "25D", "2.5D", "3D")]
+    return " ".join(words)
+
+
 def _is_water_body_kind(kind: str) -> bool:
-    return "Polygon" in kind or kind in _POINT_TYPES or kind in _MAYBE_MIXED
+    base = _base_kind(kind)
+    return "Polygon" in base or base in _POINT_TYPES or base in _MAYBE_MIXED
 
 
 def _water_body_layer(path: Path, layer: str | None) -> tuple[str, str]:
