@@ -14,6 +14,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import os
+import re
 import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
@@ -21,7 +22,7 @@ from pathlib import Path
 from typing import Any
 
 from lakeloss import config as config_schema
-from lakeloss.errors import MissingInputError, UnitsError
+from lakeloss.errors import GeometryError, MissingInputError, UnitsError
 from lakeloss.glossary import QUANTITIES, SHORT_NAMES, STANDARD_NAME_SYNONYMS
 from lakeloss.io import survey
 from lakeloss.io import units as units_io
@@ -68,6 +69,17 @@ _EXAMPLES: dict[str, object] = {
     "year_start_month": 7,  # unset: 7 (July-June) for period = "water_year"
     "period_table": "periods.csv",
 }
+# Words in a field name that suggest it holds an area, and units a name may state
+# (tokens of the name split at non-letters and camel case; "m²" reads as "m2").
+_AREA_WORDS = ("area", "surface", "size", "extent", "ha", "hectare", "hectares", "m2", "sqm",
+               "km2", "sqkm", "acre", "acres")  # fmt: skip
+_UNIT_WORDS = {
+    "ha": "ha", "hectare": "ha", "hectares": "ha",
+    "m2": "m2", "sqm": "m2", "sqmetres": "m2", "sqmeters": "m2",
+    "km2": "km2", "sqkm": "km2",
+    "acre": "acre", "acres": "acre", "ac": "acre",
+}  # fmt: skip
+_ID_WORDS = ("id", "fid", "no", "nr", "num", "number", "code", "key")
 OUTPUT_DIR = "lakeloss-output"
 """Output folder written into a draft, next to the configuration file."""
 
@@ -164,10 +176,30 @@ def config_key(quantity: str, units: str, calendar_months: bool) -> str:
 # ----------------------------------------------------------------------------- matching
 
 
+def join_series(variables: Iterable[survey.VariableSummary]) -> list[survey.VariableSummary]:
+    """Variables of one name in files whose names differ only by dates (one file per year,
+    per month, ...) as one variable over all those files, in the order first found."""
+    groups: dict[tuple[str, str], list[survey.VariableSummary]] = {}
+    for variable in variables:
+        key = (variable.name, survey.series_key(variable.path))
+        groups.setdefault(key, []).append(variable)
+    return [
+        group[0] if len(group) == 1
+        else dataclasses.replace(group[0], paths=tuple(v.path for v in group))
+        for group in groups.values()
+    ]  # fmt: skip
+
+
+def _where(variable: survey.VariableSummary) -> str:
+    files = variable.files
+    more = f" (and {len(files) - 1} more files)" if len(files) > 1 else ""
+    return f"{variable.path.name}{more}: {variable.name}"
+
+
 def _match(variable: survey.VariableSummary) -> tuple[Match | None, str | None]:
     """A match for the variable, or None and the reason it is not used."""
     quantity = identify(variable)
-    where = f"{variable.path.name}: {variable.name}"
+    where = _where(variable)
     if quantity is None:
         described = variable.standard_name or variable.long_name or "no standard_name"
         return None, f"{where} ({described}) is not a quantity lakeloss uses"
@@ -186,6 +218,8 @@ def _match(variable: survey.VariableSummary) -> tuple[Match | None, str | None]:
     units, notes = _units_override(variable, quantity, time)
     if units is not None:
         time = survey.survey_time(variable, quantity, units)
+    if len(variable.files) > 1:
+        notes += (f"{variable.name}: {len(variable.files)} files joined along time",)
     if variable.units is None:
         notes += ("the file gives no units: set units = ... for this entry",)
     if quantity in _WIND and _height_of(variable) is None:
@@ -237,8 +271,8 @@ def match_variables(
 
 def _also_found(match: Match) -> str:
     return (
-        f"{match.variable.path.name}: {match.variable.name} is also {match.quantity}; one file "
-        "per quantity is read (the first found is used; join files split by years first)"
+        f"{_where(match.variable)} is also {match.quantity}; one series per quantity is read "
+        "(the first found is used)"
     )
 
 
@@ -249,8 +283,7 @@ def _drop_components_beside_speed(chosen: dict[str, Match], unused: list[str]) -
         match = chosen.pop(component, None)
         if match is not None:
             unused.append(
-                f"{match.variable.path.name}: {match.variable.name} ({component}) is not "
-                "needed: wind_speed was found"
+                f"{_where(match.variable)} ({component}) is not needed: wind_speed was found"
             )
 
 
@@ -304,6 +337,47 @@ def group_candidates(layer: survey.LayerSummary) -> list[str]:
     ]
 
 
+def _name_tokens(name: str) -> list[str]:
+    spaced = re.sub(r"(?<=[a-z0-9])(?=[A-Z])", "_", name.replace("²", "2"))
+    return [t for t in re.split(r"[^a-z0-9]+", spaced.lower()) if t]
+
+
+def area_candidates(layer: survey.LayerSummary) -> list[str]:
+    """Numeric fields that may hold each body's area, those named like an area first."""
+    numeric = [f.name for f in layer.fields if f.kind in ("integer", "number")]
+
+    def rank(name: str) -> tuple[bool, bool]:
+        tokens = set(_name_tokens(name))
+        return (not tokens & set(_AREA_WORDS), bool(tokens & set(_ID_WORDS)))
+
+    return sorted(numeric, key=rank)
+
+
+def area_units_of(name: str) -> str | None:
+    """The area units a field's name states (``area_ha`` -> ``ha``), or None."""
+    stated = {_UNIT_WORDS[t] for t in _name_tokens(name) if t in _UNIT_WORDS}
+    return stated.pop() if len(stated) == 1 else None
+
+
+def _point_area(layer: survey.LayerSummary) -> tuple[str, str] | None:
+    """The area field and units proposed for a layer with points; None without points.
+
+    Raises
+    ------
+    GeometryError
+        The layer has points but no numeric field to take their area from.
+    """
+    if not layer.points:
+        return None
+    candidates = area_candidates(layer)
+    if not candidates:
+        raise GeometryError(
+            f"water-body layer '{layer.path}' has {layer.points} points but no numeric field; "
+            "expected points with an area attribute (e.g. surface area in m2 or ha); add one"
+        )
+    return candidates[0], area_units_of(candidates[0]) or "m2"
+
+
 def elevation_candidates(layer: survey.LayerSummary) -> list[str]:
     words = ("elev", "alt", "height", "dem")
     return [
@@ -329,8 +403,9 @@ def draft(
     Raises
     ------
     LakelossError
-        A path that does not exist, no climate files, a layer without polygons, no method
-        possible with the variables found, or an existing ``config_path`` without
+        A path that does not exist, no climate files, a layer without polygons or points,
+        points without a numeric field for their area, no method possible with the variables
+        found, or an existing ``config_path`` without
         ``overwrite``. Nothing is written then.
     """
     if config_path.exists() and not overwrite:
@@ -338,7 +413,7 @@ def draft(
     summary = survey.survey_layer(layer_path, layer)
     files = survey.climate_files(climate_paths)
     variables = [v for f in files if survey.is_netcdf(f) for v in survey.survey_netcdf(f)]
-    matches, unused = match_variables(variables)
+    matches, unused = match_variables(join_series(variables))
     unused += [f"{f.name}: GeoTIFF stacks need start and step; add it by hand" for f in files
                if not survey.is_netcdf(f)]  # fmt: skip
     methods = choose_methods(m.quantity for m in matches)
@@ -353,6 +428,14 @@ def _relative(path: Path, base: Path) -> str:
         return Path(os.path.relpath(path.absolute(), base)).as_posix()
     except ValueError:  # another drive on Windows
         return path.absolute().as_posix()
+
+
+def _path_setting(variable: survey.VariableSummary, base: Path) -> str | list[str]:
+    """One file's relative path; for several, a glob matching exactly them, else their list."""
+    files = list(variable.files)
+    if len(files) == 1:
+        return _relative(files[0], base)
+    return survey.common_glob(files, base) or [_relative(f, base) for f in files]
 
 
 def _height_of(variable: survey.VariableSummary) -> float | None:
@@ -374,16 +457,19 @@ def settings(result: Draft, base: Path) -> dict[str, Any]:
     waterbodies: dict[str, Any] = {"path": _relative(layer.path, base)}
     if layer.layer is not None:
         waterbodies["layer"] = layer.layer
-    ids = id_candidates(layer)
+    area = _point_area(layer)
+    ids = [name for name in id_candidates(layer) if area is None or name != area[0]]
     if ids:
         waterbodies["id_field"] = ids[0]
+    if area is not None:
+        waterbodies["area_field"], waterbodies["area_units"] = area
     climate: dict[str, Any] = {}
     height = _wind_height(result.matches)
     for match in result.matches:
-        entry: dict[str, Any] = {
-            "path": _relative(match.variable.path, base),
-            "variable": match.variable.name,
-        }
+        entry: dict[str, Any] = {"path": _path_setting(match.variable, base)}
+        if survey.is_zarr(match.variable.path) and match.variable.path.suffix.lower() != ".zarr":
+            entry["format"] = "zarr"
+        entry["variable"] = match.variable.name
         if match.units is not None:
             entry["units"] = match.units
         if match.quantity == "wind_speed" and height is not None:
@@ -504,20 +590,54 @@ def _table_lines(
 def _waterbodies_lines(
     layer: survey.LayerSummary, active: Mapping[str, object], loaded: Any
 ) -> list[str]:
-    ids = id_candidates(layer)
+    ids = [name for name in id_candidates(layer) if name != active.get("area_field")]
     groups = group_candidates(layer)
     heights = elevation_candidates(layer)
+    points = f" ({layer.points} points)" if layer.points else ""
     lines = [
-        f"# {layer.features} features; CRS {layer.crs or 'none (set crs below)'}",
+        f"# {layer.features} features{points}; CRS {layer.crs or 'none (set crs below)'}",
         f"# id candidates (unique integer or text fields): {', '.join(ids) or 'none'}"
         + ("" if ids else "; the features are numbered 1..N"),
         f"# group_by candidates (text fields with repeated values): {', '.join(groups) or 'none'}",
     ]
     if heights:
         lines.append(f"# elevation_field candidates: {', '.join(heights)}")
+    lines += _area_lines(layer, active)
     defaults = _section_defaults(loaded.waterbodies, config_schema._WATERBODY_KEYS)
     examples = {"group_by": groups[:1] or None, "elevation_field": heights[0] if heights else None}
     return lines + _table_lines("waterbodies", active, defaults, examples)
+
+
+def _area_lines(layer: survey.LayerSummary, active: Mapping[str, object]) -> list[str]:
+    candidates = area_candidates(layer)
+    field = active.get("area_field")
+    if field is None:
+        named = [c for c in candidates if set(_name_tokens(c)) & set(_AREA_WORDS)]
+        if not named:
+            return []
+        return [
+            f"# area_field candidates: {', '.join(named)}; optional for polygons, which use",
+            '# their true area unless area_source = "field" (then area_field, in area_units)',
+        ]
+    others = [c for c in candidates if c != field]
+    lines = [
+        f"# The layer has {layer.points} points: each takes its area from area_field; proposed "
+        f"{field!r}, the first numeric field named like an area",
+        f"# other area_field candidates (numeric fields): {', '.join(others) or 'none'}",
+    ]
+    if area_units_of(str(field)) is None:
+        lines.append(
+            f"# CHECK area_units: the name {field!r} does not say its units; m2 is written, "
+            "change it to ha, km2 or acre if the values are in those"
+        )
+    else:
+        lines.append(f"# area_units {active['area_units']!r} read from the field's name")
+    if layer.points < layer.features:
+        lines.append(
+            '# The polygons use their true area; area_source = "field" makes them use '
+            "area_field too"
+        )
+    return lines
 
 
 def _climate_lines(result: Draft, climate: Mapping[str, Mapping[str, object]]) -> list[str]:

@@ -315,11 +315,11 @@ def test_folder_without_climate_files_is_refused(tmp_path, layer_path):
     _refused(tmp_path, layer_path, empty, words="no climate files in")
 
 
-def test_layer_without_polygons_is_refused(tmp_path):
+def test_layer_of_points_without_an_area_is_refused(tmp_path):
     climate = write_cmip_folder(tmp_path / "cmip")
-    points = gpd.GeoDataFrame({"n": [1, 2]}, geometry=shapely.points([0, 1], [0, 1]), crs=4326)
+    points = gpd.GeoDataFrame({"n": ["a", "b"]}, geometry=shapely.points([0, 1], [0, 1]), crs=4326)
     points.to_file(tmp_path / "wells.gpkg", layer="wells", driver="GPKG")
-    _refused(tmp_path, tmp_path / "wells.gpkg", climate, words="no polygon layer")
+    _refused(tmp_path, tmp_path / "wells.gpkg", climate, words="2 points but no numeric field")
 
 
 def test_layer_with_no_features_is_refused(tmp_path):
@@ -339,7 +339,7 @@ def test_climate_allowing_no_method_is_refused(tmp_path, layer_path):
 def test_several_polygon_layers_need_a_choice(tmp_path, layer_path, monkeypatch):
     climate = write_cmip_folder(tmp_path / "cmip")
     pond_layer().to_file(layer_path, layer="dams", driver="GPKG")
-    _refused(tmp_path, layer_path, climate, words=r"2 polygon layers .*--layer")
+    _refused(tmp_path, layer_path, climate, words=r"2 polygon or point layers .*--layer")
     text, _ = _draft_and_check(
         monkeypatch, tmp_path / "dams.toml", "--layer", "dams", layer_path, climate
     )

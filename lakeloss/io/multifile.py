@@ -44,6 +44,7 @@ from lakeloss.errors import (
     GridError,
     InputDataError,
     OverlappingStepsWarning,
+    TimeAlignedWarning,
     TimeAxisError,
     UnitsError,
 )
@@ -171,11 +172,11 @@ def join(pieces: Sequence[Piece], calendar: str, step: str | None) -> list[Segme
     ordered = sorted(pieces, key=lambda p: p.times[0])  # stable: equal starts keep name order
     kind = step or _step_kind(ordered, calendar)
     segments = [Segment(ordered[0], 0, len(ordered[0].times))]
-    holder = ordered[0]  # the piece holding the latest stamp so far
+    holder = ordered[0]  # the piece holding the latest step so far
     for piece in ordered[1:]:
-        overlap = int(np.sum(piece.times <= holder.times[-1]))
+        overlap = int(np.sum(_step_keys(piece.times, kind) <= _step_key(holder.times[-1], kind)))
         if overlap:
-            _check_identical(holder, piece, overlap)
+            _check_identical(holder, piece, overlap, kind)
         if overlap == len(piece.times):
             continue
         if not overlap:
@@ -183,6 +184,17 @@ def join(pieces: Sequence[Piece], calendar: str, step: str | None) -> list[Segme
         segments.append(Segment(piece, overlap, len(piece.times)))
         holder = piece
     return segments
+
+
+def _step_key(stamp, kind: str) -> int:
+    """The step a stamp belongs to: its calendar date (daily) or calendar month (monthly)."""
+    if kind == "day":
+        return int(stamp.toordinal())
+    return stamp.year * 12 + stamp.month - 1
+
+
+def _step_keys(times: np.ndarray, kind: str) -> np.ndarray:
+    return np.array([_step_key(t, kind) for t in times], dtype=np.int64)
 
 
 def _step_kind(ordered: Sequence[Piece], calendar: str) -> str:
@@ -220,11 +232,7 @@ def _next_expected(last, kind: str) -> str:
 
 def _check_junction(earlier: Piece, later: Piece, kind: str) -> None:
     last, first = earlier.times[-1], later.times[0]
-    if kind == "day":
-        regular = first - last == datetime.timedelta(days=1)
-    else:
-        regular = (first.year - last.year) * 12 + first.month - last.month == 1
-    if not regular:
+    if _step_key(first, kind) - _step_key(last, kind) != 1:
         raise TimeAxisError(
             f"climate files {earlier.name} and {later.name} leave a gap: the first ends "
             f"{_stamp(last)} and the second starts {_stamp(first)}, expected "
@@ -233,12 +241,13 @@ def _check_junction(earlier: Piece, later: Piece, kind: str) -> None:
         )
 
 
-def _check_identical(holder: Piece, piece: Piece, overlap: int) -> None:
-    start = np.flatnonzero(holder.times == piece.times[0])
+def _check_identical(holder: Piece, piece: Piece, overlap: int, kind: str) -> None:
+    held, shared_keys = _step_keys(holder.times, kind), _step_keys(piece.times[:overlap], kind)
+    start = np.flatnonzero(held == shared_keys[0])
     shared = piece.times[:overlap]
     span = f"{_stamp(shared[0])}..{_stamp(shared[-1])}"
     where = f"climate files {holder.name} and {piece.name} overlap"
-    if start.size == 0 or not np.array_equal(holder.times[start[0] : start[0] + overlap], shared):
+    if start.size == 0 or not np.array_equal(held[start[0] : start[0] + overlap], shared_keys):
         raise TimeAxisError(
             f"{where}: the first holds {_stamp(holder.times[0])}..{_stamp(holder.times[-1])} "
             f"and the second starts {_stamp(piece.times[0])} with other stamps; expected each "
@@ -261,7 +270,58 @@ def _check_identical(holder: Piece, piece: Piece, overlap: int) -> None:
 
 
 def joined_times(segments: Sequence[Segment]) -> np.ndarray:
-    return np.concatenate([s.piece.times[s.first : s.stop] for s in segments])
+    """The stamps of the joined series; daily stamps at the first file's time of day.
+
+    Files whose daily stamps sit at another time of day (00:00 in one year's file, 12:00 in
+    the next) are aligned by calendar date, as variables are (:mod:`lakeloss.timeaxis`), and
+    a :class:`~lakeloss.errors.TimeAlignedWarning` says so. Monthly stamps are kept: a
+    monthly axis reads the calendar month of each stamp, whatever its day.
+    """
+    parts = [s.piece.times[s.first : s.stop] for s in segments]
+    times = np.concatenate(parts)
+    if len(times) < 2 or not _daily_steps(times):
+        return times
+    first = times[0]
+    clock = (first.hour, first.minute, first.second, first.microsecond)
+    moved = [p for p in segments if _clock(p.piece.times[p.first]) != clock]
+    if not moved:
+        return times
+    aligned = np.array(
+        [t.replace(hour=clock[0], minute=clock[1], second=clock[2], microsecond=clock[3])
+         for t in times],
+        dtype=object,
+    )  # fmt: skip
+    listing = "; ".join(
+        f"{s.piece.name} stamped {_stamp_at(s.piece.times[s.first])}"
+        for s in _first_of_each_clock(segments)
+    )
+    warnings.warn(
+        "daily steps aligned by calendar date (a value belongs to the day of its stamp): "
+        f"{listing}",
+        TimeAlignedWarning,
+        stacklevel=3,
+    )
+    return aligned
+
+
+def _clock(stamp) -> tuple[int, int, int, int]:
+    return (stamp.hour, stamp.minute, stamp.second, stamp.microsecond)
+
+
+def _daily_steps(times: np.ndarray) -> bool:
+    keys = _step_keys(times, "day")
+    return bool(np.all(np.diff(keys) == 1))
+
+
+def _first_of_each_clock(segments: Sequence[Segment]) -> list[Segment]:
+    firsts: dict[tuple[int, int, int, int], Segment] = {}
+    for segment in segments:
+        firsts.setdefault(_clock(segment.piece.times[segment.first]), segment)
+    return list(firsts.values())
+
+
+def _stamp_at(stamp) -> str:
+    return f"{stamp.year:04d}-{stamp.month:02d}-{stamp.day:02d} {stamp.hour:02d}:{stamp.minute:02d}"
 
 
 def aligned_chunks(offset: int, length: int, chunk_steps: int) -> tuple[int, ...]:

@@ -8,7 +8,9 @@ variable is which quantity, which methods are possible, the TOML text) is in
 
 from __future__ import annotations
 
+import glob
 import os
+import re
 import tempfile
 import warnings
 from dataclasses import dataclass
@@ -29,12 +31,14 @@ from lakeloss.errors import (
     OutputError,
 )
 from lakeloss.io import climate as climate_io
+from lakeloss.io import zarr_store
 
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 GEOTIFF_SUFFIXES = (".tif", ".tiff")
-# Layer geometry types that hold (or may hold) polygons; "Unknown" is what mixed GeoJSON and
+# Layer geometry types that may hold polygons or points; "Unknown" is what mixed GeoJSON and
 # some drivers report, and the run's reader sorts those out feature by feature.
-_MAYBE_POLYGONAL = ("Unknown", "Geometry", "GeometryCollection")
+_MAYBE_MIXED = ("Unknown", "Geometry", "GeometryCollection")
+_POINT_TYPES = ("Point", "MultiPoint")
 _PARQUET_SUFFIXES = (".parquet", ".geoparquet")
 # Dimensions of cell and time bounds, never data.
 _BOUNDS_DIMS = frozenset({"bnds", "nv", "nb2", "bounds", "vertices", "nbnd"})
@@ -57,13 +61,15 @@ class FieldSummary:
 
 @dataclass(frozen=True)
 class LayerSummary:
-    """What a water-body layer holds: layer name, feature count, CRS and fields."""
+    """What a water-body layer holds: layer name, feature count, CRS, fields, and how many
+    of the features are points (a point register needs an area attribute)."""
 
     path: Path
     layer: str | None
     features: int
     crs: str | None
     fields: tuple[FieldSummary, ...]
+    points: int = 0
 
 
 @dataclass(frozen=True)
@@ -72,7 +78,8 @@ class VariableSummary:
 
     ``height_m`` comes from a scalar ``height`` coordinate in metres (CMIP's ``sfcWind``
     carries 10 m); ``from_ecmwf`` is True when the variable or file carries ECMWF/GRIB
-    attributes (ERA5 and its monthly means).
+    attributes (ERA5 and its monthly means). ``paths`` lists every file of a variable split
+    over several files (``path`` is the first of them); empty for a single file.
     """
 
     path: Path
@@ -83,6 +90,12 @@ class VariableSummary:
     long_name: str
     height_m: float | None
     from_ecmwf: bool
+    paths: tuple[Path, ...] = ()
+
+    @property
+    def files(self) -> tuple[Path, ...]:
+        """The file or files holding the variable."""
+        return self.paths or (self.path,)
 
 
 @dataclass(frozen=True)
@@ -100,7 +113,7 @@ class TimeSummary:
 
 def climate_files(paths: list[Path]) -> list[Path]:
     """The climate files named, with folders expanded (recursively) to their NetCDF and
-    GeoTIFF files, in name order.
+    GeoTIFF files and Zarr stores, in name order.
 
     Raises
     ------
@@ -114,8 +127,10 @@ def climate_files(paths: list[Path]) -> list[Path]:
                 f"climate path '{path}' does not exist; expected a NetCDF/GeoTIFF file or a "
                 "folder of them; check the path"
             )
-        if path.is_dir():
-            found.extend(sorted(p for p in path.rglob("*") if _is_climate_file(p)))
+        if zarr_store.is_store(path):
+            found.append(path)
+        elif path.is_dir():
+            found.extend(_files_in(path))
         elif _is_climate_file(path):
             found.append(path)
         else:
@@ -132,28 +147,88 @@ def climate_files(paths: list[Path]) -> list[Path]:
     return list(dict.fromkeys(found))
 
 
+def _files_in(folder: Path) -> list[Path]:
+    """Climate files and Zarr stores under ``folder``; a store's own files are not listed."""
+    found: list[Path] = []
+    for root, dirs, names in os.walk(folder):
+        stores = [d for d in dirs if zarr_store.is_store(Path(root, d))]
+        found += [Path(root, d) for d in stores]
+        dirs[:] = [d for d in dirs if d not in stores]
+        found += [Path(root, n) for n in names if _is_climate_file(Path(root, n))]
+    return sorted(found)
+
+
 def _is_climate_file(path: Path) -> bool:
     return path.is_file() and path.suffix.lower() in NETCDF_SUFFIXES + GEOTIFF_SUFFIXES
 
 
 def is_netcdf(path: Path) -> bool:
-    return path.suffix.lower() in NETCDF_SUFFIXES
+    """True for a NetCDF file or a Zarr store (both read as CF datasets)."""
+    return path.suffix.lower() in NETCDF_SUFFIXES or is_zarr(path)
+
+
+def is_zarr(path: Path) -> bool:
+    return zarr_store.is_store(path)
+
+
+# Dates in file and folder names: a year, optionally with month and day (2031, 203101,
+# 2031-01, 20310101), standing alone (not part of a longer number).
+_DATE_IN_NAME = re.compile(r"(?<![0-9])[0-9]{4}(?:[-_.]?[0-9]{2}){0,2}(?![0-9])")
+_SEPARATORS = "_-./"
+
+
+def series_key(path: Path) -> str:
+    """A file's path with the dates in its name and folders blanked out: files of one series
+    split by dates (``tas_day_..._20310101-20311231.nc``, ``era5/2031/t2m_01.nc``) share it."""
+    return _DATE_IN_NAME.sub("#", path.absolute().as_posix())
+
+
+def common_glob(files: list[Path], base: Path) -> str | None:
+    """A glob pattern, relative to ``base``, that matches exactly ``files``; None if none is
+    found (the files share no name pattern, or the pattern matches other files too).
+
+    The pattern keeps what the relative paths share at the start and the end (cut back to a
+    separator ``_ - . /``) and puts ``*`` between; ``*`` matches within one folder name.
+    """
+    if len(files) < 2:
+        return None
+    texts = [_relative_text(f, base) for f in files]
+    head = os.path.commonprefix(texts)
+    tail = os.path.commonprefix([t[::-1] for t in texts])[::-1]
+    cut = max((head.rfind(c) for c in _SEPARATORS), default=-1)
+    head = head[: cut + 1]
+    starts = [i for i in (tail.find(c) for c in _SEPARATORS) if i >= 0]
+    tail = tail[min(starts) :] if starts else ""
+    if glob.has_magic(head + tail) or any(len(t) < len(head) + len(tail) for t in texts):
+        return None
+    pattern = f"{head}*{tail}"
+    anchored = pattern if Path(pattern).is_absolute() else os.path.join(base, pattern)
+    matched = {os.path.realpath(m) for m in glob.glob(anchored)}
+    return pattern if matched == {os.path.realpath(f) for f in files} else None
+
+
+def _relative_text(path: Path, base: Path) -> str:
+    try:
+        return Path(os.path.relpath(path.absolute(), base)).as_posix()
+    except ValueError:  # another drive on Windows
+        return path.absolute().as_posix()
 
 
 # ----------------------------------------------------------------------------- layer
 
 
 def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
-    """Summarise a polygon layer: its name, feature count, CRS and attribute fields.
+    """Summarise a layer of polygons or points (or both): its name, feature count, CRS,
+    attribute fields and number of points.
 
     Raises
     ------
     InputDataError
         Missing or unreadable file.
     ConfigError
-        Several polygon layers and none chosen, or the chosen one is absent.
+        Several polygon or point layers and none chosen, or the chosen one is absent.
     GeometryError
-        No polygon layer, or a polygon layer with no features.
+        No polygon or point layer, or a layer with no features.
     """
     if not path.exists():
         raise InputDataError(
@@ -162,10 +237,11 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
         )
     if path.suffix.lower() in _PARQUET_SUFFIXES:
         return _survey_parquet(path)
-    chosen = _polygon_layer(path, layer)
+    chosen, kind = _water_body_layer(path, layer)
     try:
         info = pyogrio.read_info(os.fspath(path), layer=chosen)
         frame = pyogrio.read_dataframe(os.fspath(path), layer=chosen, read_geometry=False)
+        points = _count_points(path, chosen, kind, int(info["features"]))
     except _READ_ERRORS as err:
         raise InputDataError(
             f"water-body layer '{path}' cannot be read ({' '.join(str(err).split())}); "
@@ -182,7 +258,18 @@ def survey_layer(path: Path, layer: str | None = None) -> LayerSummary:
         features=int(info["features"]),
         crs=info.get("crs"),
         fields=tuple(_field_summary(frame[name]) for name in frame.columns),
+        points=points,
     )
+
+
+def _count_points(path: Path, layer: str, kind: str, features: int) -> int:
+    if _base_kind(kind) in _POINT_TYPES:
+        return features
+    if _base_kind(kind) not in _MAYBE_MIXED:
+        return 0
+    # A mixed layer: only its geometries tell (read without attributes).
+    shapes = pyogrio.read_dataframe(os.fspath(path), layer=layer, columns=[])
+    return int(shapes.geometry.geom_type.isin(_POINT_TYPES).sum())
 
 
 def _survey_parquet(path: Path) -> LayerSummary:
@@ -195,11 +282,12 @@ def _survey_parquet(path: Path) -> LayerSummary:
             f"water-body layer '{path}' cannot be read as GeoParquet "
             f"({' '.join(str(err).split())}); expected a readable file; re-export it"
         ) from err
-    polygons = frame.geometry.geom_type.isin(["Polygon", "MultiPolygon"])
-    if not bool(polygons.any()):
+    kinds = frame.geometry.geom_type
+    points = int(kinds.isin(_POINT_TYPES).sum())
+    if not bool(kinds.isin(["Polygon", "MultiPolygon"]).any()) and not points:
         raise GeometryError(
-            f"water-body layer '{path}' has no polygons ({len(frame)} features); expected "
-            "polygons of water bodies; check the file"
+            f"water-body layer '{path}' has no polygons or points ({len(frame)} features); "
+            "expected polygons of water bodies, or points with their area; check the file"
         )
     attributes = frame.drop(columns=frame.geometry.name)
     return LayerSummary(
@@ -208,14 +296,22 @@ def _survey_parquet(path: Path) -> LayerSummary:
         features=len(frame),
         crs=None if frame.crs is None else frame.crs.to_string(),
         fields=tuple(_field_summary(attributes[name]) for name in attributes.columns),
+        points=points,
     )
 
 
-def _is_polygonal(kind: str) -> bool:
-    return "Polygon" in kind or kind in _MAYBE_POLYGONAL
+def _base_kind(kind: str) -> str:
+    """The geometry type without its dimensions: "Point Z" -> "Point"."""
+    words = [w for w in kind.split() if w not in ("Z", "M", "ZM", "25D", "2.5D", "3D")]
+    return " ".join(words)
 
 
-def _polygon_layer(path: Path, layer: str | None) -> str:
+def _is_water_body_kind(kind: str) -> bool:
+    base = _base_kind(kind)
+    return "Polygon" in base or base in _POINT_TYPES or base in _MAYBE_MIXED
+
+
+def _water_body_layer(path: Path, layer: str | None) -> tuple[str, str]:
     try:
         table = pyogrio.list_layers(os.fspath(path))
     except _READ_ERRORS as err:
@@ -230,25 +326,25 @@ def _polygon_layer(path: Path, layer: str | None) -> str:
                 f"layer '{layer}' is not in '{path}'; the layers are "
                 f"{', '.join(kinds) or 'none'}; choose one with --layer"
             )
-        if not _is_polygonal(kinds[layer]):
+        if not _is_water_body_kind(kinds[layer]):
             raise GeometryError(
                 f"layer '{layer}' of '{path}' holds {kinds[layer]} geometries; expected "
-                "polygons of water bodies; choose a polygon layer"
+                "polygons of water bodies, or points with their area; choose another layer"
             )
-        return layer
-    polygons = [name for name, kind in kinds.items() if _is_polygonal(kind)]
-    if not polygons:
+        return layer, kinds[layer]
+    usable = [name for name, kind in kinds.items() if _is_water_body_kind(kind)]
+    if not usable:
         found = ", ".join(f"{n} ({k})" for n, k in kinds.items()) or "no layers"
         raise GeometryError(
-            f"'{path}' has no polygon layer ({found}); expected polygons of water bodies; "
-            "give a polygon layer"
+            f"'{path}' has no polygon or point layer ({found}); expected polygons of water "
+            "bodies, or points with their area; give such a layer"
         )
-    if len(polygons) > 1:
+    if len(usable) > 1:
         raise ConfigError(
-            f"'{path}' has {len(polygons)} polygon layers ({', '.join(polygons)}); "
+            f"'{path}' has {len(usable)} polygon or point layers ({', '.join(usable)}); "
             "choose one with --layer"
         )
-    return polygons[0]
+    return usable[0], kinds[usable[0]]
 
 
 def _field_summary(values: pd.Series) -> FieldSummary:
@@ -283,7 +379,10 @@ def survey_netcdf(path: Path) -> list[VariableSummary]:
         The file cannot be opened as NetCDF.
     """
     try:
-        dataset = xr.open_dataset(path, engine="netcdf4", decode_times=False, cache=False)
+        if is_zarr(path):
+            dataset = zarr_store.open_store(path)
+        else:
+            dataset = xr.open_dataset(path, engine="netcdf4", decode_times=False, cache=False)
     except (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError) as err:
         raise InputDataError(
             f"climate file '{path}' is unreadable or not NetCDF ({' '.join(str(err).split())}); "
@@ -339,7 +438,8 @@ def survey_time(variable: VariableSummary, quantity: str, units: str | None) -> 
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LakelossWarning)
-            field = climate_io.open_netcdf(variable.path, variable.name, quantity, units=units)
+            source = list(variable.paths) if len(variable.paths) > 1 else variable.path
+            field = climate_io.open_netcdf(source, variable.name, quantity, units=units)
         axis = field.time_axis
         field.data.close()
     except LakelossError as err:

@@ -12,6 +12,7 @@ import contextlib
 import os
 import warnings
 
+import cftime
 import numpy as np
 import pytest
 
@@ -21,6 +22,7 @@ from lakeloss.errors import (
     GridError,
     InputDataError,
     OverlappingStepsWarning,
+    TimeAlignedWarning,
     TimeAxisError,
     UnitsError,
 )
@@ -147,15 +149,74 @@ def test_gap_between_files_names_both_files_and_the_missing_date(build, tmp_path
         _open(paths)
 
 
-def test_stamps_at_another_time_of_day_are_a_gap(build, tmp_path):
-    values = _values(6)
+def test_files_stamped_at_another_time_of_day_are_aligned_by_calendar_date(build, tmp_path):
+    # One year's file stamped at 00:00, the next one's at 12:00 (a provider changing its
+    # convention between releases): the days follow one another, so the series joins, with
+    # the first file's stamps and a warning, and equals the single file value for value.
+    values = _values(9)
+    one = _open(
+        build.write_netcdf(
+            build.grid_dataset(values, times=build.daily_times(9)), tmp_path / "o.nc"
+        )
+    )
     morning = build.daily_times(3, hour=0)
     noon = build.daily_times(3, start="2021-01-04", hour=12)
+    evening = build.daily_times(3, start="2021-01-07", hour=0)
+    paths = [
+        build.write_netcdf(build.grid_dataset(values[:3], times=morning), tmp_path / "a.nc"),
+        build.write_netcdf(build.grid_dataset(values[3:6], times=noon), tmp_path / "b.nc"),
+        build.write_netcdf(build.grid_dataset(values[6:], times=evening), tmp_path / "c.nc"),
+    ]
+    with pytest.warns(TimeAlignedWarning) as caught:
+        joined = _open(paths[::-1])
+    message = str(caught[0].message)
+    assert message.startswith("daily steps aligned by calendar date")
+    assert f"'{paths[1]}' stamped 2021-01-04 12:00" in message
+    assert f"'{paths[0]}' stamped 2021-01-01 00:00" in message
+    assert joined.time_axis.starts == one.time_axis.starts
+    assert [t.hour for t in joined.times] == [0] * 9
+    assert np.array_equal(joined.data.values, one.data.values)
+
+
+def test_a_missing_day_between_stamps_at_other_times_of_day_is_a_gap(build, tmp_path):
+    values = _values(6)
+    morning = build.daily_times(3, hour=0)
+    noon = build.daily_times(3, start="2021-01-05", hour=12)  # 2021-01-04 is missing
     paths = [
         build.write_netcdf(build.grid_dataset(values[:3], times=morning), tmp_path / "a.nc"),
         build.write_netcdf(build.grid_dataset(values[3:], times=noon), tmp_path / "b.nc"),
     ]
-    with pytest.raises(TimeAxisError, match=r"starts 2021-01-04 12:00, expected 2021-01-04"):
+    with pytest.raises(TimeAxisError, match=r"starts 2021-01-05 12:00, expected 2021-01-04"):
+        _open(paths)
+
+
+def test_a_day_held_at_two_times_of_day_with_other_values_is_an_overlap(build, tmp_path):
+    values = _values(6)
+    morning = build.daily_times(3, hour=0)
+    noon = build.daily_times(3, start="2021-01-03", hour=12)  # 2021-01-03 in both files
+    paths = [
+        build.write_netcdf(build.grid_dataset(values[:3], times=morning), tmp_path / "a.nc"),
+        build.write_netcdf(build.grid_dataset(values[3:], times=noon), tmp_path / "b.nc"),
+    ]
+    with pytest.raises(TimeAxisError, match=r"overlap: both hold 2021-01-03 12:00\.\.2021-01-03"):
+        _open(paths)
+
+
+def test_monthly_files_stamped_on_other_days_are_aligned_by_calendar_month(build, tmp_path):
+    # The first file stamps the 1st of each month, the second mid-month: consecutive months.
+    values = _values(4)
+    firsts = cftime.num2date([0, 31], "days since 2021-01-01", calendar="standard")
+    middles = cftime.num2date([14, 45], "days since 2021-03-01", calendar="standard")
+    paths = [
+        build.write_netcdf(build.grid_dataset(values[:2], times=firsts), tmp_path / "a.nc"),
+        build.write_netcdf(build.grid_dataset(values[2:], times=middles), tmp_path / "b.nc"),
+    ]
+    joined = _open(paths)
+    assert joined.time_axis.step == "month"
+    assert joined.time_axis.starts == ("2021-01-01", "2021-02-01", "2021-03-01", "2021-04-01")
+    gap = cftime.num2date([14, 45], "days since 2021-04-01", calendar="standard")  # no March
+    paths[1] = build.write_netcdf(build.grid_dataset(values[2:], times=gap), tmp_path / "c.nc")
+    with pytest.raises(TimeAxisError, match=r"leave a gap.*expected 2021-03 \(monthly steps\)"):
         _open(paths)
 
 
