@@ -303,6 +303,7 @@ def choose_methods(quantities: Iterable[str]) -> list[str]:
     MissingInputError
         No method can run; the message says what the simplest ones still need.
     """
+    quantities = list(quantities)  # read twice: for the inputs and for the message
     have = available_inputs(quantities)
     possible = registry.runnable(have)
     if not possible:

@@ -448,3 +448,13 @@ def test_cru_style_monthly_files(tmp_path, layer_path, monkeypatch):
     }
     assert "monthly" in text
     assert config.method.name == "priestley_taylor"  # no wind: the Penman forms are out
+
+
+def test_no_method_message_names_the_quantities_found_from_a_generator():
+    # The quantities may come as a one-pass iterable; the message still names what was found.
+    from lakeloss.errors import MissingInputError
+    from lakeloss.starter import choose_methods
+
+    with pytest.raises(MissingInputError) as err:
+        choose_methods(q for q in ["precipitation_flux"])
+    assert "give precipitation_flux," in str(err.value)
