@@ -63,6 +63,7 @@ _EXAMPLES: dict[str, object] = {
     "format": "netcdf",
     "scheduler": "tcp://127.0.0.1:8786",
     "cache_dir": "lakeloss-cache",
+    "date_pattern": "%Y%m%d",
     "max_gap_steps": 3,  # unset: 3 for daily steps, 0 for monthly (README "Gaps in the climate")
     "group_by": ["field name"],
     "extra_volume_units": list(config_schema.VOLUME_UNITS),
@@ -692,4 +693,9 @@ def _parameter_lines(method: str, active: Mapping[str, object], loaded: Any) -> 
     for name in config_schema.PIPELINE_PARAMETERS:
         defaults[name] = loaded.parameters[name]
     lines = [f"# Parameters of {method} (`lakeloss methods` lists every method's)"]
+    if "elevation_m" in defaults and "elevation_m" not in active:
+        lines.append(
+            "# elevation_m: set your water bodies' height above sea level (or elevation_field);"
+            " at the default 0 m the air pressure is that of sea level, 3 % high at 250 m"
+        )
     return lines + _table_lines("parameters", active, defaults)

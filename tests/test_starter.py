@@ -218,6 +218,8 @@ def test_every_optional_key_is_listed_with_the_loaders_default(tmp_path, layer_p
     for section, keys in schema.items():
         for key in keys:
             assert re.search(rf"^#?\s*{key} = ", text, re.MULTILINE), (section, key)
+    assert re.search(r"^#\s*date_pattern = \S", text, re.MULTILINE)  # an example, not blank
+    assert "# elevation_m: set your water bodies' height above sea level" in text
     # Uncommenting a default changes nothing: the shown default is the one that applies.
     base = load_config(config_path)
     defaults = re.findall(r"^# (\w+ = .+?)  # default$", text, re.MULTILINE)
