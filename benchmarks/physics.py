@@ -1,14 +1,16 @@
 """Time ``registry.evaporate`` per method on pipeline-shaped inputs.
 
 Climate fields are (steps, n) float64, per-body inputs (latitude, area_m2, elevation) are
-(1, n) and day_of_year is (steps, 1), as ``lakeloss.pipeline.evaporate_block`` passes them.
-The scenario is invented: uniform random weather over a 90° latitude band.
+(1, n) and day_of_year is (steps, 1), as ``lakeloss.blocks.evaporate_block`` passes them;
+``--columns 4096`` evaluates them in slices of that many bodies, as that function does
+(``lakeloss.blocks.PHYSICS_COLUMNS``), 0 in one call. The scenario is invented: uniform
+random weather over a 90° latitude band.
 
     python benchmarks/physics.py                    # (16, 10^6)
     python benchmarks/physics.py --bodies 100000 --repeat 5
     git archive <commit> lakeloss | tar -x -C /tmp/before   # the code before a change
     python benchmarks/physics.py --lakeloss-path /tmp/before  # time that tree alone
-    python benchmarks/physics.py --before /tmp/before --rounds 2
+    python benchmarks/physics.py --before /tmp/before --rounds 3 --columns 4096
 
 Each method is timed ``--repeat`` times and the best time is printed, with the cost per
 body-step. ``--before`` runs the exported tree and the current code in alternating
@@ -63,15 +65,29 @@ def load_registry(lakeloss_path: str | None) -> ModuleType:
     return importlib.import_module("lakeloss.physics.registry")
 
 
+def evaporate_in_columns(
+    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], columns: int
+) -> np.ndarray:
+    """``registry.evaporate(name, inputs)``, in slices of ``columns`` bodies when > 0."""
+    bodies = inputs["latitude"].shape[1]
+    if columns <= 0:
+        return registry.evaporate(name, inputs)
+    rate = np.empty((inputs["day_of_year"].shape[0], bodies))
+    for start in range(0, bodies, columns):
+        part = slice(start, start + columns)
+        sliced = {k: v[:, part] if v.shape[1] == bodies else v for k, v in inputs.items()}
+        rate[:, part] = registry.evaporate(name, sliced)
+    return rate
+
+
 def time_method(
-    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], repeat: int
+    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], repeat: int, columns: int = 0
 ) -> tuple[float, float]:
-    """Best wall and best CPU time of ``repeat`` calls of ``registry.evaporate(name, inputs)``.
-    [s]"""
+    """Best wall and best CPU time of ``repeat`` evaluations of method ``name``. [s]"""
     best_wall = best_cpu = float("inf")
     for _ in range(repeat):
         wall, cpu = time.perf_counter(), time.process_time()
-        registry.evaporate(name, inputs)
+        evaporate_in_columns(registry, name, inputs, columns)
         best_cpu = min(best_cpu, time.process_time() - cpu)
         best_wall = min(best_wall, time.perf_counter() - wall)
     return best_wall, best_cpu
@@ -88,7 +104,7 @@ def run_here(args: argparse.Namespace) -> dict[str, tuple[float, float]]:
         print(f"{'method':<28} {'wall s':>8} {'CPU s':>8} {'CPU ns/body-step':>17}")
     times = {}
     for name in registry.method_names():
-        times[name] = time_method(registry, name, inputs, args.repeat)
+        times[name] = time_method(registry, name, inputs, args.repeat, args.columns)
         wall, cpu = times[name]
         if not args.json:
             print(f"{name:<28} {wall:8.3f} {cpu:8.3f} {cpu / cells * 1e9:17.1f}")
@@ -100,6 +116,7 @@ def _subprocess_times(
 ) -> dict[str, tuple[float, float]]:
     command = [sys.executable, __file__, "--json", "--steps", str(args.steps)]
     command += ["--bodies", str(args.bodies), "--repeat", str(args.repeat)]
+    command += ["--columns", str(args.columns)]
     if lakeloss_path is not None:
         command += ["--lakeloss-path", lakeloss_path]
     result = subprocess.run(command, check=True, capture_output=True, text=True)
@@ -118,7 +135,8 @@ def compare(args: argparse.Namespace) -> None:
     def median(label: str, name: str, which: int) -> float:
         return statistics.median(pair[which] for pair in rounds[label][name])
 
-    print(f"shape ({args.steps}, {args.bodies}), median over {args.rounds} rounds of the best of "
+    print(f"shape ({args.steps}, {args.bodies}), columns per call {args.columns or 'all'}, "
+          f"median over {args.rounds} rounds of the best of "
           f"{args.repeat}; CPU = user + system seconds")  # fmt: skip
     print(f"{'method':<28} {'CPU before':>10} {'CPU after':>9} {'ratio':>6} "
           f"{'wall before':>11} {'wall after':>10}")  # fmt: skip
@@ -142,6 +160,7 @@ def main() -> None:
     parser.add_argument("--steps", type=int, default=16)
     parser.add_argument("--bodies", type=int, default=1_000_000)
     parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--columns", type=int, default=0, help="bodies per call; 0: all")
     parser.add_argument("--lakeloss-path", default=None, help="directory holding lakeloss/")
     parser.add_argument("--before", default=None, help="older tree to compare against")
     parser.add_argument("--rounds", type=int, default=2)
