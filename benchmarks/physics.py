@@ -1,20 +1,23 @@
 """Time ``registry.evaporate`` per method on pipeline-shaped inputs.
 
 Climate fields are (steps, n) float64, per-body inputs (latitude, area_m2, elevation) are
-(1, n) and day_of_year is (steps, 1), as ``lakeloss.pipeline.evaporate_block`` passes them.
-The scenario is invented: uniform random weather over a 90° latitude band.
+(1, n) and day_of_year is (steps, 1), as ``lakeloss.blocks.evaporate_block`` passes them;
+``--columns 4096`` evaluates them in slices of that many bodies, as that function does
+(``lakeloss.blocks.PHYSICS_COLUMNS``), 0 in one call. The scenario is invented: uniform
+random weather over a 90° latitude band.
 
     python benchmarks/physics.py                    # (16, 10^6)
     python benchmarks/physics.py --bodies 100000 --repeat 5
     git archive <commit> lakeloss | tar -x -C /tmp/before   # the code before a change
     python benchmarks/physics.py --lakeloss-path /tmp/before  # time that tree alone
-    python benchmarks/physics.py --before /tmp/before --rounds 2
+    python benchmarks/physics.py --before /tmp/before --rounds 3 --columns 4096
 
 Each method is timed ``--repeat`` times and the best time is printed, with the cost per
 body-step. ``--before`` runs the exported tree and the current code in alternating
-subprocesses (``--rounds`` times each, best kept, so that load from other processes hits
-both alike) and prints before, after and their ratio, then the same as markdown rows for
-benchmarks/README.md.
+subprocesses (``--rounds`` times each, so that load from other processes hits both alike)
+and prints, per method, the median over the rounds of each round's best CPU time (user +
+system of this process, which other processes' load disturbs far less than wall time),
+before, after and their ratio, then the same as markdown rows for benchmarks/README.md.
 """
 
 from __future__ import annotations
@@ -22,6 +25,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import json
+import statistics
 import subprocess
 import sys
 import time
@@ -61,38 +65,58 @@ def load_registry(lakeloss_path: str | None) -> ModuleType:
     return importlib.import_module("lakeloss.physics.registry")
 
 
+def evaporate_in_columns(
+    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], columns: int
+) -> np.ndarray:
+    """``registry.evaporate(name, inputs)``, in slices of ``columns`` bodies when > 0."""
+    bodies = inputs["latitude"].shape[1]
+    if columns <= 0:
+        return registry.evaporate(name, inputs)
+    rate = np.empty((inputs["day_of_year"].shape[0], bodies))
+    for start in range(0, bodies, columns):
+        part = slice(start, start + columns)
+        sliced = {k: v[:, part] if v.shape[1] == bodies else v for k, v in inputs.items()}
+        rate[:, part] = registry.evaporate(name, sliced)
+    return rate
+
+
 def time_method(
-    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], repeat: int
-) -> float:
-    """Best wall time of ``repeat`` calls of ``registry.evaporate(name, inputs)`` [s]."""
-    best = float("inf")
+    registry: ModuleType, name: str, inputs: dict[str, np.ndarray], repeat: int, columns: int = 0
+) -> tuple[float, float]:
+    """Best wall and best CPU time of ``repeat`` evaluations of method ``name``. [s]"""
+    best_wall = best_cpu = float("inf")
     for _ in range(repeat):
-        start = time.perf_counter()
-        registry.evaporate(name, inputs)
-        best = min(best, time.perf_counter() - start)
-    return best
+        wall, cpu = time.perf_counter(), time.process_time()
+        evaporate_in_columns(registry, name, inputs, columns)
+        best_cpu = min(best_cpu, time.process_time() - cpu)
+        best_wall = min(best_wall, time.perf_counter() - wall)
+    return best_wall, best_cpu
 
 
-def run_here(args: argparse.Namespace) -> dict[str, float]:
-    """Time every method in this process; print the table unless ``--json``."""
+def run_here(args: argparse.Namespace) -> dict[str, tuple[float, float]]:
+    """Time every method in this process (wall, CPU); print the table unless ``--json``."""
     registry = load_registry(args.lakeloss_path)
     inputs = make_inputs(args.steps, args.bodies)
     cells = args.steps * args.bodies
     if not args.json:
         print(f"lakeloss from {registry.__file__}")
         print(f"shape ({args.steps}, {args.bodies}), best of {args.repeat}")
-        print(f"{'method':<28} {'s/call':>8} {'ns/body-step':>13}")
+        print(f"{'method':<28} {'wall s':>8} {'CPU s':>8} {'CPU ns/body-step':>17}")
     times = {}
     for name in registry.method_names():
-        times[name] = time_method(registry, name, inputs, args.repeat)
+        times[name] = time_method(registry, name, inputs, args.repeat, args.columns)
+        wall, cpu = times[name]
         if not args.json:
-            print(f"{name:<28} {times[name]:8.3f} {times[name] / cells * 1e9:13.1f}")
+            print(f"{name:<28} {wall:8.3f} {cpu:8.3f} {cpu / cells * 1e9:17.1f}")
     return times
 
 
-def _subprocess_times(args: argparse.Namespace, lakeloss_path: str | None) -> dict[str, float]:
+def _subprocess_times(
+    args: argparse.Namespace, lakeloss_path: str | None
+) -> dict[str, tuple[float, float]]:
     command = [sys.executable, __file__, "--json", "--steps", str(args.steps)]
     command += ["--bodies", str(args.bodies), "--repeat", str(args.repeat)]
+    command += ["--columns", str(args.columns)]
     if lakeloss_path is not None:
         command += ["--lakeloss-path", lakeloss_path]
     result = subprocess.run(command, check=True, capture_output=True, text=True)
@@ -100,24 +124,34 @@ def _subprocess_times(args: argparse.Namespace, lakeloss_path: str | None) -> di
 
 
 def compare(args: argparse.Namespace) -> None:
-    """Before (``--before`` tree) and after (current code), best over alternating rounds."""
-    before: dict[str, float] = {}
-    after: dict[str, float] = {}
+    """Before (``--before`` tree) and after (current code): per method the median over
+    alternating rounds of each round's best CPU time, and the median best wall time."""
+    rounds: dict[str, dict[str, list[tuple[float, float]]]] = {"before": {}, "after": {}}
     for _ in range(args.rounds):
-        for best, path in ((before, args.before), (after, None)):
-            for name, seconds in _subprocess_times(args, path).items():
-                best[name] = min(best.get(name, float("inf")), seconds)
-    cells = args.steps * args.bodies
-    print(f"shape ({args.steps}, {args.bodies}), best of {args.repeat} x {args.rounds} rounds")
-    print(f"{'method':<28} {'before s':>9} {'after s':>8} {'ratio':>6} {'after ns/b-s':>13}")
-    for name, old in before.items():
-        new = after[name]
-        print(f"{name:<28} {old:9.3f} {new:8.3f} {old / new:6.2f} {new / cells * 1e9:13.1f}")
-    print("\n| method | before s | after s | before/after | after ns per body-step |")
-    print("|---|---|---|---|---|")
-    for name, old in before.items():
-        new = after[name]
-        print(f"| {name} | {old:.3g} | {new:.3g} | {old / new:.2f} | {new / cells * 1e9:.3g} |")
+        for label, path in (("before", args.before), ("after", None)):
+            for name, (wall, cpu) in _subprocess_times(args, path).items():
+                rounds[label].setdefault(name, []).append((wall, cpu))
+
+    def median(label: str, name: str, which: int) -> float:
+        return statistics.median(pair[which] for pair in rounds[label][name])
+
+    print(f"shape ({args.steps}, {args.bodies}), columns per call {args.columns or 'all'}, "
+          f"median over {args.rounds} rounds of the best of "
+          f"{args.repeat}; CPU = user + system seconds")  # fmt: skip
+    print(f"{'method':<28} {'CPU before':>10} {'CPU after':>9} {'ratio':>6} "
+          f"{'wall before':>11} {'wall after':>10}")  # fmt: skip
+    rows = []
+    for name in rounds["before"]:
+        old, new = median("before", name, 1), median("after", name, 1)
+        old_wall, new_wall = median("before", name, 0), median("after", name, 0)
+        rows.append((name, old, new, old_wall, new_wall))
+        print(f"{name:<28} {old:10.3f} {new:9.3f} {old / new:6.2f} {old_wall:11.3f} "
+              f"{new_wall:10.3f}")  # fmt: skip
+    print("\n| method | CPU s before | CPU s after | before/after | wall s before | wall s after |")
+    print("|---|---|---|---|---|---|")
+    for name, old, new, old_wall, new_wall in rows:
+        print(f"| {name} | {old:.3g} | {new:.3g} | {old / new:.2f} | {old_wall:.3g} | "
+              f"{new_wall:.3g} |")  # fmt: skip
 
 
 def main() -> None:
@@ -126,6 +160,7 @@ def main() -> None:
     parser.add_argument("--steps", type=int, default=16)
     parser.add_argument("--bodies", type=int, default=1_000_000)
     parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--columns", type=int, default=0, help="bodies per call; 0: all")
     parser.add_argument("--lakeloss-path", default=None, help="directory holding lakeloss/")
     parser.add_argument("--before", default=None, help="older tree to compare against")
     parser.add_argument("--rounds", type=int, default=2)

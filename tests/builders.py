@@ -91,7 +91,7 @@ def write_netcdf(ds: xr.Dataset, path: Path) -> Path:
     return path
 
 
-# Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 conditions (from memory, docs/methods.md#chow-examples):
+# Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 conditions (docs/methods.md#chow-examples):
 # net radiation 200 W m-2, air at 25 °C, RH 40 %, pressure 101.3 kPa, wind 3 m s-1 at 2 m.
 CHOW_FIELDS = {
     "rnet": (200.0, "W m-2", "surface_net_downward_radiative_flux"),

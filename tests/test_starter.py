@@ -190,7 +190,7 @@ def test_era5_file_drafts_components_and_accumulations(tmp_path, layer_path, mon
 
 def test_era5_monthly_means_get_per_day_units(tmp_path, layer_path, monkeypatch):
     # ERA5 monthly means hold the mean daily accumulation under units "m" (ECMWF ERA5
-    # documentation, from memory); per step they would be divided by the month's days.
+    # documentation, monthly averaged reanalysis); per step they would be divided by the month's days.
     months = pd.date_range("2031-01-01", periods=3, freq="MS")
     era5 = write_era5_file(tmp_path / "data" / "era5_monthly.nc", times=months)
     text, config = _draft_and_check(monkeypatch, tmp_path / "data" / "m.toml", layer_path, era5)

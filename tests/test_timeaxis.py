@@ -73,7 +73,7 @@ def test_monthly_stamps_on_any_day_and_mid_month_day_of_year():
     axis = timeaxis.from_times(stamps, "365_day")
     assert axis.calendar == "noleap" and axis.step == "month"
     # Mid-month: first day of month + floor(days/2); FAO-56 writes int(30.4 M - 15), which
-    # gives 15, 45, 76 (from memory, docs/methods.md#monthly-inputs): within 1 day of these.
+    # gives 15, 45, 76 (docs/methods.md#monthly-inputs): within 1 day of these.
     np.testing.assert_array_equal(axis.day_of_year, [16, 46, 75])
     assert np.all(np.abs(axis.day_of_year - (30.4 * np.arange(1, 4) - 15).astype(int)) <= 1)
 

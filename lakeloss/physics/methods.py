@@ -9,9 +9,7 @@ unless stated (docs/methods.md#units-and-conventions).
 
 from __future__ import annotations
 
-import numpy as np
-
-from lakeloss.physics._types import ArrayLike, apply_into
+from lakeloss.physics._types import ArrayLike
 from lakeloss.physics.atmosphere import SPECIFIC_HEAT_AIR
 from lakeloss.physics.radiation import SECONDS_PER_DAY
 
@@ -50,15 +48,10 @@ def energy_balance_evaporation(
 
     References
     ----------
-    Chow, Maidment & Mays (1988), Applied Hydrology, §3.5 (eq. 3.5.9 or 3.5.10 per
-    secondary sources; check against the primary text).
+    Chow, Maidment & Mays (1988), Applied Hydrology, §3.5, energy balance method, Ex. 3.5.1.
     """
-    # apply_into: the same operations in the same order, reusing this function's temporaries.
-    mass_flux = net_radiation - heat_storage_flux
-    mass_flux = apply_into(np.divide, mass_flux, latent_heat, mass_flux)  # [kg m-2 s-1]
-    depth = apply_into(np.divide, mass_flux, water_density, mass_flux)
-    depth = apply_into(np.multiply, depth, SECONDS_PER_DAY, depth)
-    return apply_into(np.multiply, depth, MM_PER_M, depth)
+    mass_flux = (net_radiation - heat_storage_flux) / latent_heat  # [kg m-2 s-1]
+    return mass_flux / water_density * SECONDS_PER_DAY * MM_PER_M
 
 
 def aerodynamic_evaporation(
@@ -113,7 +106,7 @@ def combination_evaporation(
 
     References
     ----------
-    Chow, Maidment & Mays (1988), Applied Hydrology, eq. 3.5.21 (from memory), Ex. 3.5.3.
+    Chow, Maidment & Mays (1988), Applied Hydrology, eq. 3.5.21, Ex. 3.5.3.
     """
     weight = slope / (slope + psychrometric_constant)
     return weight * energy_rate + (1.0 - weight) * aerodynamic_rate  # Eq. 3.5.21
@@ -183,8 +176,8 @@ def priestley_taylor_evaporation(
     heat_storage_flux : array_like, optional
         G. [W m-2]
     alpha : float, optional
-        Priestley-Taylor coefficient; 1.26 (Priestley & Taylor 1972, from memory), Chow
-        Ex. 3.5.4 uses 1.3. [-]
+        Priestley-Taylor coefficient; 1.26 (Priestley & Taylor 1972), Chow Ex. 3.5.4 uses
+        1.3. [-]
     water_density : array_like, optional
         ρw. [kg m-3]
 
@@ -243,17 +236,13 @@ def penman_evaporation(
 
     References
     ----------
-    Penman, H.L. (1948), Proc. R. Soc. Lond. A 193, 120-145; Shuttleworth (1993), eq. 4.2.30
-    (check against the primary text).
+    Penman, H.L. (1948), Proc. R. Soc. Lond. A 193, 120-145; Shuttleworth (1993), eq. 4.2.30.
     """
     radiative = energy_balance_evaporation(net_radiation, latent_heat, heat_storage_flux)
-    aerodynamic = wind_function * vapour_pressure_deficit
-    aerodynamic = apply_into(np.divide, aerodynamic, 1000.0, aerodynamic)  # D in kPa
-    # (Δ Er + γ Ea) / (Δ + γ), reusing the temporaries above.
-    radiative = apply_into(np.multiply, slope, radiative, radiative)
-    aerodynamic = apply_into(np.multiply, psychrometric_constant, aerodynamic, aerodynamic)
-    total = apply_into(np.add, radiative, aerodynamic, radiative)
-    return apply_into(np.divide, total, slope + psychrometric_constant, total)
+    aerodynamic = wind_function * vapour_pressure_deficit / 1000.0  # D in kPa
+    return (slope * radiative + psychrometric_constant * aerodynamic) / (  # Eq. 4.2.30
+        slope + psychrometric_constant
+    )
 
 
 def penman_monteith_open_water_evaporation(
@@ -302,20 +291,12 @@ def penman_monteith_open_water_evaporation(
 
     References
     ----------
-    Allen et al. (1998), FAO-56, eq. 3 (from memory).
+    Allen et al. (1998), FAO-56, eq. 3.
     """
-    # apply_into: the same operations in the same order, reusing this function's temporaries.
-    available = net_radiation - heat_storage_flux
-    energy = apply_into(np.multiply, slope, available, available)
-    ventilation = air_density * specific_heat
-    ventilation = apply_into(np.multiply, ventilation, vapour_pressure_deficit, ventilation)
-    ventilation = apply_into(np.divide, ventilation, aerodynamic_resistance, ventilation)
-    denominator = slope + psychrometric_constant
-    denominator = apply_into(np.multiply, latent_heat, denominator, denominator)
-    mass_flux = apply_into(np.add, energy, ventilation, energy)
-    mass_flux = apply_into(np.divide, mass_flux, denominator, mass_flux)  # Eq. 3
-    # kg m-2 day-1 = mm day-1 with ρw = 1000
-    return apply_into(np.multiply, mass_flux, SECONDS_PER_DAY, mass_flux)
+    energy = slope * (net_radiation - heat_storage_flux)
+    ventilation = air_density * specific_heat * vapour_pressure_deficit / aerodynamic_resistance
+    mass_flux = (energy + ventilation) / (latent_heat * (slope + psychrometric_constant))  # Eq. 3
+    return mass_flux * SECONDS_PER_DAY  # kg m-2 day-1 = mm day-1 with ρw = 1000
 
 
 def pan_coefficient_evaporation(
@@ -328,8 +309,8 @@ def pan_coefficient_evaporation(
     pan_evaporation : array_like
         Pan evaporation rate. [mm day-1]
     pan_coefficient : array_like, optional
-        Kp; 0.7 for a Class A pan on an annual basis, range 0.6-0.8 (Kohler, Nordenson &
-        Fox 1955, from memory; common practice). [-]
+        Kp; 0.7 for a Class A pan on an annual basis, range about 0.6-0.8 (Kohler, Nordenson
+        & Fox 1955). [-]
 
     Returns
     -------

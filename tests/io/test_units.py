@@ -19,13 +19,13 @@ NET_RADIATION = "surface_net_downward_radiative_flux"
 # Where each conversion factor comes from:
 SI = "BIPM SI Brochure 9th ed. (2019): t/degC = T/K - 273.15 (sec. 2.3.1); min, h, d (Table 8)"
 NIST = "NIST SP 811 (Thompson & Taylor 2008) App. B: t/degC = (t/degF - 32) / 1.8"
-UDUNITS = "UDUNITS-2 unit database: percent = 0.01, knot = 1852 m/h, bar = 1e5 Pa (from memory)"
+UDUNITS = "UDUNITS-2 unit database: percent = 0.01, knot = 1852 m/h, bar = 1e5 Pa"
 WATER = "liquid-water-equivalent convention: 1 kg m-2 = 1 mm of water (rho_w = 1000 kg m-3)"
 ERA5 = (
-    "ECMWF ERA5 parameter documentation (Hersbach et al. 2020, QJRMS 146, 1999-2049; from "
-    "memory): tp in m of water and ssrd in J m-2, accumulated over the step"
+    "ECMWF ERA5 parameter documentation (Hersbach et al. 2020, QJRMS 146, 1999-2049): "
+    "tp in m of water and ssrd in J m-2, accumulated over the step"
 )
-CMIP = "CMIP6 data request (from memory): pr in kg m-2 s-1, tas in K, hurs in %, rsds in W m-2"
+CMIP = "CMIP6 data request: pr in kg m-2 s-1, tas in K, hurs in %, rsds in W m-2"
 
 # Every spelling lakeloss accepts for the glossary quantities, with the value it gives:
 # (spelling, quantity, value in the file, step length [day] or None, glossary value, source).

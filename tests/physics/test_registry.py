@@ -1,7 +1,7 @@
 """The method registry: specifications, input and parameter checks, and evaporate().
 
-Inputs are tiny synthetic arrays in glossary units. The FAO-56 Ex. 18 day (Allen et al. 1998, values
-from memory) run through evaporate() must reproduce the open-water regression values of
+Inputs are tiny synthetic arrays in glossary units. The FAO-56 Ex. 18 day (Allen et al. 1998) run
+through evaporate() must reproduce the open-water regression values of
 docs/methods.md#open-water-regression (recomputed, no published source) where the registry's choices
 of lambda and gamma match the recomputation's.
 """

