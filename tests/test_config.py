@@ -287,13 +287,13 @@ def test_period_value_checked():
 
 def test_missing_inputs_checked_by_pipeline():
     # The registry knows what each method needs; the pipeline's first check uses it.
-    from lakeloss.pipeline import _check_methods
+    from lakeloss.checks import check_methods
 
     raw = _with(method={"name": "aerodynamic"})
     del raw["climate"]["wind_speed"]
     config = load_config(raw)
     with pytest.raises(MissingInputError, match=r"aerodynamic.*wind_speed"):
-        _check_methods(config)
+        check_methods(config)
 
 
 # --------------------------------------------------------------------------- README reference
