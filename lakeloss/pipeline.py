@@ -70,6 +70,7 @@ from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
+from lakeloss.io.run_record import inputs_provenance
 from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
 from lakeloss.series_stream import SeriesStream
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
@@ -87,8 +88,6 @@ def run_stages(
     config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
 ) -> Any:
     """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
-    from lakeloss.results import inputs_provenance
-
     config = load_config(config)
     # Hashing the inputs for run.json reads every file once more (GBs for a big run):
     # do it in the background, beside the stages; hashlib releases the GIL.

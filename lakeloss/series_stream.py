@@ -6,14 +6,39 @@ import atexit
 import shutil
 import tempfile
 from collections.abc import Mapping
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from lakeloss import __version__
 from lakeloss.config import RunConfig
 from lakeloss.inputs import Inputs
+from lakeloss.io.run_record import CAUTION
 from lakeloss.sizing import block_steps
+
+SERIES_VARIABLES: dict[str, dict[str, str]] = {
+    # CF's lwe_water_evaporation_rate (canonical m s-1) is evaporation as a depth of liquid
+    # water per time; CF accepts any units convertible to the canonical ones, so mm day-1.
+    "evaporation_rate": {
+        "units": "mm day-1",
+        "long_name": "open-water evaporation rate from the water surface, primary method",
+        "standard_name": "lwe_water_evaporation_rate",
+    },
+    "precipitation_rate": {
+        "units": "mm day-1",
+        "long_name": "precipitation rate on the water surface",
+        "standard_name": "lwe_precipitation_rate",
+    },
+}
+"""Per-step series variables (series.nc) and their CF attributes."""
+
+
+def series_history(config: RunConfig) -> str:
+    """CF ``history`` line of series.nc: when and by what the file was made."""
+    stamp = datetime.now(UTC).isoformat(timespec="seconds")
+    return f"{stamp} lakeloss {__version__}, method {config.method.name}"
 
 
 class SeriesStream:
@@ -26,7 +51,6 @@ class SeriesStream:
 
     def __init__(self, config: RunConfig, inputs: Inputs) -> None:
         from lakeloss.io.series import SeriesWriter, body_locations
-        from lakeloss.results import CAUTION, SERIES_VARIABLES, series_history
 
         self.directory = Path(tempfile.mkdtemp(prefix="lakeloss-series-"))
         atexit.register(shutil.rmtree, self.directory, ignore_errors=True)
