@@ -45,13 +45,13 @@ from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of th
     merge_block,
     new_sums,
 )
+from lakeloss.body_facts import BodyFacts
 from lakeloss.checks import (
     check_attributes,
     check_methods,
     check_overlap,
     check_values,
     check_wind_grids,
-    elevations,
     refuse_empty,
 )
 from lakeloss.config import RunConfig, load_config
@@ -78,7 +78,6 @@ from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, part
 from lakeloss.zonal.cache import geometry_digest
 
 log = logging.getLogger(__name__)
-_SHORTWAVE = "surface_downwelling_shortwave_flux_in_air"
 
 ProgressFactory = Callable[[int, str], Any]
 SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
@@ -113,13 +112,15 @@ def _stages(
     with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always", LakelossWarning)
         weights, cached = build_weights(config, inputs, progress)
+        facts = BodyFacts.gather(config, inputs, weights)
     weight_warnings = replay(seen)
     if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
-        weight_warnings += repairs_from_cache(weights)
+        weight_warnings += repairs_from_cache(facts)
     keep_series = config.output.series if series is None else series
     collector = SeriesStream(config, inputs) if keep_series else None
     with timer.stage("evaporate"):
-        sums = compute_sums(config, inputs, weights, progress, collector.add if collector else None)
+        sink = collector.add if collector else None
+        sums = compute_sums(config, inputs, weights, facts, progress, sink)
     with timer.stage("aggregate"):
         run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
         message = negative_warning(config, sums)
@@ -131,7 +132,7 @@ def _stages(
         result = assemble(
             config,
             inputs,
-            weights,
+            facts,
             sums,
             run_warnings,
             timer.seconds,
@@ -343,41 +344,6 @@ def _counting(mapper: Any, bar: Any) -> Any:
 # --------------------------------------------------------------------------- extract + evaporate
 
 
-def _static_inputs(
-    config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights]
-) -> dict[str, np.ndarray]:
-    """Per-water-body inputs of the physics: latitude, area and elevation, shaped (1, n).
-
-    The latitude is that of the climate a body gets: the area-weighted mean latitude of the
-    centres of the cells it covers on the shortwave grid (the first grid without one). For
-    a pond inside one 0.05° cell it is that cell's centre, at most 0.025° from the pond's
-    own centroid. Over that distance Ra (FAO-56 eq. 21) changes by at most 0.08 % at 30°,
-    0.15 % at 45° and 0.5 % at 60° latitude (worst day of the year; computed with
-    :func:`lakeloss.physics.radiation.extraterrestrial_radiation`); Ra enters the methods
-    only through the clear-sky ratio of the longwave term. Bodies inside one cell then
-    share every input and are computed once (:mod:`lakeloss.distinct`).
-    """
-    grid_key = inputs.field_grid.get(_SHORTWAVE) or next(iter(inputs.field_grid.values()))
-    sun_weights = weights[grid_key]
-    assert sun_weights.grid is not None  # weights built in this run carry their grid
-    latitude, _ = sun_weights.apply(sun_weights.grid.centre_latitudes()[np.newaxis])
-    first = next(iter(weights.values()))
-    static = {
-        "latitude": latitude,
-        "area_m2": first.polygon_area_m2[np.newaxis, :],
-    }
-    field_name = config.waterbodies.elevation_field
-    if field_name:
-        static["elevation"] = elevations(inputs.layer.frame, field_name)[np.newaxis, :]
-    if "elevation" in inputs.static_fields:
-        raster, key = inputs.static_fields["elevation"]
-        mean, _ = weights[key].apply(raster.values[np.newaxis])
-        # Bodies off the elevation raster fall back to the configured constant.
-        fallback = float(config.parameters.get("elevation_m", 0.0))  # type: ignore[arg-type]
-        static["elevation"] = np.where(np.isfinite(mean), mean, fallback)
-    return static
-
-
 def block_context(
     config: RunConfig,
     inputs: Inputs,
@@ -411,6 +377,7 @@ def compute_sums(
     config: RunConfig,
     inputs: Inputs,
     weights: Mapping[str, ZonalWeights],
+    facts: BodyFacts,
     progress: ProgressFactory | None = None,
     series_sink: SeriesSink | None = None,
 ) -> PeriodSums:
@@ -421,7 +388,7 @@ def compute_sums(
     """
     from lakeloss.execution import run_blocks
 
-    static = _static_inputs(config, inputs, weights)
+    static = facts.physics_inputs()
     groups = distinct_bodies(weights, static, inputs_used(config.method.all))
     context = block_context(config, inputs, series_sink is not None, groups.count)
     n_steps = len(inputs.axis.days)

@@ -17,6 +17,7 @@ import cftime
 import numpy as np
 import pandas as pd
 
+from lakeloss.body_facts import BodyFacts
 from lakeloss.config import VOLUME_UNITS, RunConfig
 from lakeloss.errors import ConfigError
 from lakeloss.io.gpkg import FieldInfo
@@ -224,8 +225,7 @@ _NO_RESULT_GEOMETRY = {"geometry_empty", "geometry_null", "outside_grid"}
 
 def _flags(
     config: RunConfig,
-    inputs: Any,
-    weights: Any,
+    facts: BodyFacts,
     sums: Any,
     coverage: np.ndarray,
     filled_steps: np.ndarray,
@@ -235,14 +235,16 @@ def _flags(
     The conditions are found with array operations; only the (usually few) flagged bodies
     have their tokens joined one by one.
     """
-    first = next(iter(weights.values()))
-    sources = (np.asarray(inputs.layer.flags, dtype=object), np.asarray(first.flags, dtype=object))
+    sources = (
+        np.asarray(facts.layer_flags, dtype=object),
+        np.asarray(facts.geometry_flags, dtype=object),
+    )
     valid_steps = sums.valid_steps.sum(axis=0)
     no_climate = valid_steps == 0
     gaps = (valid_steps > 0) & (valid_steps < sums.steps)
     # Judged over the steps with data: a day missing on the whole grid is a gap (flagged as
     # such), not a part of the polygon without climate.
-    spatial = first.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
+    spatial = facts.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
     partial = (coverage > 0.0) & (spatial < _COVERAGE_FLAG_BELOW)
     negative = sums.negatives_per_body > 0
     negative_token = (
@@ -254,7 +256,7 @@ def _flags(
     any_flag = no_climate | gaps | filled | partial | negative
     for source in sources:
         any_flag |= source != ""
-    out = np.full(inputs.n_waterbodies, "", dtype=object)
+    out = np.full(len(facts.area_m2), "", dtype=object)
     for i in np.flatnonzero(any_flag):
         tokens: list[str] = []
         for source in sources:
@@ -275,19 +277,18 @@ def _flags(
 
 
 def _body_table(
-    config: RunConfig, inputs: Any, weights: Any, sums: Any, filled_steps: np.ndarray
+    config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any, filled_steps: np.ndarray
 ) -> Any:
-    first = next(iter(weights.values()))
     frame = inputs.layer.frame.copy()
-    area = first.polygon_area_m2
+    area = facts.area_m2
     primary = config.method.name
     evap = sums.depth[primary].sum(axis=0)
     precip = sums.precip.sum(axis=0) if config.output.precipitation else np.full(len(area), np.nan)
     total_days = float(inputs.axis.days.sum())
-    coverage = first.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
+    coverage = facts.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
     frame["area_m2"] = area
     # Shown beside area_m2 so a geometry_repaired flag can be judged by what it changed.
-    frame["area_before_repair_m2"] = first.area_before_repair_m2
+    frame["area_before_repair_m2"] = facts.area_before_repair_m2
     frame["evap_mm"] = evap
     frame["evap_m3"] = evap * area / 1000.0
     frame["evap_mm_per_year"] = evap * _year_length(inputs.axis.calendar) / total_days
@@ -303,7 +304,7 @@ def _body_table(
         frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
     frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
     coverage = frame["climate_coverage"].to_numpy()
-    frame["qa_flags"] = _flags(config, inputs, weights, sums, coverage, filled_steps)
+    frame["qa_flags"] = _flags(config, facts, sums, coverage, filled_steps)
     geometry = frame.geometry.name
     return frame[[c for c in frame.columns if c != geometry] + [geometry]]
 
@@ -333,9 +334,8 @@ _PERIOD_KEYS = (
 _PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
 
 
-def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd.DataFrame:
+def _period_table(config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any) -> pd.DataFrame:
     """One row per water body and period, indexed by the water-body id (rows by body)."""
-    first = next(iter(weights.values()))
     periods = inputs.periods
     # Segments between the periods of a custom table are summed but not reported.
     kept = periods.rows
@@ -345,7 +345,7 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     period_of_row = np.tile(np.arange(n_periods), n)
     evap = sums.depth[config.method.name][kept].T
     precip = sums.precip[kept].T if config.output.precipitation else np.full((n, n_periods), np.nan)
-    area = first.polygon_area_m2[:, None]
+    area = facts.area_m2[:, None]
     compared = config.method.all[1:]
     # Rows by water body, then period: the (period, body) sums transposed, so no sort of
     # n_periods x n rows is needed. The numbers are written once into one float block that
@@ -505,7 +505,7 @@ def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict
 def assemble(
     config: RunConfig,
     inputs: Any,
-    weights: Any,
+    facts: BodyFacts,
     sums: Any,
     run_warnings: list[str],
     timings: Mapping[str, float],
@@ -524,8 +524,8 @@ def assemble(
     filled_steps = (
         gaps.filled_steps_per_body if gaps is not None else np.zeros(len(inputs.layer.frame), int)
     )
-    bodies = _body_table(config, inputs, weights, sums, filled_steps)
-    by_period = _period_table(config, inputs, weights, sums)
+    bodies = _body_table(config, inputs, facts, sums, filled_steps)
+    by_period = _period_table(config, inputs, facts, sums)
     summary_period, summary_group = _summaries(config, bodies, by_period, len(inputs.periods.rows))
     provenance = run_record(
         config,

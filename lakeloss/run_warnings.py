@@ -9,9 +9,9 @@ the cache.
 from __future__ import annotations
 
 import warnings
-from collections.abc import Mapping
 
 from lakeloss.blocks import PeriodSums
+from lakeloss.body_facts import BodyFacts
 from lakeloss.config import RunConfig
 from lakeloss.errors import (
     ClimateGapsWarning,
@@ -20,7 +20,6 @@ from lakeloss.errors import (
     ValuesAdjustedWarning,
 )
 from lakeloss.gaps import GapReport, steps_text
-from lakeloss.zonal import ZonalWeights
 
 
 def replay(seen: list[warnings.WarningMessage]) -> list[str]:
@@ -63,14 +62,14 @@ def gap_warnings(gaps: GapReport) -> list[str]:
     return messages
 
 
-def repairs_from_cache(weights: Mapping[str, ZonalWeights]) -> list[str]:
+def repairs_from_cache(facts: BodyFacts) -> list[str]:
     """The repair warning for weights that came from the cache.
 
     The zonal engine warns about repaired and empty polygons when it builds the weights, so
     a run served from the cache would otherwise print and record nothing: say the same
     from the flags the weights keep (same wording as ``zonal.weights``).
     """
-    tokens = [set(str(f).split(";")) for f in next(iter(weights.values())).flags]
+    tokens = [set(str(f).split(";")) for f in facts.geometry_flags]
     n_repaired = sum("geometry_repaired" in t for t in tokens)
     n_empty = sum("geometry_empty" in t for t in tokens)
     if not (n_repaired or n_empty):
