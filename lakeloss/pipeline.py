@@ -362,6 +362,7 @@ def block_context(
         keep_series=keep_series,
         body_count=body_count,
         max_gap_steps=gap_limit(config, inputs.axis),
+        clip_negative=config.clip_negative,
     )
 
 

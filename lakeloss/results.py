@@ -247,11 +247,7 @@ def _flags(
     spatial = facts.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
     partial = (coverage > 0.0) & (spatial < _COVERAGE_FLAG_BELOW)
     negative = sums.negatives_per_body > 0
-    negative_token = (
-        "negative_rates_clipped"
-        if config.parameters.get("clip_negative", True)
-        else "negative_rates_kept"
-    )
+    negative_token = "negative_rates_clipped" if config.clip_negative else "negative_rates_kept"
     filled = filled_steps > 0
     any_flag = no_climate | gaps | filled | partial | negative
     for source in sources:
@@ -576,7 +572,5 @@ def _counts(
         "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
         "filled_climate_steps": int(filled_steps.sum()),
         "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
-        "negative_rates_clipped": int(sum(sums.negatives.values()))
-        if config.parameters.get("clip_negative", True)
-        else 0,
+        "negative_rates_clipped": int(sum(sums.negatives.values())) if config.clip_negative else 0,
     }

@@ -36,7 +36,7 @@ def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
     total = sum(sums.negatives.values())
     if not total:
         return None
-    verb = "set to zero" if config.parameters.get("clip_negative", True) else "kept"
+    verb = "set to zero" if config.clip_negative else "kept"
     detail = ", ".join(f"{m}: {c}" for m, c in sums.negatives.items() if c)
     message = (
         f"{total} negative daily evaporation rates (condensation or negative net "

@@ -57,7 +57,7 @@ def run_record(
         "method": {
             "primary": config.method.name,
             "compare": list(config.method.compare),
-            "parameters": _jsonable(dict(config.parameters)),
+            "parameters": _jsonable(_parameters_as_written(config)),
             "effective_parameters": _jsonable(effective_parameters(config)),
         },
         "notes": run_notes(config),
@@ -122,12 +122,17 @@ def effective_parameters(config: RunConfig) -> dict[str, dict[str, Any]]:
     )
     written = config.source.get("parameters", {})
     used["clip_negative"] = {
-        "value": bool(config.parameters.get("clip_negative", True)),
+        "value": config.clip_negative,
         "unit": "1",
         "source": "config" if "clip_negative" in written else "default",
         "methods": list(config.method.all),
     }
     return used
+
+
+def _parameters_as_written(config: RunConfig) -> dict[str, object]:
+    """``[parameters]`` with its defaults filled in: the pipeline's switches, then physics."""
+    return {"clip_negative": config.clip_negative, **config.parameters}
 
 
 def run_notes(config: RunConfig) -> list[str]:
