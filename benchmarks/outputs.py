@@ -65,7 +65,7 @@ def _layer(n: int, rng: np.random.Generator) -> gpd.GeoDataFrame:
 
 
 def _fakes(layer: gpd.GeoDataFrame, rng: np.random.Generator) -> tuple:
-    """Stand-ins for the config, inputs, weights and sums the assembly functions read."""
+    """Stand-ins for the config, inputs, body facts and sums the assembly functions read."""
     n = len(layer)
     config = SimpleNamespace(
         method=SimpleNamespace(name="penman_open_water", compare=()),
@@ -80,22 +80,22 @@ def _fakes(layer: gpd.GeoDataFrame, rng: np.random.Generator) -> tuple:
     inputs = SimpleNamespace(
         periods=periods, layer=SimpleNamespace(frame=layer, id_field="pond_id")
     )
-    weights = {"grid": SimpleNamespace(polygon_area_m2=layer["area_m2"].to_numpy())}
+    facts = SimpleNamespace(area_m2=layer["area_m2"].to_numpy())
     sums = SimpleNamespace(
         depth={"penman_open_water": rng.uniform(50.0, 200.0, (12, n))},
         precip=rng.uniform(0.0, 120.0, (12, n)),
     )
-    return config, inputs, weights, sums
+    return config, inputs, facts, sums
 
 
 def run(n: int) -> dict[str, float]:
     """Seconds per stage for N ponds x 12 periods."""
     rng = np.random.default_rng(0)
     layer = _layer(n, rng)
-    config, inputs, weights, sums = _fakes(layer, rng)
+    config, inputs, facts, sums = _fakes(layer, rng)
     times = {}
     start = time.perf_counter()
-    by_period = _period_table(config, inputs, weights, sums)
+    by_period = _period_table(config, inputs, facts, sums)
     summary, _ = _summaries(config, layer, by_period, len(_STARTS))
     times["assemble"] = time.perf_counter() - start
     result = SimpleNamespace(

@@ -151,7 +151,7 @@ def run_one(n_ponds: int, steps: int, ee_weights: bool, ee_mean: bool) -> dict:
     next_year = values + np.float32(1.0)
     _, figures["apply_again_s"], _ = measured(lambda: weights.apply(next_year))
     # The pipeline applies blocks of a few steps and sums them into periods, never holding
-    # the (365, n) result: time that use, with 16-step blocks (pipeline.block_steps' cap).
+    # the (365, n) result: time that use, with 16-step blocks (sizing.block_steps' cap).
     _, figures["apply_blocks_s"], figures["apply_blocks_mib"] = measured(
         lambda: apply_in_blocks(weights, next_year, 16)
     )

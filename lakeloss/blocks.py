@@ -74,6 +74,8 @@ class BlockContext:
     """Bodies each column stands for (:mod:`lakeloss.distinct`); None: one each."""
     max_gap_steps: int = 0
     """Longest gap in a body's climate filled by interpolation (:mod:`lakeloss.gaps`)."""
+    clip_negative: bool = True
+    """Negative rates set to zero before they are summed (``[parameters] clip_negative``)."""
 
 
 @dataclass
@@ -362,7 +364,7 @@ def compute_block(
     rates = evaporate_block(context, means, static, context.day_of_year[block])
     days = context.days[block][:, None]
     index = context.period_index[block]
-    clip = bool(context.parameters.get("clip_negative", True))
+    clip = context.clip_negative
     depth, negatives = {}, {}
     negatives_per_body = np.zeros(valid.shape[1], dtype=np.int64)
     periods = np.empty(0, dtype=np.int64)

@@ -176,7 +176,7 @@ def run(
     """Compute evaporation for every water body and write the outputs."""
     from lakeloss.io.atomic import OutputDirectory
     from lakeloss.pipeline import run_stages
-    from lakeloss.results import flag_notes, no_total_message, summary_line
+    from lakeloss.report import flag_notes, no_total_message, summary_line
 
     config = _load(config_path, strict, workers, scheduler, chunk_steps)
     OutputDirectory(config.output.dir, overwrite=overwrite).check()  # fail before computing

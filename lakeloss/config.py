@@ -29,7 +29,8 @@ VOLUME_UNITS = {"ML": 1.0e-3, "acre_ft": 1.0 / 1233.48183754752}
 """Extra volume units: factor from m3. 1 acre-foot = 1233.48183754752 m3 (exact by definition
 of the international foot and acre)."""
 
-# Parameters the pipeline itself owns; the rest belong to the physics registry.
+# Keys of [parameters] the pipeline itself owns (the rest belong to the physics registry):
+# each becomes the RunConfig field of the same name, not an entry of RunConfig.parameters.
 PIPELINE_PARAMETERS: dict[str, type] = {"clip_negative": bool}
 
 
@@ -136,6 +137,7 @@ class RunConfig:
     climate: tuple[ClimateInput, ...]
     method: MethodConfig
     parameters: Mapping[str, object]
+    """The physics parameters (``[parameters]`` but the pipeline's own switches)."""
     output: OutputConfig
     compute: ComputeConfig = field(default_factory=ComputeConfig)
     time: TimeConfig = field(default_factory=TimeConfig)
@@ -143,6 +145,9 @@ class RunConfig:
     max_gap_steps: int | None = None
     """``[checks] max_gap_steps``: longest climate gap filled by interpolation, in time
     steps; None: the default for the time step (:func:`lakeloss.pipeline.gap_limit`)."""
+    clip_negative: bool = True
+    """``[parameters] clip_negative``: negative daily rates (condensation, negative net
+    radiation) are set to zero, and counted; False keeps them."""
     source: Mapping[str, Any] = field(default_factory=dict)
     config_path: Path | None = None
 
@@ -546,7 +551,8 @@ def _method(raw: Mapping[str, Any]) -> MethodConfig:
 
 def _parameters(
     raw: Mapping[str, Any], climate: tuple[ClimateInput, ...], method: MethodConfig
-) -> dict[str, object]:
+) -> tuple[dict[str, object], dict[str, Any]]:
+    """The physics parameters, and the pipeline's own switches (:data:`PIPELINE_PARAMETERS`)."""
     from lakeloss.physics import registry
 
     table = dict(_table(raw, "parameters", False))
@@ -567,7 +573,7 @@ def _parameters(
         table["wind_height_m"] = wind.height_m
     for name in method.all:
         registry.validate_parameters(name, table)  # ParameterRangeError names the parameter
-    return {"clip_negative": pipeline.get("clip_negative", True), **table}
+    return table, pipeline
 
 
 def _output(raw: Mapping[str, Any], base: Path | None) -> OutputConfig:
@@ -694,16 +700,18 @@ def config_from_mapping(raw: Mapping[str, Any], config_path: Path | None = None)
     checks = _typed(_table(raw, "checks", False), _CHECKS_KEYS, "[checks]")
     if checks.get("max_gap_steps", 0) < 0:
         raise ConfigError("[checks].max_gap_steps must be 0 (no filling) or a positive number")
+    parameters, switches = _parameters(raw, climate, method)
     return RunConfig(
         waterbodies=_waterbodies(raw, base),
         climate=climate,
         method=method,
-        parameters=_parameters(raw, climate, method),
+        parameters=parameters,
         output=output,
         compute=_compute(raw, base),
         time=_time(raw),
         strict=checks.get("strict", True),
         max_gap_steps=checks.get("max_gap_steps"),
+        clip_negative=bool(switches.get("clip_negative", True)),
         source=raw,
         config_path=config_path,
     )

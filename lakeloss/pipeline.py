@@ -8,29 +8,29 @@
 into (time, water body) area-weighted means, fed to the physics methods and summed into the
 reporting periods, so neither the (time, y, x) cube nor the (time, water body) result is ever
 held whole. ``aggregate`` turns the period sums into the result tables.
+
+This module only wires the stages, in the order they run. What a run refuses is in
+:mod:`lakeloss.checks`, how long a block is in :mod:`lakeloss.sizing`, the streamed per-step
+series in :mod:`lakeloss.series_stream`, and the warnings a run records in
+:mod:`lakeloss.run_warnings`.
 """
 
 from __future__ import annotations
 
-import atexit
 import contextlib
 import dataclasses
 import functools
 import logging
 import os
-import shutil
-import tempfile
 import time
 import warnings
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pandas as pd
-import pyproj
 
 from lakeloss import timeaxis
 from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of this API
@@ -45,88 +45,106 @@ from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of th
     merge_block,
     new_sums,
 )
+from lakeloss.body_facts import BodyFacts
+from lakeloss.checks import (
+    check_attributes,
+    check_methods,
+    check_overlap,
+    check_values,
+    check_wind_grids,
+    refuse_empty,
+)
 from lakeloss.config import RunConfig, load_config
 from lakeloss.distinct import distinct_bodies, inputs_used
 from lakeloss.errors import (
-    ClimateGapsWarning,
     ConfigError,
-    GeometryError,
     GeometryRepairedWarning,
-    GridError,
     ImplausibleValuesWarning,
     LakelossWarning,
-    MissingInputError,
-    NoResultError,
     TimeAlignedWarning,
-    ValuesAdjustedWarning,
 )
-from lakeloss.gaps import DEFAULT_LIMIT, GapReport, steps_text
+from lakeloss.gaps import DEFAULT_LIMIT
 from lakeloss.gaps import report as gap_report
+from lakeloss.inputs import Inputs
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
-from lakeloss.physics import registry
+from lakeloss.io.run_record import inputs_provenance
+from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
+from lakeloss.series_stream import SeriesStream
+from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
 
 log = logging.getLogger(__name__)
 
-# Bytes of (time, water body) float64 working arrays held per step of a block: the climate
-# means, their valid fractions, the physics intermediates and one rate per method. A rough
-# but deliberately generous count, used to size blocks.
-_WORKING_ARRAYS = 24
-_BLOCK_BUDGET_BYTES = 1.5e9
-# Longer blocks make the zonal product slower per step (its time series are transposed and
-# multiplied as one wide matrix): 16 steps ran a year of 10^5 bodies 35 % faster than 55
-# (benchmarks/README.md, "End to end"), and still amortise the per-block preparation.
-_MAX_BLOCK_STEPS = 16
-_SHORTWAVE = "surface_downwelling_shortwave_flux_in_air"
+ProgressFactory = Callable[[int, str], Any]
+SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 
 
-@dataclass
-class Inputs:
-    """What the load stage found: the layer, the lazy climate fields and the time axis."""
-
-    layer: vector_io.WaterBodyLayer
-    fields: dict[str, climate_io.ClimateField]
-    axis: timeaxis.TimeAxis
-    periods: timeaxis.Periods
-    grids: dict[str, GridSpec]
-    field_grid: dict[str, str]
-    warnings: list[str] = field(default_factory=list)
-    static_fields: dict[str, tuple[Any, str]] = field(default_factory=dict)
-    # Typed Any: inside this class `warnings` names the field above, not the module.
-    recorded: list[Any] = field(default_factory=list)
-    """The lakeloss ``warnings.WarningMessage`` objects behind ``warnings``, kept to re-issue
-    with their categories."""
-
-    @property
-    def n_waterbodies(self) -> int:
-        return len(self.layer.frame)
+def run_stages(
+    config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
+) -> Any:
+    """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
+    config = load_config(config)
+    # Hashing the inputs for run.json reads every file once more (GBs for a big run):
+    # do it in the background, beside the stages; hashlib releases the GIL.
+    with ThreadPoolExecutor(max_workers=1) as hasher:
+        record = hasher.submit(inputs_provenance, config)
+        return _stages(config, progress, series, record)
 
 
-@dataclass
-class Timer:
-    """Wall time of each named stage, in seconds, for run.json."""
+def _stages(
+    config: RunConfig, progress: ProgressFactory | None, series: bool | None, record: Any
+) -> Any:
+    from lakeloss.results import assemble
 
-    seconds: dict[str, float] = field(default_factory=dict)
-
-    def stage(self, name: str) -> _Stage:
-        return _Stage(self, name)
-
-
-class _Stage:
-    def __init__(self, timer: Timer, name: str) -> None:
-        self.timer, self.name = timer, name
-
-    def __enter__(self) -> None:
-        self.start = time.perf_counter()
-        log.info("stage %s ...", self.name)
-
-    def __exit__(self, *exc: object) -> None:
-        elapsed = time.perf_counter() - self.start
-        self.timer.seconds[self.name] = self.timer.seconds.get(self.name, 0.0) + elapsed
+    timer = Timer()
+    with timer.stage("load"):
+        inputs = load_inputs(config)
+        check_overlap(inputs)
+        value_warnings = check_values(config, inputs)
+    # load_inputs and check_values record their warnings for run.json; show them as well.
+    replay(inputs.recorded)
+    for reason in value_warnings:
+        warnings.warn(reason, ImplausibleValuesWarning, stacklevel=2)
+    with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always", LakelossWarning)
+        weights, cached = build_weights(config, inputs, progress)
+        facts = BodyFacts.gather(config, inputs, weights)
+    weight_warnings = replay(seen)
+    if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
+        weight_warnings += repairs_from_cache(facts)
+    keep_series = config.output.series if series is None else series
+    collector = SeriesStream(config, inputs) if keep_series else None
+    with timer.stage("evaporate"):
+        sink = collector.add if collector else None
+        sums = compute_sums(config, inputs, weights, facts, progress, sink)
+    with timer.stage("aggregate"):
+        run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
+        message = negative_warning(config, sums)
+        if message:
+            run_warnings.append(message)
+        assert sums.gaps is not None  # compute_sums always tallies the gaps
+        gaps = gap_report(sums.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
+        run_warnings += gap_warnings(gaps)
+        result = assemble(
+            config,
+            inputs,
+            facts,
+            sums,
+            run_warnings,
+            timer.seconds,
+            series=collector.dataset() if collector else None,
+            weights_cached=cached,
+            inputs_record=record.result(),
+            gaps=gaps,
+        )
+    for note in result.provenance["notes"]:
+        log.warning(note)
+    refuse_empty(result)
+    return result
 
 
 # --------------------------------------------------------------------------- load
@@ -152,20 +170,6 @@ def _open_field(item: Any, chunk_steps: int) -> climate_io.ClimateField:
     )
 
 
-def _check_methods(config: RunConfig) -> None:
-    available = set(config.quantities) | {"latitude", "day_of_year", "area_m2", "elevation"}
-    if {"eastward_wind", "northward_wind"} <= available:
-        available.add("wind_speed")
-    for name in config.method.all:
-        missing = registry.missing_inputs(name, available)
-        if missing:
-            given = ", ".join(sorted(config.quantities)) or "nothing"
-            raise MissingInputError(
-                f"method '{name}' needs {'; '.join(missing)} in [climate], but the "
-                f"configuration gives only: {given}"
-            )
-
-
 def _grid_of(item: climate_io.ClimateField) -> GridSpec:
     if item.transform is not None:
         return GridSpec.from_transform(item.transform, len(item.x), len(item.y), item.crs)
@@ -174,7 +178,7 @@ def _grid_of(item: climate_io.ClimateField) -> GridSpec:
 
 def load_inputs(config: RunConfig) -> Inputs:
     """Read the layer, open every climate field lazily, and join their time axes."""
-    _check_methods(config)
+    check_methods(config)
     wb = config.waterbodies
     layer = vector_io.read_waterbodies(
         wb.path,
@@ -185,7 +189,7 @@ def load_inputs(config: RunConfig) -> Inputs:
         area_units=wb.area_units,
         area_source=wb.area_source,
     )
-    _check_attributes(config, layer)
+    check_attributes(config, layer)
     caught: list[str] = []
     fields: dict[str, climate_io.ClimateField] = {}
     with warnings.catch_warnings(record=True) as seen:
@@ -193,7 +197,7 @@ def load_inputs(config: RunConfig) -> Inputs:
         for item in config.climate:
             if item.quantity == "elevation":
                 continue
-            fields[item.quantity] = _open_field(item, _read_steps(config))
+            fields[item.quantity] = _open_field(item, read_steps(config))
         axes = {q: timeaxis.from_times(f.times, f.calendar) for q, f in fields.items()}
         axis = timeaxis.require_identical(axes)
         note = timeaxis.alignment_note(axes)
@@ -211,7 +215,7 @@ def load_inputs(config: RunConfig) -> Inputs:
         grid = _grid_of(opened)
         grids.setdefault(grid.key(), grid)
         field_grid[quantity] = grid.key()
-    _check_wind_grids(fields, field_grid)
+    check_wind_grids(fields, field_grid)
     static_fields = {}
     for item in config.climate:
         if item.quantity == "elevation":
@@ -266,86 +270,6 @@ def _periods(config: RunConfig, axis: timeaxis.TimeAxis) -> timeaxis.Periods:
         table=table,
         table_name=f"period table '{output.period_table}'",
     )
-
-
-def _check_attributes(config: RunConfig, layer: vector_io.WaterBodyLayer) -> None:
-    columns = list(layer.frame.columns)
-    wanted = list(config.waterbodies.group_by)
-    if config.waterbodies.elevation_field:
-        wanted.append(config.waterbodies.elevation_field)
-    for name in wanted:
-        if name not in columns:
-            raise ConfigError(
-                f"[waterbodies] names attribute '{name}', which the layer does not have "
-                f"(attributes: {', '.join(c for c in columns if c != 'geometry')})"
-            )
-    if config.waterbodies.elevation_field:
-        _elevations(layer.frame, config.waterbodies.elevation_field)  # refuse before computing
-
-
-def _elevations(frame: Any, field_name: str) -> np.ndarray:
-    """The elevation attribute as numbers [m]; empty or non-numeric values are refused."""
-    values = pd.to_numeric(frame[field_name], errors="coerce").to_numpy(dtype=float)
-    if not np.isfinite(values).all():
-        raise ConfigError(
-            f"elevation attribute '{field_name}' has {int((~np.isfinite(values)).sum())} "
-            "empty or non-numeric values; fill them or use [parameters] elevation_m"
-        )
-    return values
-
-
-def _check_wind_grids(fields: Mapping[str, Any], field_grid: Mapping[str, str]) -> None:
-    if "wind_speed" not in fields and {"eastward_wind", "northward_wind"} <= set(fields):
-        if field_grid["eastward_wind"] != field_grid["northward_wind"]:
-            raise GridError("eastward_wind and northward_wind must be on the same grid")
-
-
-def check_overlap(inputs: Inputs) -> None:
-    """Refuse a layer whose bounding box misses a climate grid entirely, or has no area.
-
-    Run by ``check`` and by the run itself, before the weights are built, so both refuse
-    with the same message.
-    """
-    frame = inputs.layer.frame
-    nonempty = frame.geometry[~frame.geometry.is_empty]
-    if nonempty.empty:
-        raise GeometryError(
-            f"all {len(frame)} water-body geometries are empty; expected at least one "
-            "polygon with area; check the layer"
-        )
-    bounds = nonempty.total_bounds
-    for grid in inputs.grids.values():
-        transformer = pyproj.Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
-        left, bottom, right, top = (float(v) for v in bounds)
-        x0, y0, x1, y1 = transformer.transform_bounds(left, bottom, right, top, densify_pts=21)
-        gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))
-        gy0, gy1 = float(np.min(grid.y_edges)), float(np.max(grid.y_edges))
-        if grid.wraps_longitude:
-            x0, x1 = gx0, gx1  # a grid all the way round has every longitude
-        elif grid.is_geographic and gx1 > 180.0 and x1 < 0.0:
-            x0, x1 = x0 + 360.0, x1 + 360.0
-        elif grid.is_geographic and gx0 < 0.0 and x0 > 180.0:
-            x0, x1 = x0 - 360.0, x1 - 360.0
-        if x1 < gx0 or x0 > gx1 or y1 < gy0 or y0 > gy1:
-            raise GridError(
-                f"the water-body layer (bounds {x0:.4f}, {y0:.4f}, {x1:.4f}, {y1:.4f} in the "
-                f"grid CRS) does not overlap the climate grid ({gx0:.4f}, {gy0:.4f}, "
-                f"{gx1:.4f}, {gy1:.4f}); check both CRSs and the file paths"
-            )
-
-
-def check_values(config: RunConfig, inputs: Inputs) -> list[str]:
-    """Scan every climate field for values that contradict their units.
-
-    Strict runs raise :class:`ImplausibleValuesError`; lenient runs return the reasons,
-    which become warnings in run.json.
-    """
-    reasons = []
-    for item in inputs.fields.values():
-        reason = climate_io.check_values(item, strict=config.strict)
-        if reason:
-            reasons.append(reason)
-    return reasons
 
 
 # --------------------------------------------------------------------------- weights
@@ -420,78 +344,6 @@ def _counting(mapper: Any, bar: Any) -> Any:
 # --------------------------------------------------------------------------- extract + evaporate
 
 
-def block_steps(config: RunConfig, inputs: Inputs, columns: int | None = None) -> int:
-    """Time steps per block: from the config, or sized so a block fits the memory budget.
-
-    ``columns`` is how many water bodies a block computes (the groups of
-    :mod:`lakeloss.distinct`); every body by default, which is the upper bound.
-    """
-    if config.compute.chunk_steps:
-        return config.compute.chunk_steps
-    n = max(inputs.n_waterbodies if columns is None else columns, 1)
-    cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
-    per_step = 8.0 * (
-        n * (_WORKING_ARRAYS + 2 * len(config.method.all)) + cells * len(inputs.fields)
-    )
-    return int(np.clip(_BLOCK_BUDGET_BYTES // per_step, 1, _MAX_BLOCK_STEPS))
-
-
-def _read_steps(config: RunConfig) -> int:
-    """Time steps per lazy read of a climate field: the blocks, so no block reads more.
-
-    A block reads whole chunks of the lazy field; with 64-step chunks a 16-step block read
-    (and converted) four times the data it used, 3x slower over a year of 400 x 400 cells.
-    """
-    return config.compute.chunk_steps or _MAX_BLOCK_STEPS
-
-
-def _aligned(steps: int, read_steps: int) -> int:
-    """The largest block length <= ``steps`` that divides ``read_steps`` (or a multiple)."""
-    if steps >= read_steps:
-        return steps - steps % read_steps
-    return max(d for d in range(1, steps + 1) if read_steps % d == 0)
-
-
-def iter_blocks(n_steps: int, steps: int) -> Iterator[slice]:
-    for start in range(0, n_steps, steps):
-        yield slice(start, min(start + steps, n_steps))
-
-
-def _static_inputs(
-    config: RunConfig, inputs: Inputs, weights: Mapping[str, ZonalWeights]
-) -> dict[str, np.ndarray]:
-    """Per-water-body inputs of the physics: latitude, area and elevation, shaped (1, n).
-
-    The latitude is that of the climate a body gets: the area-weighted mean latitude of the
-    centres of the cells it covers on the shortwave grid (the first grid without one). For
-    a pond inside one 0.05° cell it is that cell's centre, at most 0.025° from the pond's
-    own centroid. Over that distance Ra (FAO-56 eq. 21) changes by at most 0.08 % at 30°,
-    0.15 % at 45° and 0.5 % at 60° latitude (worst day of the year; computed with
-    :func:`lakeloss.physics.radiation.extraterrestrial_radiation`); Ra enters the methods
-    only through the clear-sky ratio of the longwave term. Bodies inside one cell then
-    share every input and are computed once (:mod:`lakeloss.distinct`).
-    """
-    grid_key = inputs.field_grid.get(_SHORTWAVE) or next(iter(inputs.field_grid.values()))
-    sun_weights = weights[grid_key]
-    assert sun_weights.grid is not None  # weights built in this run carry their grid
-    latitude, _ = sun_weights.apply(sun_weights.grid.centre_latitudes()[np.newaxis])
-    first = next(iter(weights.values()))
-    static = {
-        "latitude": latitude,
-        "area_m2": first.polygon_area_m2[np.newaxis, :],
-    }
-    field_name = config.waterbodies.elevation_field
-    if field_name:
-        static["elevation"] = _elevations(inputs.layer.frame, field_name)[np.newaxis, :]
-    if "elevation" in inputs.static_fields:
-        raster, key = inputs.static_fields["elevation"]
-        mean, _ = weights[key].apply(raster.values[np.newaxis])
-        # Bodies off the elevation raster fall back to the configured constant.
-        fallback = float(config.parameters.get("elevation_m", 0.0))  # type: ignore[arg-type]
-        static["elevation"] = np.where(np.isfinite(mean), mean, fallback)
-    return static
-
-
 def block_context(
     config: RunConfig,
     inputs: Inputs,
@@ -510,6 +362,7 @@ def block_context(
         keep_series=keep_series,
         body_count=body_count,
         max_gap_steps=gap_limit(config, inputs.axis),
+        clip_negative=config.clip_negative,
     )
 
 
@@ -521,14 +374,11 @@ def gap_limit(config: RunConfig, axis: timeaxis.TimeAxis) -> int:
     return DEFAULT_LIMIT[axis.step]
 
 
-ProgressFactory = Callable[[int, str], Any]
-SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
-
-
 def compute_sums(
     config: RunConfig,
     inputs: Inputs,
     weights: Mapping[str, ZonalWeights],
+    facts: BodyFacts,
     progress: ProgressFactory | None = None,
     series_sink: SeriesSink | None = None,
 ) -> PeriodSums:
@@ -539,12 +389,12 @@ def compute_sums(
     """
     from lakeloss.execution import run_blocks
 
-    static = _static_inputs(config, inputs, weights)
+    static = facts.physics_inputs()
     groups = distinct_bodies(weights, static, inputs_used(config.method.all))
     context = block_context(config, inputs, series_sink is not None, groups.count)
     n_steps = len(inputs.axis.days)
     sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
-    steps = _aligned(block_steps(config, inputs, groups.n_groups), _read_steps(config))
+    steps = aligned(block_steps(config, inputs, groups.n_groups), read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
@@ -560,188 +410,24 @@ def compute_sums(
     return merged if groups.all_distinct else merged.for_members(groups.member_of)
 
 
-def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
-    total = sum(sums.negatives.values())
-    if not total:
-        return None
-    verb = "set to zero" if config.parameters.get("clip_negative", True) else "kept"
-    detail = ", ".join(f"{m}: {c}" for m, c in sums.negatives.items() if c)
-    message = (
-        f"{total} negative daily evaporation rates (condensation or negative net "
-        f"radiation) were {verb} ({detail})"
-    )
-    warnings.warn(message, ValuesAdjustedWarning, stacklevel=2)
-    return message
+@dataclass
+class Timer:
+    """Wall time of each named stage, in seconds, for run.json."""
+
+    seconds: dict[str, float] = field(default_factory=dict)
+
+    def stage(self, name: str) -> _Stage:
+        return _Stage(self, name)
 
 
-def gap_warnings(gaps: GapReport) -> list[str]:
-    """One warning per variable with gaps too long to fill (or at the ends of the data)."""
-    messages = []
-    for name, gap in gaps.long.items():
-        message = (
-            f"{name} is missing for {gap['bodies']} water bodies at "
-            f"{steps_text(int(gap['steps']))} ({gap['dates']}), in gaps longer than [checks] "
-            f"max_gap_steps = {gaps.limit} "
-            "or at the start or end of the data; those bodies have no total for the run "
-            "nor for the periods with a gap (flagged climate_gaps)"
-        )
-        warnings.warn(message, ClimateGapsWarning, stacklevel=2)
-        messages.append(message)
-    return messages
+class _Stage:
+    def __init__(self, timer: Timer, name: str) -> None:
+        self.timer, self.name = timer, name
 
+    def __enter__(self) -> None:
+        self.start = time.perf_counter()
+        log.info("stage %s ...", self.name)
 
-def run_stages(
-    config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
-) -> Any:
-    """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
-    from lakeloss.results import inputs_provenance
-
-    config = load_config(config)
-    # Hashing the inputs for run.json reads every file once more (GBs for a big run):
-    # do it in the background, beside the stages; hashlib releases the GIL.
-    with ThreadPoolExecutor(max_workers=1) as hasher:
-        record = hasher.submit(inputs_provenance, config)
-        return _stages(config, progress, series, record)
-
-
-def _stages(
-    config: RunConfig, progress: ProgressFactory | None, series: bool | None, record: Any
-) -> Any:
-    from lakeloss.results import assemble
-
-    timer = Timer()
-    with timer.stage("load"):
-        inputs = load_inputs(config)
-        check_overlap(inputs)
-        value_warnings = check_values(config, inputs)
-    # load_inputs and check_values record their warnings for run.json; show them as well.
-    _replay(inputs.recorded)
-    for reason in value_warnings:
-        warnings.warn(reason, ImplausibleValuesWarning, stacklevel=2)
-    with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
-        warnings.simplefilter("always", LakelossWarning)
-        weights, cached = build_weights(config, inputs, progress)
-    weight_warnings = _replay(seen)
-    if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
-        weight_warnings += _repairs_from_cache(weights)
-    keep_series = config.output.series if series is None else series
-    collector = SeriesStream(config, inputs) if keep_series else None
-    with timer.stage("evaporate"):
-        sums = compute_sums(config, inputs, weights, progress, collector.add if collector else None)
-    with timer.stage("aggregate"):
-        run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
-        message = negative_warning(config, sums)
-        if message:
-            run_warnings.append(message)
-        assert sums.gaps is not None  # compute_sums always tallies the gaps
-        gaps = gap_report(sums.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
-        run_warnings += gap_warnings(gaps)
-        result = assemble(
-            config,
-            inputs,
-            weights,
-            sums,
-            run_warnings,
-            timer.seconds,
-            series=collector.dataset() if collector else None,
-            weights_cached=cached,
-            inputs_record=record.result(),
-            gaps=gaps,
-        )
-    for note in result.provenance["notes"]:
-        log.warning(note)
-    refuse_empty(result)
-    return result
-
-
-def refuse_empty(result: Any) -> None:
-    """Raise :class:`NoResultError` when no water body has a result for any period."""
-    bodies = result.waterbodies
-    if result.provenance["counts"]["without_any_result"] < len(bodies):
-        return
-    flags = result.provenance["counts"]["qa_flags"]
-    reasons = ", ".join(f"{count} {flag}" for flag, count in flags.items()) or "no flag"
-    raise NoResultError(
-        f"none of the {len(bodies)} water bodies has an evaporation result for any period "
-        f"({reasons}); "
-        "nothing was written; check that the climate covers the layer and has values over "
-        "the whole run (see the warnings above)"
-    )
-
-
-def _repairs_from_cache(weights: Mapping[str, ZonalWeights]) -> list[str]:
-    """The repair warning for weights that came from the cache.
-
-    The zonal engine warns about repaired and empty polygons when it builds the weights, so
-    a run served from the cache would otherwise print and record nothing: say the same
-    from the flags the weights keep (same wording as ``zonal.weights``).
-    """
-    tokens = [set(str(f).split(";")) for f in next(iter(weights.values())).flags]
-    n_repaired = sum("geometry_repaired" in t for t in tokens)
-    n_empty = sum("geometry_empty" in t for t in tokens)
-    if not (n_repaired or n_empty):
-        return []
-    message = (
-        f"{n_repaired} invalid water-body polygons were repaired and {n_empty} are empty "
-        "(flagged geometry_repaired / geometry_empty; empty ones get NaN results)"
-    )
-    warnings.warn(message, GeometryRepairedWarning, stacklevel=3)
-    return [message]
-
-
-def _replay(seen: list[warnings.WarningMessage]) -> list[str]:
-    """Re-issue recorded lakeloss warnings (so the CLI prints them); return their texts."""
-    texts = []
-    for item in seen:
-        if issubclass(item.category, LakelossWarning):
-            texts.append(str(item.message))
-        warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
-    return texts
-
-
-class SeriesStream:
-    """Streams per-step rates into a temporary CF NetCDF file, block by block.
-
-    The whole (time, water body) array is never held: each block goes to disk as it is
-    merged, and the result's ``series`` is the file opened lazily. ``RunResult.write`` copies
-    it into the outputs; the temporary directory is removed when the process exits.
-    """
-
-    def __init__(self, config: RunConfig, inputs: Inputs) -> None:
-        from lakeloss.io.series import SeriesWriter, body_locations
-        from lakeloss.results import CAUTION, SERIES_VARIABLES, series_history
-
-        self.directory = Path(tempfile.mkdtemp(prefix="lakeloss-series-"))
-        atexit.register(shutil.rmtree, self.directory, ignore_errors=True)
-        self.path = self.directory / "series.nc"
-        names = ["evaporation_rate"] + (
-            ["precipitation_rate"] if "precipitation" in inputs.fields else []
-        )
-        longitude, latitude = body_locations(inputs.layer.frame.geometry)
-        self.writer = SeriesWriter(
-            self.path,
-            waterbody_ids=inputs.layer.frame[inputs.layer.id_field].to_numpy(),
-            times=inputs.axis.times,
-            calendar=inputs.axis.calendar,
-            variables={name: SERIES_VARIABLES[name] for name in names},
-            global_attrs={
-                "title": "lakeloss per-step evaporation series",
-                "source": f"lakeloss, method {config.method.name}",
-                "comment": CAUTION,
-                "history": series_history(config),
-            },
-            chunk_times=block_steps(config, inputs),
-            longitude=longitude,
-            latitude=latitude,
-        )
-
-    def add(self, block: slice, values: Mapping[str, np.ndarray]) -> None:
-        for name, value in values.items():
-            self.writer.write(name, block, np.asarray(value, dtype=np.float32))
-
-    def dataset(self) -> Any:
-        import xarray as xr
-
-        self.writer.close()
-        coder = xr.coders.CFDatetimeCoder(use_cftime=True)
-        return xr.open_dataset(self.path, engine="netcdf4", chunks={}, decode_times=coder)
+    def __exit__(self, *exc: object) -> None:
+        elapsed = time.perf_counter() - self.start
+        self.timer.seconds[self.name] = self.timer.seconds.get(self.name, 0.0) + elapsed

@@ -16,18 +16,14 @@ import numpy as np
 import pyproj
 import shapely
 
+from lakeloss.checks import check_overlap, check_values
 from lakeloss.config import RunConfig
 from lakeloss.distinct import inputs_used
 from lakeloss.gaps import date_ranges, fill_short_gaps, steps_text
+from lakeloss.inputs import Inputs
 from lakeloss.io.climate import crs_label
-from lakeloss.pipeline import (
-    Inputs,
-    block_steps,
-    check_overlap,
-    check_values,
-    gap_limit,
-    load_inputs,
-)
+from lakeloss.pipeline import gap_limit, load_inputs
+from lakeloss.sizing import block_steps
 
 # Wall seconds per unit of work, from the end-to-end benchmark of 10^6 ponds on the 2-core
 # reference machine, two threads, 2026-12-02 (benchmarks/README.md, "Session 2"): 62-73 s

@@ -1,17 +1,15 @@
 """The result of a run: tables with documented columns and units, and how they are written.
 
 :func:`assemble` turns the pipeline's period sums into a :class:`RunResult`;
-:meth:`RunResult.write` writes it atomically through ``io/``.
+:meth:`RunResult.write` writes it atomically through ``io/``. What run.json records is
+shaped by :mod:`lakeloss.io.run_record`; the lines the command line prints at the end of a
+run are in :mod:`lakeloss.report`.
 """
 
 from __future__ import annotations
 
-import hashlib
-import importlib.metadata
-import platform
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -19,17 +17,11 @@ import cftime
 import numpy as np
 import pandas as pd
 
-from lakeloss import __version__
+from lakeloss.body_facts import BodyFacts
 from lakeloss.config import VOLUME_UNITS, RunConfig
 from lakeloss.errors import ConfigError
-from lakeloss.io import multifile
 from lakeloss.io.gpkg import FieldInfo
-
-CAUTION = (
-    "Estimates for screening and water accounting only; not for design, licensing, "
-    "allocation or dam-safety decisions. Defer to local codes, the regulator and licensed "
-    "professional practice."
-)
+from lakeloss.io.run_record import run_record
 
 # Result columns of the water-body layer: title, description, unit.
 _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
@@ -215,48 +207,6 @@ def progress_bars(progress: Any) -> Any:
     return progress
 
 
-def _sha256(path: Path) -> str | None:
-    digest = hashlib.sha256()
-    # A store (Zarr) is a folder: its files' relative names and contents, in name order.
-    members = sorted(p for p in Path(path).rglob("*") if p.is_file()) if Path(path).is_dir() else []
-    try:
-        for member in members or [Path(path)]:
-            if members:
-                digest.update(member.relative_to(path).as_posix().encode() + b"\0")
-            with open(member, "rb") as handle:
-                for chunk in iter(lambda: handle.read(1 << 20), b""):
-                    digest.update(chunk)
-    except OSError:
-        return None
-    return digest.hexdigest()
-
-
-def _versions() -> dict[str, str]:
-    names = [
-        "lakeloss",
-        "numpy",
-        "scipy",
-        "pandas",
-        "geopandas",
-        "shapely",
-        "pyogrio",
-        "pyproj",
-        "rasterio",
-        "xarray",
-        "netCDF4",
-        "pint",
-        "dask",
-    ]
-    out = {}
-    for name in names:
-        try:
-            out[name] = importlib.metadata.version(name)
-        except importlib.metadata.PackageNotFoundError:
-            out[name] = "not installed"
-    out["python"] = platform.python_version()
-    return out
-
-
 def _year_length(calendar: str) -> float:
     return {
         "noleap": 365.0,
@@ -275,8 +225,7 @@ _NO_RESULT_GEOMETRY = {"geometry_empty", "geometry_null", "outside_grid"}
 
 def _flags(
     config: RunConfig,
-    inputs: Any,
-    weights: Any,
+    facts: BodyFacts,
     sums: Any,
     coverage: np.ndarray,
     filled_steps: np.ndarray,
@@ -286,26 +235,24 @@ def _flags(
     The conditions are found with array operations; only the (usually few) flagged bodies
     have their tokens joined one by one.
     """
-    first = next(iter(weights.values()))
-    sources = (np.asarray(inputs.layer.flags, dtype=object), np.asarray(first.flags, dtype=object))
+    sources = (
+        np.asarray(facts.layer_flags, dtype=object),
+        np.asarray(facts.geometry_flags, dtype=object),
+    )
     valid_steps = sums.valid_steps.sum(axis=0)
     no_climate = valid_steps == 0
     gaps = (valid_steps > 0) & (valid_steps < sums.steps)
     # Judged over the steps with data: a day missing on the whole grid is a gap (flagged as
     # such), not a part of the polygon without climate.
-    spatial = first.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
+    spatial = facts.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
     partial = (coverage > 0.0) & (spatial < _COVERAGE_FLAG_BELOW)
     negative = sums.negatives_per_body > 0
-    negative_token = (
-        "negative_rates_clipped"
-        if config.parameters.get("clip_negative", True)
-        else "negative_rates_kept"
-    )
+    negative_token = "negative_rates_clipped" if config.clip_negative else "negative_rates_kept"
     filled = filled_steps > 0
     any_flag = no_climate | gaps | filled | partial | negative
     for source in sources:
         any_flag |= source != ""
-    out = np.full(inputs.n_waterbodies, "", dtype=object)
+    out = np.full(len(facts.area_m2), "", dtype=object)
     for i in np.flatnonzero(any_flag):
         tokens: list[str] = []
         for source in sources:
@@ -326,19 +273,18 @@ def _flags(
 
 
 def _body_table(
-    config: RunConfig, inputs: Any, weights: Any, sums: Any, filled_steps: np.ndarray
+    config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any, filled_steps: np.ndarray
 ) -> Any:
-    first = next(iter(weights.values()))
     frame = inputs.layer.frame.copy()
-    area = first.polygon_area_m2
+    area = facts.area_m2
     primary = config.method.name
     evap = sums.depth[primary].sum(axis=0)
     precip = sums.precip.sum(axis=0) if config.output.precipitation else np.full(len(area), np.nan)
     total_days = float(inputs.axis.days.sum())
-    coverage = first.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
+    coverage = facts.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
     frame["area_m2"] = area
     # Shown beside area_m2 so a geometry_repaired flag can be judged by what it changed.
-    frame["area_before_repair_m2"] = first.area_before_repair_m2
+    frame["area_before_repair_m2"] = facts.area_before_repair_m2
     frame["evap_mm"] = evap
     frame["evap_m3"] = evap * area / 1000.0
     frame["evap_mm_per_year"] = evap * _year_length(inputs.axis.calendar) / total_days
@@ -354,7 +300,7 @@ def _body_table(
         frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
     frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
     coverage = frame["climate_coverage"].to_numpy()
-    frame["qa_flags"] = _flags(config, inputs, weights, sums, coverage, filled_steps)
+    frame["qa_flags"] = _flags(config, facts, sums, coverage, filled_steps)
     geometry = frame.geometry.name
     return frame[[c for c in frame.columns if c != geometry] + [geometry]]
 
@@ -384,9 +330,8 @@ _PERIOD_KEYS = (
 _PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
 
 
-def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd.DataFrame:
+def _period_table(config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any) -> pd.DataFrame:
     """One row per water body and period, indexed by the water-body id (rows by body)."""
-    first = next(iter(weights.values()))
     periods = inputs.periods
     # Segments between the periods of a custom table are summed but not reported.
     kept = periods.rows
@@ -396,7 +341,7 @@ def _period_table(config: RunConfig, inputs: Any, weights: Any, sums: Any) -> pd
     period_of_row = np.tile(np.arange(n_periods), n)
     evap = sums.depth[config.method.name][kept].T
     precip = sums.precip[kept].T if config.output.precipitation else np.full((n, n_periods), np.nan)
-    area = first.polygon_area_m2[:, None]
+    area = facts.area_m2[:, None]
     compared = config.method.all[1:]
     # Rows by water body, then period: the (period, body) sums transposed, so no sort of
     # n_periods x n rows is needed. The numbers are written once into one float block that
@@ -531,29 +476,6 @@ def _totals(
     return pd.concat(parts, axis=1)
 
 
-SERIES_VARIABLES: dict[str, dict[str, str]] = {
-    # CF's lwe_water_evaporation_rate (canonical m s-1) is evaporation as a depth of liquid
-    # water per time; CF accepts any units convertible to the canonical ones, so mm day-1.
-    "evaporation_rate": {
-        "units": "mm day-1",
-        "long_name": "open-water evaporation rate from the water surface, primary method",
-        "standard_name": "lwe_water_evaporation_rate",
-    },
-    "precipitation_rate": {
-        "units": "mm day-1",
-        "long_name": "precipitation rate on the water surface",
-        "standard_name": "lwe_precipitation_rate",
-    },
-}
-"""Per-step series variables (series.nc) and their CF attributes."""
-
-
-def series_history(config: RunConfig) -> str:
-    """CF ``history`` line of series.nc: when and by what the file was made."""
-    stamp = datetime.now(UTC).isoformat(timespec="seconds")
-    return f"{stamp} lakeloss {__version__}, method {config.method.name}"
-
-
 def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict[str, FieldInfo]]:
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
     for name in config.method.all[1:]:
@@ -576,79 +498,10 @@ def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict
     return {"waterbodies": body, "evaporation_by_period": period}
 
 
-def inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
-    """Every input file with its sha256 (for run.json); each file is read once."""
-    digests: dict[Path, str | None] = {}  # one read per file: variables often share one
-
-    def sha256(path: Path) -> str | None:
-        if path not in digests:
-            digests[path] = _sha256(path)
-        return digests[path]
-
-    items = [
-        {
-            "role": "waterbodies",
-            "path": str(config.waterbodies.path),
-            "sha256": sha256(config.waterbodies.path),
-        }
-    ]
-    for item in config.climate:
-        entry: dict[str, Any] = {
-            "role": item.key,
-            "path": [str(p) for p in item.path] if isinstance(item.path, tuple) else str(item.path),
-            "variable": item.variable,
-        }
-        if isinstance(item.path, tuple) or multifile.several(item.path):
-            # A list or glob: every file it named when the run read it, each with its digest.
-            entry["sha256"] = None
-            entry["files"] = [
-                {"path": str(f), "sha256": sha256(f)} for f in multifile.expand(item.path)
-            ]
-        else:
-            entry["sha256"] = sha256(item.path)
-        items.append(entry)
-    return items
-
-
-def _per_body_sources(config: RunConfig) -> dict[str, str]:
-    # As the pipeline reads them: a raster elevation replaces an attribute's.
-    sources = {}
-    if config.waterbodies.elevation_field:
-        sources["elevation"] = "field"
-    if any(item.quantity == "elevation" for item in config.climate):
-        sources["elevation"] = "raster"
-    return sources
-
-
-def effective_parameters(config: RunConfig) -> dict[str, dict[str, Any]]:
-    """Every parameter the run used, with its value, unit, source and methods (run.json)."""
-    from lakeloss.physics import registry
-
-    used = registry.effective_parameters(
-        config.method.all, config.parameters, _per_body_sources(config)
-    )
-    written = config.source.get("parameters", {})
-    used["clip_negative"] = {
-        "value": bool(config.parameters.get("clip_negative", True)),
-        "unit": "1",
-        "source": "config" if "clip_negative" in written else "default",
-        "methods": list(config.method.all),
-    }
-    return used
-
-
-def run_notes(config: RunConfig) -> list[str]:
-    """Assumptions the run made from defaults, one sentence each (run.json and stderr)."""
-    from lakeloss.physics import registry
-
-    available = [*config.quantities, *_per_body_sources(config)]
-    return registry.assumption_notes(config.method.all, config.parameters, available)
-
-
 def assemble(
     config: RunConfig,
     inputs: Any,
-    weights: Any,
+    facts: BodyFacts,
     sums: Any,
     run_warnings: list[str],
     timings: Mapping[str, float],
@@ -660,57 +513,26 @@ def assemble(
 ) -> RunResult:
     """Build the result tables and the provenance from the period sums.
 
-    ``inputs_record`` is :func:`inputs_provenance`'s result when the caller already has it
-    (the pipeline hashes the inputs in a background thread while it computes); ``gaps`` the
-    :class:`lakeloss.gaps.GapReport` of the run.
+    ``inputs_record`` is :func:`lakeloss.io.run_record.inputs_provenance`'s result when the
+    caller already has it (the pipeline hashes the inputs in a background thread while it
+    computes); ``gaps`` the :class:`lakeloss.gaps.GapReport` of the run.
     """
     filled_steps = (
         gaps.filled_steps_per_body if gaps is not None else np.zeros(len(inputs.layer.frame), int)
     )
-    bodies = _body_table(config, inputs, weights, sums, filled_steps)
-    by_period = _period_table(config, inputs, weights, sums)
+    bodies = _body_table(config, inputs, facts, sums, filled_steps)
+    by_period = _period_table(config, inputs, facts, sums)
     summary_period, summary_group = _summaries(config, bodies, by_period, len(inputs.periods.rows))
-    flags = bodies["qa_flags"]
-    provenance = {
-        "lakeloss_version": __version__,
-        "created": datetime.now(UTC).isoformat(timespec="seconds"),
-        "caution": CAUTION,
-        "config": _jsonable(config.source),
-        "inputs": inputs_provenance(config) if inputs_record is None else inputs_record,
-        "versions": _versions(),
-        "method": {
-            "primary": config.method.name,
-            "compare": list(config.method.compare),
-            "parameters": _jsonable(dict(config.parameters)),
-            "effective_parameters": _jsonable(effective_parameters(config)),
-        },
-        "notes": run_notes(config),
-        "time_axis": inputs.axis.describe(),
-        "counts": {
-            "waterbodies": int(len(bodies)),
-            "periods": int(len(inputs.periods.rows)),
-            "time_steps": int(len(inputs.axis.days)),
-            "days": int(round(float(inputs.axis.days.sum()))),
-            "flagged": int((flags != "").sum()),
-            "without_result": int(bodies["evap_mm"].isna().sum()),
-            "without_any_result": int(
-                (
-                    ~np.isfinite(sums.depth[config.method.name][inputs.periods.rows]).any(axis=0)
-                ).sum()
-            ),
-            "qa_flags": flag_counts(flags),
-            "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
-            "filled_climate_steps": int(filled_steps.sum()),
-            "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
-            "negative_rates_clipped": int(sum(sums.negatives.values()))
-            if config.parameters.get("clip_negative", True)
-            else 0,
-        },
-        "climate_gaps": _gaps_record(gaps),
-        "weights_from_cache": bool(weights_cached),
-        "warnings": list(run_warnings),
-        "timings_s": {k: round(v, 3) for k, v in timings.items()},
-    }
+    provenance = run_record(
+        config,
+        time_axis=inputs.axis.describe(),
+        counts=_counts(config, inputs, bodies, sums, filled_steps),
+        gaps=gaps,
+        weights_cached=weights_cached,
+        run_warnings=run_warnings,
+        timings=timings,
+        inputs_record=inputs_record,
+    )
     return RunResult(
         waterbodies=bodies,
         by_period=by_period,
@@ -724,86 +546,6 @@ def assemble(
     )
 
 
-def no_total_message(result: RunResult, target: Path) -> str | None:
-    """Why a run that wrote its outputs must still fail: no body has a whole-run total.
-
-    Some periods have results (a run without any is refused before writing), so the outputs
-    are kept for them; the exit status tells scripts that the run's totals are missing.
-    """
-    counts = result.provenance["counts"]
-    if not counts["waterbodies"] or counts["without_result"] < counts["waterbodies"]:
-        return None
-    return (
-        f"none of the {counts['waterbodies']} water bodies has a whole-run evaporation total "
-        f"(gaps in the climate too long to fill, see the warnings above); the periods that "
-        f"have results are written to {target}; fill the gaps (raise [checks] max_gap_steps) "
-        "or limit the run to the dates with data"
-    )
-
-
-def summary_line(result: RunResult, target: Path) -> str:
-    """One line for the end of a run: what was computed, over what span, what is missing.
-
-    The volume is the sum over the bodies with a result, over the whole run; its span is
-    named, and a run of more than a year gives the volume per year as well.
-    """
-    counts = result.provenance["counts"]
-    bodies = result.waterbodies
-    n_periods = int(counts["periods"])
-    periods = result.by_period.iloc[:n_periods]
-    # The whole-run volume covers every day of the run, also those between the periods of
-    # a custom period table: its span and days are the run's (the time axis').
-    days = int(counts.get("days", periods["days"].sum()))
-    years = days / 365.2425
-    with_result = int(bodies["evap_mm"].notna().sum())
-    total = float(bodies["evap_m3"].sum(skipna=True))
-    # Dates are Timestamps or cftime dates in the API; the line names the calendar days.
-    first, last = periods["period_start"].iloc[0], periods["period_end"].iloc[-1]
-    span = str(result.provenance.get("time_axis", "")).split(",")[0] or (
-        f"{str(first)[:10]}..{str(last)[:10]}"
-    )
-    over = f"over {days} days" if years < 0.95 else f"over {years:.1f} years"
-    per_year = f", {total / years:,.0f} m3 per year" if years >= 1.5 else ""
-    head = f"{counts['waterbodies']} water bodies, {n_periods} periods ({span}): "
-    method = result.config.method.name
-    volume = (
-        f"{total:,.0f} m3 evaporated {over}{per_year} ({method}) "
-        f"by the {with_result} with a whole-run result"
-        if with_result
-        else f"no whole-run evaporation volume ({method})"
-    )
-    return f"{head}{volume}; {without_result(counts)}; {counts['flagged']} flagged; outputs in {target}"
-
-
-def without_result(counts: Mapping[str, Any]) -> str:
-    """How many bodies have no whole-run result, and how many of those have some periods."""
-    text = f"{counts['without_result']} without"
-    some = int(counts["without_result"]) - int(counts["without_any_result"])
-    return text + (f" ({some} of them with results for some periods)" if some else "")
-
-
-def flag_notes(result: RunResult, examples: int = 5) -> list[str]:
-    """One note per qa flag that occurs: how many bodies, and the first ids."""
-    flags = result.waterbodies["qa_flags"].astype(str)
-    ids = result.waterbodies[result.id_field]
-    notes = []
-    tokens = flags[flags != ""].str.split(";")
-    for flag, count in result.provenance["counts"]["qa_flags"].items():
-        first = ids.loc[tokens.index[tokens.map(lambda t, f=flag: f in t)]].head(examples)
-        more = ", ..." if count > examples else ""
-        shown = ", ".join(str(v) for v in first)
-        notes.append(
-            f"{count} water bodies flagged {flag} ({result.id_field} {shown}{more}); "
-            "see qa_flags in the outputs"
-        )
-    if result.provenance["counts"]["without_result"]:
-        notes.append(
-            f"{result.provenance['counts']['without_result']} water bodies have no "
-            "whole-run result (evap_mm empty) and no loss_rank"
-        )
-    return notes
-
-
 def flag_counts(flags: pd.Series) -> dict[str, int]:
     """Water bodies per qa flag, most frequent first (only flags that occur)."""
     tokens = flags[flags != ""].astype(str).str.split(";").explode()
@@ -812,24 +554,23 @@ def flag_counts(flags: pd.Series) -> dict[str, int]:
     return {str(flag): int(count) for flag, count in ordered}
 
 
-def _gaps_record(gaps: Any) -> dict[str, Any]:
-    """run.json's ``climate_gaps``: per variable, the steps filled and the steps left out."""
-    if gaps is None:
-        return {"filled": {}, "not_filled": {}}
+def _counts(
+    config: RunConfig, inputs: Any, bodies: Any, sums: Any, filled_steps: np.ndarray
+) -> dict[str, Any]:
+    """run.json's ``counts``: bodies, periods and steps, and how many of each kind of trouble."""
+    flags = bodies["qa_flags"]
+    primary = sums.depth[config.method.name]
     return {
-        "max_gap_steps": gaps.limit,
-        "filled": _jsonable(gaps.filled),
-        "not_filled": _jsonable(gaps.long),
+        "waterbodies": int(len(bodies)),
+        "periods": int(len(inputs.periods.rows)),
+        "time_steps": int(len(inputs.axis.days)),
+        "days": int(round(float(inputs.axis.days.sum()))),
+        "flagged": int((flags != "").sum()),
+        "without_result": int(bodies["evap_mm"].isna().sum()),
+        "without_any_result": int((~np.isfinite(primary[inputs.periods.rows]).any(axis=0)).sum()),
+        "qa_flags": flag_counts(flags),
+        "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
+        "filled_climate_steps": int(filled_steps.sum()),
+        "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
+        "negative_rates_clipped": int(sum(sums.negatives.values())) if config.clip_negative else 0,
     }
-
-
-def _jsonable(value: Any) -> Any:
-    if isinstance(value, Mapping):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, Path):
-        return str(value)
-    if isinstance(value, np.generic):
-        return value.item()
-    return value

@@ -691,7 +691,7 @@ def _parameter_lines(method: str, active: Mapping[str, object], loaded: Any) -> 
     specs = registry.get(method).parameters
     defaults: dict[str, object] = {name: spec.default for name, spec in specs.items()}
     for name in config_schema.PIPELINE_PARAMETERS:
-        defaults[name] = loaded.parameters[name]
+        defaults[name] = getattr(loaded, name)  # a RunConfig field of the same name
     lines = [f"# Parameters of {method} (`lakeloss methods` lists every method's)"]
     if "elevation_m" in defaults and "elevation_m" not in active:
         lines.append(

@@ -370,7 +370,7 @@ def test_period_columns_are_written_and_described(daily, tmp_path):
 
 
 def test_summary_line_counts_the_days_between_custom_periods(daily, tmp_path):
-    from lakeloss.results import summary_line
+    from lakeloss.report import summary_line
 
     (tmp_path / "p.csv").write_text("name,start,end\nmid,2031-01-01,2031-01-31\n")
     config = with_section(daily, "time", {"start": "2030-12-01", "end": "2031-02-28"})

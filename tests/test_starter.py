@@ -231,10 +231,16 @@ def test_every_optional_key_is_listed_with_the_loaders_default(tmp_path, layer_p
         assert again.waterbodies == base.waterbodies, line
         assert again.output == base.output and again.compute == base.compute, line
         assert again.strict == base.strict, line
-        assert {**base.parameters, **again.parameters} == {
-            **base.parameters,
+        assert {**_parameters(base), **_parameters(again)} == {
+            **_parameters(base),
             **dict(tomllib.loads(uncommented).get("parameters", {})),
         }, line
+
+
+def _parameters(config: config_schema.RunConfig) -> dict[str, object]:
+    """``[parameters]`` as the run takes them: the physics' and the pipeline's switches."""
+    switches = {name: getattr(config, name) for name in config_schema.PIPELINE_PARAMETERS}
+    return {**config.parameters, **switches}
 
 
 # ----------------------------------------------------------------------------- recognising

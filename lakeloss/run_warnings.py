@@ -1,0 +1,82 @@
+"""The warnings a run records in run.json and shows on stderr.
+
+Warnings raised while a stage runs are recorded (to go into run.json) and re-issued so the
+command line prints them; the others are written here from what the stages counted: rates
+that were negative, gaps too long to fill, and repairs of polygons whose weights came from
+the cache.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+from lakeloss.blocks import PeriodSums
+from lakeloss.body_facts import BodyFacts
+from lakeloss.config import RunConfig
+from lakeloss.errors import (
+    ClimateGapsWarning,
+    GeometryRepairedWarning,
+    LakelossWarning,
+    ValuesAdjustedWarning,
+)
+from lakeloss.gaps import GapReport, steps_text
+
+
+def replay(seen: list[warnings.WarningMessage]) -> list[str]:
+    """Re-issue recorded lakeloss warnings (so the CLI prints them); return their texts."""
+    texts = []
+    for item in seen:
+        if issubclass(item.category, LakelossWarning):
+            texts.append(str(item.message))
+        warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
+    return texts
+
+
+def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
+    total = sum(sums.negatives.values())
+    if not total:
+        return None
+    verb = "set to zero" if config.clip_negative else "kept"
+    detail = ", ".join(f"{m}: {c}" for m, c in sums.negatives.items() if c)
+    message = (
+        f"{total} negative daily evaporation rates (condensation or negative net "
+        f"radiation) were {verb} ({detail})"
+    )
+    warnings.warn(message, ValuesAdjustedWarning, stacklevel=2)
+    return message
+
+
+def gap_warnings(gaps: GapReport) -> list[str]:
+    """One warning per variable with gaps too long to fill (or at the ends of the data)."""
+    messages = []
+    for name, gap in gaps.long.items():
+        message = (
+            f"{name} is missing for {gap['bodies']} water bodies at "
+            f"{steps_text(int(gap['steps']))} ({gap['dates']}), in gaps longer than [checks] "
+            f"max_gap_steps = {gaps.limit} "
+            "or at the start or end of the data; those bodies have no total for the run "
+            "nor for the periods with a gap (flagged climate_gaps)"
+        )
+        warnings.warn(message, ClimateGapsWarning, stacklevel=2)
+        messages.append(message)
+    return messages
+
+
+def repairs_from_cache(facts: BodyFacts) -> list[str]:
+    """The repair warning for weights that came from the cache.
+
+    The zonal engine warns about repaired and empty polygons when it builds the weights, so
+    a run served from the cache would otherwise print and record nothing: say the same
+    from the flags the weights keep (same wording as ``zonal.weights``).
+    """
+    tokens = [set(str(f).split(";")) for f in facts.geometry_flags]
+    n_repaired = sum("geometry_repaired" in t for t in tokens)
+    n_empty = sum("geometry_empty" in t for t in tokens)
+    if not (n_repaired or n_empty):
+        return []
+    message = (
+        f"{n_repaired} invalid water-body polygons were repaired and {n_empty} are empty "
+        "(flagged geometry_repaired / geometry_empty; empty ones get NaN results)"
+    )
+    warnings.warn(message, GeometryRepairedWarning, stacklevel=3)
+    return [message]
