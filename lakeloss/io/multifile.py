@@ -48,7 +48,7 @@ from lakeloss.errors import (
     TimeAxisError,
     UnitsError,
 )
-from lakeloss.io import climate
+from lakeloss.io import gridfile
 from lakeloss.io import units as units_io
 
 _GLOB_CHARACTERS = re.compile(r"[*?\[]")
@@ -361,7 +361,7 @@ def _check_crs(first: pyproj.CRS, other: pyproj.CRS, first_name: str, other_name
     if not first.equals(other, ignore_axis_order=True):
         raise CRSError(
             f"climate files {first_name} and {other_name} have different CRSs "
-            f"('{climate.crs_label(first)}' vs '{climate.crs_label(other)}'); expected one "
+            f"('{gridfile.crs_label(first)}' vs '{gridfile.crs_label(other)}'); expected one "
             "CRS for all files of an input; reproject them to one CRS"
         )
 
@@ -405,7 +405,7 @@ def _reemit(caught: Sequence[warnings.WarningMessage], files: Sequence[Path]) ->
 
 def open_netcdf_files(
     path, variable: str, quantity: str, *, units: str | None, crs: str | None, chunk_steps: int
-) -> climate.ClimateField:
+) -> gridfile.ClimateField:
     """Open one variable from several NetCDF files (or Zarr stores) joined along time.
 
     Parameters are those of :func:`lakeloss.io.climate.open_netcdf`; ``path`` is a list of
@@ -423,19 +423,19 @@ def open_netcdf_files(
     """
     files = expand(path)
     if len(files) == 1:
-        return climate.open_netcdf(
+        return gridfile.open_netcdf_file(
             files[0], variable, quantity, units=units, crs=crs, chunk_steps=chunk_steps
         )
-    name = climate._glossary_name(quantity)
+    name = gridfile.glossary_name(quantity)
     datasets: list[xr.Dataset] = []
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             fields = []
             for source in files:
-                datasets.append(climate._open_dataset(source))
+                datasets.append(gridfile.open_dataset(source))
                 fields.append(
-                    climate._netcdf_field(datasets[-1], source, variable, name, units, crs, None)
+                    gridfile.netcdf_field(datasets[-1], source, variable, name, units, crs, None)
                 )
         _reemit(caught, files)
         return _join_netcdf(fields, datasets, files, max(1, int(chunk_steps)))
@@ -445,7 +445,7 @@ def open_netcdf_files(
         raise
 
 
-def _agree(fields: Sequence[climate.ClimateField]) -> None:
+def _agree(fields: Sequence[gridfile.ClimateField]) -> None:
     first = fields[0]
     for other in fields[1:]:
         names = (repr(first.source_path), repr(other.source_path))
@@ -456,11 +456,11 @@ def _agree(fields: Sequence[climate.ClimateField]) -> None:
 
 
 def _join_netcdf(
-    fields: Sequence[climate.ClimateField],
+    fields: Sequence[gridfile.ClimateField],
     datasets: Sequence[xr.Dataset],
     files: Sequence[Path],
     chunk_steps: int,
-) -> climate.ClimateField:
+) -> gridfile.ClimateField:
     _agree(fields)
     field_of = {Piece(Path(f.source_path), f.times, _netcdf_reader(f.data)): f for f in fields}
     segments = join(list(field_of), fields[0].calendar, None)
@@ -491,11 +491,11 @@ def _join_netcdf(
         joined, chunks=(tuple(sizes), -1, -1), name=name, meta=np.empty((0, 0, 0), joined.dtype)
     )
     first = fields[0]
-    stacked = xr.DataArray(lazy, dims=climate.DIMS, coords={"y": first.y, "x": first.x})
+    stacked = xr.DataArray(lazy, dims=gridfile.DIMS, coords={"y": first.y, "x": first.x})
     converted = units_io.convert(
         stacked, first.source_units, first.quantity, step_days=axis.days, variable=first.variable
     )
-    return climate.ClimateField(
+    return gridfile.ClimateField(
         quantity=first.quantity,
         data=converted.rename(first.quantity),
         times=axis.times,
@@ -546,7 +546,7 @@ class _TimeJoined:
         self.shape = (parts[-1].offset + parts[-1].stop - parts[-1].first, *grid_shape)
         self._start_closed()
         for index, dataset in enumerate(opened):
-            self._open[index] = (dataset, climate._to_time_y_x(dataset, variable)[0])
+            self._open[index] = (dataset, gridfile.to_time_y_x(dataset, variable)[0])
 
     def _start_closed(self) -> None:
         self._locks = [threading.Lock() for _ in self.parts]
@@ -579,8 +579,8 @@ class _TimeJoined:
         part = self.parts[index]
         with self._locks[index]:
             if self._open[index] is None:
-                dataset = climate._open_dataset(part.path)
-                self._open[index] = (dataset, climate._to_time_y_x(dataset, self.variable)[0])
+                dataset = gridfile.open_dataset(part.path)
+                self._open[index] = (dataset, gridfile.to_time_y_x(dataset, self.variable)[0])
             dataset, data = self._open[index]  # type: ignore[misc]
             values = np.asarray(data[(local, *rest)].values, dtype=self.dtype)
             unread = self._unread[index]
@@ -616,7 +616,7 @@ class _TiffHeader:
 
 
 def _tiff_header(source: Path) -> _TiffHeader:
-    climate._check_file(source, "GeoTIFF")
+    gridfile.check_file(source, "GeoTIFF")
     try:
         with rasterio.open(source) as src:
             return _TiffHeader(
@@ -628,10 +628,10 @@ def _tiff_header(source: Path) -> _TiffHeader:
                 nodata=src.nodata,
                 dtype=np.result_type(src.dtypes[0], np.float32).name,
                 crs=None if src.crs is None else pyproj.CRS.from_wkt(src.crs.to_wkt()),
-                units=climate._declared_units(src),
+                units=gridfile.declared_units(src),
             )
     except (rasterio.errors.RasterioError, OSError, ValueError) as err:
-        raise climate._unreadable(source, "GeoTIFF", err) from err
+        raise gridfile.unreadable(source, "GeoTIFF", err) from err
 
 
 def _band_times(header: _TiffHeader, date, step: str | None, calendar: str) -> np.ndarray:
@@ -657,7 +657,7 @@ def open_geotiff_files(
     calendar: str = "standard",
     crs: str | None = None,
     chunk_steps: int = 64,
-) -> climate.ClimateField:
+) -> gridfile.ClimateField:
     """Open GeoTIFFs whose names give their dates as one series, joined along time.
 
     Parameters
@@ -691,16 +691,16 @@ def open_geotiff_files(
             'expected date_pattern (e.g. "%Y%m%d") so that each file\'s date comes from its '
             "name; set it for this input in [climate]"
         )
-    name = climate._glossary_name(quantity)
+    name = gridfile.glossary_name(quantity)
     pattern = filedates.compile_pattern(date_pattern)
     headers = [_tiff_header(source) for source in files]
     dates = [filedates.date_of(pattern, source, calendar) for source in files]
     first = headers[0]
     where = f"GeoTIFF {str(first.path)!r}"
-    declared = climate._source_units(first.units, units, where, name)
+    declared = gridfile.source_units(first.units, units, where, name)
     for other in headers[1:]:
         _tiff_agree(first, other, units, name)
-    field_crs, assumed = climate._resolve_crs(
+    field_crs, assumed = gridfile.resolve_crs(
         first.crs, False, crs, where, looked_for="no coordinate system in its georeferencing"
     )
     dtype = np.result_type(*[h.dtype for h in headers]).name
@@ -715,14 +715,14 @@ def open_geotiff_files(
             f"climate files {_label(files)}: the dates in their names make {axis.step}ly steps "
             f"but step is {step!r}; expected them to agree; fix step or date_pattern"
         )
-    x, y = climate._cell_centres(first.transform, first.width, first.height, where)
+    x, y = gridfile.cell_centres(first.transform, first.width, first.height, where)
     stack = _tiff_stack(segments, header_of, (first.height, first.width), dtype, chunk_steps)
-    data = xr.DataArray(stack, dims=climate.DIMS, coords={"time": axis.times, "y": y, "x": x})
+    data = xr.DataArray(stack, dims=gridfile.DIMS, coords={"time": axis.times, "y": y, "x": x})
     # What the names share before the date: "tas" of tas_20310101.tif, tas_20310102.tif ...
     shared = os.path.commonprefix([f.stem for f in files]).rstrip("0123456789_-. ")
     variable = shared or files[0].stem
     converted = units_io.convert(data, declared, quantity, step_days=axis.days, variable=variable)
-    return climate.ClimateField(
+    return gridfile.ClimateField(
         quantity=name,
         data=converted.rename(name),
         times=axis.times,
@@ -777,7 +777,7 @@ def _read_pieces(pieces, dtype: str) -> np.ndarray:
     # One task: bands first..last (1-based, inclusive) of each file, one after another.
     return np.concatenate(
         [
-            climate._read_bands(path, first, last, nodata, dtype)
+            gridfile.read_bands(path, first, last, nodata, dtype)
             for path, first, last, nodata in pieces
         ]
     )
