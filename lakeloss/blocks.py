@@ -284,7 +284,7 @@ def evaporate_block(
     """Evaporation rate [mm day-1] of every configured method for one block."""
     physics_inputs: dict[str, Any] = {**means, **static, "day_of_year": day_of_year[:, np.newaxis]}
     physics_inputs.pop("precipitation", None)
-    params = {k: v for k, v in context.parameters.items() if k != "clip_negative"}
+    params = dict(context.parameters)
     shape = next(iter(means.values())).shape
     rates = {}
     for name in context.methods:

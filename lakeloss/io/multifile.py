@@ -521,6 +521,16 @@ class _Window:
     stop: int
 
 
+_FILES_LOCK = threading.RLock()
+"""Serialises opening, reading and closing the files of joined series across block threads.
+
+NetCDF/HDF5 is not thread-safe: with one lock per file, two threads opening and closing
+different files crashed the process (a segmentation fault inside netCDF4, seen on this
+project's test suite). HDF5 reads are serialised by xarray's own lock anyway, so one lock
+costs no parallelism; the block threads still overlap the zonal means and the physics.
+"""
+
+
 class _TimeJoined:
     """Several files' (time, y, x) variable as one array, joined along time.
 
@@ -549,13 +559,12 @@ class _TimeJoined:
             self._open[index] = (dataset, gridfile.to_time_y_x(dataset, variable)[0])
 
     def _start_closed(self) -> None:
-        self._locks = [threading.Lock() for _ in self.parts]
         self._open: list[tuple[xr.Dataset, xr.DataArray] | None] = [None] * len(self.parts)
         self._unread = [np.ones(p.stop - p.first, dtype=bool) for p in self.parts]
 
     def __getstate__(self) -> dict:
-        # Pickled for cluster workers: open files and locks stay behind.
-        return {k: v for k, v in self.__dict__.items() if k not in ("_locks", "_open", "_unread")}
+        # Pickled for cluster workers: open files stay behind.
+        return {k: v for k, v in self.__dict__.items() if k not in ("_open", "_unread")}
 
     def __setstate__(self, state: dict) -> None:
         self.__dict__.update(state)
@@ -577,7 +586,7 @@ class _TimeJoined:
 
     def _read(self, index: int, local: slice, rest: tuple) -> np.ndarray:
         part = self.parts[index]
-        with self._locks[index]:
+        with _FILES_LOCK:
             if self._open[index] is None:
                 dataset = gridfile.open_dataset(part.path)
                 self._open[index] = (dataset, gridfile.to_time_y_x(dataset, self.variable)[0])
