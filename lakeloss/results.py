@@ -192,14 +192,12 @@ def progress_bars(progress: Any) -> Any:
 
 
 def _sha256(path: Path) -> str | None:
-    digest = hashlib.sha256()
+    """sha256 hex digest of a file's bytes, or None if it cannot be read."""
     try:
         with open(path, "rb") as handle:
-            for chunk in iter(lambda: handle.read(1 << 20), b""):
-                digest.update(chunk)
+            return hashlib.file_digest(handle, "sha256").hexdigest()
     except OSError:
         return None
-    return digest.hexdigest()
 
 
 def _versions() -> dict[str, str]:
