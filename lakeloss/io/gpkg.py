@@ -1,29 +1,26 @@
-"""GeoPackage output: layers written by GDAL, field descriptions and provenance added after.
+"""GeoPackage output: layers and tables written by GDAL, field descriptions and provenance after.
 
-The file is a GeoPackage 1.2 (see :data:`GPKG_VERSION`). Feature layers are written by
-GDAL (through pyogrio), in their own CRS, with GDAL layer
-metadata that ``ogrinfo`` and :func:`pyogrio.read_info` show (the provenance reaches them as
-the dataset item ``GPKG_METADATA_ITEM_1``). Attribute tables
-(plain DataFrames, ``gpkg_contents.data_type = 'attributes'``) are then filled with SQLite
-by :mod:`lakeloss.io.bulk_table` (large ones by a child process), and registered, together
-with two OGC GeoPackage extensions, in one more transaction:
+The file is a GeoPackage 1.2 (see :data:`GPKG_VERSION`). GDAL (through pyogrio) writes
+everything that holds rows: feature layers, in their own CRS, and attribute tables (plain
+DataFrames, ``gpkg_contents.data_type = 'attributes'``) through its Arrow path
+(:func:`pyogrio.write_arrow` without geometry), each with GDAL layer metadata that
+``ogrinfo`` and :func:`pyogrio.read_info` show (the provenance reaches them as the dataset
+item ``GPKG_METADATA_ITEM_1``). One SQLite transaction then adds an index over each
+attribute table's key column and two OGC GeoPackage extensions:
 
 * ``gpkg_schema``: one ``gpkg_data_columns`` row per documented column; ``name`` and
   ``title`` read ``"<title> [<unit>]"`` so the unit is visible wherever the alias is shown,
   and ``description`` holds the description.
 * ``gpkg_metadata``: the run's provenance as one JSON document (``mime_type``
   ``application/json``) referenced at ``geopackage`` scope, next to the XML rows GDAL itself
-  keeps there (for attribute tables those XML rows are written here in GDAL's own form).
+  keeps there.
 
-Why attribute tables bypass GDAL, measured for 10^6 rows x 9 columns (two of them dates) on
-the 2-core development machine, pyogrio 0.13 / GDAL 3.12, no pyarrow: through GDAL 13.9 s
-(3.4 s without the date columns: without pyarrow, pyogrio converts dates value by value);
-SQLite ``executemany`` 4.4 s; SQLite with ~3500 rows per INSERT 1.5 s for the insert and
-5.6 s for the whole :func:`write_geopackage` call including value conversion. Once pyarrow
-became a dependency, GDAL with ``use_arrow=True`` measured the same within noise (4.5-6.3 s
-against 5.6-6.3 s under load from parallel jobs) but writes dates as DATETIME and holds the
-whole table as Arrow at once, so the SQLite path stayed. GDAL reads the result like its own
-(types INTEGER, REAL, TEXT, DATE, DATETIME, BOOLEAN).
+The Arrow types of an attribute table's columns are chosen so that GDAL declares the same
+GeoPackage types the columns had when lakeloss filled the tables with its own SQLite code
+(INTEGER, REAL, TEXT, DATE, DATETIME, BOOLEAN; dates as DATE, not DATETIME). That code (a
+child process fed through ``.npy`` files) was replaced on 2026-12-05: for 1.2 x 10^6 rows
+the whole output writing took the same time within noise (see benchmarks/README.md,
+"Outputs"), with the same values and types in the file.
 """
 
 from __future__ import annotations
