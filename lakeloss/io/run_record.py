@@ -76,7 +76,7 @@ def inputs_provenance(config: RunConfig) -> list[dict[str, Any]]:
 
     def sha256(path: Path) -> str | None:
         if path not in digests:
-            digests[path] = _sha256(path)
+            digests[path] = sha256_of(path)
         return digests[path]
 
     items = [
@@ -142,20 +142,23 @@ def run_notes(config: RunConfig) -> list[str]:
     return registry.assumption_notes(config.method.all, config.parameters, available)
 
 
-def _sha256(path: Path) -> str | None:
-    digest = hashlib.sha256()
-    # A store (Zarr) is a folder: its files' relative names and contents, in name order.
-    members = sorted(p for p in Path(path).rglob("*") if p.is_file()) if Path(path).is_dir() else []
+def sha256_of(path: Path) -> str | None:
+    """sha256 hex digest of a file, or of a store (Zarr) folder: its files' relative names and
+    contents in name order; None when it cannot be read."""
+    path = Path(path)
+    members = sorted(p for p in path.rglob("*") if p.is_file()) if path.is_dir() else []
     try:
-        for member in members or [Path(path)]:
-            if members:
-                digest.update(member.relative_to(path).as_posix().encode() + b"\0")
+        if not members:
+            with open(path, "rb") as handle:
+                return hashlib.file_digest(handle, "sha256").hexdigest()
+        digest = hashlib.sha256()
+        for member in members:
+            digest.update(member.relative_to(path).as_posix().encode() + b"\0")
             with open(member, "rb") as handle:
-                for chunk in iter(lambda: handle.read(1 << 20), b""):
-                    digest.update(chunk)
+                digest.update(hashlib.file_digest(handle, "sha256").digest())
+        return digest.hexdigest()
     except OSError:
         return None
-    return digest.hexdigest()
 
 
 def _versions() -> dict[str, str]:

@@ -289,10 +289,7 @@ def test_attribute_table_types_and_missing_values(tmp_path, ponds):
     assert raw[1] == (None, None, "2001-01-02T00:00:00.000Z", None)
 
 
-def test_attribute_table_in_many_statements_and_blocks(tmp_path, ponds, monkeypatch):
-    import lakeloss.io.gpkg as gpkg
-
-    monkeypatch.setattr(gpkg, "_BLOCK_ROWS", 4_000)  # several blocks, each several INSERTs
+def test_attribute_table_rows_numbered_in_order(tmp_path, ponds):
     n = 10_001
     table = pd.DataFrame({"id": np.arange(n), "evap_mm": np.arange(n) * 0.5})
     path = tmp_path / "w.gpkg"
@@ -570,3 +567,45 @@ def test_run_compare_methods_per_period(run_output):
             by_group.loc[list(zip(groups["zone"], groups["period_start"], strict=True))],
             rtol=1e-6,
         )
+
+
+def test_attribute_table_types_for_every_kind_of_column(tmp_path, ponds):
+    # The GeoPackage column type and stored value for each kind of pandas column a caller
+    # may hand over, as GIS software reads them back (sqlite3: declared type and typeof).
+    table = pd.DataFrame(
+        {
+            "f32": np.array([0.1, 1e-30, np.nan], dtype=np.float32),
+            "big": [1e300, 5e-324, float("inf")],
+            "n": np.array([1, 2, 3], dtype=np.int32),
+            "nb": pd.array([True, None, False], dtype="boolean"),
+            "s": pd.array(["x", None, "日本"], dtype="string"),
+            "mixed": [1, "two", None],
+            "day_text": ["2031-01-01", None, "2031-02-28"],
+            "text": ["Öd\nlake", 'q"x', ""],
+        }
+    )
+    path = tmp_path / "w.gpkg"
+    write_geopackage(path, [("waterbodies", ponds), ("t", table)], fields={}, metadata={})
+    with closing(sqlite3.connect(path)) as con:
+        declared = {row[1]: row[2] for row in con.execute('PRAGMA table_info("t")')}
+        rows = con.execute(
+            "SELECT f32, big, n, nb, s, mixed, day_text, text FROM t ORDER BY fid"
+        ).fetchall()
+        kinds = con.execute("SELECT typeof(f32), typeof(n), typeof(nb) FROM t").fetchall()
+    assert declared == {
+        "fid": "INTEGER",
+        "f32": "REAL",
+        "big": "REAL",
+        "n": "INTEGER",
+        "nb": "BOOLEAN",
+        "s": "TEXT",
+        "mixed": "TEXT",
+        "day_text": "DATE",
+        "text": "TEXT",
+    }
+    assert rows == [
+        (float(np.float32(0.1)), 1e300, 1, 1, "x", "1", "2031-01-01", "Öd\nlake"),
+        (float(np.float32(1e-30)), 5e-324, 2, None, None, "two", None, 'q"x'),
+        (None, float("inf"), 3, 0, "日本", None, "2031-02-28", ""),
+    ]
+    assert kinds[0] == ("real", "integer", "integer")
