@@ -36,14 +36,14 @@ from lakeloss import timeaxis
 from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of this API
     BlockContext,
     BlockResult,
-    FixedSums,
-    PeriodSums,
-    RunningSums,
+    FixedPointTotals,
+    PeriodTotals,
+    RunningTotals,
+    add_block,
     compute_block,
     evaporate_block,
     extract_block,
-    merge_block,
-    new_sums,
+    zero_totals,
 )
 from lakeloss.body_facts import BodyFacts
 from lakeloss.checks import (
@@ -55,7 +55,6 @@ from lakeloss.checks import (
     refuse_empty,
 )
 from lakeloss.config import RunConfig, load_config
-from lakeloss.distinct import distinct_bodies, inputs_used
 from lakeloss.errors import (
     ConfigError,
     GeometryRepairedWarning,
@@ -65,6 +64,7 @@ from lakeloss.errors import (
 )
 from lakeloss.gaps import DEFAULT_LIMIT
 from lakeloss.gaps import report as gap_report
+from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
@@ -120,20 +120,20 @@ def _stages(
     collector = SeriesStream(config, inputs) if keep_series else None
     with timer.stage("evaporate"):
         sink = collector.add if collector else None
-        sums = compute_sums(config, inputs, weights, facts, progress, sink)
+        totals = compute_totals(config, inputs, weights, facts, progress, sink)
     with timer.stage("aggregate"):
         run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
-        message = negative_warning(config, sums)
+        message = negative_warning(config, totals)
         if message:
             run_warnings.append(message)
-        assert sums.gaps is not None  # compute_sums always tallies the gaps
-        gaps = gap_report(sums.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
+        assert totals.gaps is not None  # compute_totals always tallies the gaps
+        gaps = gap_report(totals.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
         run_warnings += gap_warnings(gaps)
         result = assemble(
             config,
             inputs,
             facts,
-            sums,
+            totals,
             run_warnings,
             timer.seconds,
             series=collector.dataset() if collector else None,
@@ -374,40 +374,40 @@ def gap_limit(config: RunConfig, axis: timeaxis.TimeAxis) -> int:
     return DEFAULT_LIMIT[axis.step]
 
 
-def compute_sums(
+def compute_totals(
     config: RunConfig,
     inputs: Inputs,
     weights: Mapping[str, ZonalWeights],
     facts: BodyFacts,
     progress: ProgressFactory | None = None,
     series_sink: SeriesSink | None = None,
-) -> PeriodSums:
+) -> PeriodTotals:
     """Run every block (locally or on a cluster) and merge the results in time order.
 
     The blocks are computed for one representative of each group of bodies with identical
-    inputs (:func:`lakeloss.distinct.distinct_bodies`) and the sums copied to every member.
+    inputs (:func:`lakeloss.grouping.group_bodies`) and the sums copied to every member.
     """
     from lakeloss.execution import run_blocks
 
     static = facts.physics_inputs()
-    groups = distinct_bodies(weights, static, inputs_used(config.method.all))
+    groups = group_bodies(weights, static, inputs_used(config.method.all))
     context = block_context(config, inputs, series_sink is not None, groups.count)
     n_steps = len(inputs.axis.days)
-    sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
+    totals = zero_totals(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
     steps = aligned(block_steps(config, inputs, groups.n_groups), read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
     for part in run_blocks(config.compute, context, *shared, blocks):
-        merge_block(sums, part)
+        add_block(totals, part)
         if series_sink is not None and part.series is not None:
             series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
         if bar is not None:
             bar.update(part.steps)
     if bar is not None:
         bar.close()
-    merged = sums.finish()
-    return merged if groups.all_distinct else merged.for_members(groups.member_of)
+    merged = totals.finish()
+    return merged if groups.one_body_each else merged.for_members(groups.member_of)
 
 
 @dataclass

@@ -18,8 +18,8 @@ import shapely
 
 from lakeloss.checks import check_overlap, check_values
 from lakeloss.config import RunConfig
-from lakeloss.distinct import inputs_used
 from lakeloss.gaps import date_ranges, fill_short_gaps, steps_text
+from lakeloss.grouping import inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import gap_limit, load_inputs
@@ -114,7 +114,7 @@ def _seconds(config: RunConfig, inputs: Inputs, columns: int) -> float:
 
 
 def estimate_columns(config: RunConfig, inputs: Inputs) -> int:
-    """About how many distinct bodies the blocks will compute (:mod:`lakeloss.distinct`).
+    """About how many distinct bodies the blocks will compute (:mod:`lakeloss.grouping`).
 
     Without building the weights: a body whose bounding box, its corners moved to the
     first climate grid, falls inside one cell is counted with the others of that cell;

@@ -25,7 +25,7 @@ def block_steps(config: RunConfig, inputs: Inputs, columns: int | None = None) -
     """Time steps per block: from the config, or sized so a block fits the memory budget.
 
     ``columns`` is how many water bodies a block computes (the groups of
-    :mod:`lakeloss.distinct`); every body by default, which is the upper bound.
+    :mod:`lakeloss.grouping`); every body by default, which is the upper bound.
     """
     if config.compute.chunk_steps:
         return config.compute.chunk_steps
