@@ -74,7 +74,7 @@ def inputs_used(methods: Iterable[str]) -> set[str]:
         spec = registry.get(name)
         for need in spec.requires:
             for alternative in need:
-                names.update(alternative.split("+"))
+                names.update(alternative)
         names.update(spec.optional)
     return names
 
