@@ -14,13 +14,16 @@ import threading
 import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from lakeloss.gaps import BlockGaps, GapTally, count_block, fill_short_gaps, halo_needed
 from lakeloss.physics import registry
 from lakeloss.zonal import ZonalWeights
+
+if TYPE_CHECKING:
+    from lakeloss.io.climate import ClimateField
 
 
 @dataclass
@@ -61,7 +64,7 @@ class BlockContext:
     once.
     """
 
-    fields: Mapping[str, Any]
+    fields: Mapping[str, ClimateField]
     field_grid: Mapping[str, str]
     methods: tuple[str, ...]
     primary: str
@@ -282,7 +285,11 @@ def evaporate_block(
     day_of_year: np.ndarray,
 ) -> dict[str, np.ndarray]:
     """Evaporation rate [mm day-1] of every configured method for one block."""
-    physics_inputs: dict[str, Any] = {**means, **static, "day_of_year": day_of_year[:, np.newaxis]}
+    physics_inputs: dict[str, np.ndarray] = {
+        **means,
+        **static,
+        "day_of_year": day_of_year[:, np.newaxis],
+    }
     physics_inputs.pop("precipitation", None)
     params = dict(context.parameters)
     shape = next(iter(means.values())).shape

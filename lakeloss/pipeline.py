@@ -24,11 +24,11 @@ import logging
 import os
 import time
 import warnings
-from collections.abc import Callable, Mapping
-from concurrent.futures import ThreadPoolExecutor
+from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -54,7 +54,7 @@ from lakeloss.checks import (
     check_wind_grids,
     refuse_empty,
 )
-from lakeloss.config import RunConfig, load_config
+from lakeloss.config import ClimateInput, RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
     GeometryRepairedWarning,
@@ -71,21 +71,30 @@ from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
 from lakeloss.io.run_record import inputs_provenance
+from lakeloss.progress import ProgressBar, ProgressFactory
 from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
 from lakeloss.series_stream import SeriesStream
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
+from lakeloss.zonal.partition import MapBlocks
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+    from lakeloss.results import RunResult
 
 log = logging.getLogger(__name__)
 
-ProgressFactory = Callable[[int, str], Any]
 SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 
 
 def run_stages(
-    config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
-) -> Any:
+    config: str | Path | Mapping[str, Any] | RunConfig,
+    *,
+    progress: ProgressFactory | None = None,
+    series: bool | None = None,
+) -> RunResult:
     """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
     config = load_config(config)
     # Hashing the inputs for run.json reads every file once more (GBs for a big run):
@@ -96,8 +105,11 @@ def run_stages(
 
 
 def _stages(
-    config: RunConfig, progress: ProgressFactory | None, series: bool | None, record: Any
-) -> Any:
+    config: RunConfig,
+    progress: ProgressFactory | None,
+    series: bool | None,
+    record: Future[list[dict[str, Any]]],
+) -> RunResult:
     from lakeloss.results import assemble
 
     timer = Timer()
@@ -143,19 +155,22 @@ def _stages(
         )
     for note in result.provenance["notes"]:
         log.warning(note)
-    refuse_empty(result)
+    refuse_empty(result.provenance["counts"])
     return result
 
 
 # --------------------------------------------------------------------------- load
 
 
-def _open_field(item: Any, chunk_steps: int) -> climate_io.ClimateField:
+def _open_field(item: ClimateInput, chunk_steps: int) -> climate_io.ClimateField:
+    # config.py refuses a NetCDF/Zarr entry without variable, a GeoTIFF one without start/step.
     if item.format in ("netcdf", "zarr"):
+        assert item.variable is not None
         return climate_io.open_netcdf(
             item.path, item.variable, item.key, units=item.units, crs=item.crs,
             chunk_steps=chunk_steps,
         )  # fmt: skip
+    assert item.start is not None and item.step is not None
     return climate_io.open_geotiff_stack(
         item.path,
         item.key,
@@ -322,12 +337,16 @@ def build_weights(
     return out, not missing
 
 
-def _counting(mapper: Any, bar: Any) -> Any:
+def _counting(mapper: MapBlocks | None, bar: ProgressBar | None) -> MapBlocks | None:
     """A block mapper (the cluster's, or one after another here) that advances ``bar``."""
     if bar is None:
         return mapper
 
-    def counted(func: Any, frames: Any, grids: Any) -> list[Any]:
+    def counted(
+        func: Callable[..., ZonalWeights],
+        frames: Sequence[gpd.GeoDataFrame],
+        grids: Sequence[GridSpec],
+    ) -> list[ZonalWeights]:
         if mapper is not None:
             parts = list(mapper(func, frames, grids))
             bar.update(len(parts))
