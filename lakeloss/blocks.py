@@ -272,10 +272,9 @@ def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndar
 
 PHYSICS_COLUMNS = 4096
 """Water bodies per physics call: every input and temporary of a call, (steps, 4096) float64
-= 512 KiB for a 16-step block, then stays in the CPU cache. At (16, 2x10^5) this made the
-physics 1.6-1.9x faster than one call over all bodies, and a whole run of 10^5 ponds took
-0.98 of the CPU of the earlier in-place formulas instead of 1.056 (benchmarks/README.md,
-Physics); the numbers are the same, each element being computed alone."""
+= 512 KiB for a 16-step block, then stays in the CPU cache, which lets the formulas be
+written plainly without losing speed (benchmarks/README.md, "Physics"); the numbers are
+the same, each element being computed alone."""
 
 
 def evaporate_block(

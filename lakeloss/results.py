@@ -368,7 +368,8 @@ def _period_table(
     compared = config.method.all[1:]
     # Rows by water body, then period: the (period, body) sums transposed, so no sort of
     # n_periods x n rows is needed. The numbers are written once into one float block that
-    # the frame adopts as it is: building it from separate columns copied 0.5 GB at 10^6.
+    # the frame adopts as it is, as separate columns would be copied once more
+    # (benchmarks/README.md, "End to end", figures behind the code).
     names = _PERIOD_NUMBERS + [f"evap_mm_{name}" for name in compared]
     block = np.empty((len(names), n, n_periods))
     block[0] = evap
@@ -438,7 +439,8 @@ def _summaries(
     ``by_period`` must be laid out as :func:`_period_table` builds it: ``n_periods`` rows per
     water body, bodies in the order of ``bodies``, periods in time order. Its columns are
     then (body, period) arrays, and the totals are counted with one ``bincount`` per column
-    over integer (group, period) codes: for 10^7 rows many times faster than a group-by.
+    over integer (group, period) codes, as a group-by is far slower on 10^7 rows
+    (benchmarks/README.md, "End to end", figures behind the code).
     """
     n = len(bodies)
     area = bodies["area_m2"].to_numpy(dtype=float)
