@@ -163,14 +163,13 @@ def _stages(
 
 
 def _open_field(item: ClimateInput, chunk_steps: int) -> climate_io.ClimateField:
-    # config.py refuses a NetCDF/Zarr entry without variable, a GeoTIFF one without start/step.
+    # config.py refuses a NetCDF or Zarr entry without variable.
     if item.format in ("netcdf", "zarr"):
         assert item.variable is not None
         return climate_io.open_netcdf(
             item.path, item.variable, item.key, units=item.units, crs=item.crs,
             chunk_steps=chunk_steps,
         )  # fmt: skip
-    assert item.start is not None and item.step is not None
     return climate_io.open_geotiff_stack(
         item.path,
         item.key,
