@@ -11,7 +11,7 @@ islands, Albers equal-area CRS; see ``synthetic.py``) over a 0.05 degree lat/lon
   same process (the first call also pays for the operating system handing out fresh pages
   for the (365 x n) float64 output: 2.9 GB at 10^6 ponds), the same call into an output
   buffer written once before, the call in the pipeline's 16-step blocks, and the 16-step
-  blocks for one column per group of bodies with identical means (``lakeloss.distinct``);
+  blocks for one column per group of bodies with identical means (``lakeloss.grouping``);
 * exactextract in the same process on the same reprojected polygons: its per-cell weights
   (``["cell_id", "coverage"]``) and, up to ``--ee-mean-max`` ponds, its own 365-band
   area-weighted mean (with a check that both means agree);
@@ -46,7 +46,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from synthetic import REGION, cached_layer  # noqa: E402
 
-from lakeloss.distinct import distinct_bodies  # noqa: E402
+from lakeloss.grouping import group_bodies  # noqa: E402
 from lakeloss.zonal import GridSpec, build_weights, reproject_to_grid  # noqa: E402
 from lakeloss.zonal.grid import geographic_cell_area  # noqa: E402
 
@@ -163,7 +163,7 @@ def run_one(n_ponds: int, steps: int, ee_weights: bool, ee_mean: bool) -> dict:
     buffer.resize(0, refcheck=False)  # give the 2.9 GB back before the next measurement
     # What the pipeline computes: one column per group of bodies with identical means
     # (ponds inside one shared cell); a body's means are its group's column.
-    groups = distinct_bodies({"grid": weights}, {}, set())
+    groups = group_bodies({"grid": weights}, {}, set())
     figures["groups"] = groups.n_groups
     grouped = weights.take_rows(groups.representative)
     _, figures["apply_groups_s"], _ = measured(lambda: apply_in_blocks(grouped, next_year, 16))

@@ -41,21 +41,33 @@ dam-safety decisions.
 
 from __future__ import annotations
 
-from typing import Any
+from collections.abc import Mapping
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from lakeloss.config import RunConfig
+    from lakeloss.progress import ProgressFactory
+    from lakeloss.results import RunResult
 
 __version__ = "0.1.0"
 
 __all__ = ["__version__", "load_config", "run"]
 
 
-def load_config(config: Any) -> Any:
+def load_config(config: str | Path | Mapping[str, Any] | RunConfig) -> RunConfig:
     """Load and validate a run configuration (see :func:`lakeloss.config.load_config`)."""
     from lakeloss.config import load_config as _load
 
     return _load(config)
 
 
-def run(config: Any, *, progress: Any = None, series: bool | None = None) -> Any:
+def run(
+    config: str | Path | Mapping[str, Any] | RunConfig,
+    *,
+    progress: bool | ProgressFactory | None = None,
+    series: bool | None = None,
+) -> RunResult:
     """Run the whole batch in memory and return a :class:`lakeloss.results.RunResult`.
 
     Parameters

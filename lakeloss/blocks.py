@@ -2,8 +2,8 @@
 
 :func:`compute_block` is a pure function of its arguments (the block's context, the weights,
 the per-body inputs and the block's time slice), so every scheduler — this process's thread
-pool or a dask.distributed worker — gives the same numbers; :func:`merge_block` adds the
-results into :class:`RunningSums`, in block order, in fixed point so that any split of the
+pool or a dask.distributed worker — gives the same numbers; :func:`add_block` adds the
+results into :class:`RunningTotals`, in block order, in fixed point so that any split of the
 time axis gives the same bits.
 """
 
@@ -14,7 +14,7 @@ import threading
 import weakref
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -22,10 +22,13 @@ from lakeloss.gaps import BlockGaps, GapTally, count_block, fill_short_gaps, hal
 from lakeloss.physics import registry
 from lakeloss.zonal import ZonalWeights
 
+if TYPE_CHECKING:
+    from lakeloss.io.climate import ClimateField
+
 
 @dataclass
-class PeriodSums:
-    """Running sums per (period, water body), accumulated block by block."""
+class PeriodTotals:
+    """Totals per (period, water body) as float64, once every block is added."""
 
     depth: dict[str, np.ndarray]
     precip: np.ndarray
@@ -37,9 +40,9 @@ class PeriodSums:
     steps: int = 0
     gaps: GapTally | None = None
 
-    def for_members(self, member_of: np.ndarray) -> PeriodSums:
-        """The sums of every body from those of its group (``member_of``: group per body)."""
-        return PeriodSums(
+    def for_members(self, member_of: np.ndarray) -> PeriodTotals:
+        """The totals of every body from those of its group (``member_of``: group per body)."""
+        return PeriodTotals(
             depth={name: values[:, member_of] for name, values in self.depth.items()},
             precip=self.precip[:, member_of],
             valid_steps=self.valid_steps[:, member_of],
@@ -61,7 +64,7 @@ class BlockContext:
     once.
     """
 
-    fields: Mapping[str, Any]
+    fields: Mapping[str, ClimateField]
     field_grid: Mapping[str, str]
     methods: tuple[str, ...]
     primary: str
@@ -71,7 +74,7 @@ class BlockContext:
     period_index: np.ndarray
     keep_series: bool = False
     body_count: np.ndarray | None = None
-    """Bodies each column stands for (:mod:`lakeloss.distinct`); None: one each."""
+    """Bodies each column stands for (:mod:`lakeloss.grouping`); None: one each."""
     max_gap_steps: int = 0
     """Longest gap in a body's climate filled by interpolation (:mod:`lakeloss.gaps`)."""
     clip_negative: bool = True
@@ -84,8 +87,8 @@ class BlockResult:
 
     block: slice
     periods: np.ndarray
-    depth: dict[str, FixedSums]
-    precip: FixedSums | None
+    depth: dict[str, FixedPointTotals]
+    precip: FixedPointTotals | None
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
     covered_steps: np.ndarray
@@ -269,10 +272,9 @@ def _grid_values(context: BlockContext, block: slice) -> dict[str, tuple[np.ndar
 
 PHYSICS_COLUMNS = 4096
 """Water bodies per physics call: every input and temporary of a call, (steps, 4096) float64
-= 512 KiB for a 16-step block, then stays in the CPU cache. At (16, 2x10^5) this made the
-physics 1.6-1.9x faster than one call over all bodies, and a whole run of 10^5 ponds took
-0.98 of the CPU of the earlier in-place formulas instead of 1.056 (benchmarks/README.md,
-Physics); the numbers are the same, each element being computed alone."""
+= 512 KiB for a 16-step block, then stays in the CPU cache, which lets the formulas be
+written plainly without losing speed (benchmarks/README.md, "Physics"); the numbers are
+the same, each element being computed alone."""
 
 
 def evaporate_block(
@@ -282,7 +284,11 @@ def evaporate_block(
     day_of_year: np.ndarray,
 ) -> dict[str, np.ndarray]:
     """Evaporation rate [mm day-1] of every configured method for one block."""
-    physics_inputs: dict[str, Any] = {**means, **static, "day_of_year": day_of_year[:, np.newaxis]}
+    physics_inputs: dict[str, np.ndarray] = {
+        **means,
+        **static,
+        "day_of_year": day_of_year[:, np.newaxis],
+    }
     physics_inputs.pop("precipitation", None)
     params = dict(context.parameters)
     shape = next(iter(means.values())).shape
@@ -320,27 +326,27 @@ def _to_fixed(values: np.ndarray) -> np.ndarray:
 
 
 @dataclass
-class FixedSums:
-    """Sums per (period, water body) in fixed point, and where a missing value was met."""
+class FixedPointTotals:
+    """Totals per (period, water body) in fixed point, and where a missing value was met."""
 
     total: np.ndarray
     missing: np.ndarray
 
     @classmethod
-    def zeros(cls, n_periods: int, n: int) -> FixedSums:
+    def zeros(cls, n_periods: int, n: int) -> FixedPointTotals:
         return cls(np.zeros((n_periods, n), dtype=np.int64), np.zeros((n_periods, n), bool))
 
     @classmethod
     def of_segments(
         cls, values: np.ndarray, period_index: np.ndarray
-    ) -> tuple[np.ndarray, FixedSums]:
+    ) -> tuple[np.ndarray, FixedPointTotals]:
         """The periods a block touches and its sums over each (NaN makes a sum missing)."""
         missing = ~np.isfinite(values)
         periods, total = _segment_sums(_to_fixed(np.where(missing, 0.0, values)), period_index)
         starts = np.flatnonzero(np.r_[True, period_index[1:] != period_index[:-1]])
         return periods, cls(total, np.logical_or.reduceat(missing, starts, axis=0))
 
-    def add(self, periods: np.ndarray, part: FixedSums) -> None:
+    def add(self, periods: np.ndarray, part: FixedPointTotals) -> None:
         self.total[periods] += part.total
         self.missing[periods] |= part.missing
 
@@ -377,9 +383,11 @@ def compute_block(
             negatives_per_body = per_body
         if clip and negatives[name]:
             rate = np.where(negative, 0.0, rate)
-        periods, depth[name] = FixedSums.of_segments(rate * days, index)
+        periods, depth[name] = FixedPointTotals.of_segments(rate * days, index)
     precip = means.get("precipitation")
-    precip_sums = FixedSums.of_segments(precip * days, index)[1] if precip is not None else None
+    precip_sums = (
+        FixedPointTotals.of_segments(precip * days, index)[1] if precip is not None else None
+    )
     finite = np.isfinite(rates[context.primary]).astype(np.int64)
     series = None
     if context.keep_series:
@@ -403,11 +411,11 @@ def compute_block(
 
 
 @dataclass
-class RunningSums:
-    """The period sums while blocks are merged: amounts in fixed point, counts as integers."""
+class RunningTotals:
+    """The period totals while blocks are added: amounts in fixed point, counts as integers."""
 
-    depth: dict[str, FixedSums]
-    precip: FixedSums
+    depth: dict[str, FixedPointTotals]
+    precip: FixedPointTotals
     valid_steps: np.ndarray
     coverage_sum: np.ndarray
     covered_steps: np.ndarray
@@ -416,9 +424,9 @@ class RunningSums:
     gaps: GapTally
     steps: int = 0
 
-    def finish(self) -> PeriodSums:
-        """The merged sums as float64 :class:`PeriodSums`."""
-        return PeriodSums(
+    def finish(self) -> PeriodTotals:
+        """The added-up totals as float64 :class:`PeriodTotals`."""
+        return PeriodTotals(
             depth={name: sums.value() for name, sums in self.depth.items()},
             precip=self.precip.value(),
             valid_steps=self.valid_steps,
@@ -431,27 +439,29 @@ class RunningSums:
         )
 
 
-def merge_block(sums: RunningSums, part: BlockResult) -> None:
-    """Add one block's result into the running sums (in block order, though exact in any)."""
+def add_block(totals: RunningTotals, part: BlockResult) -> None:
+    """Add one block's result into the running totals (in block order, though exact in any)."""
     for name, depth in part.depth.items():
-        sums.depth[name].add(part.periods, depth)
-        sums.negatives[name] = sums.negatives.get(name, 0) + part.negatives[name]
+        totals.depth[name].add(part.periods, depth)
+        totals.negatives[name] = totals.negatives.get(name, 0) + part.negatives[name]
     if part.precip is not None:
-        sums.precip.add(part.periods, part.precip)
-    sums.valid_steps[part.periods] += part.valid_steps
-    sums.coverage_sum += part.coverage_sum
-    sums.covered_steps += part.covered_steps
-    sums.negatives_per_body += part.negatives_per_body
-    sums.steps += part.steps
+        totals.precip.add(part.periods, part.precip)
+    totals.valid_steps[part.periods] += part.valid_steps
+    totals.coverage_sum += part.coverage_sum
+    totals.covered_steps += part.covered_steps
+    totals.negatives_per_body += part.negatives_per_body
+    totals.steps += part.steps
     if part.gaps is not None:
-        sums.gaps.add(part.block, part.gaps)
+        totals.gaps.add(part.block, part.gaps)
 
 
-def new_sums(methods: tuple[str, ...], n_periods: int, n: int, n_steps: int = 0) -> RunningSums:
-    """Zero sums for ``methods`` over (period, water body), and no gaps over ``n_steps``."""
-    return RunningSums(
-        depth={m: FixedSums.zeros(n_periods, n) for m in methods},
-        precip=FixedSums.zeros(n_periods, n),
+def zero_totals(
+    methods: tuple[str, ...], n_periods: int, n: int, n_steps: int = 0
+) -> RunningTotals:
+    """Zero totals for ``methods`` over (period, water body), and no gaps over ``n_steps``."""
+    return RunningTotals(
+        depth={m: FixedPointTotals.zeros(n_periods, n) for m in methods},
+        precip=FixedPointTotals.zeros(n_periods, n),
         valid_steps=np.zeros((n_periods, n), dtype=np.int64),
         coverage_sum=np.zeros(n, dtype=np.int64),
         covered_steps=np.zeros(n, dtype=np.int64),

@@ -71,7 +71,7 @@ class BodyFacts:
         0.5 % at 60° latitude (worst day of the year; computed with
         :func:`lakeloss.physics.radiation.extraterrestrial_radiation`); Ra enters the
         methods only through the clear-sky ratio of the longwave term. Bodies inside one
-        cell then share every input and are computed once (:mod:`lakeloss.distinct`).
+        cell then share every input and are computed once (:mod:`lakeloss.grouping`).
         """
         grid_key = inputs.field_grid.get(_SHORTWAVE) or next(iter(inputs.field_grid.values()))
         sun_weights = weights[grid_key]

@@ -52,7 +52,7 @@ def check_attributes(config: RunConfig, layer: vector_io.WaterBodyLayer) -> None
         elevations(layer.frame, config.waterbodies.elevation_field)  # refuse before computing
 
 
-def elevations(frame: Any, field_name: str) -> np.ndarray:
+def elevations(frame: pd.DataFrame, field_name: str) -> np.ndarray:
     """The elevation attribute as numbers [m]; empty or non-numeric values are refused."""
     values = pd.to_numeric(frame[field_name], errors="coerce").to_numpy(dtype=float)
     if not np.isfinite(values).all():
@@ -63,7 +63,9 @@ def elevations(frame: Any, field_name: str) -> np.ndarray:
     return values
 
 
-def check_wind_grids(fields: Mapping[str, Any], field_grid: Mapping[str, str]) -> None:
+def check_wind_grids(
+    fields: Mapping[str, climate_io.ClimateField], field_grid: Mapping[str, str]
+) -> None:
     """Refuse wind components on two grids: the speed is computed cell by cell."""
     if "wind_speed" not in fields and {"eastward_wind", "northward_wind"} <= set(fields):
         if field_grid["eastward_wind"] != field_grid["northward_wind"]:
@@ -118,15 +120,18 @@ def check_values(config: RunConfig, inputs: Inputs) -> list[str]:
     return reasons
 
 
-def refuse_empty(result: Any) -> None:
-    """Raise :class:`NoResultError` when no water body has a result for any period."""
-    bodies = result.waterbodies
-    if result.provenance["counts"]["without_any_result"] < len(bodies):
+def refuse_empty(counts: Mapping[str, Any]) -> None:
+    """Raise :class:`NoResultError` when no water body has a result for any period.
+
+    ``counts`` is run.json's ``counts`` (``RunResult.provenance["counts"]``).
+    """
+    bodies = counts["waterbodies"]
+    if counts["without_any_result"] < bodies:
         return
-    flags = result.provenance["counts"]["qa_flags"]
+    flags = counts["qa_flags"]
     reasons = ", ".join(f"{count} {flag}" for flag, count in flags.items()) or "no flag"
     raise NoResultError(
-        f"none of the {len(bodies)} water bodies has an evaporation result for any period "
+        f"none of the {bodies} water bodies has an evaporation result for any period "
         f"({reasons}); "
         "nothing was written; check that the climate covers the layer and has values over "
         "the whole run (see the warnings above)"

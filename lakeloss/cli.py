@@ -12,11 +12,15 @@ import os
 import sys
 import warnings
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import click
 
 from lakeloss.errors import LakelossError, LakelossWarning
+from lakeloss.progress import ProgressBar, ProgressFactory
+
+if TYPE_CHECKING:
+    from lakeloss.config import RunConfig
 
 EXIT_USER_ERROR = 2
 EXIT_UNEXPECTED = 1
@@ -47,7 +51,9 @@ def _configure_logging(verbose: int, quiet: bool) -> None:
             logging.getLogger(name).setLevel(logging.WARNING)
 
 
-def _show_warning(message: Any, category: Any, *args: Any, **kwargs: Any) -> None:
+def _show_warning(
+    message: Warning | str, category: type[Warning], *args: object, **kwargs: object
+) -> None:
     if issubclass(category, LakelossWarning):
         click.echo(f"warning: {message}", err=True)
     else:
@@ -121,12 +127,12 @@ def _execution(func: Callable[..., Any]) -> Callable[..., Any]:
     )(func)
 
 
-def _progress(quiet: bool) -> Any:
+def _progress(quiet: bool) -> ProgressFactory | None:
     if quiet:
         return None
     from tqdm import tqdm
 
-    def factory(total: int, label: str) -> Any:
+    def factory(total: int, label: str) -> ProgressBar:
         return tqdm(
             total=total, desc=label, unit="step", file=sys.stderr, disable=None, leave=False
         )
@@ -140,7 +146,7 @@ def _load(
     workers: int | None,
     scheduler: str | None,
     chunk_steps: int | None,
-) -> Any:
+) -> RunConfig:
     from lakeloss.config import load_config
 
     config = load_config(config_path).with_strict(strict)

@@ -16,7 +16,7 @@ import difflib
 import os
 import re
 import tomllib
-from collections.abc import Iterable, Mapping
+from collections.abc import Collection, Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -276,12 +276,12 @@ def reference_keys() -> dict[tuple[str, str], str]:
     return keys
 
 
-def _suggest(word: str, valid: Any) -> str:
+def _suggest(word: str, valid: Iterable[str]) -> str:
     close = difflib.get_close_matches(word, list(valid), n=1, cutoff=0.6)
     return f"; did you mean '{close[0]}'?" if close else ""
 
 
-def _check_keys(table: Mapping[str, Any], valid: Any, where: str) -> None:
+def _check_keys(table: Mapping[str, Any], valid: Collection[str], where: str) -> None:
     for key in table:
         if key not in valid:
             raise ConfigError(

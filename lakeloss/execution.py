@@ -30,10 +30,18 @@ import re
 from collections.abc import Iterator, Mapping, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from lakeloss.config import ComputeConfig
 from lakeloss.errors import ClusterError, LakelossError
+
+if TYPE_CHECKING:
+    import numpy as np
+    from distributed import Client
+
+    from lakeloss.blocks import BlockContext, BlockResult
+    from lakeloss.zonal import ZonalWeights
+    from lakeloss.zonal.partition import MapBlocks
 
 log = logging.getLogger(__name__)
 
@@ -51,7 +59,12 @@ def _local_threads() -> int:
     return max(1, min(2, os.cpu_count() or 1))
 
 
-def _run_local(context: Any, weights: Any, static: Any, blocks: Sequence[slice]) -> Iterator[Any]:
+def _run_local(
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    static: Mapping[str, np.ndarray],
+    blocks: Sequence[slice],
+) -> Iterator[BlockResult]:
     from lakeloss.blocks import compute_block
 
     threads = _local_threads()
@@ -60,7 +73,7 @@ def _run_local(context: Any, weights: Any, static: Any, blocks: Sequence[slice])
             yield compute_block(context, weights, static, block)
         return
     with ThreadPoolExecutor(max_workers=threads) as pool:
-        pending: list[Future[Any] | None] = [
+        pending: list[Future[BlockResult] | None] = [
             pool.submit(compute_block, context, weights, static, b) for b in blocks[:threads]
         ]
         for i in range(len(blocks)):
@@ -83,7 +96,7 @@ def _looks_like_file(target: str) -> bool:
     return "://" not in target and (target.endswith(".json") or os.sep in target)
 
 
-def _connect(target: str) -> Any:
+def _connect(target: str) -> Client:
     """A client of the running cluster at ``target`` (address or scheduler file)."""
     from distributed import Client
 
@@ -104,7 +117,7 @@ def _connect(target: str) -> Any:
         ) from err
 
 
-def _wait_for_workers(client: Any, target: str) -> None:
+def _wait_for_workers(client: Client, target: str) -> None:
     try:
         client.wait_for_workers(1, timeout=CONNECT_TIMEOUT_S)
     except (OSError, TimeoutError) as err:
@@ -115,7 +128,7 @@ def _wait_for_workers(client: Any, target: str) -> None:
 
 
 @contextlib.contextmanager
-def _client(compute: ComputeConfig) -> Iterator[Any]:
+def _client(compute: ComputeConfig) -> Iterator[Client]:
     from distributed import Client, LocalCluster
 
     if compute.scheduler:
@@ -150,8 +163,12 @@ def _lost_block(i: int, n: int, err: BaseException) -> ClusterError:
 
 
 def _run_cluster(
-    compute: ComputeConfig, context: Any, weights: Any, static: Any, blocks: Sequence[slice]
-) -> Iterator[Any]:
+    compute: ComputeConfig,
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    static: Mapping[str, np.ndarray],
+    blocks: Sequence[slice],
+) -> Iterator[BlockResult]:
     from distributed.client import FutureCancelledError
     from distributed.scheduler import KilledWorker
 
@@ -188,11 +205,11 @@ def _run_cluster(
 
 def run_blocks(
     compute: ComputeConfig,
-    context: Any,
-    weights: Mapping[str, Any],
-    static: Mapping[str, Any],
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    static: Mapping[str, np.ndarray],
     blocks: Sequence[slice],
-) -> Iterator[Any]:
+) -> Iterator[BlockResult]:
     """Compute every block and yield the results in block order.
 
     Parameters
@@ -224,7 +241,7 @@ def run_blocks(
 
 
 @contextlib.contextmanager
-def cluster_map(compute: ComputeConfig) -> Iterator[Any]:
+def cluster_map(compute: ComputeConfig) -> Iterator[MapBlocks | None]:
     """A ``map(func, *iterables)`` that runs on the configured cluster, or None locally.
 
     Used for the spatial blocks of a large layer's weights build; results come back in

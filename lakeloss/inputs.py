@@ -7,6 +7,7 @@ from typing import Any
 
 from lakeloss import timeaxis
 from lakeloss.io import climate as climate_io
+from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.zonal import GridSpec
 
@@ -22,7 +23,7 @@ class Inputs:
     grids: dict[str, GridSpec]
     field_grid: dict[str, str]
     warnings: list[str] = field(default_factory=list)
-    static_fields: dict[str, tuple[Any, str]] = field(default_factory=dict)
+    static_fields: dict[str, tuple[static_io.StaticField, str]] = field(default_factory=dict)
     # Typed Any: inside this class `warnings` names the field above, not the module.
     recorded: list[Any] = field(default_factory=list)
     """The lakeloss ``warnings.WarningMessage`` objects behind ``warnings``, kept to re-issue

@@ -24,11 +24,11 @@ import logging
 import os
 import time
 import warnings
-from collections.abc import Callable, Mapping
-from concurrent.futures import ThreadPoolExecutor
+from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -36,14 +36,14 @@ from lakeloss import timeaxis
 from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of this API
     BlockContext,
     BlockResult,
-    FixedSums,
-    PeriodSums,
-    RunningSums,
+    FixedPointTotals,
+    PeriodTotals,
+    RunningTotals,
+    add_block,
     compute_block,
     evaporate_block,
     extract_block,
-    merge_block,
-    new_sums,
+    zero_totals,
 )
 from lakeloss.body_facts import BodyFacts
 from lakeloss.checks import (
@@ -54,8 +54,7 @@ from lakeloss.checks import (
     check_wind_grids,
     refuse_empty,
 )
-from lakeloss.config import RunConfig, load_config
-from lakeloss.distinct import distinct_bodies, inputs_used
+from lakeloss.config import ClimateInput, RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
     GeometryRepairedWarning,
@@ -65,27 +64,37 @@ from lakeloss.errors import (
 )
 from lakeloss.gaps import DEFAULT_LIMIT
 from lakeloss.gaps import report as gap_report
+from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
 from lakeloss.io.run_record import inputs_provenance
+from lakeloss.progress import ProgressBar, ProgressFactory
 from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
 from lakeloss.series_stream import SeriesStream
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
+from lakeloss.zonal.partition import MapBlocks
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+    from lakeloss.results import RunResult
 
 log = logging.getLogger(__name__)
 
-ProgressFactory = Callable[[int, str], Any]
 SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 
 
 def run_stages(
-    config: RunConfig | Any, *, progress: ProgressFactory | None = None, series: bool | None = None
-) -> Any:
+    config: str | Path | Mapping[str, Any] | RunConfig,
+    *,
+    progress: ProgressFactory | None = None,
+    series: bool | None = None,
+) -> RunResult:
     """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
     config = load_config(config)
     # Hashing the inputs for run.json reads every file once more (GBs for a big run):
@@ -96,8 +105,11 @@ def run_stages(
 
 
 def _stages(
-    config: RunConfig, progress: ProgressFactory | None, series: bool | None, record: Any
-) -> Any:
+    config: RunConfig,
+    progress: ProgressFactory | None,
+    series: bool | None,
+    record: Future[list[dict[str, Any]]],
+) -> RunResult:
     from lakeloss.results import assemble
 
     timer = Timer()
@@ -120,20 +132,20 @@ def _stages(
     collector = SeriesStream(config, inputs) if keep_series else None
     with timer.stage("evaporate"):
         sink = collector.add if collector else None
-        sums = compute_sums(config, inputs, weights, facts, progress, sink)
+        totals = compute_totals(config, inputs, weights, facts, progress, sink)
     with timer.stage("aggregate"):
         run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
-        message = negative_warning(config, sums)
+        message = negative_warning(config, totals)
         if message:
             run_warnings.append(message)
-        assert sums.gaps is not None  # compute_sums always tallies the gaps
-        gaps = gap_report(sums.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
+        assert totals.gaps is not None  # compute_totals always tallies the gaps
+        gaps = gap_report(totals.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
         run_warnings += gap_warnings(gaps)
         result = assemble(
             config,
             inputs,
             facts,
-            sums,
+            totals,
             run_warnings,
             timer.seconds,
             series=collector.dataset() if collector else None,
@@ -143,15 +155,17 @@ def _stages(
         )
     for note in result.provenance["notes"]:
         log.warning(note)
-    refuse_empty(result)
+    refuse_empty(result.provenance["counts"])
     return result
 
 
 # --------------------------------------------------------------------------- load
 
 
-def _open_field(item: Any, chunk_steps: int) -> climate_io.ClimateField:
+def _open_field(item: ClimateInput, chunk_steps: int) -> climate_io.ClimateField:
+    # config.py refuses a NetCDF or Zarr entry without variable.
     if item.format in ("netcdf", "zarr"):
+        assert item.variable is not None
         return climate_io.open_netcdf(
             item.path, item.variable, item.key, units=item.units, crs=item.crs,
             chunk_steps=chunk_steps,
@@ -322,12 +336,16 @@ def build_weights(
     return out, not missing
 
 
-def _counting(mapper: Any, bar: Any) -> Any:
+def _counting(mapper: MapBlocks | None, bar: ProgressBar | None) -> MapBlocks | None:
     """A block mapper (the cluster's, or one after another here) that advances ``bar``."""
     if bar is None:
         return mapper
 
-    def counted(func: Any, frames: Any, grids: Any) -> list[Any]:
+    def counted(
+        func: Callable[..., ZonalWeights],
+        frames: Sequence[gpd.GeoDataFrame],
+        grids: Sequence[GridSpec],
+    ) -> list[ZonalWeights]:
         if mapper is not None:
             parts = list(mapper(func, frames, grids))
             bar.update(len(parts))
@@ -374,40 +392,40 @@ def gap_limit(config: RunConfig, axis: timeaxis.TimeAxis) -> int:
     return DEFAULT_LIMIT[axis.step]
 
 
-def compute_sums(
+def compute_totals(
     config: RunConfig,
     inputs: Inputs,
     weights: Mapping[str, ZonalWeights],
     facts: BodyFacts,
     progress: ProgressFactory | None = None,
     series_sink: SeriesSink | None = None,
-) -> PeriodSums:
+) -> PeriodTotals:
     """Run every block (locally or on a cluster) and merge the results in time order.
 
     The blocks are computed for one representative of each group of bodies with identical
-    inputs (:func:`lakeloss.distinct.distinct_bodies`) and the sums copied to every member.
+    inputs (:func:`lakeloss.grouping.group_bodies`) and the sums copied to every member.
     """
     from lakeloss.execution import run_blocks
 
     static = facts.physics_inputs()
-    groups = distinct_bodies(weights, static, inputs_used(config.method.all))
+    groups = group_bodies(weights, static, inputs_used(config.method.all))
     context = block_context(config, inputs, series_sink is not None, groups.count)
     n_steps = len(inputs.axis.days)
-    sums = new_sums(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
+    totals = zero_totals(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
     steps = aligned(block_steps(config, inputs, groups.n_groups), read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
     for part in run_blocks(config.compute, context, *shared, blocks):
-        merge_block(sums, part)
+        add_block(totals, part)
         if series_sink is not None and part.series is not None:
             series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
         if bar is not None:
             bar.update(part.steps)
     if bar is not None:
         bar.close()
-    merged = sums.finish()
-    return merged if groups.all_distinct else merged.for_members(groups.member_of)
+    merged = totals.finish()
+    return merged if groups.one_body_each else merged.for_members(groups.member_of)
 
 
 @dataclass

@@ -18,17 +18,16 @@ import shapely
 
 from lakeloss.checks import check_overlap, check_values
 from lakeloss.config import RunConfig
-from lakeloss.distinct import inputs_used
 from lakeloss.gaps import date_ranges, fill_short_gaps, steps_text
+from lakeloss.grouping import inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io.climate import crs_label
 from lakeloss.pipeline import gap_limit, load_inputs
 from lakeloss.sizing import block_steps
 
-# Wall seconds per unit of work, from the end-to-end benchmark of 10^6 ponds on the 2-core
-# reference machine, two threads, 2026-12-02 (benchmarks/README.md, "Session 2"): 62-73 s
-# measured, 69 s from these figures; 10^5 ponds 10-13 s measured, 10 s estimated. A "column"
-# is one distinct body the blocks compute (estimate_columns).
+# Wall seconds per unit of work, fitted to the end-to-end benchmark so that the estimate
+# lands within its measured range (benchmarks/README.md, "End to end", figures behind the
+# code). A "column" is one group of bodies the blocks compute (estimate_columns).
 _SECONDS_PER_POLYGON = 20e-6  # layer read, reprojection and weights build (cold cache)
 _SECONDS_PER_VALUE_APPLY = 1e-8  # one column x one step x one variable (read + zonal)
 _SECONDS_PER_VALUE_METHOD = 1.2e-7  # one column x one step x one method (physics, sums)
@@ -96,8 +95,8 @@ def _memory(config: RunConfig, inputs: Inputs, steps: int, columns: int) -> floa
     sums = n_periods * n * 8.0 * (len(config.method.all) + 2)
     block = steps * 8.0 * (columns * 24 + cells * len(inputs.fields))
     tables = n_periods * n * 120.0  # evaporation_by_period in pandas
-    # Interpreter, numpy/GDAL/PROJ and open climate files: about 0.7 GiB at any size in the
-    # end-to-end benchmark (1.4 GiB peak at 10^5 bodies, 4.6 GiB at 10^6).
+    # Interpreter, numpy/GDAL/PROJ and open climate files: a fixed base read off the
+    # end-to-end benchmark's peaks (benchmarks/README.md, "End to end", figures behind the code).
     base = 0.7 * 2**30
     return base + layer + weights + sums + block + tables
 
@@ -114,7 +113,7 @@ def _seconds(config: RunConfig, inputs: Inputs, columns: int) -> float:
 
 
 def estimate_columns(config: RunConfig, inputs: Inputs) -> int:
-    """About how many distinct bodies the blocks will compute (:mod:`lakeloss.distinct`).
+    """About how many distinct bodies the blocks will compute (:mod:`lakeloss.grouping`).
 
     Without building the weights: a body whose bounding box, its corners moved to the
     first climate grid, falls inside one cell is counted with the others of that cell;

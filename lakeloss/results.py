@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import cftime
 import numpy as np
@@ -22,6 +22,15 @@ from lakeloss.config import VOLUME_UNITS, RunConfig
 from lakeloss.errors import ConfigError
 from lakeloss.io.gpkg import FieldInfo
 from lakeloss.io.run_record import run_record
+from lakeloss.progress import ProgressBar, ProgressFactory
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+    import xarray as xr
+
+    from lakeloss.blocks import PeriodTotals
+    from lakeloss.gaps import GapReport
+    from lakeloss.inputs import Inputs
 
 # Result columns of the water-body layer: title, description, unit.
 _BODY_FIELDS: dict[str, tuple[str, str, str | None]] = {
@@ -130,11 +139,11 @@ class RunResult:
         Directory of the last :meth:`write`, None before.
     """
 
-    waterbodies: Any
+    waterbodies: gpd.GeoDataFrame
     by_period: pd.DataFrame
     summary_by_period: pd.DataFrame
     summary_by_group: pd.DataFrame | None
-    series: Any
+    series: xr.Dataset | None
     provenance: dict[str, Any]
     config: RunConfig
     id_field: str
@@ -142,7 +151,11 @@ class RunResult:
     written_to: Path | None = None
 
     def write(
-        self, directory: str | Path | None = None, *, overwrite: bool = False, progress: Any = None
+        self,
+        directory: str | Path | None = None,
+        *,
+        overwrite: bool = False,
+        progress: bool | ProgressFactory | None = None,
     ) -> Path:
         """Write every output file into ``directory`` (default ``[output] dir``), atomically.
 
@@ -184,7 +197,7 @@ class RunResult:
         )
 
 
-def progress_bars(progress: Any) -> Any:
+def progress_bars(progress: bool | ProgressFactory | None) -> ProgressFactory | None:
     """``progress`` as the pipeline takes it: a bar factory or None.
 
     True gives tqdm bars (notebook widgets where Jupyter's are available), False or None
@@ -195,7 +208,7 @@ def progress_bars(progress: Any) -> Any:
     if progress is True:
         from tqdm.auto import tqdm
 
-        def bars(total: int, label: str) -> Any:
+        def bars(total: int, label: str) -> ProgressBar:
             return tqdm(total=total, desc=label, leave=False)
 
         return bars
@@ -226,7 +239,7 @@ _NO_RESULT_GEOMETRY = {"geometry_empty", "geometry_null", "outside_grid"}
 def _flags(
     config: RunConfig,
     facts: BodyFacts,
-    sums: Any,
+    totals: PeriodTotals,
     coverage: np.ndarray,
     filled_steps: np.ndarray,
 ) -> np.ndarray:
@@ -239,14 +252,14 @@ def _flags(
         np.asarray(facts.layer_flags, dtype=object),
         np.asarray(facts.geometry_flags, dtype=object),
     )
-    valid_steps = sums.valid_steps.sum(axis=0)
+    valid_steps = totals.valid_steps.sum(axis=0)
     no_climate = valid_steps == 0
-    gaps = (valid_steps > 0) & (valid_steps < sums.steps)
+    gaps = (valid_steps > 0) & (valid_steps < totals.steps)
     # Judged over the steps with data: a day missing on the whole grid is a gap (flagged as
     # such), not a part of the polygon without climate.
-    spatial = facts.grid_coverage * sums.coverage_sum / np.maximum(sums.covered_steps, 1)
+    spatial = facts.grid_coverage * totals.coverage_sum / np.maximum(totals.covered_steps, 1)
     partial = (coverage > 0.0) & (spatial < _COVERAGE_FLAG_BELOW)
-    negative = sums.negatives_per_body > 0
+    negative = totals.negatives_per_body > 0
     negative_token = "negative_rates_clipped" if config.clip_negative else "negative_rates_kept"
     filled = filled_steps > 0
     any_flag = no_climate | gaps | filled | partial | negative
@@ -273,15 +286,21 @@ def _flags(
 
 
 def _body_table(
-    config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any, filled_steps: np.ndarray
-) -> Any:
+    config: RunConfig,
+    inputs: Inputs,
+    facts: BodyFacts,
+    totals: PeriodTotals,
+    filled_steps: np.ndarray,
+) -> gpd.GeoDataFrame:
     frame = inputs.layer.frame.copy()
     area = facts.area_m2
     primary = config.method.name
-    evap = sums.depth[primary].sum(axis=0)
-    precip = sums.precip.sum(axis=0) if config.output.precipitation else np.full(len(area), np.nan)
+    evap = totals.depth[primary].sum(axis=0)
+    precip = (
+        totals.precip.sum(axis=0) if config.output.precipitation else np.full(len(area), np.nan)
+    )
     total_days = float(inputs.axis.days.sum())
-    coverage = facts.grid_coverage * sums.coverage_sum / max(sums.steps, 1)
+    coverage = facts.grid_coverage * totals.coverage_sum / max(totals.steps, 1)
     frame["area_m2"] = area
     # Shown beside area_m2 so a geometry_repaired flag can be judged by what it changed.
     frame["area_before_repair_m2"] = facts.area_before_repair_m2
@@ -294,13 +313,13 @@ def _body_table(
     frame["climate_coverage"] = np.where(np.isfinite(coverage), coverage, 0.0)
     for name in config.method.compare:
         if name != primary:
-            frame[f"evap_mm_{name}"] = sums.depth[name].sum(axis=0)
+            frame[f"evap_mm_{name}"] = totals.depth[name].sum(axis=0)
     for unit in config.output.extra_volume_units:
         frame[f"evap_{unit}"] = frame["evap_m3"] * VOLUME_UNITS[unit]
         frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
     frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
     coverage = frame["climate_coverage"].to_numpy()
-    frame["qa_flags"] = _flags(config, facts, sums, coverage, filled_steps)
+    frame["qa_flags"] = _flags(config, facts, totals, coverage, filled_steps)
     geometry = frame.geometry.name
     return frame[[c for c in frame.columns if c != geometry] + [geometry]]
 
@@ -330,22 +349,27 @@ _PERIOD_KEYS = (
 _PERIOD_NUMBERS = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
 
 
-def _period_table(config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any) -> pd.DataFrame:
+def _period_table(
+    config: RunConfig, inputs: Inputs, facts: BodyFacts, totals: PeriodTotals
+) -> pd.DataFrame:
     """One row per water body and period, indexed by the water-body id (rows by body)."""
     periods = inputs.periods
     # Segments between the periods of a custom table are summed but not reported.
     kept = periods.rows
-    n_periods, n = len(kept), sums.depth[config.method.name].shape[1]
+    n_periods, n = len(kept), totals.depth[config.method.name].shape[1]
     ids = inputs.layer.frame[inputs.layer.id_field]
     body_of_row = np.repeat(np.arange(n), n_periods)
     period_of_row = np.tile(np.arange(n_periods), n)
-    evap = sums.depth[config.method.name][kept].T
-    precip = sums.precip[kept].T if config.output.precipitation else np.full((n, n_periods), np.nan)
+    evap = totals.depth[config.method.name][kept].T
+    precip = (
+        totals.precip[kept].T if config.output.precipitation else np.full((n, n_periods), np.nan)
+    )
     area = facts.area_m2[:, None]
     compared = config.method.all[1:]
     # Rows by water body, then period: the (period, body) sums transposed, so no sort of
     # n_periods x n rows is needed. The numbers are written once into one float block that
-    # the frame adopts as it is: building it from separate columns copied 0.5 GB at 10^6.
+    # the frame adopts as it is, as separate columns would be copied once more
+    # (benchmarks/README.md, "End to end", figures behind the code).
     names = _PERIOD_NUMBERS + [f"evap_mm_{name}" for name in compared]
     block = np.empty((len(names), n, n_periods))
     block[0] = evap
@@ -354,7 +378,7 @@ def _period_table(config: RunConfig, inputs: Any, facts: BodyFacts, sums: Any) -
     np.subtract(evap, precip, out=block[3])
     np.divide(np.multiply(block[3], area, out=block[4]), 1000.0, out=block[4])
     for i, name in enumerate(compared, start=len(_PERIOD_NUMBERS)):
-        block[i] = sums.depth[name][kept].T
+        block[i] = totals.depth[name][kept].T
     index = pd.Index(_repeat_rows(ids, body_of_row), name=inputs.layer.id_field)
     table = pd.DataFrame(block.reshape(len(names), -1).T, columns=names, index=index, copy=False)
     starts, ends = period_dates(
@@ -398,7 +422,9 @@ def period_dates(
         return dates(starts), dates(ends)
 
 
-def _repeat_rows(values: pd.Series, rows: np.ndarray) -> Any:
+def _repeat_rows(
+    values: pd.Series, rows: np.ndarray
+) -> pd.api.extensions.ExtensionArray | np.ndarray:
     """``values`` at positions ``rows``; string columns stay string arrays (no objects)."""
     if isinstance(values.dtype, pd.StringDtype):
         return values.array.take(rows)
@@ -406,14 +432,15 @@ def _repeat_rows(values: pd.Series, rows: np.ndarray) -> Any:
 
 
 def _summaries(
-    config: RunConfig, bodies: Any, by_period: pd.DataFrame, n_periods: int
+    config: RunConfig, bodies: gpd.GeoDataFrame, by_period: pd.DataFrame, n_periods: int
 ) -> tuple[pd.DataFrame, pd.DataFrame | None]:
     """Totals per period (and per group and period) of the period table.
 
     ``by_period`` must be laid out as :func:`_period_table` builds it: ``n_periods`` rows per
     water body, bodies in the order of ``bodies``, periods in time order. Its columns are
     then (body, period) arrays, and the totals are counted with one ``bincount`` per column
-    over integer (group, period) codes: for 10^7 rows many times faster than a group-by.
+    over integer (group, period) codes, as a group-by is far slower on 10^7 rows
+    (benchmarks/README.md, "End to end", figures behind the code).
     """
     n = len(bodies)
     area = bodies["area_m2"].to_numpy(dtype=float)
@@ -476,7 +503,9 @@ def _totals(
     return pd.concat(parts, axis=1)
 
 
-def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict[str, FieldInfo]]:
+def _field_info(
+    config: RunConfig, bodies: gpd.GeoDataFrame, id_field: str
+) -> dict[str, dict[str, FieldInfo]]:
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
     for name in config.method.all[1:]:
         body[f"evap_mm_{name}"] = FieldInfo(
@@ -500,18 +529,18 @@ def _field_info(config: RunConfig, bodies: Any, id_field: str) -> dict[str, dict
 
 def assemble(
     config: RunConfig,
-    inputs: Any,
+    inputs: Inputs,
     facts: BodyFacts,
-    sums: Any,
+    totals: PeriodTotals,
     run_warnings: list[str],
     timings: Mapping[str, float],
     *,
-    series: Any = None,
+    series: xr.Dataset | None = None,
     weights_cached: bool = False,
     inputs_record: list[dict[str, Any]] | None = None,
-    gaps: Any = None,
+    gaps: GapReport | None = None,
 ) -> RunResult:
-    """Build the result tables and the provenance from the period sums.
+    """Build the result tables and the provenance from the period totals.
 
     ``inputs_record`` is :func:`lakeloss.io.run_record.inputs_provenance`'s result when the
     caller already has it (the pipeline hashes the inputs in a background thread while it
@@ -520,13 +549,13 @@ def assemble(
     filled_steps = (
         gaps.filled_steps_per_body if gaps is not None else np.zeros(len(inputs.layer.frame), int)
     )
-    bodies = _body_table(config, inputs, facts, sums, filled_steps)
-    by_period = _period_table(config, inputs, facts, sums)
+    bodies = _body_table(config, inputs, facts, totals, filled_steps)
+    by_period = _period_table(config, inputs, facts, totals)
     summary_period, summary_group = _summaries(config, bodies, by_period, len(inputs.periods.rows))
     provenance = run_record(
         config,
         time_axis=inputs.axis.describe(),
-        counts=_counts(config, inputs, bodies, sums, filled_steps),
+        counts=_counts(config, inputs, bodies, totals, filled_steps),
         gaps=gaps,
         weights_cached=weights_cached,
         run_warnings=run_warnings,
@@ -555,11 +584,15 @@ def flag_counts(flags: pd.Series) -> dict[str, int]:
 
 
 def _counts(
-    config: RunConfig, inputs: Any, bodies: Any, sums: Any, filled_steps: np.ndarray
+    config: RunConfig,
+    inputs: Inputs,
+    bodies: gpd.GeoDataFrame,
+    totals: PeriodTotals,
+    filled_steps: np.ndarray,
 ) -> dict[str, Any]:
     """run.json's ``counts``: bodies, periods and steps, and how many of each kind of trouble."""
     flags = bodies["qa_flags"]
-    primary = sums.depth[config.method.name]
+    primary = totals.depth[config.method.name]
     return {
         "waterbodies": int(len(bodies)),
         "periods": int(len(inputs.periods.rows)),
@@ -571,6 +604,8 @@ def _counts(
         "qa_flags": flag_counts(flags),
         "no_valid_climate": int(flags.str.contains("no_valid_climate").sum()),
         "filled_climate_steps": int(filled_steps.sum()),
-        "negative_rates": {k: int(v) for k, v in sums.negatives.items()},
-        "negative_rates_clipped": int(sum(sums.negatives.values())) if config.clip_negative else 0,
+        "negative_rates": {k: int(v) for k, v in totals.negatives.items()},
+        "negative_rates_clipped": int(sum(totals.negatives.values()))
+        if config.clip_negative
+        else 0,
     }

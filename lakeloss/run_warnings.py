@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import warnings
 
-from lakeloss.blocks import PeriodSums
+from lakeloss.blocks import PeriodTotals
 from lakeloss.body_facts import BodyFacts
 from lakeloss.config import RunConfig
 from lakeloss.errors import (
@@ -32,12 +32,12 @@ def replay(seen: list[warnings.WarningMessage]) -> list[str]:
     return texts
 
 
-def negative_warning(config: RunConfig, sums: PeriodSums) -> str | None:
-    total = sum(sums.negatives.values())
+def negative_warning(config: RunConfig, totals: PeriodTotals) -> str | None:
+    total = sum(totals.negatives.values())
     if not total:
         return None
     verb = "set to zero" if config.clip_negative else "kept"
-    detail = ", ".join(f"{m}: {c}" for m, c in sums.negatives.items() if c)
+    detail = ", ".join(f"{m}: {c}" for m, c in totals.negatives.items() if c)
     message = (
         f"{total} negative daily evaporation rates (condensation or negative net "
         f"radiation) were {verb} ({detail})"

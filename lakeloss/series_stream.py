@@ -8,7 +8,7 @@ import tempfile
 from collections.abc import Mapping
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -17,6 +17,9 @@ from lakeloss.config import RunConfig
 from lakeloss.inputs import Inputs
 from lakeloss.io.run_record import CAUTION
 from lakeloss.sizing import block_steps
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 SERIES_VARIABLES: dict[str, dict[str, str]] = {
     # CF's lwe_water_evaporation_rate (canonical m s-1) is evaporation as a depth of liquid
@@ -80,7 +83,7 @@ class SeriesStream:
         for name, value in values.items():
             self.writer.write(name, block, np.asarray(value, dtype=np.float32))
 
-    def dataset(self) -> Any:
+    def dataset(self) -> xr.Dataset:
         import xarray as xr
 
         self.writer.close()

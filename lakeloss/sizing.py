@@ -16,8 +16,8 @@ from lakeloss.inputs import Inputs
 _WORKING_ARRAYS = 24
 _BLOCK_BUDGET_BYTES = 1.5e9
 # Longer blocks make the zonal product slower per step (its time series are transposed and
-# multiplied as one wide matrix): 16 steps ran a year of 10^5 bodies 35 % faster than 55
-# (benchmarks/README.md, "End to end"), and still amortise the per-block preparation.
+# multiplied as one wide matrix); 16 steps still amortise the per-block preparation
+# (benchmarks/README.md, "End to end", figures behind the code).
 _MAX_BLOCK_STEPS = 16
 
 
@@ -25,7 +25,7 @@ def block_steps(config: RunConfig, inputs: Inputs, columns: int | None = None) -
     """Time steps per block: from the config, or sized so a block fits the memory budget.
 
     ``columns`` is how many water bodies a block computes (the groups of
-    :mod:`lakeloss.distinct`); every body by default, which is the upper bound.
+    :mod:`lakeloss.grouping`); every body by default, which is the upper bound.
     """
     if config.compute.chunk_steps:
         return config.compute.chunk_steps
@@ -40,8 +40,8 @@ def block_steps(config: RunConfig, inputs: Inputs, columns: int | None = None) -
 def read_steps(config: RunConfig) -> int:
     """Time steps per lazy read of a climate field: the blocks, so no block reads more.
 
-    A block reads whole chunks of the lazy field; with 64-step chunks a 16-step block read
-    (and converted) four times the data it used, 3x slower over a year of 400 x 400 cells.
+    A block reads whole chunks of the lazy field, so longer chunks would read (and convert)
+    data the block does not use (benchmarks/README.md, "End to end", figures behind the code).
     """
     return config.compute.chunk_steps or _MAX_BLOCK_STEPS
 

@@ -590,7 +590,7 @@ def _table_lines(
 
 
 def _waterbodies_lines(
-    layer: survey.LayerSummary, active: Mapping[str, object], loaded: Any
+    layer: survey.LayerSummary, active: Mapping[str, object], loaded: config_schema.RunConfig
 ) -> list[str]:
     ids = [name for name in id_candidates(layer) if name != active.get("area_field")]
     groups = group_candidates(layer)
@@ -674,7 +674,9 @@ def _time_lines(matches: Iterable[Match]) -> list[str]:
     ]
 
 
-def _method_lines(result: Draft, mapping: Mapping[str, Any], loaded: Any) -> list[str]:
+def _method_lines(
+    result: Draft, mapping: Mapping[str, Any], loaded: config_schema.RunConfig
+) -> list[str]:
     others = list(result.methods[1:])
     lines = [
         f"# Methods your inputs allow: {', '.join(result.methods)}",
@@ -687,7 +689,9 @@ def _method_lines(result: Draft, mapping: Mapping[str, Any], loaded: Any) -> lis
     return lines
 
 
-def _parameter_lines(method: str, active: Mapping[str, object], loaded: Any) -> list[str]:
+def _parameter_lines(
+    method: str, active: Mapping[str, object], loaded: config_schema.RunConfig
+) -> list[str]:
     specs = registry.get(method).parameters
     defaults: dict[str, object] = {name: spec.default for name, spec in specs.items()}
     for name in config_schema.PIPELINE_PARAMETERS:

@@ -125,7 +125,7 @@ def _assert_identical(result, written, reference) -> None:
 def test_reference_is_not_trivial(reference):
     # The comparisons below mean something only if the numbers vary between bodies and months.
     result, _ = reference
-    # Bodies inside one shared climate cell get the same numbers (lakeloss.distinct), so
+    # Bodies inside one shared climate cell get the same numbers (lakeloss.grouping), so
     # not every row differs; most do, and every body's months differ.
     by_period = result.by_period
     assert by_period["evap_mm"].nunique() >= 0.8 * len(by_period)

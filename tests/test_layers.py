@@ -30,7 +30,7 @@ RUN_MODULES = {
     "lakeloss.report",
     "lakeloss.inputs",
     "lakeloss.blocks",
-    "lakeloss.distinct",
+    "lakeloss.grouping",
     "lakeloss.execution",
     "lakeloss.starter",
 }

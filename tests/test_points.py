@@ -209,7 +209,7 @@ def test_area_dependent_method_uses_the_stated_area(tmp_path):
 
 
 def test_points_group_with_bodies_of_identical_inputs_only(tmp_path):
-    """Bodies in one cell are computed once when their inputs are equal (lakeloss.distinct):
+    """Bodies in one cell are computed once when their inputs are equal (lakeloss.grouping):
     a grouped run must give each body the bits it gets when run alone."""
     layer = gpd.GeoDataFrame(
         {"dam": [1, 2, 3, 4], "area_ha": [5.0, 5.0, 5000.0, 5.0]},

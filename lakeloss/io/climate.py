@@ -16,7 +16,7 @@ from __future__ import annotations
 import dask
 import numpy as np
 
-from lakeloss.errors import ImplausibleValuesError, InputDataError
+from lakeloss.errors import ConfigError, ImplausibleValuesError, InputDataError
 from lakeloss.io import gridfile, multifile
 from lakeloss.io import units as units_io
 from lakeloss.io.gridfile import DIMS, ClimateField, crs_label
@@ -98,8 +98,8 @@ def open_geotiff_stack(
     path,
     quantity: str,
     *,
-    start: str,
-    step: str,
+    start: str | None,
+    step: str | None,
     units: str | None,
     calendar: str = "standard",
     crs: str | None = None,
@@ -115,9 +115,9 @@ def open_geotiff_stack(
         GeoTIFF (or any single-file raster GDAL reads) with bands in time order.
     quantity : str
         Glossary name or alias.
-    start : str
-        ISO date of the first band.
-    step : str
+    start : str or None
+        ISO date of the first band (None only with ``date_pattern`` or several files).
+    step : str or None
         ``"day"`` or ``"month"``; the band count gives the number of steps.
     units : str or None
         Unit of the values; None reads the ``units`` tag of the file or first band.
@@ -157,6 +157,11 @@ def open_geotiff_stack(
             path, quantity, date_pattern=date_pattern, step=step, units=units,
             calendar=calendar, crs=crs, chunk_steps=chunk_steps,
         )  # fmt: skip
+    if start is None or step is None:
+        raise ConfigError(
+            f"{quantity}: a GeoTIFF stack in one file needs start and step (the dates of its "
+            "bands), or date_pattern for files named by date"
+        )
     return gridfile.open_geotiff_file(
         path, quantity, start=start, step=step, units=units, calendar=calendar, crs=crs,
         end=end, chunk_steps=chunk_steps,

@@ -18,9 +18,9 @@ attribute table's key column and two OGC GeoPackage extensions:
 The Arrow types of an attribute table's columns are chosen so that GDAL declares the same
 GeoPackage types the columns had when lakeloss filled the tables with its own SQLite code
 (INTEGER, REAL, TEXT, DATE, DATETIME, BOOLEAN; dates as DATE, not DATETIME). That code (a
-child process fed through ``.npy`` files) was replaced on 2026-12-05: for 1.2 x 10^6 rows
-the whole output writing took the same time within noise (see benchmarks/README.md,
-"Outputs"), with the same values and types in the file.
+child process fed through ``.npy`` files) was replaced because it was no faster end to end
+and GDAL's writer is far less code (benchmarks/README.md, "Outputs"), with the same values
+and types in the file.
 """
 
 from __future__ import annotations
@@ -398,8 +398,8 @@ def _staging_pragmas() -> Iterator[None]:
     :class:`~lakeloss.io.atomic.OutputDirectory`). The option is process-wide: it is set
     only for the block, restored after, and left alone when the user has set it.
 
-    64 KiB pages took the layer of 10^6 polygons from 4.7-5.9 s to 3.6-4.2 s (two
-    alternating runs each, quiet machine).
+    Larger pages write a large layer measurably faster (benchmarks/README.md, "Outputs",
+    figures behind the code).
     """
     if pyogrio.get_gdal_config_option(_SQLITE_PRAGMA) is not None:
         yield
@@ -414,9 +414,9 @@ def _staging_pragmas() -> Iterator[None]:
 def _arrow_safe(frame: geopandas.GeoDataFrame) -> bool:
     """Whether GDAL's Arrow path gives the same field types as its row-by-row path.
 
-    Measured for 10^5 polygons: 0.8 s through Arrow against 1.1 s, with the same table
-    definition. Only for numeric and string columns: through Arrow, dates become DATETIME
-    and object columns of mixed types may not convert at all.
+    The Arrow path is faster with the same table definition (benchmarks/README.md,
+    "Outputs", figures behind the code). Only for numeric and string columns: through
+    Arrow, dates become DATETIME and object columns of mixed types may not convert at all.
     """
     geometry = frame.geometry.name
     return all(

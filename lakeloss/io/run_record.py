@@ -14,7 +14,7 @@ import platform
 from collections.abc import Mapping
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -22,6 +22,9 @@ from lakeloss import __version__
 from lakeloss.config import RunConfig
 from lakeloss.io import multifile
 from lakeloss.physics import registry
+
+if TYPE_CHECKING:
+    from lakeloss.gaps import GapReport
 
 CAUTION = (
     "Estimates for screening and water accounting only; not for design, licensing, "
@@ -35,7 +38,7 @@ def run_record(
     *,
     time_axis: str,
     counts: Mapping[str, Any],
-    gaps: Any,
+    gaps: GapReport | None,
     weights_cached: bool,
     run_warnings: list[str],
     timings: Mapping[str, float],
@@ -187,7 +190,7 @@ def _versions() -> dict[str, str]:
     return out
 
 
-def _gaps_record(gaps: Any) -> dict[str, Any]:
+def _gaps_record(gaps: GapReport | None) -> dict[str, Any] | None:
     """run.json's ``climate_gaps``: per variable, the steps filled and the steps left out."""
     if gaps is None:
         return {"filled": {}, "not_filled": {}}

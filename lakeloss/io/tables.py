@@ -6,14 +6,14 @@ the shortest round-trip form otherwise, ``\\n`` line endings, UTF-8, no index an
 stamps. Missing values are empty fields. There is deliberately no header comment, because
 comment lines break ordinary CSV readers; cautions belong in ``run.json`` and the README.
 
-The CSV writer formats column by column in blocks of rows. Libraries were measured against it
-and not taken, on 2026-12-05 (2 shared cores; 10^5-row body table, 12 columns): pandas'
-``to_csv`` took 3.8-5.2 s against 1.6-1.9 s here, has one float format for all columns
-(no per-column decimals, no ``-0.000`` repair) and writes ``True``/``False`` and cftime
-dates with a time of day; ``pyarrow.csv.write_csv`` took 0.4 s but quotes every text value
-and the header, writes whole floats as ``1`` and 1e-05 as ``0.00001``, negative zero as
-``-0``, dates with a time of day, and has no fixed number of decimals. Either would change
-the bytes of files users diff between runs.
+The CSV writer formats column by column in blocks of rows. pandas' ``to_csv`` and
+``pyarrow.csv.write_csv`` were measured against it and not taken, because neither gives
+these bytes (timings: benchmarks/README.md, "Outputs", figures behind the code): ``to_csv``
+has one float format for all columns (no per-column decimals, no ``-0.000`` repair) and
+writes ``True``/``False`` and cftime dates with a time of day; ``write_csv`` quotes every
+text value and the header, writes whole floats as ``1`` and 1e-05 as ``0.00001``, negative
+zero as ``-0``, dates with a time of day, and has no fixed number of decimals. Either would
+change the bytes of files users diff between runs.
 """
 
 from __future__ import annotations

@@ -9,12 +9,36 @@ Files (the names are a contract other tools rely on; see README, "Outputs"):
 from __future__ import annotations
 
 import shutil
+from collections.abc import Callable, Collection
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 from lakeloss.io.atomic import OutputDirectory
-from lakeloss.io.gpkg import write_geopackage
+from lakeloss.io.gpkg import FieldInfo, write_geopackage
 from lakeloss.io.tables import write_csv, write_json
+from lakeloss.progress import ProgressFactory
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+    import pandas as pd
+    import xarray as xr
+
+
+class RunTables(Protocol):
+    """What the writer reads of a run's result (:class:`lakeloss.results.RunResult`).
+
+    A protocol rather than the class itself: ``io/`` never imports the run.
+    """
+
+    waterbodies: gpd.GeoDataFrame
+    by_period: pd.DataFrame
+    summary_by_period: pd.DataFrame
+    summary_by_group: pd.DataFrame | None
+    series: xr.Dataset | None
+    provenance: dict[str, Any]
+    id_field: str
+    field_info: dict[str, dict[str, FieldInfo]]
+
 
 _DECIMALS = {
     "area_m2": 1,
@@ -30,7 +54,7 @@ _DECIMALS = {
 }
 
 
-def _decimals(columns: Any) -> dict[str, int]:
+def _decimals(columns: Collection[str]) -> dict[str, int]:
     out = {c: d for c, d in _DECIMALS.items() if c in columns}
     for column in columns:
         if column.startswith(("evap_mm_", "evap_m3_")):  # compare methods, as evap_mm / m3
@@ -40,13 +64,13 @@ def _decimals(columns: Any) -> dict[str, int]:
     return out
 
 
-def _body_csv(result: Any) -> Any:
+def _body_csv(result: RunTables) -> pd.DataFrame:
     table = result.waterbodies.drop(columns=result.waterbodies.geometry.name)
     columns = [result.id_field] + [c for c in table.columns if c != result.id_field]
     return table[columns].sort_values(["loss_rank"], kind="stable")
 
 
-def _write_series(series: Any, target: Path) -> None:
+def _write_series(series: xr.Dataset, target: Path) -> None:
     """Copy the streamed series file when there is one, else write the Dataset."""
     source = series.encoding.get("source")
     if source and Path(source).is_file():
@@ -55,11 +79,13 @@ def _write_series(series: Any, target: Path) -> None:
         series.to_netcdf(target, engine="netcdf4")
 
 
-def _files_to_write(result: Any) -> int:
+def _files_to_write(result: RunTables) -> int:
     return 4 + (result.summary_by_group is not None) + (result.series is not None)
 
 
-def write_result(result: Any, target: Path, *, overwrite: bool, progress: Any = None) -> Path:
+def write_result(
+    result: RunTables, target: Path, *, overwrite: bool, progress: ProgressFactory | None = None
+) -> Path:
     """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``.
 
     Everything finishes (or fails) before the staging directory is committed or removed.
@@ -87,7 +113,7 @@ def write_result(result: Any, target: Path, *, overwrite: bool, progress: Any = 
     return Path(target)
 
 
-def _write_tables(result: Any, staging: Path, tick: Any) -> None:
+def _write_tables(result: RunTables, staging: Path, tick: Callable[[], None]) -> None:
     """The CSVs and the optional series file; ``tick()`` after each file."""
     body = _body_csv(result)
     write_csv(staging / "summary_by_waterbody.csv", body, decimals=_decimals(body.columns))

@@ -11,6 +11,7 @@ from __future__ import annotations
 import textwrap
 
 from lakeloss.physics import registry
+from lakeloss.physics.forcing import Alternative
 
 WIDTH = 100
 """Longest line of the text, in characters."""
@@ -73,8 +74,8 @@ def _section(title: str, text: str) -> str:
     return f"{title}\n{_wrap(text)}"
 
 
-def _need_label(group: tuple[str, ...]) -> str:
-    names = " ".join(group)
+def _need_label(group: tuple[Alternative, ...]) -> str:
+    names = " ".join(name for alternative in group for name in alternative)
     if "radiative_flux" in names or "shortwave" in names:
         longwave = " (humidity only for the longwave term)" if "dew_point" in names else ""
         return "radiation" + longwave
@@ -89,10 +90,10 @@ def _need_label(group: tuple[str, ...]) -> str:
     return "air temperature"
 
 
-def _alternatives(group: tuple[str, ...]) -> list[str]:
+def _alternatives(group: tuple[Alternative, ...]) -> list[str]:
     shown: list[str] = []
     for alternative in group:
-        names = [part for part in alternative.split("+") if part not in _ALWAYS_DERIVED]
+        names = [part for part in alternative if part not in _ALWAYS_DERIVED]
         text = " + ".join(names) or "the water-body area (always given)"
         if text not in shown:
             shown.append(text)

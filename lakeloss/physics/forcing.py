@@ -18,29 +18,36 @@ from lakeloss.physics._types import ArrayLike
 
 Inputs = Mapping[str, ArrayLike]
 
-HUMIDITY_ALTERNATIVES: tuple[str, ...] = (
-    "water_vapor_partial_pressure_in_air",
-    "dew_point_temperature",
-    "specific_humidity+surface_air_pressure",
-    "relative_humidity_max+relative_humidity_min+air_temperature_max+air_temperature_min",
-    "relative_humidity_max+air_temperature_min",
-    "relative_humidity",
+Alternative = tuple[str, ...]
+"""Glossary names that together give one quantity (e.g. the two wind components)."""
+
+HUMIDITY_ALTERNATIVES: tuple[Alternative, ...] = (
+    ("water_vapor_partial_pressure_in_air",),
+    ("dew_point_temperature",),
+    ("specific_humidity", "surface_air_pressure"),
+    (
+        "relative_humidity_max",
+        "relative_humidity_min",
+        "air_temperature_max",
+        "air_temperature_min",
+    ),
+    ("relative_humidity_max", "air_temperature_min"),
+    ("relative_humidity",),
 )
 """Ways to obtain the actual vapour pressure, in the order :func:`vapour_pressure` prefers them."""
 
-TEMPERATURE_ALTERNATIVES: tuple[str, ...] = (
-    "air_temperature",
-    "air_temperature_max+air_temperature_min",
-)
-WIND_ALTERNATIVES: tuple[str, ...] = ("wind_speed", "eastward_wind+northward_wind")
-RADIATION_ALTERNATIVES: tuple[str, ...] = (
-    "surface_net_downward_radiative_flux",
-    "surface_downwelling_shortwave_flux_in_air+latitude+day_of_year",
+TEMPERATURE_EXTREMES: Alternative = ("air_temperature_max", "air_temperature_min")
+TEMPERATURE_ALTERNATIVES: tuple[Alternative, ...] = (("air_temperature",), TEMPERATURE_EXTREMES)
+WIND_COMPONENTS: Alternative = ("eastward_wind", "northward_wind")
+WIND_ALTERNATIVES: tuple[Alternative, ...] = (("wind_speed",), WIND_COMPONENTS)
+RADIATION_ALTERNATIVES: tuple[Alternative, ...] = (
+    ("surface_net_downward_radiative_flux",),
+    ("surface_downwelling_shortwave_flux_in_air", "latitude", "day_of_year"),
 )
 
 
-def _has(inputs: Inputs, alternative: str) -> bool:
-    return all(name in inputs for name in alternative.split("+"))
+def _has(inputs: Inputs, alternative: Alternative) -> bool:
+    return all(name in inputs for name in alternative)
 
 
 def mean_temperature(inputs: Inputs) -> ArrayLike:
@@ -52,12 +59,12 @@ def mean_temperature(inputs: Inputs) -> ArrayLike:
 
 def has_temperature_extremes(inputs: Inputs) -> bool:
     """Whether ``air_temperature_max`` and ``air_temperature_min`` are both given."""
-    return _has(inputs, "air_temperature_max+air_temperature_min")
+    return _has(inputs, TEMPERATURE_EXTREMES)
 
 
 def temperature_extremes(inputs: Inputs) -> tuple[ArrayLike, ArrayLike]:
     """(Tmax, Tmin) [°C] when both are given, else the mean temperature twice."""
-    if _has(inputs, "air_temperature_max+air_temperature_min"):
+    if _has(inputs, TEMPERATURE_EXTREMES):
         return inputs["air_temperature_max"], inputs["air_temperature_min"]
     mean = mean_temperature(inputs)
     return mean, mean

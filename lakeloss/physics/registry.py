@@ -1,7 +1,7 @@
 """Registry of evaporation methods: what each needs, its parameters, and how to run it.
 
 Each method is a :class:`MethodSpec` naming its required inputs (groups of alternatives, each
-alternative a '+'-joined set of glossary names), its optional inputs, its parameters with
+alternative a tuple of glossary names), its optional inputs, its parameters with
 defaults and valid ranges, a one-line description and its reference. :func:`evaporate`
 prepares the forcing from whatever inputs are given (:mod:`lakeloss.physics.forcing`) and
 returns the rate in mm day-1 as a numpy array.
@@ -71,9 +71,9 @@ class MethodSpec:
         One line.
     reference : str
         Published source of the method.
-    requires : tuple of tuple of str
-        Each entry is one need; its items are alternatives, each a '+'-joined set of glossary
-        names that together satisfy the need.
+    requires : tuple of tuple of tuple of str
+        Each entry is one need; its items are alternatives, each a tuple of glossary names
+        that together satisfy the need.
     optional : tuple of str
         Inputs used when present.
     parameters : Mapping[str, ParameterSpec]
@@ -87,7 +87,7 @@ class MethodSpec:
     name: str
     description: str
     reference: str
-    requires: tuple[tuple[str, ...], ...]
+    requires: tuple[tuple[frc.Alternative, ...], ...]
     optional: tuple[str, ...]
     parameters: Mapping[str, ParameterSpec]
     compute: Callable[[frc.Inputs, _Checked], ArrayLike] = field(repr=False, compare=False)
@@ -128,13 +128,12 @@ def _params(*names: str) -> Mapping[str, ParameterSpec]:
     return MappingProxyType({name: _PARAMETERS[name] for name in names})
 
 
-def _cross(*groups: tuple[str, ...]) -> tuple[str, ...]:
-    """Every way to satisfy all groups at once, as '+'-joined name sets without repeats."""
-    combos = []
-    for parts in itertools.product(*groups):
-        names = dict.fromkeys(name for part in parts for name in part.split("+"))
-        combos.append("+".join(names))
-    return tuple(combos)
+def _cross(*groups: tuple[frc.Alternative, ...]) -> tuple[frc.Alternative, ...]:
+    """Every way to satisfy all groups at once, as name tuples without repeats."""
+    return tuple(
+        tuple(dict.fromkeys(name for part in parts for name in part))
+        for parts in itertools.product(*groups)
+    )
 
 
 # Net radiation from shortwave needs humidity for the longwave term; methods that need
@@ -476,7 +475,7 @@ _METHODS: dict[str, MethodSpec] = {
             "penman_small_water_body",
             "Penman with an area-dependent wind function (small water bodies)",
             "McJannet, Webster & Cook (2012) Environ. Model. Softw. 31, 76-83",
-            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES, ("area_m2",)),
+            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES, (("area_m2",),)),
             (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
             _params("albedo", *_WIND_PARAMS, "small_water_body_wind_form", "elevation_m"),
             _penman_small_water_body,
@@ -496,7 +495,7 @@ _METHODS: dict[str, MethodSpec] = {
             "pan_coefficient",
             "pan evaporation times a pan-to-lake coefficient",
             "Kohler, Nordenson & Fox (1955) US Weather Bureau Research Paper 38",
-            (("pan_evaporation",),),
+            ((("pan_evaporation",),),),
             (),
             _params("pan_coefficient"),
             _pan,
@@ -538,8 +537,8 @@ def _unknown_message(kind: str, name: object, known: Iterable[str]) -> str:
     return f"unknown {kind} {name!r}{hint}; expected one of: {', '.join(known)}"
 
 
-def _satisfied(alternative: str, available: set[str]) -> bool:
-    return all(part in available for part in alternative.split("+"))
+def _satisfied(alternative: frc.Alternative, available: set[str]) -> bool:
+    return all(part in available for part in alternative)
 
 
 def missing_inputs(name: str, available: Iterable[str]) -> list[str]:
@@ -554,7 +553,8 @@ def missing_inputs(name: str, available: Iterable[str]) -> list[str]:
     for group in spec.requires:
         if any(_satisfied(alternative, have) for alternative in group):
             continue
-        missing.append(group[0] if len(group) == 1 else "one of: " + " | ".join(group))
+        shown = ["+".join(alternative) for alternative in group]
+        missing.append(shown[0] if len(shown) == 1 else "one of: " + " | ".join(shown))
     return missing
 
 
@@ -687,7 +687,7 @@ def validate_parameters(name: str, params: Mapping[str, object]) -> dict[str, ob
 
 
 def _used_shapes(spec: MethodSpec, inputs: Mapping[str, np.ndarray]) -> list[tuple[int, ...]]:
-    names = {part for group in spec.requires for alt in group for part in alt.split("+")}
+    names = {part for group in spec.requires for alt in group for part in alt}
     names.update(spec.optional)
     return [inputs[key].shape for key in names if key in inputs]
 

@@ -266,6 +266,16 @@ def test_check_values_strict_and_lenient(tmp_path, build):
 # ----------------------------------------------------------------------------- GeoTIFF
 
 
+def test_geotiff_stack_in_one_file_without_band_dates_is_a_config_error(tmp_path, build):
+    # The configuration refuses this before; a caller of the function gets the same kind of
+    # one-line error instead of a failure inside the band-date arithmetic.
+    path = build.write_geotiff(tmp_path / "wind.tif", np.ones((2, 2, 4)), tags={"units": "m s-1"})
+    with pytest.raises(ConfigError, match="needs start and step"):
+        open_geotiff_stack(path, "wind_speed", start=None, step="day", units=None)
+    with pytest.raises(ConfigError, match="needs start and step"):
+        open_geotiff_stack(path, "wind_speed", start="2021-03-30", step=None, units=None)
+
+
 def test_geotiff_stack_reads_bands_lazily_with_nodata(tmp_path, build):
     bands = np.arange(3 * 2 * 4, dtype=float).reshape(3, 2, 4)
     bands[2, 1, 3] = -9999.0

@@ -89,7 +89,8 @@ def test_specs_are_complete_and_use_glossary_names(name):
     for group in spec.requires:
         assert group, "a need without alternatives can never be met"
         for alternative in group:
-            assert set(alternative.split("+")) <= known, alternative
+            assert isinstance(alternative, tuple), alternative
+            assert set(alternative) <= known, alternative
     assert set(spec.optional) <= known
     with pytest.raises(AttributeError):
         spec.name = "other"  # frozen

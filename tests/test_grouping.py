@@ -1,4 +1,4 @@
-"""Bodies with identical inputs are computed once (lakeloss.distinct) and get their own results."""
+"""Bodies with identical inputs are computed once (lakeloss.grouping) and get their own results."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from builders import LAT, LAYER_CRS, LON, case_config, climate_dataset, write_ne
 from pyproj import Transformer
 
 import lakeloss
-from lakeloss.distinct import distinct_bodies, inputs_used
+from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.zonal import GridSpec, build_weights
 
 GRID = GridSpec.from_centres(LON, LAT, "EPSG:4326")
@@ -70,7 +70,7 @@ def test_used_static_inputs_split_groups_and_unused_ones_do_not():
     assert "elevation" in used and "latitude" in used and "area_m2" not in used
     assert "area_m2" in inputs_used(["penman_small_water_body"])
 
-    groups = distinct_bodies(weights, static, used)
+    groups = group_bodies(weights, static, used)
     # {0, 1, 5} share cell and elevation; 2 differs in elevation; 3, 4, 6 stand alone.
     assert groups.n_groups == 5 and groups.n_bodies == 7
     assert groups.representative.tolist() == [0, 2, 3, 4, 6]
@@ -78,7 +78,7 @@ def test_used_static_inputs_split_groups_and_unused_ones_do_not():
     assert groups.count.tolist() == [3, 1, 1, 1, 1]
 
     # The area splits the same-cell ponds only for a method that reads it.
-    by_area = distinct_bodies(weights, static, inputs_used(["penman_small_water_body"]))
+    by_area = group_bodies(weights, static, inputs_used(["penman_small_water_body"]))
     assert by_area.n_groups == 7
     assert (by_area.representative[by_area.member_of] == np.arange(7)).all()
 

@@ -20,7 +20,7 @@ from lakeloss.zonal import ZonalWeights
 
 
 @dataclass(frozen=True)
-class DistinctBodies:
+class BodyGroups:
     """Groups of water bodies with identical inputs to the per-block computation.
 
     Attributes
@@ -46,25 +46,25 @@ class DistinctBodies:
         return int(self.member_of.size)
 
     @property
-    def all_distinct(self) -> bool:
+    def one_body_each(self) -> bool:
         """No two bodies alike: every group is one body, in layer order."""
         return self.n_groups == self.n_bodies
 
     def group_weights(self, weights: Mapping[str, ZonalWeights]) -> dict[str, ZonalWeights]:
         """The weights of the representatives only (the same objects when all distinct)."""
-        if self.all_distinct:
+        if self.one_body_each:
             return dict(weights)
         return {key: w.take_rows(self.representative) for key, w in weights.items()}
 
     def group_values(self, values: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
         """Per-body arrays ``(..., n)`` cut to the representatives ``(..., k)``."""
-        if self.all_distinct:
+        if self.one_body_each:
             return dict(values)
         return {name: v[..., self.representative] for name, v in values.items()}
 
     def body_values(self, values: np.ndarray) -> np.ndarray:
         """Per-group array ``(..., k)`` copied out to every member ``(..., n)``."""
-        return values if self.all_distinct else values[..., self.member_of]
+        return values if self.one_body_each else values[..., self.member_of]
 
 
 def inputs_used(methods: Iterable[str]) -> set[str]:
@@ -74,16 +74,16 @@ def inputs_used(methods: Iterable[str]) -> set[str]:
         spec = registry.get(name)
         for need in spec.requires:
             for alternative in need:
-                names.update(alternative.split("+"))
+                names.update(alternative)
         names.update(spec.optional)
     return names
 
 
-def distinct_bodies(
+def group_bodies(
     weights: Mapping[str, ZonalWeights],
     static: Mapping[str, np.ndarray],
     used: set[str],
-) -> DistinctBodies:
+) -> BodyGroups:
     """Group the bodies whose zonal means on every grid and used static inputs are equal.
 
     Parameters
@@ -116,7 +116,7 @@ def distinct_bodies(
     order = np.argsort(first, kind="stable")
     renumber = np.empty_like(order)
     renumber[order] = np.arange(order.size)
-    return DistinctBodies(
+    return BodyGroups(
         representative=first[order],
         member_of=renumber[member_of.ravel()],
         count=count[order].astype(np.int64),
