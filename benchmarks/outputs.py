@@ -68,7 +68,7 @@ def _fakes(layer: gpd.GeoDataFrame, rng: np.random.Generator) -> tuple:
     """Stand-ins for the config, inputs, body facts and sums the assembly functions read."""
     n = len(layer)
     config = SimpleNamespace(
-        method=SimpleNamespace(name="penman_open_water", compare=(), all=("penman_open_water",)),
+        method=SimpleNamespace(name="penman_open_water", compare=()),
         output=SimpleNamespace(precipitation=True, extra_volume_units=()),
         waterbodies=SimpleNamespace(group_by=()),
     )
@@ -78,9 +78,7 @@ def _fakes(layer: gpd.GeoDataFrame, rng: np.random.Generator) -> tuple:
         days=_DAYS,
     )
     inputs = SimpleNamespace(
-        periods=periods,
-        layer=SimpleNamespace(frame=layer, id_field="pond_id"),
-        axis=SimpleNamespace(calendar="standard"),
+        periods=periods, layer=SimpleNamespace(frame=layer, id_field="pond_id")
     )
     facts = SimpleNamespace(area_m2=layer["area_m2"].to_numpy())
     sums = SimpleNamespace(
@@ -108,7 +106,7 @@ def run(n: int) -> dict[str, float]:
         series=None,
         provenance={"benchmark": "outputs", "n": n},
         id_field="pond_id",
-        field_info=_field_info(config, layer, "pond_id"),
+        field_info=_field_info(config, layer),
     )
     with tempfile.TemporaryDirectory() as tmp:
         start = time.perf_counter()

@@ -88,7 +88,11 @@ def write_result(
 ) -> Path:
     """Write ``result`` (a :class:`lakeloss.results.RunResult`) into ``target``.
 
-    Everything finishes (or fails) before the staging directory is committed or removed.
+    The CSVs and the series are written while the GeoPackage's attribute table is (by a child
+    process when large, see :func:`~lakeloss.io.gpkg.write_geopackage`), after GDAL has
+    written the feature layer: CSV formatting in a thread beside GDAL slowed both down by
+    holding the GIL. Everything finishes (or fails) before the staging directory is
+    committed or removed.
     ``progress(total, label)``, when given, returns a tqdm-like bar advanced per file.
     """
     bar = progress(_files_to_write(result), "writing") if progress else None
@@ -103,9 +107,9 @@ def write_result(
             [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
             fields=result.field_info,
             metadata=result.provenance,
+            alongside=lambda: _write_tables(result, staging, tick),
         )
         tick()
-        _write_tables(result, staging, tick)
         write_json(staging / "run.json", result.provenance)
         tick()
     if bar is not None:

@@ -289,7 +289,10 @@ def test_attribute_table_types_and_missing_values(tmp_path, ponds):
     assert raw[1] == (None, None, "2001-01-02T00:00:00.000Z", None)
 
 
-def test_attribute_table_rows_numbered_in_order(tmp_path, ponds):
+def test_attribute_table_in_many_statements_and_blocks(tmp_path, ponds, monkeypatch):
+    import lakeloss.io.gpkg as gpkg
+
+    monkeypatch.setattr(gpkg, "_BLOCK_ROWS", 4_000)  # several blocks, each several INSERTs
     n = 10_001
     table = pd.DataFrame({"id": np.arange(n), "evap_mm": np.arange(n) * 0.5})
     path = tmp_path / "w.gpkg"
