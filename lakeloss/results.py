@@ -386,7 +386,9 @@ def _period_table(
     )
     labels = np.array([periods.labels[k] for k in kept] if periods.labels else [""] * len(kept))
     days_in = periods.days if periods.days_in_period is None else periods.days_in_period
-    table.insert(0, "period_label", pd.array(labels[period_of_row], dtype="string"))
+    # Taken from the few labels' string array: validating 1.2e7 strings one by one (as
+    # pd.array(..., dtype="string") does) took 2.7 s at 10^6 bodies, the take 0.09 s.
+    table.insert(0, "period_label", pd.array(labels, dtype="string").take(period_of_row))
     table.insert(1, "period_start", starts.take(period_of_row))
     table.insert(2, "period_end", ends.take(period_of_row))
     table.insert(3, "days", np.rint(periods.days[kept]).astype(np.int64)[period_of_row])
