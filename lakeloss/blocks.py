@@ -1,10 +1,15 @@
 """One block of time steps: zonal means, evaporation, and sums into periods.
 
 :func:`compute_block` is a pure function of its arguments (the block's context, the weights,
-the per-body inputs and the block's time slice), so every scheduler — this process's thread
-pool or a dask.distributed worker — gives the same numbers; :func:`add_block` adds the
-results into :class:`RunningTotals`, in block order, in fixed point so that any split of the
-time axis gives the same bits.
+the per-body inputs, the block's time slice and, for stateful methods, the state the previous
+block left), so every scheduler — this process's thread pool or a dask.distributed worker —
+gives the same numbers; :func:`add_block` adds the results into :class:`RunningTotals`, in
+block order, in fixed point so that any split of the time axis gives the same bits.
+
+It is two steps, so that reading can run ahead of a state carried in time:
+:func:`extract_filled` (read and average; any block, in any order) and :func:`finish_block`
+(the physics and the sums; in time order when a method carries a state, see
+:mod:`lakeloss.physics.stateful`).
 """
 
 from __future__ import annotations
@@ -20,6 +25,7 @@ import numpy as np
 
 from lakeloss.gaps import BlockGaps, GapTally, count_block, fill_short_gaps, halo_needed
 from lakeloss.physics import registry
+from lakeloss.physics.stateful import State
 from lakeloss.zonal import ZonalWeights
 
 if TYPE_CHECKING:
@@ -80,6 +86,25 @@ class BlockContext:
     clip_negative: bool = True
     """Negative rates set to zero before they are summed (``[parameters] clip_negative``)."""
 
+    @property
+    def stateful(self) -> tuple[str, ...]:
+        """The methods of the run that carry a state from step to step."""
+        return tuple(name for name in self.methods if registry.carries_state(name))
+
+
+RunState = dict[str, State]
+"""The state of every stateful method of a run, by method name (empty when none)."""
+
+
+def initial_states(context: BlockContext, static: Mapping[str, np.ndarray], n: int) -> RunState:
+    """The state of each stateful method of ``context`` before the first step, ``n`` bodies."""
+    params = dict(context.parameters)
+    out: RunState = {}
+    for name in context.stateful:
+        method_params = {k: v for k, v in params.items() if k in registry.get(name).parameters}
+        out[name] = registry.initial_state(name, static, method_params, n)
+    return out
+
 
 @dataclass
 class BlockResult:
@@ -97,6 +122,12 @@ class BlockResult:
     steps: int
     series: dict[str, np.ndarray] | None = None
     gaps: BlockGaps | None = None
+    state: RunState | None = None
+    """The state of the stateful methods after the block's last step (None when none)."""
+
+
+Extracted = tuple[dict[str, np.ndarray], np.ndarray, BlockGaps]
+"""What :func:`extract_filled` gives: zonal means, valid fraction and gaps of one block."""
 
 
 def extract_block(
@@ -197,7 +228,7 @@ def _thread_buffer(grid_key: str, shape: tuple[int, int]) -> np.ndarray:
 
 def extract_filled(
     context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
-) -> tuple[dict[str, np.ndarray], np.ndarray, BlockGaps]:
+) -> Extracted:
     """:func:`extract_block` with the short gaps of every variable filled, and counted.
 
     When a gap touches an edge of the block, up to ``max_gap_steps`` steps on that side
@@ -283,19 +314,44 @@ def evaporate_block(
     static: Mapping[str, np.ndarray],
     day_of_year: np.ndarray,
 ) -> dict[str, np.ndarray]:
-    """Evaporation rate [mm day-1] of every configured method for one block."""
+    """Evaporation rate [mm day-1] of every configured method for one block (no state)."""
+    if context.stateful:
+        raise ValueError(f"{', '.join(context.stateful)} carry a state; use evaporate_steps")
+    steps = np.ones((len(day_of_year), 1))
+    return evaporate_steps(context, means, static, day_of_year, steps, {})[0]
+
+
+def evaporate_steps(
+    context: BlockContext,
+    means: Mapping[str, np.ndarray],
+    static: Mapping[str, np.ndarray],
+    day_of_year: np.ndarray,
+    step_days: np.ndarray,
+    state: RunState,
+) -> tuple[dict[str, np.ndarray], RunState]:
+    """Rates [mm day-1] of every configured method for one block, and the state after it.
+
+    ``state`` holds the state of each stateful method before the block's first step
+    (:func:`initial_states` for the first block); it is not modified. ``step_days`` is the
+    length of each step, shape (steps, 1). [day]
+    """
     physics_inputs: dict[str, np.ndarray] = {
         **means,
         **static,
         "day_of_year": day_of_year[:, np.newaxis],
+        "step_days": np.asarray(step_days, dtype=float).reshape(-1, 1),
     }
     physics_inputs.pop("precipitation", None)
     params = dict(context.parameters)
     shape = next(iter(means.values())).shape
     rates = {}
+    new_state: RunState = {}
     for name in context.methods:
         method_params = {k: v for k, v in params.items() if k in registry.get(name).parameters}
         rate = np.empty(shape)
+        carried = state.get(name)
+        if carried is not None:
+            new_state[name] = {key: np.empty(shape[1]) for key in carried}
         for start in range(0, shape[1], PHYSICS_COLUMNS):
             columns = slice(start, start + PHYSICS_COLUMNS)
             part = {
@@ -303,9 +359,15 @@ def evaporate_block(
                 for k, v in physics_inputs.items()
             }
             with np.errstate(invalid="ignore", divide="ignore"):
-                rate[:, columns] = registry.evaporate(name, part, method_params)
+                if carried is None:
+                    rate[:, columns] = registry.evaporate(name, part, method_params)
+                    continue
+                now = {key: values[columns] for key, values in carried.items()}
+                rate[:, columns], after = registry.advance(name, now, part, method_params)
+            for key, values in after.items():
+                new_state[name][key][columns] = values
         rates[name] = rate
-    return rates
+    return rates, new_state
 
 
 def _segment_sums(values: np.ndarray, period_index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -360,14 +422,32 @@ def compute_block(
     weights: Mapping[str, ZonalWeights],
     static: Mapping[str, np.ndarray],
     block: slice,
+    state: RunState | None = None,
 ) -> BlockResult:
     """Extract, evaporate and sum one block of time steps into its periods.
 
     A pure function of its arguments: the same block gives the same numbers wherever it
-    runs, which is what makes local and cluster runs identical.
+    runs, which is what makes local and cluster runs identical. ``state`` is the state the
+    previous block left (:attr:`BlockResult.state`), or the initial one for the first block;
+    None when no method carries one.
     """
-    means, valid, gaps = extract_filled(context, weights, block)
-    rates = evaporate_block(context, means, static, context.day_of_year[block])
+    return finish_block(context, extract_filled(context, weights, block), static, block, state)
+
+
+def finish_block(
+    context: BlockContext,
+    extracted: Extracted,
+    static: Mapping[str, np.ndarray],
+    block: slice,
+    state: RunState | None = None,
+) -> BlockResult:
+    """The physics and the period sums of one block whose means are ``extracted``."""
+    means, valid, gaps = extracted
+    if context.stateful and state is None:
+        raise ValueError("a run with a stateful method needs the state of the previous block")
+    rates, after = evaporate_steps(
+        context, means, static, context.day_of_year[block], context.days[block], state or {}
+    )
     days = context.days[block][:, None]
     index = context.period_index[block]
     clip = context.clip_negative
@@ -407,6 +487,7 @@ def compute_block(
         steps=block.stop - block.start,
         series=series,
         gaps=gaps,
+        state=after if context.stateful else None,
     )
 
 

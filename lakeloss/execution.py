@@ -3,7 +3,11 @@
 Every scheduler runs the same pure function, :func:`lakeloss.blocks.compute_block`, on the
 same blocks, and hands the results back in block order; the pipeline sums them exactly (in
 fixed point), so the merged sums and every output file are identical whichever scheduler ran
-them and however the time axis was cut.
+them and however the time axis was cut. When a method carries a state
+(:mod:`lakeloss.physics.stateful`), the blocks are still read and averaged ahead, in
+parallel (:func:`lakeloss.blocks.extract_filled`), but their physics
+(:func:`lakeloss.blocks.finish_block`) runs in time order, each block starting from the
+state the one before it left.
 
 * default: a small thread pool in this process (numpy and the sparse products release the
   GIL), at most two blocks in flight;
@@ -32,14 +36,15 @@ from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
+
 from lakeloss.config import ComputeConfig
 from lakeloss.errors import ClusterError, LakelossError
 
 if TYPE_CHECKING:
-    import numpy as np
     from distributed import Client
 
-    from lakeloss.blocks import BlockContext, BlockResult
+    from lakeloss.blocks import BlockContext, BlockResult, Extracted, RunState
     from lakeloss.zonal import ZonalWeights
     from lakeloss.zonal.partition import MapBlocks
 
@@ -64,10 +69,14 @@ def _run_local(
     weights: Mapping[str, ZonalWeights],
     static: Mapping[str, np.ndarray],
     blocks: Sequence[slice],
+    state: RunState | None = None,
 ) -> Iterator[BlockResult]:
     from lakeloss.blocks import compute_block
 
     threads = _local_threads()
+    if context.stateful:
+        yield from _run_local_in_order(context, weights, static, blocks, state, threads)
+        return
     if threads == 1 or len(blocks) == 1:
         for block in blocks:
             yield compute_block(context, weights, static, block)
@@ -84,6 +93,46 @@ def _run_local(
             nxt = i + threads
             if nxt < len(blocks):
                 pending.append(pool.submit(compute_block, context, weights, static, blocks[nxt]))
+            yield part
+
+
+def _extract_owned(
+    context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
+) -> Extracted:
+    """:func:`lakeloss.blocks.extract_filled` with the means in memory of their own: the
+    thread's reusable buffer is overwritten by its next block while this one is stepped
+    on another thread."""
+    from lakeloss.blocks import extract_filled
+
+    means, valid, gaps = extract_filled(context, weights, block)
+    return {q: np.array(v) for q, v in means.items()}, np.array(valid), gaps
+
+
+def _run_local_in_order(
+    context: BlockContext,
+    weights: Mapping[str, ZonalWeights],
+    static: Mapping[str, np.ndarray],
+    blocks: Sequence[slice],
+    state: RunState | None,
+    threads: int,
+) -> Iterator[BlockResult]:
+    """Blocks read ahead on a thread pool, their physics stepped here in time order."""
+    from lakeloss.blocks import finish_block
+
+    with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
+        pending: list[Future[Extracted] | None] = [
+            pool.submit(_extract_owned, context, weights, b) for b in blocks[:threads]
+        ]
+        for i, block in enumerate(blocks):
+            future = pending[i]
+            assert future is not None
+            extracted = future.result()
+            pending[i] = None
+            nxt = i + threads
+            if nxt < len(blocks):
+                pending.append(pool.submit(_extract_owned, context, weights, blocks[nxt]))
+            part = finish_block(context, extracted, static, block, state)
+            state = part.state
             yield part
 
 
@@ -168,11 +217,12 @@ def _run_cluster(
     weights: Mapping[str, ZonalWeights],
     static: Mapping[str, np.ndarray],
     blocks: Sequence[slice],
+    state: RunState | None = None,
 ) -> Iterator[BlockResult]:
     from distributed.client import FutureCancelledError
     from distributed.scheduler import KilledWorker
 
-    from lakeloss.blocks import compute_block
+    from lakeloss.blocks import compute_block, finish_block
 
     with _client(compute) as client:
         n_workers = max(1, len(client.scheduler_info().get("workers", {})))
@@ -182,11 +232,26 @@ def _run_cluster(
             [context, dict(weights), dict(static)], broadcast=True, hash=False
         )
         window = _IN_FLIGHT_PER_WORKER * n_workers
+        # With a stateful method each block's physics waits for the previous block's state
+        # (a chain of futures), while the reading and averaging of later blocks go ahead.
+        carried: Any = state
 
         def submit(block: slice) -> Any:
-            return client.submit(
-                compute_block, context_f, weights_f, static_f, block, retries=_RETRIES, pure=False
+            nonlocal carried
+            if not context.stateful:
+                return client.submit(
+                    compute_block, context_f, weights_f, static_f, block,
+                    retries=_RETRIES, pure=False,
+                )  # fmt: skip
+            extracted = client.submit(
+                _extract_owned, context_f, weights_f, block, retries=_RETRIES, pure=False
             )
+            part = client.submit(
+                finish_block, context_f, extracted, static_f, block, carried,
+                retries=_RETRIES, pure=False,
+            )  # fmt: skip
+            carried = client.submit(_state_of, part, retries=_RETRIES, pure=False)
+            return part
 
         futures: list[Any] = [submit(b) for b in blocks[:window]]
         for i in range(len(blocks)):
@@ -203,12 +268,17 @@ def _run_cluster(
             yield part
 
 
+def _state_of(part: BlockResult) -> RunState | None:
+    return part.state
+
+
 def run_blocks(
     compute: ComputeConfig,
     context: BlockContext,
     weights: Mapping[str, ZonalWeights],
     static: Mapping[str, np.ndarray],
     blocks: Sequence[slice],
+    state: RunState | None = None,
 ) -> Iterator[BlockResult]:
     """Compute every block and yield the results in block order.
 
@@ -222,6 +292,9 @@ def run_blocks(
         (scattered once to a cluster's workers).
     blocks : sequence of slice
         Time-step ranges, in order.
+    state : dict, optional
+        The initial state of the stateful methods (:func:`lakeloss.blocks.initial_states`);
+        required when ``context`` has one.
 
     Yields
     ------
@@ -235,9 +308,9 @@ def run_blocks(
         The scheduler cannot be reached, has no workers, or a block was lost for good.
     """
     if compute.workers or compute.scheduler:
-        yield from _run_cluster(compute, context, weights, static, blocks)
+        yield from _run_cluster(compute, context, weights, static, blocks, state)
     else:
-        yield from _run_local(context, weights, static, blocks)
+        yield from _run_local(context, weights, static, blocks, state)
 
 
 @contextlib.contextmanager

@@ -43,6 +43,7 @@ from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of th
     compute_block,
     evaporate_block,
     extract_block,
+    initial_states,
     zero_totals,
 )
 from lakeloss.body_facts import BodyFacts
@@ -415,8 +416,9 @@ def compute_totals(
     steps = aligned(block_steps(config, inputs, groups.n_groups), read_steps(config))
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
+    state = initial_states(context, shared[1], groups.n_groups)
     bar = progress(len(inputs.axis.days), "evaporation") if progress else None
-    for part in run_blocks(config.compute, context, *shared, blocks):
+    for part in run_blocks(config.compute, context, *shared, blocks, state):
         add_block(totals, part)
         if series_sink is not None and part.series is not None:
             series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})

@@ -23,6 +23,7 @@ from lakeloss.errors import ConfigError, MissingInputError, ParameterRangeError,
 from lakeloss.physics import atmosphere as atm
 from lakeloss.physics import forcing as frc
 from lakeloss.physics import methods as mth
+from lakeloss.physics import stateful as stf
 from lakeloss.physics import windfunctions as wf
 from lakeloss.physics._types import ArrayLike
 
@@ -82,6 +83,13 @@ class MethodSpec:
         The equation the method evaluates, in words and symbols.
     assumptions : str
         What the method assumes, and when it over- or under-states evaporation.
+    state : StateSpec or None
+        What a stateful method carries from one step to the next
+        (:mod:`lakeloss.physics.stateful`); None for a method of one step's forcing, whose
+        ``compute`` gives the rate. A stateful method's ``compute`` is not used.
+    listed : bool
+        False for a method kept to test the machinery: runnable by name, not offered by
+        ``lakeloss methods``, drafts or error messages.
     """
 
     name: str
@@ -93,6 +101,8 @@ class MethodSpec:
     compute: Callable[[frc.Inputs, _Checked], ArrayLike] = field(repr=False, compare=False)
     equation: str = ""
     assumptions: str = ""
+    state: stf.StateSpec | None = field(default=None, repr=False, compare=False)
+    listed: bool = True
 
 
 _PARAMETERS: dict[str, ParameterSpec] = {
@@ -117,6 +127,10 @@ _PARAMETERS: dict[str, ParameterSpec] = {
         ParameterSpec("elevation_m", 0.0, -450.0, 9000.0, "m",
                       "water-surface elevation for pressure (FAO-56 eq. 7) and clear-sky "
                       "radiation where no elevation input is given; 0 is sea level"),
+        ParameterSpec("relaxation_days", 5.0, 0.01, 3650.0, "day",
+                      "time constant of relaxation_check, the test of the stateful machinery"),
+        ParameterSpec("relaxation_start_fraction", 1.0, 0.0, 10.0, "1",
+                      "relaxation_check's starting rate as a fraction of its first target"),
         ParameterSpec("small_water_body_wind_form", "mcjannet_length", None, None, "1",
                       "area-dependent wind function: (2.33+1.65u2)L^-0.1 or (2.36+1.67u2)A^-0.05",
                       tuple(wf.SMALL_WATER_BODY_FORMS)),
@@ -346,6 +360,33 @@ def _pan(inputs: frc.Inputs, params: _Checked) -> ArrayLike:
 
 _WIND_PARAMS = ("wind_height_m", "wind_profile", "roughness_length_m")
 
+
+def _relaxation_initial(static: frc.Inputs, params: _Checked, n: int) -> stf.State:
+    return stf.not_started(("rate",), n)
+
+
+def _relaxation_step(
+    state: stf.State, inputs: frc.Inputs, params: _Checked
+) -> tuple[np.ndarray, stf.State]:
+    target = np.asarray(_penman_open_water(inputs, params), dtype=float)
+    target = np.broadcast_to(target, np.broadcast_shapes(target.shape, state["rate"].shape))
+    means, rate = stf.relaxation_step(
+        state["rate"],
+        target,
+        inputs["step_days"],
+        float(params["relaxation_days"]),
+        float(params["relaxation_start_fraction"]),
+    )
+    return means, {"rate": rate}
+
+
+_RELAXATION_STATE = stf.StateSpec(
+    names=("rate",),
+    units={"rate": "mm day-1"},
+    initial=_relaxation_initial,
+    step=_relaxation_step,
+)
+
 _METHODS: dict[str, MethodSpec] = {
     spec.name: spec
     for spec in (
@@ -508,6 +549,28 @@ _METHODS: dict[str, MethodSpec] = {
                 "record."
             ),
         ),
+        MethodSpec(
+            "relaxation_check",
+            "test of the stateful machinery: penman_open_water lagged by a relaxation",
+            "closed-form solution of dr/dt = (E - r)/tau with E constant over each step",
+            (*_TURBULENT_NEEDS, frc.RADIATION_ALTERNATIVES),
+            (*_PRESSURE_OPTIONAL, *_RADIATION_OPTIONAL),
+            _params("albedo", *_WIND_PARAMS, "elevation_m", "relaxation_days",
+                    "relaxation_start_fraction"),
+            _penman_open_water,
+            equation=(
+                "r1 = E + (r0 - E) exp(-dt/tau), reported rate = E + (r0 - E)(tau/dt)(1 - "
+                "exp(-dt/tau)): the rate r relaxes towards the penman_open_water rate E with "
+                "time constant tau = relaxation_days, starting at relaxation_start_fraction x E"
+            ),
+            assumptions=(
+                "Not a physical method: it exists so that tests and benchmarks can check that "
+                "a state is carried from step to step exactly, whatever the block size, the "
+                "partitions or the scheduler."
+            ),
+            state=_RELAXATION_STATE,
+            listed=False,
+        ),
     )
 }  # fmt: skip
 
@@ -518,8 +581,13 @@ _METHODS: dict[str, MethodSpec] = {
 
 
 def method_names() -> tuple[str, ...]:
-    """Names of all registered methods, in registry order."""
-    return tuple(_METHODS)
+    """Names of the methods offered to users, in registry order (not the test methods)."""
+    return tuple(name for name, spec in _METHODS.items() if spec.listed)
+
+
+def carries_state(name: str) -> bool:
+    """Whether method ``name`` carries a state from one time step to the next."""
+    return get(name).state is not None
 
 
 def get(name: str) -> MethodSpec:
@@ -527,7 +595,9 @@ def get(name: str) -> MethodSpec:
     try:
         return _METHODS[name]
     except (KeyError, TypeError):
-        raise UnknownMethodError(_unknown_message("evaporation method", name, _METHODS)) from None
+        raise UnknownMethodError(
+            _unknown_message("evaporation method", name, method_names())
+        ) from None
 
 
 def _unknown_message(kind: str, name: object, known: Iterable[str]) -> str:
@@ -561,7 +631,7 @@ def missing_inputs(name: str, available: Iterable[str]) -> list[str]:
 def runnable(available: Iterable[str]) -> list[str]:
     """Names of the methods that can run with the ``available`` input names."""
     have = set(available)
-    return [name for name in _METHODS if not missing_inputs(name, have)]
+    return [name for name in method_names() if not missing_inputs(name, have)]
 
 
 def parameter_specs() -> dict[str, ParameterSpec]:
@@ -745,6 +815,8 @@ def evaporate(
             "add them to the configuration or choose another method"
         )
     arrays = {key: np.asarray(value, dtype=float) for key, value in inputs.items()}
+    if spec.state is not None:
+        return _evaporate_from_start(spec, arrays, checked)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         rate = np.asarray(spec.compute(arrays, checked), dtype=float)
     shape = np.broadcast_shapes(rate.shape, *_used_shapes(spec, arrays))
@@ -756,3 +828,77 @@ def evaporate(
     ):
         return rate  # already a fresh array of the full shape; a copy would only cost time
     return np.array(np.broadcast_to(rate, shape))
+
+
+def _evaporate_from_start(
+    spec: MethodSpec, arrays: dict[str, np.ndarray], checked: _Checked
+) -> np.ndarray:
+    """A stateful method run from its initial state over axis 0 of the inputs (time)."""
+    assert spec.state is not None
+    shape = np.broadcast_shapes(*_used_shapes(spec, arrays))
+    one_body = len(shape) < 2
+    steps = shape[0] if shape else 1
+    if one_body:
+        arrays = {k: np.reshape(v, (-1, 1)) if v.ndim == 1 else v for k, v in arrays.items()}
+    n = 1 if one_body else shape[-1]
+    arrays.setdefault("step_days", np.ones((steps, 1)))
+    state = spec.state.initial(arrays, checked, n)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        rates, _ = spec.state.step(state, arrays, checked)
+    return rates[:, 0] if one_body else rates
+
+
+def initial_state(
+    name: str, static: Mapping[str, ArrayLike], params: Mapping[str, object], n: int
+) -> stf.State:
+    """The state of stateful method ``name`` for ``n`` bodies before the first step.
+
+    ``static`` holds the per-body inputs (shape (n,) or (1, n)).
+    """
+    spec = get(name)
+    if spec.state is None:
+        raise ValueError(f"method {name!r} carries no state")
+    return spec.state.initial(static, validate_parameters(name, params), n)
+
+
+def advance(
+    name: str,
+    state: stf.State,
+    inputs: Mapping[str, ArrayLike],
+    params: Mapping[str, object] | None = None,
+) -> tuple[np.ndarray, stf.State]:
+    """Advance stateful method ``name`` over a run of time steps.
+
+    Parameters
+    ----------
+    name : str
+        A method whose :attr:`MethodSpec.state` is set.
+    state : dict of ndarray
+        The state after the previous step (or :func:`initial_state`), one value per body.
+    inputs : Mapping[str, array_like]
+        Glossary-named forcing shaped (steps, bodies), per-body inputs (1, bodies), and
+        ``step_days`` (steps, 1). [glossary units]
+    params : Mapping[str, object], optional
+        Parameter values; missing ones take their defaults.
+
+    Returns
+    -------
+    rates : numpy.ndarray, shape (steps, bodies)
+        Mean evaporation rate over each step. [mm day-1]
+    state : dict of ndarray
+        The state after the last step; the input state is not modified.
+    """
+    spec = get(name)
+    if spec.state is None:
+        raise ValueError(f"method {name!r} carries no state")
+    checked = validate_parameters(name, params or {})
+    missing = missing_inputs(name, inputs)
+    if missing:
+        raise MissingInputError(
+            f"method {name!r} lacks inputs: {'; '.join(missing)}; "
+            "add them to the configuration or choose another method"
+        )
+    arrays = {key: np.asarray(value, dtype=float) for key, value in inputs.items()}
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        rates, new_state = spec.state.step(dict(state), arrays, checked)
+    return np.asarray(rates, dtype=float), new_state
