@@ -127,6 +127,8 @@ class ComputeConfig:
     scheduler: str | None = None
     memory_limit: str = "auto"
     cache_dir: Path | None = None
+    partition_bodies: int = 0
+    """Water bodies per partition (rounded up to a multiple of 4096); 0 chooses."""
 
 
 @dataclass(frozen=True)
@@ -223,6 +225,7 @@ _COMPUTE_KEYS = {
     "scheduler": str,
     "memory_limit": str,
     "cache_dir": str,
+    "partition_bodies": int,
 }
 _CHECKS_KEYS = {"strict": bool, "max_gap_steps": int}
 _CLIMATE_NAMES = tuple(sorted({*QUANTITIES, *ALIASES}))
@@ -661,6 +664,10 @@ def _compute(raw: Mapping[str, Any], base: Path | None) -> ComputeConfig:
         raise ConfigError("[compute].chunk_steps must be 0 (automatic) or a positive number")
     if table.get("workers", 0) < 0:
         raise ConfigError("[compute].workers must be 0 (no cluster) or a positive number")
+    if table.get("partition_bodies", 0) < 0:
+        raise ConfigError(
+            "[compute].partition_bodies must be 0 (automatic) or a positive number of bodies"
+        )
     cache = table.pop("cache_dir", None)
     if _is_scheduler_file(table.get("scheduler")):
         table["scheduler"] = str(_resolve(table["scheduler"], base))

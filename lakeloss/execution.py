@@ -28,10 +28,11 @@ raised before anything is written.
 from __future__ import annotations
 
 import contextlib
+import contextvars
 import logging
 import os
 import re
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -45,6 +46,8 @@ if TYPE_CHECKING:
     from distributed import Client
 
     from lakeloss.blocks import BlockContext, BlockResult, Extracted, RunState
+    from lakeloss.partition_run import PartitionDone, PartitionTask
+    from lakeloss.progress import ProgressBar
     from lakeloss.zonal import ZonalWeights
     from lakeloss.zonal.partition import MapBlocks
 
@@ -176,8 +179,41 @@ def _wait_for_workers(client: Client, target: str) -> None:
         ) from err
 
 
+_SESSION: contextvars.ContextVar[Client | None] = contextvars.ContextVar(
+    "lakeloss_cluster_session", default=None
+)
+
+
+@contextlib.contextmanager
+def cluster_session(compute: ComputeConfig) -> Iterator[None]:
+    """Keep one cluster client for everything run inside (every partition of a run).
+
+    Without a cluster configured, nothing happens.
+    """
+    if not (compute.workers or compute.scheduler) or _SESSION.get() is not None:
+        yield
+        return
+    with _new_client(compute) as client:
+        token = _SESSION.set(client)
+        try:
+            yield
+        finally:
+            _SESSION.reset(token)
+
+
 @contextlib.contextmanager
 def _client(compute: ComputeConfig) -> Iterator[Client]:
+    """The session's client (:func:`cluster_session`), or a new one for this call."""
+    session = _SESSION.get()
+    if session is not None:
+        yield session
+        return
+    with _new_client(compute) as client:
+        yield client
+
+
+@contextlib.contextmanager
+def _new_client(compute: ComputeConfig) -> Iterator[Client]:
     from distributed import Client, LocalCluster
 
     if compute.scheduler:
@@ -336,3 +372,66 @@ def cluster_map(compute: ComputeConfig) -> Iterator[MapBlocks | None]:
                 ) from err
 
         yield mapper
+
+
+def map_partitions(
+    compute: ComputeConfig,
+    tasks: Iterable[PartitionTask],
+    bar: ProgressBar | None = None,
+    staging: Path | None = None,
+) -> Iterator[PartitionDone]:
+    """Compute every partition and yield them in partition order.
+
+    Locally one after another in this process (each one's blocks on the thread pool);
+    on a cluster each partition is one task on a worker, at most ``2 x workers`` in flight,
+    writing its part files into ``staging`` when given. ``bar`` advances by time steps.
+    """
+    from lakeloss.partition_run import run_partition, run_partition_on_worker
+
+    if not (compute.workers or compute.scheduler):
+        for task in tasks:
+            yield run_partition(task, bar)
+        return
+    from distributed.client import FutureCancelledError
+    from distributed.scheduler import KilledWorker
+
+    with _client(compute) as client:
+        n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+        log.info("dask cluster %s with %d workers", client.scheduler.address, n_workers)
+        window = _IN_FLIGHT_PER_WORKER * n_workers
+        pending: list[tuple[PartitionTask, Any]] = []
+        where = None if staging is None else str(staging)
+        iterator = iter(tasks)
+
+        def submit() -> None:
+            task = next(iterator, None)
+            if task is not None:
+                future = client.submit(
+                    run_partition_on_worker, task, where, retries=_RETRIES, pure=False
+                )
+                pending.append((task, future))
+
+        for _ in range(window):
+            submit()
+        while pending:
+            task, future = pending.pop(0)
+            try:
+                done = future.result()
+            except LakelossError:
+                raise  # the partition's own error (bad input data), raised as on a local run
+            except (KilledWorker, FutureCancelledError, OSError, TimeoutError) as err:
+                raise _lost_partition(task, err) from err
+            submit()
+            if bar is not None:
+                bar.update(len(task.inputs.axis.days))
+            yield done
+
+
+def _lost_partition(task: PartitionTask, err: BaseException) -> ClusterError:
+    ids = task.inputs.layer.frame[task.inputs.layer.id_field]
+    first = ids.iloc[0] if len(ids) else "none"
+    return ClusterError(
+        f"the cluster lost partition {task.index + 1} (first water body {first}; "
+        f"{_one_line(err)}); no outputs were written; check worker memory limits and logs, "
+        "then rerun"
+    )

@@ -15,7 +15,7 @@ not depend on where the time axis is cut into blocks.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -253,3 +253,64 @@ def date_ranges(starts: tuple[str, ...], mask: np.ndarray, at_most: int = 5) -> 
 def steps_text(count: int) -> str:
     """``1 time step`` / ``5 time steps``."""
     return f"{count} time step" + ("" if count == 1 else "s")
+
+
+def merged_report(parts: Sequence[PartitionGaps], starts: tuple[str, ...], limit: int) -> GapReport:
+    """:func:`report` of a run from the gap counts of its partitions (:class:`PartitionGaps`).
+
+    The per-body filled steps are the partitions' own (used for their flags), so the
+    merged report has none.
+    """
+    filled_at: dict[str, np.ndarray] = {}
+    missing_at: dict[str, np.ndarray] = {}
+    never: dict[str, int] = {}
+    some: dict[str, int] = {}
+    for part in parts:
+        for name, values in part.filled_at_step.items():
+            filled_at[name] = filled_at.get(name, 0) + values
+        for name, values in part.missing_at_step.items():
+            missing_at[name] = missing_at.get(name, 0) + values
+        for name, count in part.never.items():
+            never[name] = never.get(name, 0) + count
+        for name, count in part.some.items():
+            some[name] = some.get(name, 0) + count
+    filled = {}
+    for name, at_step in filled_at.items():
+        if at_step.any():
+            filled[name] = {
+                "steps": int((at_step > 0).sum()),
+                "values": int(at_step.sum()),
+                "dates": date_ranges(starts, at_step > 0),
+            }
+    long = {}
+    for name, bodies in some.items():
+        at_step = missing_at[name] - never.get(name, 0)
+        if bodies:
+            long[name] = {
+                "steps": int((at_step > 0).sum()),
+                "bodies": bodies,
+                "dates": date_ranges(starts, at_step > 0),
+            }
+    return GapReport(np.zeros(0, dtype=np.int64), filled, long, limit)
+
+
+@dataclass(frozen=True)
+class PartitionGaps:
+    """The gap counts of one partition that the run's report adds up."""
+
+    filled_at_step: dict[str, np.ndarray]
+    missing_at_step: dict[str, np.ndarray]
+    never: dict[str, int]
+    """Per variable, bodies missing it at every step (no climate, not a gap)."""
+    some: dict[str, int]
+    """Per variable, bodies missing it at some steps but not all (long gaps)."""
+
+    @classmethod
+    def of(cls, tally: GapTally) -> PartitionGaps:
+        never = {k: v == tally.n_steps for k, v in tally.missing_per_body.items()}
+        return cls(
+            filled_at_step=dict(tally.filled_at_step),
+            missing_at_step=dict(tally.missing_at_step),
+            never={k: int(v.sum()) for k, v in never.items()},
+            some={k: int(((v > 0) & ~never[k]).sum()) for k, v in tally.missing_per_body.items()},
+        )

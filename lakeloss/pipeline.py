@@ -28,7 +28,7 @@ from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 
@@ -63,18 +63,25 @@ from lakeloss.errors import (
     LakelossWarning,
     TimeAlignedWarning,
 )
+from lakeloss.execution import map_partitions
 from lakeloss.gaps import DEFAULT_LIMIT
-from lakeloss.gaps import report as gap_report
+from lakeloss.gaps import merged_report as merged_gap_report
 from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
-from lakeloss.io.run_record import inputs_provenance
+from lakeloss.io.run_record import inputs_provenance, run_record
+from lakeloss.partition_run import PartitionDone, PartitionTask, slice_partition
+from lakeloss.partitions import (
+    PartitionOutcome,
+    merge_counts,
+    partition_ranges,
+    partition_size,
+)
 from lakeloss.progress import ProgressBar, ProgressFactory
 from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
-from lakeloss.series_stream import SeriesStream
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
@@ -82,6 +89,7 @@ from lakeloss.zonal.partition import MapBlocks
 
 if TYPE_CHECKING:
     import geopandas as gpd
+    import xarray as xr
 
     from lakeloss.results import RunResult
 
@@ -96,13 +104,117 @@ def run_stages(
     progress: ProgressFactory | None = None,
     series: bool | None = None,
 ) -> RunResult:
-    """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written)."""
+    """Run every stage and return a :class:`lakeloss.results.RunResult` (nothing written).
+
+    The tables of every partition are gathered in memory; :func:`run_to_directory` writes
+    them as the partitions finish instead.
+    """
     config = load_config(config)
+    return _with_record(config, progress, series, GatheredTables())
+
+
+def run_to_directory(
+    config: str | Path | Mapping[str, Any] | RunConfig,
+    target: str | Path | None = None,
+    *,
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
+    """Run every stage and write the outputs into ``target`` (default ``[output] dir``).
+
+    Each partition's tables go to the writer as soon as the partition is done, so memory
+    does not grow with the number of bodies; the returned result holds the summaries and
+    the provenance, not the per-body tables.
+    """
+    config = load_config(config)
+    destination = Path(target) if target is not None else config.output.dir
+    return _with_record(config, progress, None, StreamedTables(config, destination, overwrite))
+
+
+def _with_record(
+    config: RunConfig,
+    progress: ProgressFactory | None,
+    series: bool | None,
+    tables: PartitionTables,
+) -> RunResult:
     # Hashing the inputs for run.json reads every file once more (GBs for a big run):
     # do it in the background, beside the stages; hashlib releases the GIL.
     with ThreadPoolExecutor(max_workers=1) as hasher:
         record = hasher.submit(inputs_provenance, config)
-        return _stages(config, progress, series, record)
+        return _stages(config, progress, series, record, tables)
+
+
+class PartitionTables(Protocol):
+    """Where each partition's tables go: gathered in memory, or written as they come."""
+
+    staging: Path | None
+    """Where cluster workers write their partitions' part files (None: they send them)."""
+
+    def add(self, done: PartitionDone) -> None: ...
+
+    def finish(
+        self,
+        config: RunConfig,
+        rank: Any,
+        outcomes: Sequence[PartitionOutcome],
+        provenance: dict[str, Any],
+        id_field: str,
+    ) -> RunResult: ...
+
+
+class GatheredTables:
+    """Every partition's tables kept in memory, joined into one :class:`RunResult`."""
+
+    staging: Path | None = None
+
+    def __init__(self) -> None:
+        self.parts: list[tuple[gpd.GeoDataFrame, Any]] = []
+        self.series: list[xr.Dataset] = []
+
+    def add(self, done: PartitionDone) -> None:
+        assert done.bodies is not None and done.by_period is not None  # no staging here
+        self.parts.append((done.bodies, done.by_period))
+        if done.series is not None:
+            self.series.append(done.series)
+
+    def finish(
+        self,
+        config: RunConfig,
+        rank: Any,
+        outcomes: Sequence[PartitionOutcome],
+        provenance: dict[str, Any],
+        id_field: str,
+    ) -> RunResult:
+        from lakeloss.results import gathered
+
+        series = None
+        if len(self.series) == 1:
+            series = self.series[0]
+        elif self.series:
+            import xarray as xr
+
+            series = xr.concat(self.series, dim="waterbody", data_vars="minimal")
+        return gathered(config, self.parts, rank, outcomes, provenance, id_field, series)
+
+
+class StreamedTables(GatheredTables):
+    """Tables written into the output directory (for now gathered, then written)."""
+
+    def __init__(self, config: RunConfig, target: Path, overwrite: bool) -> None:
+        super().__init__()
+        self.target, self.overwrite = target, overwrite
+
+    def finish(
+        self,
+        config: RunConfig,
+        rank: Any,
+        outcomes: Sequence[PartitionOutcome],
+        provenance: dict[str, Any],
+        id_field: str,
+    ) -> RunResult:
+        result = super().finish(config, rank, outcomes, provenance, id_field)
+        result.write(self.target, overwrite=self.overwrite)
+        return result
 
 
 def _stages(
@@ -110,8 +222,9 @@ def _stages(
     progress: ProgressFactory | None,
     series: bool | None,
     record: Future[list[dict[str, Any]]],
+    tables: PartitionTables,
 ) -> RunResult:
-    from lakeloss.results import assemble
+    from lakeloss.results import loss_rank
 
     timer = Timer()
     with timer.stage("load"):
@@ -130,34 +243,55 @@ def _stages(
     if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
         weight_warnings += repairs_from_cache(facts)
     keep_series = config.output.series if series is None else series
-    collector = SeriesStream(config, inputs) if keep_series else None
+    n = inputs.n_waterbodies
+    size = partition_size(config.compute.partition_bodies, n, config.compute.workers)
+    ranges = partition_ranges(n, size)
+    outcomes: list[PartitionOutcome] = []
+    bar = progress(len(inputs.axis.days) * len(ranges), "evaporation") if progress else None
+    tasks = (
+        PartitionTask(
+            config, *slice_partition(inputs, weights, facts, rows), index, rows, keep_series
+        )
+        for index, rows in enumerate(ranges)
+    )
     with timer.stage("evaporate"):
-        sink = collector.add if collector else None
-        totals = compute_totals(config, inputs, weights, facts, progress, sink)
+        for done in map_partitions(config.compute, tasks, bar, tables.staging):
+            tables.add(done)
+            outcomes.append(done.outcome)
+            del done
+    if bar is not None:
+        bar.close()
     with timer.stage("aggregate"):
         run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
-        message = negative_warning(config, totals)
+        negatives: dict[str, int] = {}
+        for outcome in outcomes:
+            for name, count in outcome.negatives.items():
+                negatives[name] = negatives.get(name, 0) + count
+        message = negative_warning(config, negatives)
         if message:
             run_warnings.append(message)
-        assert totals.gaps is not None  # compute_totals always tallies the gaps
-        gaps = gap_report(totals.gaps, inputs.axis.starts, gap_limit(config, inputs.axis))
-        run_warnings += gap_warnings(gaps)
-        result = assemble(
-            config,
-            inputs,
-            facts,
-            totals,
-            run_warnings,
-            timer.seconds,
-            series=collector.dataset() if collector else None,
-            weights_cached=cached,
-            inputs_record=record.result(),
-            gaps=gaps,
+        gaps = merged_gap_report(
+            [o.gaps for o in outcomes], inputs.axis.starts, gap_limit(config, inputs.axis)
         )
-    for note in result.provenance["notes"]:
+        run_warnings += gap_warnings(gaps)
+        counts = merge_counts([o.counts for o in outcomes], outcomes[0].counts)
+        provenance = run_record(
+            config,
+            time_axis=inputs.axis.describe(),
+            counts=counts,
+            gaps=gaps,
+            weights_cached=cached,
+            run_warnings=run_warnings,
+            timings=timer.seconds,
+            inputs_record=record.result(),
+        )
+        provenance["partitions"] = {"count": len(ranges), "bodies_each": size}
+    for note in provenance["notes"]:
         log.warning(note)
-    refuse_empty(result.provenance["counts"])
-    return result
+    refuse_empty(provenance["counts"])
+    volume = np.concatenate([o.volume for o in outcomes]) if outcomes else np.zeros(0)
+    rank = loss_rank(volume, inputs.layer.frame[inputs.layer.id_field])
+    return tables.finish(config, rank, outcomes, provenance, inputs.layer.id_field)
 
 
 # --------------------------------------------------------------------------- load
@@ -398,10 +532,12 @@ def compute_totals(
     inputs: Inputs,
     weights: Mapping[str, ZonalWeights],
     facts: BodyFacts,
-    progress: ProgressFactory | None = None,
+    bar: ProgressBar | None = None,
     series_sink: SeriesSink | None = None,
 ) -> PeriodTotals:
     """Run every block (locally or on a cluster) and merge the results in time order.
+
+    ``bar`` is advanced by the steps of each block done.
 
     The blocks are computed for one representative of each group of bodies with identical
     inputs (:func:`lakeloss.grouping.group_bodies`) and the sums copied to every member.
@@ -417,15 +553,12 @@ def compute_totals(
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
     state = initial_states(context, shared[1], groups.n_groups)
-    bar = progress(len(inputs.axis.days), "evaporation") if progress else None
     for part in run_blocks(config.compute, context, *shared, blocks, state):
         add_block(totals, part)
         if series_sink is not None and part.series is not None:
             series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
         if bar is not None:
             bar.update(part.steps)
-    if bar is not None:
-        bar.close()
     merged = totals.finish()
     return merged if groups.one_body_each else merged.for_members(groups.member_of)
 

@@ -8,7 +8,7 @@ run are in :mod:`lakeloss.report`.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -20,8 +20,9 @@ import pandas as pd
 from lakeloss.body_facts import BodyFacts
 from lakeloss.config import VOLUME_UNITS, RunConfig
 from lakeloss.errors import ConfigError
+from lakeloss.gaps import PartitionGaps
 from lakeloss.io.gpkg import FieldInfo
-from lakeloss.io.run_record import run_record
+from lakeloss.partitions import ChunkSums, PartitionOutcome, SummaryMerger, chunk_sums
 from lakeloss.progress import ProgressBar, ProgressFactory
 
 if TYPE_CHECKING:
@@ -29,7 +30,6 @@ if TYPE_CHECKING:
     import xarray as xr
 
     from lakeloss.blocks import PeriodTotals
-    from lakeloss.gaps import GapReport
     from lakeloss.inputs import Inputs
 
 # Result columns of the water-body layer: title, description, unit.
@@ -317,14 +317,15 @@ def _body_table(
     for unit in config.output.extra_volume_units:
         frame[f"evap_{unit}"] = frame["evap_m3"] * VOLUME_UNITS[unit]
         frame[f"net_{unit}"] = frame["net_m3"] * VOLUME_UNITS[unit]
-    frame["loss_rank"] = _rank(frame["evap_m3"].to_numpy(), frame[inputs.layer.id_field])
+    # The rank is over every body of the run: filled when all partitions are done.
+    frame["loss_rank"] = pd.array(np.full(len(frame), pd.NA), dtype="Int64")
     coverage = frame["climate_coverage"].to_numpy()
     frame["qa_flags"] = _flags(config, facts, totals, coverage, filled_steps)
     geometry = frame.geometry.name
     return frame[[c for c in frame.columns if c != geometry] + [geometry]]
 
 
-def _rank(volume: np.ndarray, ids: pd.Series) -> pd.arrays.IntegerArray:
+def loss_rank(volume: np.ndarray, ids: pd.Series) -> pd.arrays.IntegerArray:
     """Rank 1 = largest loss; ties broken by id so the order is reproducible.
 
     A body without a volume (no result) gets no rank (null), not the last ones.
@@ -433,15 +434,15 @@ def _repeat_rows(
     return values.to_numpy()[rows]
 
 
-def _summaries(
+def _summary_chunks(
     config: RunConfig, bodies: gpd.GeoDataFrame, by_period: pd.DataFrame, n_periods: int
-) -> tuple[pd.DataFrame, pd.DataFrame | None]:
-    """Totals per period (and per group and period) of the period table.
+) -> tuple[ChunkSums, ChunkSums | None]:
+    """The chunk sums behind the totals per period (and per group and period).
 
     ``by_period`` must be laid out as :func:`_period_table` builds it: ``n_periods`` rows per
     water body, bodies in the order of ``bodies``, periods in time order. Its columns are
-    then (body, period) arrays, and the totals are counted with one ``bincount`` per column
-    over integer (group, period) codes, as a group-by is far slower on 10^7 rows
+    then (body, period) arrays, summed with one ``bincount`` per column and chunk
+    (:func:`lakeloss.partitions.chunk_sums`), as a group-by is far slower on 10^7 rows
     (benchmarks/README.md, "End to end", figures behind the code).
     """
     n = len(bodies)
@@ -459,55 +460,14 @@ def _summaries(
     }
     for name in config.method.all[1:]:
         columns[f"evap_m3_{name}"] = by_body(f"evap_mm_{name}") * area[:, None] / 1000.0
-    keys = list(_PERIOD_KEYS)
-    periods = by_period[keys].iloc[:n_periods].reset_index(drop=True)
-    by_period_total = _totals(np.zeros(n, dtype=np.int64), None, valid, columns, periods)
-    by_group = None
+    totals = chunk_sums(columns, valid, None)
+    grouped = None
     if config.waterbodies.group_by:
-        group_by = list(config.waterbodies.group_by)
-        # Groups in sorted order, a missing value as a group of its own (last).
-        grouped = bodies[group_by].groupby(group_by, sort=True, dropna=False)
-        codes = grouped.ngroup().to_numpy(dtype=np.int64)
-        names = grouped.size().index.to_frame(index=False)
-        by_group = _totals(codes, names, valid, columns, periods)
-    return by_period_total, by_group
+        grouped = chunk_sums(columns, valid, bodies[list(config.waterbodies.group_by)])
+    return totals, grouped
 
 
-def _totals(
-    codes: np.ndarray,
-    names: pd.DataFrame | None,
-    valid: np.ndarray,
-    columns: Mapping[str, np.ndarray],
-    periods: pd.DataFrame,
-) -> pd.DataFrame:
-    """Sums over the valid (body, period) cells per (group, period), groups then periods.
-
-    Every group and period keeps its row, so one with no valid water body shows
-    n_waterbodies = 0 and empty totals instead of vanishing from the table; a missing
-    value inside a valid cell counts as 0 (as a skipping sum does).
-    """
-    n_groups = 1 if names is None else len(names)
-    n_periods = valid.shape[1]
-    cell = (codes[:, None] * n_periods + np.arange(n_periods)[None, :]).ravel()
-    size = n_groups * n_periods
-    count = np.bincount(cell, weights=valid.ravel(), minlength=size).astype(np.int64)
-    totals: dict[str, np.ndarray] = {"n_waterbodies": count}
-    for name, values in columns.items():  # area_m2, the volumes, then compare methods
-        kept = np.where(valid & ~np.isnan(values), values, 0.0).ravel()
-        totals[name] = np.where(count > 0, np.bincount(cell, kept, minlength=size), np.nan)
-    parts = [
-        periods.take(np.tile(np.arange(n_periods), n_groups)).reset_index(drop=True),
-        pd.DataFrame(totals),
-    ]
-    if names is not None:
-        rows = np.repeat(np.arange(n_groups), n_periods)
-        parts.insert(0, names.take(rows).reset_index(drop=True))
-    return pd.concat(parts, axis=1)
-
-
-def _field_info(
-    config: RunConfig, bodies: gpd.GeoDataFrame, id_field: str
-) -> dict[str, dict[str, FieldInfo]]:
+def _field_info(config: RunConfig, id_field: str) -> dict[str, dict[str, FieldInfo]]:
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
     for name in config.method.all[1:]:
         body[f"evap_mm_{name}"] = FieldInfo(
@@ -529,41 +489,82 @@ def _field_info(
     return {"waterbodies": body, "evaporation_by_period": period}
 
 
-def assemble(
+def partition_tables(
     config: RunConfig,
     inputs: Inputs,
     facts: BodyFacts,
     totals: PeriodTotals,
-    run_warnings: list[str],
-    timings: Mapping[str, float],
-    *,
-    series: xr.Dataset | None = None,
-    weights_cached: bool = False,
-    inputs_record: list[dict[str, Any]] | None = None,
-    gaps: GapReport | None = None,
-) -> RunResult:
-    """Build the result tables and the provenance from the period totals.
+    filled_steps: np.ndarray,
+    index: int,
+    rows: range,
+) -> tuple[gpd.GeoDataFrame, pd.DataFrame, PartitionOutcome]:
+    """One partition's rows of the layer and of the period table, and its outcome.
 
-    ``inputs_record`` is :func:`lakeloss.io.run_record.inputs_provenance`'s result when the
-    caller already has it (the pipeline hashes the inputs in a background thread while it
-    computes); ``gaps`` the :class:`lakeloss.gaps.GapReport` of the run.
+    ``inputs`` and ``facts`` hold the partition's bodies only; ``loss_rank`` is left empty
+    (:func:`loss_rank` fills it once every partition is done).
     """
-    filled_steps = (
-        gaps.filled_steps_per_body if gaps is not None else np.zeros(len(inputs.layer.frame), int)
-    )
     bodies = _body_table(config, inputs, facts, totals, filled_steps)
     by_period = _period_table(config, inputs, facts, totals)
-    summary_period, summary_group = _summaries(config, bodies, by_period, len(inputs.periods.rows))
-    provenance = run_record(
-        config,
-        time_axis=inputs.axis.describe(),
+    n_periods = len(inputs.periods.rows)
+    summed, grouped = _summary_chunks(config, bodies, by_period, n_periods)
+    assert totals.gaps is not None  # compute_totals always tallies the gaps
+    outcome = PartitionOutcome(
+        index=index,
+        rows=rows,
+        volume=bodies["evap_m3"].to_numpy(dtype=float),
+        totals_chunks=summed,
+        group_chunks=grouped,
         counts=_counts(config, inputs, bodies, totals, filled_steps),
-        gaps=gaps,
-        weights_cached=weights_cached,
-        run_warnings=run_warnings,
-        timings=timings,
-        inputs_record=inputs_record,
+        negatives=dict(totals.negatives),
+        gaps=PartitionGaps.of(totals.gaps),
+        periods=by_period[list(_PERIOD_KEYS)].iloc[:n_periods].reset_index(drop=True),
     )
+    return bodies, by_period, outcome
+
+
+def summaries(
+    config: RunConfig, outcomes: Sequence[PartitionOutcome]
+) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+    """Totals per period (and per group and period) of every partition, in layer order."""
+    first = outcomes[0]
+    assert first.periods is not None
+    n_periods = len(first.periods)
+    merged = SummaryMerger(n_periods)
+    for outcome in outcomes:
+        merged.add(outcome.totals_chunks)
+    by_period = merged.table(first.periods, None)
+    by_group = None
+    if config.waterbodies.group_by:
+        grouped = SummaryMerger(n_periods)
+        for outcome in outcomes:
+            assert outcome.group_chunks is not None
+            grouped.add(outcome.group_chunks)
+        by_group = grouped.table(first.periods, config.waterbodies.group_by)
+    return by_period, by_group
+
+
+def field_info(config: RunConfig, id_field: str) -> dict[str, dict[str, FieldInfo]]:
+    """Titles, descriptions and units of the columns of the layer and the period table."""
+    return _field_info(config, id_field)
+
+
+def gathered(
+    config: RunConfig,
+    parts: Sequence[tuple[gpd.GeoDataFrame, pd.DataFrame]],
+    rank: pd.arrays.IntegerArray,
+    outcomes: Sequence[PartitionOutcome],
+    provenance: dict[str, Any],
+    id_field: str,
+    series: xr.Dataset | None = None,
+) -> RunResult:
+    """A :class:`RunResult` in memory from the tables of every partition (the API's run)."""
+    import geopandas as gpd
+
+    bodies = gpd.GeoDataFrame(pd.concat([p[0] for p in parts], ignore_index=True))
+    bodies = bodies.set_crs(parts[0][0].crs, allow_override=True)
+    bodies["loss_rank"] = rank
+    by_period = pd.concat([p[1] for p in parts])
+    summary_period, summary_group = summaries(config, outcomes)
     return RunResult(
         waterbodies=bodies,
         by_period=by_period,
@@ -572,8 +573,8 @@ def assemble(
         series=series,
         provenance=provenance,
         config=config,
-        id_field=inputs.layer.id_field,
-        field_info=_field_info(config, bodies, inputs.layer.id_field),
+        id_field=id_field,
+        field_info=field_info(config, id_field),
     )
 
 

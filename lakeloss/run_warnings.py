@@ -9,8 +9,8 @@ the cache.
 from __future__ import annotations
 
 import warnings
+from collections.abc import Mapping
 
-from lakeloss.blocks import PeriodTotals
 from lakeloss.body_facts import BodyFacts
 from lakeloss.config import RunConfig
 from lakeloss.errors import (
@@ -32,12 +32,13 @@ def replay(seen: list[warnings.WarningMessage]) -> list[str]:
     return texts
 
 
-def negative_warning(config: RunConfig, totals: PeriodTotals) -> str | None:
-    total = sum(totals.negatives.values())
+def negative_warning(config: RunConfig, negatives: Mapping[str, int]) -> str | None:
+    """The warning about negative rates (counted per method over the run), or None."""
+    total = sum(negatives.values())
     if not total:
         return None
     verb = "set to zero" if config.clip_negative else "kept"
-    detail = ", ".join(f"{m}: {c}" for m, c in totals.negatives.items() if c)
+    detail = ", ".join(f"{m}: {c}" for m, c in negatives.items() if c)
     message = (
         f"{total} negative daily evaporation rates (condensation or negative net "
         f"radiation) were {verb} ({detail})"
