@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import datetime
 import os
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from types import TracebackType
 from typing import Literal
@@ -104,10 +104,11 @@ class SeriesWriter:
         locations = _check_locations(len(ids), longitude, latitude)
         self.n_waterbodies = len(ids)
         self.n_times = len(times)
-        self.chunk_times = max(1, min(self.n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
-        default_bodies = max(1, _CHUNK_VALUES // self.chunk_times)
-        self.chunk_waterbodies = max(
-            1, min(self.n_waterbodies, chunk_waterbodies or default_bodies)
+        self.chunk_waterbodies, self.chunk_times = series_chunks(
+            self.n_waterbodies,
+            self.n_times,
+            chunk_waterbodies=chunk_waterbodies,
+            chunk_times=chunk_times,
         )
         self._rows: dict[tuple[str, int], _ChunkRow] = {}
         self._flushed: set[tuple[str, int]] = set()
@@ -196,14 +197,7 @@ class SeriesWriter:
         A failed close leaves HDF5 holding the descriptor, which keeps the deleted staging
         file's space allocated until the process ends.
         """
-        if not self._dataset.isopen():
-            return
-        try:
-            self._dataset.close()
-        except RuntimeError:
-            _release_descriptors(self._file_identity)
-            if not quiet:
-                raise
+        _close_dataset(self._dataset, self._file_identity, quiet=quiet)
 
     def _define(
         self,
@@ -315,6 +309,23 @@ class SeriesWriter:
         self._flushed.add((name, index))
 
 
+def series_chunks(
+    n_waterbodies: int,
+    n_times: int,
+    *,
+    chunk_waterbodies: int | None = None,
+    chunk_times: int | None = None,
+) -> tuple[int, int]:
+    """Chunk shape ``(water bodies, steps)`` of the series variables of a file.
+
+    By default about 1 MiB of float32 per chunk with up to a year of daily steps; a given
+    length is kept within the file's dimensions.
+    """
+    times = max(1, min(n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
+    bodies = max(1, min(n_waterbodies, chunk_waterbodies or _CHUNK_VALUES // times))
+    return bodies, times
+
+
 class _ChunkRow:
     """One chunk length of steps for all water bodies, collected before it is written."""
 
@@ -334,6 +345,19 @@ class _ChunkRow:
     @property
     def complete(self) -> bool:
         return bool(self.filled.all())
+
+
+def _close_dataset(dataset: netCDF4.Dataset, identity: tuple[int, int], *, quiet: bool) -> None:
+    """Close a file being written; if HDF5 cannot (e.g. disk full), still give back its
+    descriptor (see :func:`_release_descriptors`)."""
+    if not dataset.isopen():
+        return
+    try:
+        dataset.close()
+    except RuntimeError:
+        _release_descriptors(identity)
+        if not quiet:
+            raise
 
 
 def _release_descriptors(identity: tuple[int, int]) -> None:
@@ -369,6 +393,228 @@ def _check_variables(variables: Mapping[str, Mapping[str, str]]) -> None:
             raise ValueError(f"series variable {name!r} lacks CF attributes {missing}")
         if name in _COORDINATES | {"waterbody"}:
             raise ValueError(f"series variable name {name!r} is reserved for a coordinate")
+
+
+def join_series(
+    part_files: Sequence[Path], target: Path, *, chunk_waterbodies: int | None = None
+) -> None:
+    """Join the series files of partitions of water bodies into one file.
+
+    Each partition writes its own series file with :class:`SeriesWriter` (its bodies, every
+    step, the same variables, times and global attributes as the others). The joined file
+    has the bodies of the parts in the order given and is the file one :class:`SeriesWriter`
+    over all bodies would have written: same dimensions, variables, attributes (those of the
+    first part), chunk shape (:func:`series_chunks` for all bodies, with the parts' chunk
+    length in time), compression and values. Identifiers are text throughout when any part
+    had to store them as text (as the whole file would).
+
+    Values are copied tile by tile, each tile a run of whole chunks of the joined file of at
+    most about 16 MiB, so memory does not grow with the number of bodies, and every chunk is
+    compressed once.
+
+    Parameters
+    ----------
+    part_files : sequence of Path
+        The partitions' series files in body order.
+    target : Path
+        File to create (replaced if it exists).
+    chunk_waterbodies : int, optional
+        Chunk length along the water-body axis, as for :class:`SeriesWriter`.
+
+    Raises
+    ------
+    ValueError
+        If there is no part, or the parts differ in their variables, attributes of their
+        variables, dimensions other than ``waterbody`` or time steps.
+    """
+    if not part_files:
+        raise ValueError("no series parts given; expected at least one")
+    with _HDF5_LOCK:
+        layout = _PartsLayout.read([Path(p) for p in part_files])
+        out = netCDF4.Dataset(Path(target), mode="w", format="NETCDF4")
+        stat = os.stat(target)
+    identity = (stat.st_dev, stat.st_ino)
+    try:
+        with _HDF5_LOCK:
+            layout.define(out, chunk_waterbodies)
+        layout.copy_values(out)
+    except BaseException:
+        with _HDF5_LOCK:
+            _close_dataset(out, identity, quiet=True)
+        raise
+    with _HDF5_LOCK:
+        _close_dataset(out, identity, quiet=False)
+
+
+_BODY_DIM = "waterbody"
+_ID_VARIABLE = "waterbody_id"
+_COPY_VALUES = 1 << 22  # values per copied tile: 16 MiB of float32
+
+
+class _PartsLayout:
+    """What the series parts hold: the first part's header, each part's length and ids."""
+
+    def __init__(self, paths: list[Path], first: netCDF4.Dataset, sizes: list[int], text: bool):
+        self.paths = paths
+        self.sizes = sizes
+        self.offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(int).tolist()
+        self.text_ids = text
+        self.global_attrs = {k: first.getncattr(k) for k in first.ncattrs()}
+        self.dimensions = {name: len(dim) for name, dim in first.dimensions.items()}
+        self.dimensions[_BODY_DIM] = self.offsets[-1]
+        self.variables = [_VariableHeader(var) for var in first.variables.values()]
+
+    @classmethod
+    def read(cls, paths: list[Path]) -> _PartsLayout:
+        sizes, text = [], False
+        first = netCDF4.Dataset(paths[0])
+        try:
+            reference = _part_signature(first)
+            for path in paths:
+                with netCDF4.Dataset(path) as part:
+                    if _part_signature(part) != reference:
+                        raise ValueError(
+                            f"series part {path} differs from {paths[0]} in its variables, "
+                            "their attributes, its dimensions or its time steps; expected "
+                            "parts of one run"
+                        )
+                    sizes.append(len(part.dimensions[_BODY_DIM]))
+                    text = text or part.variables[_ID_VARIABLE].dtype is str
+            return cls(paths, first, sizes, text)
+        finally:
+            first.close()
+
+    def define(self, out: netCDF4.Dataset, chunk_waterbodies: int | None) -> None:
+        out.setncatts(self.global_attrs)
+        for name, size in self.dimensions.items():
+            out.createDimension(name, size)
+        n_times = self.dimensions.get("time", 0)
+        chunks = series_chunks(
+            self.dimensions[_BODY_DIM],
+            n_times,
+            chunk_waterbodies=chunk_waterbodies,
+            chunk_times=next((v.chunks[1] for v in self.variables if v.is_series), None),
+        )
+        for header in self.variables:
+            header.define(out, chunks, text_ids=self.text_ids)
+
+    def copy_values(self, out: netCDF4.Dataset) -> None:
+        """Everything along ``waterbody`` part by part, the rest from the first part."""
+        out.set_auto_maskandscale(False)
+        with _HDF5_LOCK, netCDF4.Dataset(self.paths[0]) as first:
+            first.set_auto_maskandscale(False)
+            for header in self.variables:
+                if _BODY_DIM not in header.dimensions:
+                    out.variables[header.name][...] = first.variables[header.name][...]
+        for index, path in enumerate(self.paths):
+            with _HDF5_LOCK, netCDF4.Dataset(path) as part:
+                part.set_auto_maskandscale(False)
+                rows = slice(self.offsets[index], self.offsets[index + 1])
+                for header in self.variables:
+                    if header.dimensions == (_BODY_DIM,):
+                        values = part.variables[header.name][:]
+                        if header.name == _ID_VARIABLE and self.text_ids:
+                            values = _id_texts(np.asarray(values))
+                        out.variables[header.name][rows] = values
+        for header in self.variables:
+            if header.is_series:
+                self._copy_series(out, header)
+
+    def _copy_series(self, out: netCDF4.Dataset, header: _VariableHeader) -> None:
+        """Copy one ``(waterbody, time)`` variable in tiles of whole chunks of ``out``."""
+        target = out.variables[header.name]
+        n, n_times = target.shape
+        band, span = _tile_shape(n_times, target.chunking())
+        opened: dict[int, netCDF4.Dataset] = {}
+        try:
+            for start in range(0, n, band):
+                stop = min(start + band, n)
+                for first_step in range(0, n_times, span):
+                    steps = slice(first_step, min(first_step + span, n_times))
+                    with _HDF5_LOCK:
+                        tile = self._gather(header.name, start, stop, steps, opened)
+                        target[start:stop, steps] = tile
+        finally:
+            with _HDF5_LOCK:
+                for part in opened.values():
+                    part.close()
+
+    def _gather(
+        self,
+        name: str,
+        start: int,
+        stop: int,
+        steps: slice,
+        opened: dict[int, netCDF4.Dataset],
+    ) -> np.ndarray:
+        """Rows ``start:stop`` of a series variable at ``steps``, from the parts holding them."""
+        pieces = []
+        for index in range(len(self.paths)):
+            lo, hi = max(start, self.offsets[index]), min(stop, self.offsets[index + 1])
+            if lo >= hi:
+                if index in opened and self.offsets[index + 1] <= start:
+                    opened.pop(index).close()  # passed: no later tile needs it
+                continue
+            if index not in opened:
+                opened[index] = netCDF4.Dataset(self.paths[index])
+                opened[index].set_auto_maskandscale(False)
+            offset = self.offsets[index]
+            pieces.append(opened[index].variables[name][lo - offset : hi - offset, steps])
+        return np.concatenate(pieces, axis=0)
+
+
+class _VariableHeader:
+    """A variable's definition as read from a part: enough to create it in the joined file."""
+
+    def __init__(self, var: netCDF4.Variable) -> None:
+        self.name = var.name
+        self.dimensions = tuple(var.dimensions)
+        self.dtype = var.dtype
+        self.filters = var.filters() or {}
+        chunking = var.chunking()
+        self.chunks = None if chunking == "contiguous" else tuple(chunking)
+        self.fill_value = var.getncattr("_FillValue") if "_FillValue" in var.ncattrs() else None
+        self.attrs = {k: var.getncattr(k) for k in var.ncattrs() if k != "_FillValue"}
+        self.is_series = self.dimensions == (_BODY_DIM, "time")
+
+    def define(self, out: netCDF4.Dataset, chunks: tuple[int, int], *, text_ids: bool) -> None:
+        dtype = str if self.name == _ID_VARIABLE and text_ids else self.dtype
+        options: dict[str, object] = {}
+        if self.chunks is not None:  # the parts' chunks across bodies are not the file's
+            options["chunksizes"] = chunks if self.is_series else self.chunks
+        if self.filters.get("zlib"):
+            options.update(zlib=True, complevel=self.filters["complevel"])
+        options["shuffle"] = bool(self.filters.get("shuffle"))
+        var = out.createVariable(
+            self.name, dtype, self.dimensions, fill_value=self.fill_value, **options
+        )
+        var.setncatts(self.attrs)
+
+
+def _tile_shape(n_times: int, chunks: list[int]) -> tuple[int, int]:
+    """Bodies and steps of one copied tile: whole chunks, at most about :data:`_COPY_VALUES`
+    values (but at least one chunk)."""
+    chunk_bodies, chunk_times = chunks
+    chunk_band = chunk_bodies * max(1, n_times)  # one chunk of bodies over every step
+    if chunk_band <= _COPY_VALUES:
+        return chunk_bodies * (_COPY_VALUES // chunk_band), max(1, n_times)
+    return chunk_bodies, chunk_times * max(1, _COPY_VALUES // (chunk_bodies * chunk_times))
+
+
+def _part_signature(part: netCDF4.Dataset) -> tuple:
+    """What must agree between the series parts of one run (not the bodies themselves)."""
+    variables = [
+        (
+            name,
+            tuple(var.dimensions),
+            "id" if name == _ID_VARIABLE else str(var.dtype),
+            repr({k: var.getncattr(k) for k in var.ncattrs()}),
+        )
+        for name, var in part.variables.items()
+    ]
+    others = {k: len(d) for k, d in part.dimensions.items() if k != _BODY_DIM}
+    times = part.variables["time"][:].tolist() if "time" in part.variables else None
+    return variables, others, times
 
 
 def body_locations(geometry: geopandas.GeoSeries) -> tuple[np.ndarray, np.ndarray]:
