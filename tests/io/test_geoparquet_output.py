@@ -26,9 +26,9 @@ import pyarrow.parquet as pq
 import pyproj
 import pytest
 import shapely
+from builders import pond_layer
 from geopandas.testing import assert_geodataframe_equal
 
-from builders import pond_layer
 from lakeloss.config import OutputConfig, load_config
 from lakeloss.errors import ConfigError
 from lakeloss.io.geoparquet import PROVENANCE_KEY, finish_dataset
@@ -203,7 +203,9 @@ def test_column_empty_in_one_part_missing_geometry_and_text_ids(tmp_path):
     layer = gpd.GeoDataFrame(
         {
             "dam_id": pd.array([f"D-{i:03d}" for i in range(n)], dtype="str"),
-            "owner": pd.Series([None, None, None, "Tilbury farm", None, "Corella station"], dtype=object),
+            "owner": pd.Series(
+                [None, None, None, "Tilbury farm", None, "Corella station"], dtype=object
+            ),
             "evap_mm": [1.5, np.nan, 2.0, 3.0, 4.0, 5.0],
             "loss_rank": pd.array([4, pd.NA, 3, 5, 2, 1], dtype="Int64"),
         },
