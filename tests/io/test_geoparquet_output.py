@@ -26,7 +26,14 @@ import pyarrow.parquet as pq
 import pyproj
 import pytest
 import shapely
-from builders import pond_layer
+from builders import (
+    CHOW_CLIMATE,
+    CHOW_FIELDS,
+    case_config,
+    climate_dataset,
+    pond_layer,
+    write_netcdf,
+)
 from geopandas.testing import assert_geodataframe_equal
 
 from lakeloss.config import OutputConfig, load_config
@@ -65,8 +72,6 @@ def write_parts(directory: Path, waterbodies, by_period, stops) -> list[Path]:
 
 @pytest.fixture(scope="module")
 def run_result(tmp_path_factory):
-    import conftest
-
     import lakeloss
 
     base = pond_layer()
@@ -74,8 +79,14 @@ def run_result(tmp_path_factory):
     far["pond_id"], far["name"] = 999, "far pond"
     far["geometry"] = far.geometry.translate(500_000.0, 0.0)
     layer = pd.concat([base.iloc[:6], far, base.iloc[6:]], ignore_index=True)
-    make_case = conftest.make_case.__wrapped__(tmp_path_factory.mktemp("case"))
-    return lakeloss.run(make_case("energy_balance", layer=layer))
+    directory = tmp_path_factory.mktemp("case")
+    layer.to_file(directory / "ponds.gpkg", layer="ponds", driver="GPKG")
+    times = pd.date_range("2031-01-01", periods=59, freq="D")
+    climate = write_netcdf(climate_dataset(times, CHOW_FIELDS), directory / "climate.nc")
+    config = case_config(
+        directory / "ponds.gpkg", climate, directory / "out", "energy_balance", CHOW_CLIMATE
+    )
+    return lakeloss.run(config)
 
 
 def _finish(result, directory: Path, stops) -> Path:
