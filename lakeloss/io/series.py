@@ -43,6 +43,7 @@ _HDF5_LOCK = NETCDF4_PYTHON_LOCK
 
 _CHUNK_VALUES = 1 << 18  # values per chunk: 1 MiB of float32, a common HDF5 sweet spot
 _DEFAULT_CHUNK_TIMES = 366  # one year of daily steps per chunk row
+_MAX_CHUNK_BODIES = 4096  # water bodies per chunk at most (see series_chunks)
 _REQUIRED_ATTRS = ("units", "long_name")
 _COORDINATES = frozenset({"time", "waterbody_id", "lat", "lon"})
 _INT32 = np.iinfo(np.int32)
@@ -318,12 +319,17 @@ def series_chunks(
 ) -> tuple[int, int]:
     """Chunk shape ``(water bodies, steps)`` of the series variables of a file.
 
-    By default about 1 MiB of float32 per chunk with up to a year of daily steps; a given
-    length is kept within the file's dimensions.
+    By default up to a year of daily steps and, along the water bodies, the largest power of
+    two (at most 4096) that keeps a chunk within 1 MiB of float32; a given length is kept
+    within the file's dimensions.
     """
     times = max(1, min(n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
-    bodies = max(1, min(n_waterbodies, chunk_waterbodies or _CHUNK_VALUES // times))
-    return bodies, times
+    if chunk_waterbodies is None:
+        # A power of two up to 4096: it divides every partition length (a multiple of 4096),
+        # so the chunks of partition files are chunks of the joined file (see join_series).
+        per_chunk = max(1, _CHUNK_VALUES // times)
+        chunk_waterbodies = min(_MAX_CHUNK_BODIES, 1 << (per_chunk.bit_length() - 1))
+    return max(1, min(n_waterbodies, chunk_waterbodies)), times
 
 
 class _ChunkRow:
@@ -397,7 +403,7 @@ def _check_variables(variables: Mapping[str, Mapping[str, str]]) -> None:
 
 def join_series(
     part_files: Sequence[Path], target: Path, *, chunk_waterbodies: int | None = None
-) -> None:
+) -> int:
     """Join the series files of partitions of water bodies into one file.
 
     Each partition writes its own series file with :class:`SeriesWriter` (its bodies, every
@@ -408,9 +414,12 @@ def join_series(
     length in time), compression and values. Identifiers are text throughout when any part
     had to store them as text (as the whole file would).
 
-    Values are copied tile by tile, each tile a run of whole chunks of the joined file of at
-    most about 16 MiB, so memory does not grow with the number of bodies, and every chunk is
-    compressed once.
+    Memory does not grow with the number of bodies. Where a part's chunks are chunks of the
+    joined file (same shape and compression, the part starting on a chunk boundary: the
+    default chunk shape of :func:`series_chunks` and partitions of a multiple of 4096
+    bodies), they are copied as stored, without decompressing them (through h5py, one chunk
+    at a time). Other parts are copied in tiles of whole chunks of the joined file of at most
+    about 16 MiB, each chunk compressed once.
 
     Parameters
     ----------
@@ -420,6 +429,11 @@ def join_series(
         File to create (replaced if it exists).
     chunk_waterbodies : int, optional
         Chunk length along the water-body axis, as for :class:`SeriesWriter`.
+
+    Returns
+    -------
+    int
+        How many parts had their chunks copied as stored.
 
     Raises
     ------
@@ -444,6 +458,7 @@ def join_series(
         raise
     with _HDF5_LOCK:
         _close_dataset(out, identity, quiet=False)
+    return layout.copy_chunks(Path(target))
 
 
 _BODY_DIM = "waterbody"
@@ -454,9 +469,18 @@ _COPY_VALUES = 1 << 22  # values per copied tile: 16 MiB of float32
 class _PartsLayout:
     """What the series parts hold: the first part's header, each part's length and ids."""
 
-    def __init__(self, paths: list[Path], first: netCDF4.Dataset, sizes: list[int], text: bool):
+    def __init__(
+        self,
+        paths: list[Path],
+        first: netCDF4.Dataset,
+        sizes: list[int],
+        text: bool,
+        storage: list[tuple],
+    ):
         self.paths = paths
         self.sizes = sizes
+        self.storage = storage  # per part: chunking and filters of its series variables
+        self.chunks: tuple[int, int] = (1, 1)  # of the joined file, set by define()
         self.offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(int).tolist()
         self.text_ids = text
         self.global_attrs = {k: first.getncattr(k) for k in first.ncattrs()}
@@ -466,7 +490,7 @@ class _PartsLayout:
 
     @classmethod
     def read(cls, paths: list[Path]) -> _PartsLayout:
-        sizes, text = [], False
+        sizes, text, storage = [], False, []
         first = netCDF4.Dataset(paths[0])
         try:
             reference = _part_signature(first)
@@ -480,7 +504,8 @@ class _PartsLayout:
                         )
                     sizes.append(len(part.dimensions[_BODY_DIM]))
                     text = text or part.variables[_ID_VARIABLE].dtype is str
-            return cls(paths, first, sizes, text)
+                    storage.append(_series_storage(part))
+            return cls(paths, first, sizes, text, storage)
         finally:
             first.close()
 
@@ -497,6 +522,18 @@ class _PartsLayout:
         )
         for header in self.variables:
             header.define(out, chunks, text_ids=self.text_ids)
+        self.chunks = chunks
+        self.storage_of_file = _series_storage(out)
+
+    def stored_as_chunks(self) -> list[bool]:
+        """Which parts' series chunks are chunks of the joined file (copied as stored).
+
+        Only when every boundary between parts is a chunk boundary, so no chunk of the
+        joined file holds bodies of two parts.
+        """
+        if any(offset % self.chunks[0] for offset in self.offsets[1:-1]):
+            return [False] * len(self.paths)
+        return [storage == self.storage_of_file for storage in self.storage]
 
     def copy_values(self, out: netCDF4.Dataset) -> None:
         """Everything along ``waterbody`` part by part, the rest from the first part."""
@@ -516,19 +553,52 @@ class _PartsLayout:
                         if header.name == _ID_VARIABLE and self.text_ids:
                             values = _id_texts(np.asarray(values))
                         out.variables[header.name][rows] = values
+        as_stored = self.stored_as_chunks()
+        if not any(as_stored):
+            ranges = [(0, self.offsets[-1])]
+        else:
+            ranges = [
+                (self.offsets[k], self.offsets[k + 1])
+                for k, stored in enumerate(as_stored)
+                if not stored
+            ]
         for header in self.variables:
             if header.is_series:
-                self._copy_series(out, header)
+                for first, last in ranges:
+                    self._copy_series(out, header, first, last)
 
-    def _copy_series(self, out: netCDF4.Dataset, header: _VariableHeader) -> None:
-        """Copy one ``(waterbody, time)`` variable in tiles of whole chunks of ``out``."""
+    def copy_chunks(self, target: Path) -> int:
+        """Copy the series chunks of the parts that allow it as stored (after ``define``);
+        return how many parts were copied so."""
+        import h5py
+
+        names = [header.name for header in self.variables if header.is_series]
+        as_stored = self.stored_as_chunks()
+        for index, stored in enumerate(as_stored):
+            if not stored:
+                continue
+            with _HDF5_LOCK, h5py.File(target, "r+") as out, h5py.File(self.paths[index]) as part:
+                for name in names:
+                    source, destination = part[name].id, out[name].id
+                    for chunk in range(source.get_num_chunks()):
+                        where = source.get_chunk_info(chunk).chunk_offset
+                        mask, data = source.read_direct_chunk(where)
+                        moved = (where[0] + self.offsets[index], *where[1:])
+                        destination.write_direct_chunk(moved, data, filter_mask=mask)
+        return sum(as_stored)
+
+    def _copy_series(
+        self, out: netCDF4.Dataset, header: _VariableHeader, first: int, last: int
+    ) -> None:
+        """Copy rows ``first:last`` of a ``(waterbody, time)`` variable in tiles of whole
+        chunks of ``out`` (``first`` is a chunk boundary)."""
         target = out.variables[header.name]
-        n, n_times = target.shape
+        n_times = target.shape[1]
         band, span = _tile_shape(n_times, target.chunking())
         opened: dict[int, netCDF4.Dataset] = {}
         try:
-            for start in range(0, n, band):
-                stop = min(start + band, n)
+            for start in range(first, last, band):
+                stop = min(start + band, last)
                 for first_step in range(0, n_times, span):
                     steps = slice(first_step, min(first_step + span, n_times))
                     with _HDF5_LOCK:
@@ -589,6 +659,15 @@ class _VariableHeader:
             self.name, dtype, self.dimensions, fill_value=self.fill_value, **options
         )
         var.setncatts(self.attrs)
+
+
+def _series_storage(dataset: netCDF4.Dataset) -> tuple:
+    """Chunk shape and filters of each ``(waterbody, time)`` variable of a file."""
+    return tuple(
+        (name, tuple(var.chunking()), repr(var.filters()))
+        for name, var in dataset.variables.items()
+        if tuple(var.dimensions) == (_BODY_DIM, "time")
+    )
 
 
 def _tile_shape(n_times: int, chunks: list[int]) -> tuple[int, int]:

@@ -10,6 +10,7 @@ file must be the one-go file: structure, attributes, chunking, compression and v
 from __future__ import annotations
 
 import datetime
+import itertools
 import json
 import tracemalloc
 import warnings
@@ -160,6 +161,56 @@ def test_tiles_across_part_boundaries(one_go, tmp_path, monkeypatch):
         chunk_waterbodies=3,
     )
     _assert_same_file(tmp_path / "series.nc", reference)
+
+
+@pytest.mark.parametrize(
+    ("chunk", "cuts", "as_stored"),
+    [(2, [4, 8], 3), (4, [4, 8], 2), (2, [3, 8], 0)],
+    ids=["every-part", "all-but-the-short-last", "a-boundary-inside-a-chunk"],
+)
+def test_chunks_of_aligned_parts_copied_as_stored(one_go, tmp_path, chunk, cuts, as_stored):
+    # Parts starting on a chunk boundary with the file's chunk shape are copied chunk by chunk
+    # as stored; a short last part (its own chunk shape) or a boundary inside a chunk of the
+    # joined file are copied by value. The file is the same either way.
+    parts = _parts(tmp_path, cuts, chunk_times=16, chunk_waterbodies=chunk)
+    copied = join_series(parts, tmp_path / "series.nc", chunk_waterbodies=chunk)
+    assert copied == as_stored
+    whole = _write(
+        tmp_path / "whole.nc", slice(None), [(0, 40)], chunk_times=16, chunk_waterbodies=chunk
+    )
+    _assert_same_file(tmp_path / "series.nc", whole)
+
+
+def test_partitions_of_4096_bodies_are_copied_as_stored_by_default(tmp_path):
+    # Default chunk shape: 4096 bodies x 20 steps, so partitions of 4096 bodies (as a run cuts
+    # them) line up with the joined file's chunks; the short last partition is copied by value.
+    n, steps = 2 * 4096 + 100, 20
+    values = np.random.default_rng(7).random((steps, n)).astype(np.float32)
+    values[3, 5000:5010] = np.nan
+
+    def write(path, bodies):
+        with SeriesWriter(
+            path,
+            waterbody_ids=np.arange(n)[bodies],
+            times=TIMES[:steps],
+            calendar="noleap",
+            variables=VARIABLES,
+            global_attrs=GLOBAL,
+        ) as writer:
+            for name in VARIABLES:
+                writer.write(name, slice(0, steps), values[:, bodies])
+        return path
+
+    cuts = [0, 4096, 8192, n]
+    parts = [
+        write(tmp_path / f"{k}.nc", slice(a, b))
+        for k, (a, b) in enumerate(itertools.pairwise(cuts))
+    ]
+    assert join_series(parts, tmp_path / "series.nc") == 2
+    whole = write(tmp_path / "whole.nc", slice(None))
+    with netCDF4.Dataset(whole) as ds:
+        assert ds["evaporation_rate"].chunking() == [4096, 20]
+    _assert_same_file(tmp_path / "series.nc", whole)
 
 
 def test_a_part_with_ids_beyond_int32_makes_every_id_text(tmp_path):
