@@ -25,7 +25,7 @@ import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from types import TracebackType
-from typing import Literal
+from typing import Any, Literal
 
 import cftime
 import geopandas
@@ -518,7 +518,9 @@ class _PartsLayout:
             self.dimensions[_BODY_DIM],
             n_times,
             chunk_waterbodies=chunk_waterbodies,
-            chunk_times=next((v.chunks[1] for v in self.variables if v.is_series), None),
+            chunk_times=next(
+                (v.chunks[1] for v in self.variables if v.is_series and v.chunks), None
+            ),
         )
         for header in self.variables:
             header.define(out, chunks, text_ids=self.text_ids)
@@ -564,8 +566,8 @@ class _PartsLayout:
             ]
         for header in self.variables:
             if header.is_series:
-                for first, last in ranges:
-                    self._copy_series(out, header, first, last)
+                for start, stop in ranges:
+                    self._copy_series(out, header, start, stop)
 
     def copy_chunks(self, target: Path) -> int:
         """Copy the series chunks of the parts that allow it as stored (after ``define``);
@@ -594,7 +596,7 @@ class _PartsLayout:
         chunks of ``out`` (``first`` is a chunk boundary)."""
         target = out.variables[header.name]
         n_times = target.shape[1]
-        band, span = _tile_shape(n_times, target.chunking())
+        band, span = _tile_shape(n_times, self.chunks)
         opened: dict[int, netCDF4.Dataset] = {}
         try:
             for start in range(first, last, band):
@@ -649,7 +651,7 @@ class _VariableHeader:
 
     def define(self, out: netCDF4.Dataset, chunks: tuple[int, int], *, text_ids: bool) -> None:
         dtype = str if self.name == _ID_VARIABLE and text_ids else self.dtype
-        options: dict[str, object] = {}
+        options: dict[str, Any] = {}
         if self.chunks is not None:  # the parts' chunks across bodies are not the file's
             options["chunksizes"] = chunks if self.is_series else self.chunks
         if self.filters.get("zlib"):
@@ -670,7 +672,7 @@ def _series_storage(dataset: netCDF4.Dataset) -> tuple:
     )
 
 
-def _tile_shape(n_times: int, chunks: list[int]) -> tuple[int, int]:
+def _tile_shape(n_times: int, chunks: tuple[int, int]) -> tuple[int, int]:
     """Bodies and steps of one copied tile: whole chunks, at most about :data:`_COPY_VALUES`
     values (but at least one chunk)."""
     chunk_bodies, chunk_times = chunks
