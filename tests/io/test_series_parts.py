@@ -21,8 +21,9 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from lakeloss.io import series
-from lakeloss.io.series import SeriesWriter, join_series
+from lakeloss.io import series_join
+from lakeloss.io.series import SeriesWriter
+from lakeloss.io.series_join import join_series
 
 N_BODIES, N_STEPS = 10, 40
 TIMES = np.array(
@@ -149,7 +150,7 @@ def test_tiles_across_part_boundaries(one_go, tmp_path, monkeypatch):
     # Chunks of 3 bodies x 16 steps in the joined file and tiles of one chunk (48 values):
     # chunks straddle the parts (4 | 3 | 3 bodies), rows and steps are copied piecewise.
     parts = _parts(tmp_path, [4, 7], chunk_times=16, chunk_waterbodies=2)
-    monkeypatch.setattr(series, "_COPY_VALUES", 48)
+    monkeypatch.setattr(series_join, "_COPY_VALUES", 48)
     join_series(parts, tmp_path / "series.nc", chunk_waterbodies=3)
     with netCDF4.Dataset(tmp_path / "series.nc") as ds:
         assert ds["evaporation_rate"].chunking() == [3, 16]
@@ -272,7 +273,7 @@ def test_join_memory_does_not_grow_with_the_bodies(tmp_path, monkeypatch):
             for name in VARIABLES:
                 writer.write(name, slice(0, steps), rng.random((steps, len(bodies))))
         parts.append(path)
-    monkeypatch.setattr(series, "_COPY_VALUES", 4096)
+    monkeypatch.setattr(series_join, "_COPY_VALUES", 4096)
     tracemalloc.start()
     try:
         join_series(parts, tmp_path / "series.nc", chunk_waterbodies=64)
