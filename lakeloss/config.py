@@ -25,6 +25,8 @@ from lakeloss.errors import ConfigError, InputDataError
 from lakeloss.glossary import ALIASES, QUANTITIES
 
 PERIODS = ("day", "month", "year", "water_year", "season", "table")
+OUTPUT_FORMATS = ("geopackage", "geoparquet")
+"""``[output] format``: one GeoPackage file, or a GeoParquet dataset (a file per partition)."""
 VOLUME_UNITS = {"ML": 1.0e-3, "acre_ft": 1.0 / 1233.48183754752}
 """Extra volume units: factor from m3. 1 acre-foot = 1233.48183754752 m3 (exact by definition
 of the international foot and acre)."""
@@ -108,6 +110,8 @@ class OutputConfig:
     """First month of a water year (period ``water_year``); None: July (7)."""
     period_table: Path | None = None
     """CSV of custom periods (``name,start,end``); set, the period is ``"table"``."""
+    format: str = "geopackage"
+    """Format of the per-body outputs, one of :data:`OUTPUT_FORMATS`."""
 
 
 @dataclass(frozen=True)
@@ -217,6 +221,7 @@ _OUTPUT_KEYS = {
     "precipitation": bool,
     "year_start_month": int,
     "period_table": str,
+    "format": str,
 }
 _TIME_KEYS = {"start": str, "end": str}
 _COMPUTE_KEYS = {
@@ -585,6 +590,11 @@ def _output(raw: Mapping[str, Any], base: Path | None) -> OutputConfig:
     if period not in PERIODS:
         raise ConfigError(f"[output].period must be one of {', '.join(PERIODS)}, got '{period}'")
     first_month, period_table = _period_settings(table, period, base)
+    layer_format = table.get("format", "geopackage")
+    if layer_format not in OUTPUT_FORMATS:
+        raise ConfigError(
+            f"[output].format must be one of {', '.join(OUTPUT_FORMATS)}, got '{layer_format}'"
+        )
     units = _str_list(table.get("extra_volume_units", []), "[output].extra_volume_units")
     for unit in units:
         if unit not in VOLUME_UNITS:
@@ -600,6 +610,7 @@ def _output(raw: Mapping[str, Any], base: Path | None) -> OutputConfig:
         precipitation=table.get("precipitation", True),
         year_start_month=first_month,
         period_table=period_table,
+        format=layer_format,
     )
 
 

@@ -39,10 +39,11 @@ from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK
 # HDF5 is not thread-safe: while a run streams its series, other threads read climate
 # NetCDF files through xarray, which serialises netCDF4/HDF5 calls with this lock. Every
 # netCDF4 call here takes the same lock, or the two collide (a segmentation fault, seen).
-_HDF5_LOCK = NETCDF4_PYTHON_LOCK
+HDF5_LOCK = NETCDF4_PYTHON_LOCK
 
 _CHUNK_VALUES = 1 << 18  # values per chunk: 1 MiB of float32, a common HDF5 sweet spot
 _DEFAULT_CHUNK_TIMES = 366  # one year of daily steps per chunk row
+_MAX_CHUNK_BODIES = 4096  # water bodies per chunk at most (see series_chunks)
 _REQUIRED_ATTRS = ("units", "long_name")
 _COORDINATES = frozenset({"time", "waterbody_id", "lat", "lon"})
 _INT32 = np.iinfo(np.int32)
@@ -104,14 +105,15 @@ class SeriesWriter:
         locations = _check_locations(len(ids), longitude, latitude)
         self.n_waterbodies = len(ids)
         self.n_times = len(times)
-        self.chunk_times = max(1, min(self.n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
-        default_bodies = max(1, _CHUNK_VALUES // self.chunk_times)
-        self.chunk_waterbodies = max(
-            1, min(self.n_waterbodies, chunk_waterbodies or default_bodies)
+        self.chunk_waterbodies, self.chunk_times = series_chunks(
+            self.n_waterbodies,
+            self.n_times,
+            chunk_waterbodies=chunk_waterbodies,
+            chunk_times=chunk_times,
         )
         self._rows: dict[tuple[str, int], _ChunkRow] = {}
         self._flushed: set[tuple[str, int]] = set()
-        with _HDF5_LOCK:
+        with HDF5_LOCK:
             self._dataset = netCDF4.Dataset(Path(path), mode="w", format="NETCDF4")
             stat = os.stat(path)
             self._file_identity = (stat.st_dev, stat.st_ino)
@@ -120,7 +122,7 @@ class SeriesWriter:
                 if locations is not None:
                     self._define_locations(*locations)
             except BaseException:
-                self._close_dataset(quiet=True)
+                self.close_file(quiet=True)
                 raise
 
     def write(self, name: str, time_slice: slice, values: np.ndarray) -> None:
@@ -140,7 +142,7 @@ class SeriesWriter:
         ValueError
             If the name is unknown or the slice or shape do not fit the file.
         """
-        with _HDF5_LOCK:
+        with HDF5_LOCK:
             self._write(name, time_slice, values)
 
     def _write(self, name: str, time_slice: slice, values: np.ndarray) -> None:
@@ -158,7 +160,7 @@ class SeriesWriter:
 
     def close(self) -> None:
         """Write what is still collected and close the file."""
-        with _HDF5_LOCK:
+        with HDF5_LOCK:
             self._close()
 
     def _close(self) -> None:
@@ -168,9 +170,9 @@ class SeriesWriter:
             for key in sorted(self._rows):
                 self._flush(*key)
         except BaseException:
-            self._close_dataset(quiet=True)
+            self.close_file(quiet=True)
             raise
-        self._close_dataset(quiet=False)
+        self.close_file(quiet=False)
 
     def __enter__(self) -> SeriesWriter:
         return self
@@ -186,24 +188,17 @@ class SeriesWriter:
         else:
             # A failed run's file is discarded with its staging directory; just release it.
             self._rows.clear()
-            with _HDF5_LOCK:
-                self._close_dataset(quiet=True)
+            with HDF5_LOCK:
+                self.close_file(quiet=True)
         return False
 
-    def _close_dataset(self, *, quiet: bool) -> None:
+    def close_file(self, *, quiet: bool) -> None:
         """Close the file; if HDF5 cannot (e.g. disk full), still give back its descriptor.
 
         A failed close leaves HDF5 holding the descriptor, which keeps the deleted staging
         file's space allocated until the process ends.
         """
-        if not self._dataset.isopen():
-            return
-        try:
-            self._dataset.close()
-        except RuntimeError:
-            _release_descriptors(self._file_identity)
-            if not quiet:
-                raise
+        close_file(self._dataset, self._file_identity, quiet=quiet)
 
     def _define(
         self,
@@ -229,7 +224,7 @@ class SeriesWriter:
             id_var[:] = ids.astype(np.int32)
         else:  # CF 1.8 has no 64-bit integers: larger (or non-integer) ids as text
             id_var = ds.createVariable("waterbody_id", str, ("waterbody",))
-            id_var[:] = _id_texts(ids)
+            id_var[:] = id_texts(ids)
         id_var.setncatts({"long_name": "water body identifier", "cf_role": "timeseries_id"})
         dates = _as_dates(times)
         units = _time_units(dates)
@@ -315,6 +310,28 @@ class SeriesWriter:
         self._flushed.add((name, index))
 
 
+def series_chunks(
+    n_waterbodies: int,
+    n_times: int,
+    *,
+    chunk_waterbodies: int | None = None,
+    chunk_times: int | None = None,
+) -> tuple[int, int]:
+    """Chunk shape ``(water bodies, steps)`` of the series variables of a file.
+
+    By default up to a year of daily steps and, along the water bodies, the largest power of
+    two (at most 4096) that keeps a chunk within 1 MiB of float32; a given length is kept
+    within the file's dimensions.
+    """
+    times = max(1, min(n_times, chunk_times or _DEFAULT_CHUNK_TIMES))
+    if chunk_waterbodies is None:
+        # A power of two up to 4096: it divides every partition length (a multiple of 4096),
+        # so the chunks of partition files are chunks of the joined file (see join_series).
+        per_chunk = max(1, _CHUNK_VALUES // times)
+        chunk_waterbodies = min(_MAX_CHUNK_BODIES, 1 << (per_chunk.bit_length() - 1))
+    return max(1, min(n_waterbodies, chunk_waterbodies)), times
+
+
 class _ChunkRow:
     """One chunk length of steps for all water bodies, collected before it is written."""
 
@@ -334,6 +351,29 @@ class _ChunkRow:
     @property
     def complete(self) -> bool:
         return bool(self.filled.all())
+
+
+def close_file(dataset: netCDF4.Dataset, identity: tuple[int, int], *, quiet: bool) -> None:
+    """Close a netCDF4 file being written; if HDF5 cannot (e.g. disk full), still give back
+    its descriptor (see :func:`_release_descriptors`).
+
+    Parameters
+    ----------
+    dataset : netCDF4.Dataset
+        The file, open for writing (closed already: nothing happens).
+    identity : tuple of int
+        ``(st_dev, st_ino)`` of the file, taken when it was created.
+    quiet : bool
+        Swallow a failed close (when an error is already on its way).
+    """
+    if not dataset.isopen():
+        return
+    try:
+        dataset.close()
+    except RuntimeError:
+        _release_descriptors(identity)
+        if not quiet:
+            raise
 
 
 def _release_descriptors(identity: tuple[int, int]) -> None:
@@ -419,7 +459,8 @@ def _fits_int32(ids: np.ndarray) -> bool:
     return bool(ids.min() >= _INT32.min and ids.max() <= _INT32.max)
 
 
-def _id_texts(ids: np.ndarray) -> np.ndarray:
+def id_texts(ids: np.ndarray) -> np.ndarray:
+    """Identifiers as text, the way series files store ids that are not 32-bit integers."""
     return np.asarray([str(v) for v in ids.tolist()], dtype=object)
 
 
