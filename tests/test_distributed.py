@@ -1,10 +1,11 @@
 """Runs on dask.distributed clusters give exactly the numbers and files of a local run.
 
 Every cluster here is real: worker processes on loopback (2 workers, one thread each, no
-dashboard), started by the test. The case is small (13 water bodies, 8 x 6 cells, 90 daily
-steps of spatially varying invented weather) and split into several blocks, so merging in
-block order, scattering and retries are all exercised. Results are compared exactly: the
-result tables with ``check_exact`` and the CSV files byte for byte.
+dashboard), started by the test. The case is small (150 water bodies, 8 x 6 cells, 90 daily
+steps of spatially varying invented weather) and split into partitions of 64 bodies (each a
+task on a worker) and several blocks of time, so merging in order, retries of partitions
+lost with a worker and the summaries' chunked sums are all exercised. Results are compared
+exactly: the result tables with ``check_exact`` and the CSV files byte for byte.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ from lakeloss.cli import cli
 from lakeloss.errors import ClusterError
 
 N_STEPS = 90
+N_PARTITIONS = 3  # 150 bodies in partitions of 64
 CSV_FILES = ("summary_by_waterbody.csv", "summary_by_period.csv", "summary_by_group.csv")
 
 
@@ -62,7 +64,7 @@ def case(tmp_path_factory):
     """The case's files, written once for the module; outputs go under each test's tmp_path."""
     root = tmp_path_factory.mktemp("case")
     layer_path = root / "ponds.gpkg"
-    pond_layer().to_file(layer_path, layer="ponds", driver="GPKG")
+    pond_layer(149).to_file(layer_path, layer="ponds", driver="GPKG")
     times = pd.date_range("2031-01-01", periods=N_STEPS, freq="D")
     climate_path = write_netcdf(climate_dataset(times, _weather()), root / "climate.nc")
     config = case_config(layer_path, climate_path, root / "out", "penman_open_water", CLIMATE)
@@ -126,9 +128,10 @@ def test_reference_is_not_trivial(reference):
     # The comparisons below mean something only if the numbers vary between bodies and months.
     result, _ = reference
     # Bodies inside one shared climate cell get the same numbers (lakeloss.grouping), so
-    # not every row differs; most do, and every body's months differ.
+    # not every row differs: 150 ponds over 48 cells, plus those across cell edges, give
+    # over a hundred distinct (body, month) values, and every body's months differ.
     by_period = result.by_period
-    assert by_period["evap_mm"].nunique() >= 0.8 * len(by_period)
+    assert by_period["evap_mm"].nunique() >= 100
     assert (by_period.groupby("pond_id")["evap_mm"].nunique() == 3).all()
     assert result.by_period["period_start"].nunique() == 3
     assert (result.waterbodies["evap_mm"] > 0).all()
@@ -144,11 +147,23 @@ def test_local_cluster_gives_identical_results(case, reference, tmp_path):
     # [compute] workers starts (and stops) its own LocalCluster of worker processes.
     steps = []
     result = lakeloss.run(
-        _with_compute(case, workers=2, chunk_steps=7), progress=_recording_bar(steps)
+        _with_compute(case, workers=2, chunk_steps=7, partition_bodies=64),
+        progress=_recording_bar(steps, partitions=N_PARTITIONS),
     )
     _assert_identical(result, result.write(tmp_path / "cluster"), reference)
-    # the progress bar is fed block by block, in order, up to every step
-    assert steps == [7] * 12 + [6, -1]
+    # the progress bar is fed partition by partition, in order, up to every step of each
+    assert steps == [N_STEPS] * N_PARTITIONS + [-1]
+
+
+def test_partitions_in_this_process_give_identical_results(case, reference, tmp_path):
+    steps = []
+    result = lakeloss.run(
+        _with_compute(case, chunk_steps=7, partition_bodies=64),
+        progress=_recording_bar(steps, partitions=N_PARTITIONS),
+    )
+    _assert_identical(result, result.write(tmp_path / "partitions"), reference)
+    # locally the bar is fed block by block, partition after partition
+    assert steps == ([7] * 12 + [6]) * N_PARTITIONS + [-1]
 
 
 def test_existing_cluster_by_address(cluster, case, reference, tmp_path):
@@ -164,7 +179,7 @@ def test_existing_cluster_by_scheduler_file(cluster, scheduler_file, case, refer
     _assert_identical(result, result.write(tmp_path / "by_file"), reference)
 
 
-def _recording_bar(steps: list[int], on_update=None):
+def _recording_bar(steps: list[int], on_update=None, partitions: int = 1):
     """A progress factory whose bar records every update (and may act on it)."""
 
     class Bar:
@@ -177,7 +192,7 @@ def _recording_bar(steps: list[int], on_update=None):
             steps.append(-1)
 
     def factory(total: int, label: str) -> Bar:
-        assert (total, label) == (N_STEPS, "evaporation")
+        assert (total, label) == (N_STEPS * partitions, "evaporation")
         return Bar()
 
     return factory
@@ -212,9 +227,9 @@ def test_missing_scheduler_file_is_a_cluster_error(case, tmp_path):
 
 
 def test_worker_killed_during_run(cluster, case, reference, tmp_path):
-    # After the first block is merged, SIGKILL one worker process (its nanny restarts it).
-    # 3-step blocks, at most four in flight: the victim holds unfinished blocks when it dies,
-    # and they must be recomputed. The run either completes with identical numbers, or fails
+    # After the first partition is back, SIGKILL one worker process (its nanny restarts
+    # it). Three partitions, at most four in flight: the victim holds an unfinished one when
+    # it dies, and it must be recomputed. The run either completes with identical numbers, or fails
     # with a one-line ClusterError and leaves no outputs. Runs last on the shared cluster.
     with Client(cluster) as client:
         victim = sorted(client.run(os.getpid).values())[0]
@@ -226,16 +241,21 @@ def test_worker_killed_during_run(cluster, case, reference, tmp_path):
                 killed.append(victim)
 
         steps: list[int] = []
-        config = _with_compute(case, scheduler=cluster.scheduler_address, chunk_steps=3)
+        config = _with_compute(
+            case, scheduler=cluster.scheduler_address, chunk_steps=3, partition_bodies=64
+        )
         out = tmp_path / "after_kill"
         try:
-            result = lakeloss.run(config, progress=_recording_bar(steps, kill_after_first_block))
+            result = lakeloss.run(
+                config,
+                progress=_recording_bar(steps, kill_after_first_block, partitions=N_PARTITIONS),
+            )
         except ClusterError as err:
             assert "\n" not in str(err)
             assert not out.exists()
         else:
             _assert_identical(result, result.write(out), reference)
-            assert steps == [3] * (N_STEPS // 3) + [-1]
+            assert steps == [N_STEPS] * N_PARTITIONS + [-1]
         assert killed == [victim]
         client.wait_for_workers(2, timeout=60)
         assert victim not in client.run(os.getpid).values()
