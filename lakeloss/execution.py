@@ -1,28 +1,28 @@
-"""Where the blocks of a run are computed: in this process, or on a dask.distributed cluster.
+"""Where a run is computed: partitions in this process, or on a dask.distributed cluster.
 
-Every scheduler runs the same pure function, :func:`lakeloss.blocks.compute_block`, on the
-same blocks, and hands the results back in block order; the pipeline sums them exactly (in
-fixed point), so the merged sums and every output file are identical whichever scheduler ran
-them and however the time axis was cut. When a method carries a state
-(:mod:`lakeloss.physics.stateful`), the blocks are still read and averaged ahead, in
-parallel (:func:`lakeloss.blocks.extract_filled`), but their physics
-(:func:`lakeloss.blocks.finish_block`) runs in time order, each block starting from the
-state the one before it left.
+The unit of work is a partition of water bodies (:mod:`lakeloss.partition_run`) taken through
+the whole time axis. Its blocks of time steps are computed by the same pure functions,
+:func:`lakeloss.blocks.compute_block` (read, average, physics, sums) or, when a method carries
+a state (:mod:`lakeloss.physics.stateful`), :func:`lakeloss.blocks.extract_filled` ahead on
+the thread pool and :func:`lakeloss.blocks.finish_block` in time order, each block starting
+from the state the one before it left. Sums are exact (fixed point), so every output file is
+identical whichever scheduler ran the partitions and however the time axis was cut.
 
-* default: a small thread pool in this process (numpy and the sparse products release the
-  GIL), at most two blocks in flight;
+* default: partitions one after another in this process, each one's blocks on a small
+  thread pool (numpy and the sparse products release the GIL), at most two in flight;
 * ``workers = N``: a :class:`dask.distributed.LocalCluster` of N worker processes on
   loopback, one thread each, with a memory limit per worker (``memory_limit``, default
   ``"auto"``: the machine's memory shared among the workers);
 * ``scheduler = ADDRESS``: an existing cluster, by address (``tcp://host:8786``) or by the
   path of a scheduler file (``dask scheduler --scheduler-file``).
 
-On a cluster the weights, the per-body inputs and the block context are scattered to every
-worker once (the tasks refer to them by key, they are not pickled into each task); at most
-``2 x workers`` blocks are in flight, so finished blocks never pile up in memory. Only this
-process merges results and writes files. A block lost with a worker is recomputed by dask
-on another worker (retries); a block that cannot be computed becomes :class:`ClusterError`,
-raised before anything is written.
+On a cluster each partition is one task (:func:`map_partitions`), at most ``2 x workers``
+in flight, so finished partitions never pile up; a worker writes its partition's part files
+into the output's staging directory when the run streams its outputs, and only the small
+outcome comes back. A partition lost with a worker is recomputed by dask on another worker
+(retries); one that cannot be computed becomes :class:`ClusterError`, naming the
+partition's first water body, raised before anything is written. The zonal weights of a
+large layer are built in spatial blocks on the cluster too (:func:`cluster_map`).
 """
 
 from __future__ import annotations
@@ -240,92 +240,19 @@ def _new_client(compute: ComputeConfig) -> Iterator[Client]:
         yield client
 
 
-def _lost_block(i: int, n: int, err: BaseException) -> ClusterError:
-    return ClusterError(
-        f"the cluster lost block {i + 1} of {n} ({_one_line(err)}); no outputs were written; "
-        "check worker memory limits and logs, then rerun"
-    )
-
-
-def _run_cluster(
-    compute: ComputeConfig,
-    context: BlockContext,
-    weights: Mapping[str, ZonalWeights],
-    static: Mapping[str, np.ndarray],
-    blocks: Sequence[slice],
-    state: RunState | None = None,
-) -> Iterator[BlockResult]:
-    from distributed.client import FutureCancelledError
-    from distributed.scheduler import KilledWorker
-
-    from lakeloss.blocks import compute_block, finish_block
-
-    with _client(compute) as client:
-        n_workers = max(1, len(client.scheduler_info().get("workers", {})))
-        log.info("dask cluster %s with %d workers", client.scheduler.address, n_workers)
-        # One scattered copy per worker; tasks get them by key, not pickled into each task.
-        [context_f, weights_f, static_f] = client.scatter(
-            [context, dict(weights), dict(static)], broadcast=True, hash=False
-        )
-        window = _IN_FLIGHT_PER_WORKER * n_workers
-        # With a stateful method each block's physics waits for the previous block's state
-        # (a chain of futures), while the reading and averaging of later blocks go ahead.
-        carried: Any = state
-
-        def submit(block: slice) -> Any:
-            nonlocal carried
-            if not context.stateful:
-                return client.submit(
-                    compute_block, context_f, weights_f, static_f, block,
-                    retries=_RETRIES, pure=False,
-                )  # fmt: skip
-            extracted = client.submit(
-                _extract_owned, context_f, weights_f, block, retries=_RETRIES, pure=False
-            )
-            part = client.submit(
-                finish_block, context_f, extracted, static_f, block, carried,
-                retries=_RETRIES, pure=False,
-            )  # fmt: skip
-            carried = client.submit(_state_of, part, retries=_RETRIES, pure=False)
-            return part
-
-        futures: list[Any] = [submit(b) for b in blocks[:window]]
-        for i in range(len(blocks)):
-            try:
-                part = futures[i].result()
-            except LakelossError:
-                raise  # the block's own error (bad input data), raised as on a local run
-            except (KilledWorker, FutureCancelledError, OSError, TimeoutError) as err:
-                # OSError covers a scheduler connection closed mid-run.
-                raise _lost_block(i, len(blocks), err) from err
-            futures[i] = None  # the client drops the result from the cluster
-            if i + window < len(blocks):
-                futures.append(submit(blocks[i + window]))
-            yield part
-
-
-def _state_of(part: BlockResult) -> RunState | None:
-    return part.state
-
-
 def run_blocks(
-    compute: ComputeConfig,
     context: BlockContext,
     weights: Mapping[str, ZonalWeights],
     static: Mapping[str, np.ndarray],
     blocks: Sequence[slice],
     state: RunState | None = None,
 ) -> Iterator[BlockResult]:
-    """Compute every block and yield the results in block order.
+    """Compute every block of one partition in this process and yield them in block order.
 
     Parameters
     ----------
-    compute : ComputeConfig
-        ``workers`` > 0 starts a local cluster, ``scheduler`` connects to a running one;
-        neither runs the blocks in a thread pool here.
     context, weights, static
-        Arguments of :func:`lakeloss.blocks.compute_block` shared by every block
-        (scattered once to a cluster's workers).
+        Arguments of :func:`lakeloss.blocks.compute_block` shared by every block.
     blocks : sequence of slice
         Time-step ranges, in order.
     state : dict, optional
@@ -337,16 +264,8 @@ def run_blocks(
     lakeloss.blocks.BlockResult
         One per block, in the order of ``blocks``, as soon as it (and every block before it)
         is done.
-
-    Raises
-    ------
-    ClusterError
-        The scheduler cannot be reached, has no workers, or a block was lost for good.
     """
-    if compute.workers or compute.scheduler:
-        yield from _run_cluster(compute, context, weights, static, blocks, state)
-    else:
-        yield from _run_local(context, weights, static, blocks, state)
+    yield from _run_local(context, weights, static, blocks, state)
 
 
 @contextlib.contextmanager

@@ -553,7 +553,7 @@ def compute_totals(
     blocks = list(iter_blocks(len(inputs.axis.days), steps))
     shared = (groups.group_weights(weights), groups.group_values(static))
     state = initial_states(context, shared[1], groups.n_groups)
-    for part in run_blocks(config.compute, context, *shared, blocks, state):
+    for part in run_blocks(context, *shared, blocks, state):
         add_block(totals, part)
         if series_sink is not None and part.series is not None:
             series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
