@@ -303,7 +303,7 @@ def map_partitions(
 
     Locally one after another in this process (each one's blocks on the thread pool);
     on a cluster each partition is one task on a worker, at most ``2 x workers`` in flight,
-    writing its part files into ``staging`` when given. ``bar`` advances by time steps.
+    writing its part files into ``staging``. ``bar`` advances by time steps.
     """
     from lakeloss.partition_run import run_partition, run_partition_on_worker
 
@@ -319,7 +319,8 @@ def map_partitions(
         log.info("dask cluster %s with %d workers", client.scheduler.address, n_workers)
         window = _IN_FLIGHT_PER_WORKER * n_workers
         pending: list[tuple[PartitionTask, Any]] = []
-        where = None if staging is None else str(staging)
+        assert staging is not None  # workers write their part files there
+        where = str(staging)
         iterator = iter(tasks)
 
         def submit() -> None:

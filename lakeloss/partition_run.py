@@ -22,12 +22,12 @@ from lakeloss.body_facts import BodyFacts
 from lakeloss.config import ComputeConfig, RunConfig
 from lakeloss.inputs import Inputs
 from lakeloss.partitions import PartitionOutcome
+from lakeloss.series_stream import SeriesSettings, SeriesStream, temporary_directory
 from lakeloss.zonal import ZonalWeights
 
 if TYPE_CHECKING:
     import geopandas as gpd
     import pandas as pd
-    import xarray as xr
 
     from lakeloss.progress import ProgressBar
 
@@ -42,7 +42,8 @@ class PartitionTask:
     facts: BodyFacts
     index: int
     rows: range
-    keep_series: bool = False
+    series: SeriesSettings | None = None
+    """Set when the run keeps the per-step series (``[output] series``)."""
 
 
 @dataclass
@@ -52,8 +53,10 @@ class PartitionDone:
     outcome: PartitionOutcome
     bodies: gpd.GeoDataFrame | None = None
     by_period: pd.DataFrame | None = None
-    series: xr.Dataset | None = None
+    series_file: Path | None = None
+    """The partition's series file (:class:`lakeloss.series_stream.SeriesStream`)."""
     part_dir: Path | None = None
+    """Where the partition's part files are (:mod:`lakeloss.io.parts`), when written."""
 
 
 def slice_partition(
@@ -84,43 +87,54 @@ def slice_partition(
     return dataclasses.replace(inputs, layer=part_layer), part_weights, part_facts
 
 
-def run_partition(task: PartitionTask, bar: ProgressBar | None = None) -> PartitionDone:
-    """Compute one partition through the whole time axis; its tables stay in memory."""
+def run_partition(
+    task: PartitionTask, bar: ProgressBar | None = None, series_dir: Path | None = None
+) -> PartitionDone:
+    """Compute one partition through the whole time axis; its tables stay in memory.
+
+    Its series file, when the run keeps one, goes into ``series_dir`` (default: a
+    temporary directory removed when the process exits).
+    """
     from lakeloss.pipeline import compute_totals
     from lakeloss.results import partition_tables
-    from lakeloss.series_stream import SeriesStream
 
     config = task.config
-    collector = SeriesStream(config, task.inputs) if task.keep_series else None
+    collector = None
+    if task.series is not None:
+        directory = series_dir or temporary_directory()
+        path = directory / f"series-{task.index:06d}.nc"
+        collector = SeriesStream(config, task.inputs, path, task.series)
     sink = collector.add if collector else None
     totals = compute_totals(config, task.inputs, task.weights, task.facts, bar, sink)
     assert totals.gaps is not None  # compute_totals always tallies the gaps
     bodies, by_period, outcome = partition_tables(
         config, task.inputs, task.facts, totals, totals.gaps.filled_per_body, task.index, task.rows
     )
-    series = collector.dataset() if collector else None
-    return PartitionDone(outcome, bodies, by_period, series)
+    series_file = collector.close() if collector else None
+    return PartitionDone(outcome, bodies, by_period, series_file)
 
 
-def run_partition_on_worker(task: PartitionTask, staging: str | None) -> PartitionDone:
+def run_partition_on_worker(task: PartitionTask, staging: str) -> PartitionDone:
     """:func:`run_partition` on a cluster worker: blocks in this worker's process only.
 
-    With ``staging`` (the output's staging directory, on storage the client sees), the
-    partition's part files are written there and only the outcome goes back; without, the
-    tables go back with it.
+    The partition's part files (and series file) are written into ``staging``/_parts/NNNNNN
+    (the output's staging directory, on storage the client sees), and only the outcome goes
+    back to the client.
     """
-    local = dataclasses.replace(task.config, compute=_local(task.config.compute))
-    done = run_partition(dataclasses.replace(task, config=local))
-    if staging is None:
-        return done
     from lakeloss.io.parts import write_part
 
-    part_dir = Path(staging) / "_parts" / f"{task.index:06d}"
+    part_dir = part_directory(Path(staging), task.index)
+    part_dir.mkdir(parents=True, exist_ok=True)
+    local = dataclasses.replace(task.config, compute=_local(task.config.compute))
+    done = run_partition(dataclasses.replace(task, config=local), series_dir=part_dir)
     assert done.bodies is not None and done.by_period is not None
     write_part(part_dir, done.bodies, done.by_period)
-    if done.series is not None:
-        done.series.to_netcdf(part_dir / "series.nc", engine="netcdf4")
-    return PartitionDone(done.outcome, part_dir=part_dir)
+    return PartitionDone(done.outcome, series_file=done.series_file, part_dir=part_dir)
+
+
+def part_directory(staging: Path, index: int) -> Path:
+    """Where partition ``index`` keeps its part files in a staging directory."""
+    return staging / "_parts" / f"{index:06d}"
 
 
 def _local(compute: ComputeConfig) -> ComputeConfig:

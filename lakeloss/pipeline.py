@@ -82,6 +82,7 @@ from lakeloss.partitions import (
 )
 from lakeloss.progress import ProgressBar, ProgressFactory
 from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
+from lakeloss.series_stream import SeriesSettings, open_series, temporary_directory
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
@@ -89,7 +90,6 @@ from lakeloss.zonal.partition import MapBlocks
 
 if TYPE_CHECKING:
     import geopandas as gpd
-    import xarray as xr
 
     from lakeloss.results import RunResult
 
@@ -147,8 +147,8 @@ def _with_record(
 class PartitionTables(Protocol):
     """Where each partition's tables go: gathered in memory, or written as they come."""
 
-    staging: Path | None
-    """Where cluster workers write their partitions' part files (None: they send them)."""
+    staging: Path
+    """Where cluster workers write their partitions' part files."""
 
     def add(self, done: PartitionDone) -> None: ...
 
@@ -165,17 +165,27 @@ class PartitionTables(Protocol):
 class GatheredTables:
     """Every partition's tables kept in memory, joined into one :class:`RunResult`."""
 
-    staging: Path | None = None
-
     def __init__(self) -> None:
         self.parts: list[tuple[gpd.GeoDataFrame, Any]] = []
-        self.series: list[xr.Dataset] = []
+        self.series_files: list[Path] = []
+        self._staging: Path | None = None
+
+    @property
+    def staging(self) -> Path:
+        """A temporary directory for the part files of cluster workers."""
+        if self._staging is None:
+            self._staging = temporary_directory()
+        return self._staging
 
     def add(self, done: PartitionDone) -> None:
-        assert done.bodies is not None and done.by_period is not None  # no staging here
+        if done.part_dir is not None:
+            from lakeloss.io.parts import read_part
+
+            done.bodies, done.by_period = read_part(done.part_dir)
+        assert done.bodies is not None and done.by_period is not None
         self.parts.append((done.bodies, done.by_period))
-        if done.series is not None:
-            self.series.append(done.series)
+        if done.series_file is not None:
+            self.series_files.append(done.series_file)
 
     def finish(
         self,
@@ -188,12 +198,14 @@ class GatheredTables:
         from lakeloss.results import gathered
 
         series = None
-        if len(self.series) == 1:
-            series = self.series[0]
-        elif self.series:
-            import xarray as xr
+        if len(self.series_files) == 1:
+            series = open_series(self.series_files[0])
+        elif self.series_files:
+            from lakeloss.io.series_join import join_series
 
-            series = xr.concat(self.series, dim="waterbody", data_vars="minimal")
+            joined = temporary_directory() / "series.nc"
+            join_series(self.series_files, joined)
+            series = open_series(joined)
         return gathered(config, self.parts, rank, outcomes, provenance, id_field, series)
 
 
@@ -243,19 +255,20 @@ def _stages(
     if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
         weight_warnings += repairs_from_cache(facts)
     keep_series = config.output.series if series is None else series
+    settings = SeriesSettings.of(config, inputs) if keep_series else None
     n = inputs.n_waterbodies
     size = partition_size(config.compute.partition_bodies, n, config.compute.workers)
     ranges = partition_ranges(n, size)
     outcomes: list[PartitionOutcome] = []
     bar = progress(len(inputs.axis.days) * len(ranges), "evaporation") if progress else None
     tasks = (
-        PartitionTask(
-            config, *slice_partition(inputs, weights, facts, rows), index, rows, keep_series
-        )
+        PartitionTask(config, *slice_partition(inputs, weights, facts, rows), index, rows, settings)
         for index, rows in enumerate(ranges)
     )
     with timer.stage("evaporate"):
-        for done in map_partitions(config.compute, tasks, bar, tables.staging):
+        on_cluster = bool(config.compute.workers or config.compute.scheduler)
+        staging = tables.staging if on_cluster else None
+        for done in map_partitions(config.compute, tasks, bar, staging):
             tables.add(done)
             outcomes.append(done.outcome)
             del done

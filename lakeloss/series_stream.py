@@ -6,6 +6,7 @@ import atexit
 import shutil
 import tempfile
 from collections.abc import Mapping
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -44,20 +45,32 @@ def series_history(config: RunConfig) -> str:
     return f"{stamp} lakeloss {__version__}, method {config.method.name}"
 
 
+@dataclass(frozen=True)
+class SeriesSettings:
+    """What every partition's series file of one run shares, so the files join into one."""
+
+    history: str
+    chunk_times: int
+
+    @classmethod
+    def of(cls, config: RunConfig, inputs: Inputs) -> SeriesSettings:
+        return cls(series_history(config), block_steps(config, inputs))
+
+
 class SeriesStream:
-    """Streams per-step rates into a temporary CF NetCDF file, block by block.
+    """Streams one partition's per-step rates into a CF NetCDF file, block by block.
 
     The whole (time, water body) array is never held: each block goes to disk as it is
-    merged, and the result's ``series`` is the file opened lazily. ``RunResult.write`` copies
-    it into the outputs; the temporary directory is removed when the process exits.
+    merged. The files of a run's partitions are joined into series.nc by
+    :func:`lakeloss.io.series_join.join_series`.
     """
 
-    def __init__(self, config: RunConfig, inputs: Inputs) -> None:
+    def __init__(
+        self, config: RunConfig, inputs: Inputs, path: Path, settings: SeriesSettings
+    ) -> None:
         from lakeloss.io.series import SeriesWriter, body_locations
 
-        self.directory = Path(tempfile.mkdtemp(prefix="lakeloss-series-"))
-        atexit.register(shutil.rmtree, self.directory, ignore_errors=True)
-        self.path = self.directory / "series.nc"
+        self.path = path
         names = ["evaporation_rate"] + (
             ["precipitation_rate"] if "precipitation" in inputs.fields else []
         )
@@ -72,9 +85,9 @@ class SeriesStream:
                 "title": "lakeloss per-step evaporation series",
                 "source": f"lakeloss, method {config.method.name}",
                 "comment": CAUTION,
-                "history": series_history(config),
+                "history": settings.history,
             },
-            chunk_times=block_steps(config, inputs),
+            chunk_times=settings.chunk_times,
             longitude=longitude,
             latitude=latitude,
         )
@@ -83,9 +96,22 @@ class SeriesStream:
         for name, value in values.items():
             self.writer.write(name, block, np.asarray(value, dtype=np.float32))
 
-    def dataset(self) -> xr.Dataset:
-        import xarray as xr
-
+    def close(self) -> Path:
+        """Finish the file; its path."""
         self.writer.close()
-        coder = xr.coders.CFDatetimeCoder(use_cftime=True)
-        return xr.open_dataset(self.path, engine="netcdf4", chunks={}, decode_times=coder)
+        return self.path
+
+
+def temporary_directory() -> Path:
+    """A directory for series files, removed when the process exits."""
+    directory = Path(tempfile.mkdtemp(prefix="lakeloss-series-"))
+    atexit.register(shutil.rmtree, directory, ignore_errors=True)
+    return directory
+
+
+def open_series(path: Path) -> xr.Dataset:
+    """series.nc opened lazily, with the run's calendar dates."""
+    import xarray as xr
+
+    coder = xr.coders.CFDatetimeCoder(use_cftime=True)
+    return xr.open_dataset(path, engine="netcdf4", chunks={}, decode_times=coder)

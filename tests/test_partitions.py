@@ -136,3 +136,14 @@ def test_written_files_are_byte_identical_for_any_partition_count(varied, tmp_pa
         assert rows_a == rows_b, table
     record = json.loads((parts / "run.json").read_text())
     assert record["partitions"] == {"count": 21, "bodies_each": 64}
+
+
+def test_the_series_of_partitions_join_into_the_series_of_one(varied):
+    whole = run_stages(varied(partition_bodies=10**6), series=True).series
+    parts = run_stages(varied(partition_bodies=64, chunk_steps=11), series=True).series
+    assert parts.sizes == whole.sizes
+    for name in ("evaporation_rate", "precipitation_rate"):
+        np.testing.assert_array_equal(parts[name].values, whole[name].values)
+    np.testing.assert_array_equal(parts["waterbody_id"].values, whole["waterbody_id"].values)
+    differs = {k for k in whole.attrs if parts.attrs.get(k) != whole.attrs[k]}
+    assert differs <= {"history"}  # the time the run was made
