@@ -1003,7 +1003,7 @@ def survey_waterbodies(
     if id_field is None:
         dtypes[DEFAULT_ID_FIELD] = np.dtype(np.int64)
         columns = (*columns, DEFAULT_ID_FIELD)
-    _refuse_missing_area_field(fields, area_field)
+    _refuse_missing_area_field([c for c in columns if c != "geometry"], area_field)
     try:
         kinds, bounds = _declared_geometry(access)
     except _READ_ERRORS as err:
