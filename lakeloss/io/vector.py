@@ -571,6 +571,8 @@ def _finish_layer(
 SURVEY_CHUNK_ROWS = 1 << 17
 """Rows the survey reads at a time: its memory apart from the ids is a chunk's."""
 
+_PARQUET_BATCH_ROWS = 1 << 14
+
 _LINE_KINDS = (
     shapely.GeometryType.LINESTRING,
     shapely.GeometryType.LINEARRING,
@@ -637,6 +639,7 @@ class _RowAccess:
         )
 
     def _read_parquet(self, start, stop, geometry, attributes) -> pd.DataFrame:
+        import pyarrow as pa
         import pyarrow.parquet as pq
         from geopandas.io.arrow import _arrow_to_geopandas  # what read_parquet converts with
 
@@ -653,10 +656,24 @@ class _RowAccess:
         starts = np.asarray(self.group_starts)
         first = int(np.searchsorted(starts, start, side="right")) - 1
         last = int(np.searchsorted(starts, stop, side="left"))
-        table = handle.read_row_groups(
-            list(range(first, last)), columns=columns, use_pandas_metadata=True
+        # Batches, not whole row groups: geopandas writes up to 2**20 rows per group, and a
+        # partition holds only its own rows, decoding the group's rows before it batch by batch.
+        kept = []
+        row = int(starts[first])
+        batches = handle.iter_batches(
+            batch_size=_PARQUET_BATCH_ROWS,
+            row_groups=list(range(first, last)),
+            columns=columns,
+            use_pandas_metadata=True,
         )
-        table = table.slice(start - int(starts[first]), stop - start)
+        for batch in batches:
+            low, high = max(start - row, 0), min(stop - row, batch.num_rows)
+            if high > low:
+                kept.append(batch.slice(low, high - low))
+            row += batch.num_rows
+            if row >= stop:
+                break
+        table = pa.Table.from_batches(kept)
         if geometry:
             return _arrow_to_geopandas(table, geo)
         return table.to_pandas()

@@ -5,8 +5,9 @@ Every layer here is written to a real file the way GIS software and geopandas wr
 GeoParquet in several row groups, with and without a bbox covering column), and the rows
 read partition by partition (1 row, 7 rows, the whole layer) must concatenate to exactly
 what ``read_waterbodies`` gives for the whole layer: every column with its dtype, every
-geometry to the bit, every flag and stated area. The survey's chunk size is made small so
-that its chunk-by-chunk folding (ids, dtypes, geometry types) crosses chunk boundaries.
+geometry to the bit, every flag and stated area. The survey's chunk size and the GeoParquet
+batch size are made small so that the chunk-by-chunk folding (ids, dtypes, geometry types)
+and the batches within a row group cross boundaries.
 """
 
 from __future__ import annotations
@@ -39,6 +40,7 @@ SIZES = (1, 7, None)  # None: the whole layer in one range
 @pytest.fixture(autouse=True)
 def small_survey_chunks(monkeypatch):
     monkeypatch.setattr(vector, "SURVEY_CHUNK_ROWS", 4)
+    monkeypatch.setattr(vector, "_PARQUET_BATCH_ROWS", 2)  # row groups read in several batches
 
 
 def _square(i: int, size: float = 200.0) -> Polygon:
@@ -116,10 +118,16 @@ def _assert_same_rows(path, **settings):
                 got = np.concatenate([getattr(p, name) for p in parts])
                 np.testing.assert_array_equal(got, getattr(whole, name))
         for part in parts:
-            assert (part.id_field, part.layer, part.path) == (whole.id_field, whole.layer, whole.path)
+            assert (part.id_field, part.layer, part.path) == (
+                whole.id_field,
+                whole.layer,
+                whole.path,
+            )
             assert part.crs_assumed == whole.crs_assumed
             bounds = part.frame.index
-            assert list(survey.body_ids(bounds[0], bounds[-1] + 1)) == list(part.frame[whole.id_field])
+            assert list(survey.body_ids(bounds[0], bounds[-1] + 1)) == list(
+                part.frame[whole.id_field]
+            )
     return whole, survey
 
 
