@@ -568,10 +568,11 @@ def _finish_layer(
 # checks, the column dtypes, which pandas widens when a column holds an empty value anywhere)
 # comes from the survey.
 
-SURVEY_CHUNK_ROWS = 1 << 17
+SURVEY_CHUNK_ROWS = 1 << 15
 """Rows the survey reads at a time: its memory apart from the ids is a chunk's."""
 
 _PARQUET_BATCH_ROWS = 1 << 14
+_PARQUET_BUFFER_BYTES = 1 << 20
 
 _LINE_KINDS = (
     shapely.GeometryType.LINESTRING,
@@ -643,7 +644,9 @@ class _RowAccess:
         import pyarrow.parquet as pq
         from geopandas.io.arrow import _arrow_to_geopandas  # what read_parquet converts with
 
-        handle = pq.ParquetFile(self.path)
+        # Streamed page by page: by default pyarrow first buffers the row group's whole
+        # column chunks (the geometry of up to 2**20 bodies) even for its first batch.
+        handle = pq.ParquetFile(self.path, pre_buffer=False, buffer_size=_PARQUET_BUFFER_BYTES)
         geo = _geo_metadata(handle)
         covering = _covering_column(geo)
         columns = [
@@ -836,17 +839,44 @@ def _survey_attributes(access: _RowAccess, count: int, id_field: str | None):
     """Dtypes of the whole read for every attribute column, and the id column (chunked)."""
     dtypes: dict = {}
     pieces: list[pd.Series] = []
+    hashes = np.zeros(count if id_field is not None else 0, dtype=np.uint64)
     for start in range(0, count, SURVEY_CHUNK_ROWS):
-        chunk = access.read(start, min(start + SURVEY_CHUNK_ROWS, count), geometry=False)
-        chunk = chunk.reset_index(drop=True)
+        stop = min(start + SURVEY_CHUNK_ROWS, count)
+        chunk = access.read(start, stop, geometry=False).reset_index(drop=True)
         for name in chunk.columns:
             dtypes[name] = _wider(dtypes.get(name), chunk[name].dtype)
         if id_field is not None and id_field in chunk.columns:
             pieces.append(_compact_ids(chunk[id_field]))
+            hashes[start:stop] = _id_hashes(chunk[id_field])
     ids = None
     if pieces:
         ids = _compact_ids(pd.concat(pieces, ignore_index=True))
-    return dtypes, ids
+    return dtypes, ids, hashes
+
+
+def _id_hashes(ids: pd.Series) -> np.ndarray:
+    """64-bit hashes of ids: equal ids hash equal (0.0 and -0.0 included)."""
+    values = ids.to_numpy()
+    if values.dtype.kind == "f":
+        values = values + 0.0
+    return pd.util.hash_array(values, categorize=False)
+
+
+def _check_many_ids(ids: pd.Series, hashes: np.ndarray, id_field: str) -> None:
+    """:func:`_check_ids` (same refusals, same messages) in about 20 bytes per id.
+
+    pandas finds duplicated text ids through Python objects, over 100 bytes an id. Here
+    equal ids are found among equal hashes, sorted; only the ids of repeated hashes (the
+    duplicates, and any rare collision of different ids) go on to :func:`_check_ids`,
+    whose message names values and counts, not rows.
+    """
+    if ids.isna().any():
+        _check_ids(ids, id_field)
+    ordered = np.sort(hashes)
+    repeated = ordered[1:][ordered[1:] == ordered[:-1]]
+    del ordered
+    if repeated.size:
+        _check_ids(ids[np.isin(hashes, repeated)], id_field)
 
 
 def _declared_geometry(access: _RowAccess) -> tuple[tuple[str, ...], tuple | None]:
@@ -1013,9 +1043,10 @@ def survey_waterbodies(
     first, crs_assumed = _apply_crs(_raw_frame(access, 0, 1), source, crs)
     fields = [c for c in first.columns if c != "geometry"]
     chosen_id = _survey_id(fields, source, id_field)
-    dtypes, ids = _survey_attributes(access, count, id_field)
+    dtypes, ids, hashes = _survey_attributes(access, count, id_field)
     if ids is not None:
-        _check_ids(ids, chosen_id)
+        _check_many_ids(ids, hashes, chosen_id)
+    del hashes
     columns = tuple(first.columns)
     if id_field is None:
         dtypes[DEFAULT_ID_FIELD] = np.dtype(np.int64)
