@@ -641,21 +641,8 @@ class _RowAccess:
 
     def _read_parquet(self, start, stop, geometry, attributes) -> pd.DataFrame:
         import pyarrow as pa
-        import pyarrow.parquet as pq
-        from geopandas.io.arrow import _arrow_to_geopandas  # what read_parquet converts with
 
-        # Streamed page by page: by default pyarrow first buffers the row group's whole
-        # column chunks (the geometry of up to 2**20 bodies) even for its first batch.
-        handle = pq.ParquetFile(self.path, pre_buffer=False, buffer_size=_PARQUET_BUFFER_BYTES)
-        geo = _geo_metadata(handle)
-        covering = _covering_column(geo)
-        columns = [
-            name
-            for name in handle.schema_arrow.names
-            if name != covering
-            and (geometry or name not in geo["columns"])
-            and (attributes or name == geo["primary_column"])
-        ]
+        handle, geo, columns = self._parquet_columns(geometry, attributes)
         starts = np.asarray(self.group_starts)
         first = int(np.searchsorted(starts, start, side="right")) - 1
         last = int(np.searchsorted(starts, stop, side="left"))
@@ -676,10 +663,52 @@ class _RowAccess:
             row += batch.num_rows
             if row >= stop:
                 break
-        table = pa.Table.from_batches(kept)
-        if geometry:
-            return _arrow_to_geopandas(table, geo)
-        return table.to_pandas()
+        return _parquet_frame(pa.Table.from_batches(kept), geo, geometry)
+
+    def _parquet_columns(self, geometry: bool, attributes: bool):
+        import pyarrow.parquet as pq
+
+        # Streamed page by page: by default pyarrow first buffers the row group's whole
+        # column chunks (the geometry of up to 2**20 bodies) even for its first batch.
+        handle = pq.ParquetFile(self.path, pre_buffer=False, buffer_size=_PARQUET_BUFFER_BYTES)
+        geo = _geo_metadata(handle)
+        covering = _covering_column(geo)
+        columns = [
+            name
+            for name in handle.schema_arrow.names
+            if name != covering
+            and (geometry or name not in geo["columns"])
+            and (attributes or name == geo["primary_column"])
+        ]
+        return handle, geo, columns
+
+    def chunks(self, count: int, *, geometry: bool = True, attributes: bool = True):
+        """Yield ``(start, stop, raw rows)`` through the whole layer, in order, a chunk at a time."""
+        if not self.parquet:
+            for start in range(0, count, SURVEY_CHUNK_ROWS):
+                stop = min(start + SURVEY_CHUNK_ROWS, count)
+                yield start, stop, self.read(start, stop, geometry=geometry, attributes=attributes)
+            return
+        import pyarrow as pa
+
+        # One pass: chunks read by row range would decode a large row group again each time.
+        try:
+            handle, geo, columns = self._parquet_columns(geometry, attributes)
+            start = 0
+            for batch in handle.iter_batches(
+                batch_size=SURVEY_CHUNK_ROWS, columns=columns, use_pandas_metadata=True
+            ):
+                frame = _parquet_frame(pa.Table.from_batches([batch]), geo, geometry)
+                yield start, start + batch.num_rows, frame
+                start += batch.num_rows
+        except _READ_ERRORS as err:
+            raise _unreadable(self.path, err) from err
+
+
+def _parquet_frame(table, geo: dict, geometry: bool) -> pd.DataFrame:
+    from geopandas.io.arrow import _arrow_to_geopandas  # what read_parquet converts with
+
+    return _arrow_to_geopandas(table, geo) if geometry else table.to_pandas()
 
 
 def _geo_metadata(handle) -> dict:
@@ -840,9 +869,8 @@ def _survey_attributes(access: _RowAccess, count: int, id_field: str | None):
     dtypes: dict = {}
     pieces: list[pd.Series] = []
     hashes = np.zeros(count if id_field is not None else 0, dtype=np.uint64)
-    for start in range(0, count, SURVEY_CHUNK_ROWS):
-        stop = min(start + SURVEY_CHUNK_ROWS, count)
-        chunk = access.read(start, stop, geometry=False).reset_index(drop=True)
+    for start, stop, chunk in access.chunks(count, geometry=False):
+        chunk = chunk.reset_index(drop=True)
         for name in chunk.columns:
             dtypes[name] = _wider(dtypes.get(name), chunk[name].dtype)
         if id_field is not None and id_field in chunk.columns:
@@ -918,9 +946,8 @@ class _GeometryScan:
 
 def _scan_geometry(access: _RowAccess, count: int) -> _GeometryScan:
     scan = _GeometryScan(kinds={}, bounds=np.full(4, np.nan), point_rows=[], lines={}, line_rows=[])
-    for start in range(0, count, SURVEY_CHUNK_ROWS):
-        stop = min(start + SURVEY_CHUNK_ROWS, count)
-        geometries = access.read(start, stop, attributes=False).geometry.to_numpy()
+    for start, _, chunk in access.chunks(count, attributes=False):
+        geometries = chunk.geometry.to_numpy()
         present = np.array([g is not None for g in geometries])
         kinds = np.full(len(geometries), -1)
         kinds[present] = shapely.get_type_id(geometries[present])
