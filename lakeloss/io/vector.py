@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import difflib
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import geopandas
@@ -539,11 +539,11 @@ def _finish_layer(
 ) -> WaterBodyLayer:
     """Geometry normalised and flagged, stated areas, contiguity at 180 degrees: row by row."""
     flags = _normalise_geometries(frame, id_field)
-    stated = field = None
+    stated = usable = None
     if area.field is None:
         _refuse_points_without_area(frame, id_field)
     else:
-        stated, field = _stated_areas(frame, id_field, area.field, area.units, area.source)
+        stated, usable = _stated_areas(frame, id_field, area.field, area.units, area.source)
     _unwrap_antimeridian(frame)
     return WaterBodyLayer(
         frame=frame,
@@ -553,7 +553,7 @@ def _finish_layer(
         layer=layer,
         crs_assumed=crs_assumed,
         stated_area_m2=stated,
-        field_area_m2=field,
+        field_area_m2=usable,
     )
 
 
@@ -936,16 +936,16 @@ def _polygonal_only(kinds: tuple[str, ...]) -> bool:
 class _GeometryScan:
     """Geometry types, extent and misfit rows found chunk by chunk."""
 
-    kinds: dict
-    bounds: np.ndarray
+    kinds: dict = field(default_factory=dict)
+    bounds: np.ndarray = field(default_factory=lambda: np.full(4, np.nan))
     points: int = 0
-    point_rows: list | None = None
-    lines: dict | None = None
-    line_rows: list | None = None
+    point_rows: list = field(default_factory=list)
+    lines: dict = field(default_factory=dict)
+    line_rows: list = field(default_factory=list)
 
 
 def _scan_geometry(access: _RowAccess, count: int) -> _GeometryScan:
-    scan = _GeometryScan(kinds={}, bounds=np.full(4, np.nan), point_rows=[], lines={}, line_rows=[])
+    scan = _GeometryScan()
     for start, _, chunk in access.chunks(count, attributes=False):
         geometries = chunk.geometry.to_numpy()
         present = np.array([g is not None for g in geometries])

@@ -68,6 +68,7 @@ def _ponds(count: int = 20) -> geopandas.GeoDataFrame:
     return geopandas.GeoDataFrame(
         {
             "dam_code": [f"D{i:03d}" for i in range(count)],
+            "dam_no": np.arange(900, 900 - 7 * count, -7, dtype=np.int32),
             "depth_class": depth,
             "capacity_ml": np.linspace(0.5, 12.0, count),
             "owner": owner,
@@ -152,6 +153,7 @@ def test_geopackage_rows_match_whole_read(tmp_path, fids):
         frame = _with_fids(frame, fids)
     path = _write(frame, tmp_path / "dams.gpkg", layer="dams")
     whole, survey = _assert_same_rows(path, id_field="dam_code")
+    _assert_same_rows(path, id_field="dam_no")  # integer ids, as GIS software writes them
     assert whole.frame["depth_class"].dtype == np.float64  # widened by the one empty value
     consecutive = fids is None or np.ptp(fids) == len(fids) - 1
     assert (survey.access.fid_range is not None) == consecutive
@@ -305,6 +307,18 @@ def test_duplicate_ids_across_chunks_refused_as_whole_read(tmp_path, suffix):
         survey_waterbodies(path, id_field="dam_code")
     assert str(surveyed.value) == str(whole.value)
     assert "2 duplicated values ('D900', 'D901') on 5 features" in str(whole.value)
+
+
+def test_duplicate_integer_ids_refused_as_whole_read(tmp_path):
+    frame = _ponds()
+    frame.loc[[3, 19], "dam_no"] = -5
+    path = _write(frame, tmp_path / "dams.gpkg")
+    with pytest.raises(GeometryError) as whole:
+        read_waterbodies(path, id_field="dam_no")
+    with pytest.raises(GeometryError) as surveyed:
+        survey_waterbodies(path, id_field="dam_no")
+    assert str(surveyed.value) == str(whole.value)
+    assert "1 duplicated values (-5) on 2 features" in str(whole.value)
 
 
 def test_null_ids_refused_as_whole_read(tmp_path):
