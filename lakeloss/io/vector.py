@@ -14,6 +14,7 @@ made contiguous (longitudes beyond 180) so that they land whole on the grid.
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import os
 from dataclasses import dataclass, field
@@ -796,9 +797,12 @@ class LayerSurvey:
         geometry is empty. Before polygons crossing 180 degrees are made contiguous.
     id_field : str
         Column holding the unique ids (``waterbody_id`` = 1..N when none is configured).
+    ids_numbered : bool
+        True when the ids are the row numbers 1..N lakeloss gives (no id field set).
     ids : pandas.Series or None
-        The ids in layer order (RangeIndex), checked unique and non-null; None for the
-        default 1..N. Text ids are kept in a pyarrow-backed string array.
+        The layer's ids in layer order (RangeIndex), checked unique and non-null: about
+        20-30 bytes per body for short text ids, kept in a pyarrow-backed string array.
+        None when ``ids_numbered``, or in a survey from :meth:`without_ids`.
     fields : dict of str to dtype
         Every attribute column of the frames the rows are read into, in column order, with
         the dtype :func:`read_waterbodies` gives it for the whole layer (the default id
@@ -822,6 +826,7 @@ class LayerSurvey:
     crs_assumed: bool
     bounds: tuple[float, float, float, float]
     id_field: str
+    ids_numbered: bool
     ids: pd.Series | None
     fields: dict
     columns: tuple[str, ...]
@@ -834,9 +839,15 @@ class LayerSurvey:
 
     def body_ids(self, start: int, stop: int) -> np.ndarray:
         """The ids of rows ``[start, stop)``."""
-        if self.ids is None:
+        if self.ids_numbered:
             return np.arange(start + 1, stop + 1)
+        if self.ids is None:
+            raise ValueError("this survey was stripped of its ids (LayerSurvey.without_ids)")
         return self.ids.iloc[start:stop].to_numpy()
+
+    def without_ids(self) -> LayerSurvey:
+        """This survey without the ids, all a partition's reader needs (small to send)."""
+        return dataclasses.replace(self, ids=None)
 
 
 def _wider(kept, found):
@@ -1099,8 +1110,11 @@ def survey_waterbodies(
         crs_assumed=crs_assumed,
         bounds=(bounds[0], bounds[1], bounds[2], bounds[3]),
         id_field=chosen_id,
+        ids_numbered=id_field is None,
         ids=ids,
-        fields={name: dtypes[name] for name in columns if name != "geometry"},
+        fields={
+            name: dtypes.get(name, first[name].dtype) for name in columns if name != "geometry"
+        },
         columns=columns,
         geometry_types=kinds,
         has_points=has_points,
@@ -1144,7 +1158,7 @@ def read_waterbody_rows(survey: LayerSurvey, start: int, stop: int) -> WaterBody
     frame = _raw_frame(survey.access, start, stop)
     if frame.crs is None:
         frame = frame.set_crs(survey.crs)
-    if survey.ids is None:
+    if survey.ids_numbered:
         frame[DEFAULT_ID_FIELD] = np.arange(start + 1, stop + 1)
     for name, dtype in survey.fields.items():
         if frame[name].dtype != dtype:

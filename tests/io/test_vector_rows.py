@@ -12,6 +12,7 @@ and the batches within a row group cross boundaries.
 
 from __future__ import annotations
 
+import pickle
 import warnings
 
 import geopandas
@@ -377,6 +378,24 @@ def test_survey_holds_ids_and_extent_not_geometry(tmp_path):
     expected = _ponds().total_bounds
     assert survey.bounds == pytest.approx(tuple(expected))
     assert not survey.has_points
+
+
+@pytest.mark.parametrize("suffix", [".gpkg", ".parquet"])
+def test_survey_without_ids_pickled_reads_the_same_rows(tmp_path, suffix):
+    # What a dask worker gets: the survey sent without its ids, through pickle.
+    path = tmp_path / f"dams{suffix}"
+    frame = _ponds()
+    if suffix == ".parquet":
+        frame.to_parquet(path, row_group_size=6)
+    else:
+        _write(frame, path)
+    for id_field in ("dam_code", None):
+        survey = survey_waterbodies(path, id_field=id_field)
+        sent = pickle.loads(pickle.dumps(survey.without_ids()))
+        assert sent.ids is None
+        here, there = read_waterbody_rows(survey, 5, 14), read_waterbody_rows(sent, 5, 14)
+        pd.testing.assert_frame_equal(there.frame, here.frame, check_exact=True)
+        assert list(there.flags) == list(here.flags)
 
 
 def test_row_range_outside_the_layer_is_refused(tmp_path):
