@@ -937,10 +937,10 @@ def _declared_geometry(access: _RowAccess) -> tuple[tuple[str, ...], tuple | Non
     )
 
 
-def _polygonal_only(kinds: tuple[str, ...]) -> bool:
+def _declared_only(kinds: tuple[str, ...], allowed: tuple[str, ...]) -> bool:
     base = [k.replace("2.5D", "").replace(" ZM", "").replace(" Z", "").replace(" M", "").strip()
             for k in kinds]  # fmt: skip
-    return all(k in _POLYGONAL for k in base)
+    return all(k in allowed for k in base)
 
 
 @dataclass
@@ -1086,6 +1086,8 @@ def survey_waterbodies(
         _check_many_ids(ids, hashes, chosen_id)
     del hashes
     columns = tuple(first.columns)
+    for name in columns:  # further geometry columns (GeoParquet), not read with the attributes
+        dtypes.setdefault(name, first[name].dtype)
     if id_field is None:
         dtypes[DEFAULT_ID_FIELD] = np.dtype(np.int64)
         columns = (*columns, DEFAULT_ID_FIELD)
@@ -1094,8 +1096,11 @@ def survey_waterbodies(
         kinds, bounds = _declared_geometry(access)
     except _READ_ERRORS as err:
         raise _unreadable(source, err) from err
-    has_points = False
-    if not _polygonal_only(kinds) or bounds is None or not np.all(np.isfinite(bounds)):
+    has_points = _declared_only(kinds, ("Point", "MultiPoint"))
+    # A register of points with their areas needs no scan; without areas, the scan counts
+    # the points the refusal names.
+    settled = _declared_only(kinds, _POLYGONAL) or (has_points and area_field is not None)
+    if not settled or bounds is None or not np.all(np.isfinite(bounds)):
         scan = _scan_geometry(access, count)
         _refuse_misfits(scan, ids, area_field)
         kinds = tuple(scan.kinds) or kinds
@@ -1112,9 +1117,7 @@ def survey_waterbodies(
         id_field=chosen_id,
         ids_numbered=id_field is None,
         ids=ids,
-        fields={
-            name: dtypes.get(name, first[name].dtype) for name in columns if name != "geometry"
-        },
+        fields={name: dtypes[name] for name in columns if name != "geometry"},
         columns=columns,
         geometry_types=kinds,
         has_points=has_points,

@@ -184,6 +184,15 @@ def test_geoparquet_row_groups_match_whole_read(tmp_path, covering):
     _assert_same_rows(path)
 
 
+def test_geoparquet_with_a_second_geometry_column(tmp_path):
+    path = tmp_path / "dams.parquet"
+    frame = _ponds()
+    frame["centre"] = geopandas.GeoSeries(frame.geometry.centroid, crs=UTM)
+    frame.to_parquet(path, row_group_size=8)
+    whole, survey = _assert_same_rows(path, id_field="dam_code")
+    assert survey.fields["centre"] == "geometry"
+
+
 def _register(count: int = 15) -> geopandas.GeoDataFrame:
     """Farm dams as points with an area in hectares, a few drawn as polygons."""
     shapes: list = [Point(500_000 + 1000 * i, 6_000_000) for i in range(count)]
@@ -211,6 +220,19 @@ def test_points_with_an_area_match_whole_read(tmp_path, suffix, area_source):
     whole, survey = _assert_same_rows(path, id_field="dam_code", **settings)
     assert survey.has_points
     assert np.isfinite(whole.stated_area_m2).sum() == (14 if area_source == "field" else 12)
+
+
+def test_register_of_points_only(tmp_path):
+    frame = _register().iloc[[0, 1, 2, 4, 5, 7, 8, 10]]  # points, declared as such
+    path = _write(frame, tmp_path / "register.gpkg")
+    whole, survey = _assert_same_rows(path, area_field="area_ha", area_units="ha")
+    assert survey.has_points and survey.geometry_types == ("Point",)
+    assert survey.bounds == pytest.approx(tuple(frame.total_bounds))
+    with pytest.raises(GeometryError) as whole_error:
+        read_waterbodies(path)
+    with pytest.raises(GeometryError) as surveyed:
+        survey_waterbodies(path)
+    assert str(surveyed.value) == str(whole_error.value)
 
 
 def test_survey_refuses_points_without_area_as_whole_read(tmp_path):
