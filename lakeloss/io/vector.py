@@ -573,6 +573,9 @@ SURVEY_CHUNK_ROWS = 1 << 15
 """Rows the survey reads at a time: its memory apart from the ids is a chunk's."""
 
 _PARQUET_BATCH_ROWS = 1 << 14
+# GDAL drivers that open a file without reading it all, so that reading it a chunk at a time
+# costs the chunks only (GeoJSON, KML, GML, CSV are parsed whole on every opening).
+_OPENED_CHEAPLY = ("GPKG", "ESRI Shapefile", "FlatGeobuf", "OpenFileGDB", "SQLite", "Parquet")
 _PARQUET_BUFFER_BYTES = 1 << 20
 
 _LINE_KINDS = (
@@ -603,12 +606,14 @@ class _RowAccess:
     ``fid_range`` is (fid column, fid of row 0) for a GeoPackage whose fids are consecutive,
     read with a ``where`` on the fid (the primary key); other GDAL sources skip features.
     ``group_starts`` are the first rows of a GeoParquet file's row groups, then its length.
+    ``driver`` is GDAL's name for the format.
     """
 
     path: Path
     layer: str | None
     fid_range: tuple[str, int] | None = None
     group_starts: tuple[int, ...] = ()
+    driver: str = ""
 
     @property
     def parquet(self) -> bool:
@@ -686,8 +691,10 @@ class _RowAccess:
     def chunks(self, count: int, *, geometry: bool = True, attributes: bool = True):
         """Yield ``(start, stop, raw rows)`` through the whole layer, in order, a chunk at a time."""
         if not self.parquet:
-            for start in range(0, count, SURVEY_CHUNK_ROWS):
-                stop = min(start + SURVEY_CHUNK_ROWS, count)
+            # Text formats are parsed whole on every opening: one reading, not one a chunk.
+            size = SURVEY_CHUNK_ROWS if self.driver in _OPENED_CHEAPLY else count
+            for start in range(0, count, size):
+                stop = min(start + size, count)
                 yield start, stop, self.read(start, stop, geometry=geometry, attributes=attributes)
             return
         import pyarrow as pa
@@ -739,7 +746,8 @@ def _row_access(path: Path, layer: str | None) -> tuple[_RowAccess, int]:
             return _RowAccess(path, layer, group_starts=starts), starts[-1]
         info = pyogrio.read_info(os.fspath(path), layer=layer, force_feature_count=True)
         count = int(info["features"])
-        access = _RowAccess(path, layer, fid_range=_consecutive_fids(path, layer, info, count))
+        fids = _consecutive_fids(path, layer, info, count)
+        access = _RowAccess(path, layer, fid_range=fids, driver=str(info.get("driver") or ""))
     except _READ_ERRORS as err:
         raise _unreadable(path, err) from err
     return access, count
