@@ -573,6 +573,9 @@ SURVEY_CHUNK_ROWS = 1 << 15
 """Rows the survey reads at a time: its memory apart from the ids is a chunk's."""
 
 _PARQUET_BATCH_ROWS = 1 << 14
+# GDAL drivers whose layer extent is that of the geometries (a FlatGeobuf written without
+# its spatial index reports zeros).
+_EXACT_EXTENTS = ("GPKG", "ESRI Shapefile", "GeoJSON")
 # GDAL drivers that open a file without reading it all, so that reading it a chunk at a time
 # costs the chunks only (GeoJSON, KML, GML, CSV are parsed whole on every opening).
 _OPENED_CHEAPLY = ("GPKG", "ESRI Shapefile", "FlatGeobuf", "OpenFileGDB", "SQLite", "Parquet")
@@ -800,9 +803,13 @@ class LayerSurvey:
     crs_assumed : bool
         True when the CRS came from the configuration.
     bounds : tuple of float
-        (xmin, ymin, xmax, ymax) of the geometries as stored, in ``crs``: the layer's own
-        extent where the format records it, else computed chunk by chunk; NaN when every
-        geometry is empty. Before polygons crossing 180 degrees are made contiguous.
+        (xmin, ymin, xmax, ymax) in ``crs`` of the non-empty geometries of
+        :func:`read_waterbodies`' frame (collections by their polygonal part, bodies across
+        180 degrees contiguous, so xmax may pass 180): what the zonal engine centres its
+        equal-area projection on and the grid-overlap check uses. The extent the format
+        records (GeoPackage contents, Shapefile header, GeoParquet ``bbox``) where it is
+        that, else computed from the geometry chunk by chunk (layers of mixed or point
+        types, lon/lat layers spanning over 180 degrees). NaN when every geometry is empty.
     id_field : str
         Column holding the unique ids (``waterbody_id`` = 1..N when none is configured).
     ids_numbered : bool
@@ -939,7 +946,7 @@ def _declared_geometry(access: _RowAccess) -> tuple[tuple[str, ...], tuple | Non
             box = [box[0], box[1], box[3], box[4]]
         return kinds, None if box is None else tuple(float(v) for v in box)
     info = pyogrio.read_info(os.fspath(access.path), layer=access.layer)
-    box = info.get("total_bounds")
+    box = info.get("total_bounds") if access.driver in _EXACT_EXTENTS else None
     return (str(info.get("geometry_type") or "Unknown"),), (
         None if box is None else tuple(float(v) for v in box)
     )
@@ -963,7 +970,30 @@ class _GeometryScan:
     line_rows: list = field(default_factory=list)
 
 
-def _scan_geometry(access: _RowAccess, count: int) -> _GeometryScan:
+def _finished_bounds(geometries: np.ndarray, geographic: bool) -> np.ndarray:
+    """Total bounds of the non-empty geometries as the whole read finishes them.
+
+    Collections count by their polygonal part; in longitude/latitude, a geometry spanning
+    more than 180 degrees counts with its western longitudes moved east of 180, as
+    ``_unwrap_antimeridian`` moves them. NaN when all are empty.
+    """
+    finished = geometries.copy()
+    kinds = shapely.get_type_id(finished)
+    for row in np.flatnonzero(kinds == shapely.GeometryType.GEOMETRYCOLLECTION):
+        finished[row] = _polygonal_part(finished[row])
+    present = finished[~shapely.is_empty(finished) & ~shapely.is_missing(finished)]
+    if present.size == 0:
+        return np.full(4, np.nan)
+    boxes = shapely.bounds(present)
+    if geographic:
+        for row in np.flatnonzero((boxes[:, 2] - boxes[:, 0]) > 180.0):
+            coords = shapely.get_coordinates(present[row])
+            east = np.where(coords[:, 0] < 0.0, coords[:, 0] + 360.0, coords[:, 0])
+            boxes[row] = [east.min(), coords[:, 1].min(), east.max(), coords[:, 1].max()]
+    return np.array([*boxes[:, :2].min(axis=0), *boxes[:, 2:].max(axis=0)])
+
+
+def _scan_geometry(access: _RowAccess, count: int, geographic: bool) -> _GeometryScan:
     scan = _GeometryScan()
     for start, _, chunk in access.chunks(count, attributes=False):
         geometries = chunk.geometry.to_numpy()
@@ -973,12 +1003,11 @@ def _scan_geometry(access: _RowAccess, count: int) -> _GeometryScan:
         empty = ~present | shapely.is_empty(np.where(present, geometries, None))
         for kind in np.unique(kinds[present]):
             scan.kinds.setdefault(_TYPE_NAMES[int(kind)], True)
-        if (~empty).any():
-            box = shapely.total_bounds(geometries[~empty])
-            scan.bounds = np.array(
-                [np.fmin(scan.bounds[0], box[0]), np.fmin(scan.bounds[1], box[1]),
-                 np.fmax(scan.bounds[2], box[2]), np.fmax(scan.bounds[3], box[3])]
-            )  # fmt: skip
+        box = _finished_bounds(geometries, geographic)
+        scan.bounds = np.array(
+            [np.fmin(scan.bounds[0], box[0]), np.fmin(scan.bounds[1], box[1]),
+             np.fmax(scan.bounds[2], box[2]), np.fmax(scan.bounds[3], box[3])]
+        )  # fmt: skip
         points = np.flatnonzero(np.isin(kinds, _POINT_KINDS) & ~empty)
         scan.points += points.size
         scan.point_rows.extend((points[:_EXAMPLES] + start).tolist())
@@ -1108,8 +1137,12 @@ def survey_waterbodies(
     # A register of points with their areas needs no scan; without areas, the scan counts
     # the points the refusal names.
     settled = _declared_only(kinds, _POLYGONAL) or (has_points and area_field is not None)
-    if not settled or bounds is None or not np.all(np.isfinite(bounds)):
-        scan = _scan_geometry(access, count)
+    geographic = pyproj.CRS(first.crs).is_geographic
+    # A layer of lon/lat spanning over 180 degrees may hold bodies across 180, whose
+    # contiguous shapes reach past the stored extent.
+    wide = bounds is not None and geographic and bounds[2] - bounds[0] > 180.0
+    if not settled or wide or bounds is None or not np.all(np.isfinite(bounds)):
+        scan = _scan_geometry(access, count, geographic)
         _refuse_misfits(scan, ids, area_field)
         kinds = tuple(scan.kinds) or kinds
         bounds = tuple(float(v) for v in scan.bounds)
