@@ -776,6 +776,12 @@ def _raw_frame(access: _RowAccess, start: int, stop: int) -> geopandas.GeoDataFr
         raise InputDataError(
             f"water-body layer {str(access.path)!r} has no geometry column; expected polygons"
         )
+    if len(frame) != stop - start:
+        raise InputDataError(
+            f"water-body layer {str(access.path)!r} gave {len(frame)} features for rows "
+            f"{start}..{stop - 1}, expected {stop - start}: the file changed while the run "
+            "read it; run again once it is no longer being written"
+        )
     frame = frame.reset_index(drop=True)
     if frame.geometry.name != "geometry":
         frame = frame.rename_geometry("geometry")

@@ -163,6 +163,18 @@ def test_geopackage_rows_match_whole_read(tmp_path, fids):
     assert list(whole.flags).count("geometry_null") == 1
 
 
+def test_geopackage_of_several_layers_with_its_own_fid_name(tmp_path):
+    # A desktop GIS export: the ponds beside a second layer, a layer name with a space and
+    # a quote, and a FID column of its own name, numbered from 2001.
+    path = tmp_path / "catchment.gpkg"
+    _write(_ponds().iloc[:3], path, layer="streams")
+    ponds = _ponds().assign(dam_fid=np.arange(2001, 2021))
+    _write(ponds, path, layer='farm "dams" 2031', layer_options={"FID": "dam_fid"})
+    whole, survey = _assert_same_rows(path, layer='farm "dams" 2031', id_field="dam_code")
+    assert survey.access.fid_range == ("dam_fid", 2001)
+    assert "dam_fid" not in whole.frame.columns
+
+
 @pytest.mark.parametrize("suffix", [".shp", ".geojson", ".fgb"])
 def test_gdal_formats_rows_match_whole_read(tmp_path, suffix):
     # FlatGeobuf keeps null geometries only without its spatial index.
@@ -420,6 +432,19 @@ def test_survey_without_ids_pickled_reads_the_same_rows(tmp_path, suffix):
         here, there = read_waterbody_rows(survey, 5, 14), read_waterbody_rows(sent, 5, 14)
         pd.testing.assert_frame_equal(there.frame, here.frame, check_exact=True)
         assert list(there.flags) == list(here.flags)
+
+
+@pytest.mark.parametrize("suffix", [".gpkg", ".parquet"])
+def test_layer_rewritten_after_the_survey_is_refused(tmp_path, suffix):
+    path = tmp_path / f"dams{suffix}"
+    write = (lambda f: f.to_parquet(path)) if suffix == ".parquet" else (lambda f: _write(f, path))
+    write(_ponds())
+    survey = survey_waterbodies(path)
+    path.unlink()
+    write(_ponds().iloc[:16])  # someone re-exports the layer mid-run
+    assert len(read_waterbody_rows(survey, 0, 14)) == 14
+    with pytest.raises(InputDataError, match="gave 2 features for rows 14..19, expected 6"):
+        read_waterbody_rows(survey, 14, 20)
 
 
 def test_row_range_outside_the_layer_is_refused(tmp_path):
