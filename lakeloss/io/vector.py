@@ -1094,13 +1094,18 @@ def survey_waterbodies(
     """Survey the layer of water bodies without holding its geometry.
 
     Reads the attributes in chunks of :data:`SURVEY_CHUNK_ROWS` rows (keeping only the
-    ids) and the geometry only where the format's metadata leaves the geometry types or the
-    extent open (a layer declared as mixed or as points, a GeoParquet file without them). It
-    refuses what :func:`read_waterbodies` refuses for the whole layer, with the same
-    messages: no features, the CRS, the id field, null and duplicate ids, a missing area
-    field, line features and points without ``area_field``. Per-row refusals (collections
-    without polygons, MultiPoints of several locations, unusable area values) come from
-    :func:`read_waterbody_rows` for the rows read.
+    ids), and the geometry, chunk by chunk, only where the format's metadata does not settle
+    the geometry types or the extent: a layer declared as mixed, or as points without
+    ``area_field``; a GeoParquet file without ``geometry_types`` or ``bbox``; a FlatGeobuf
+    or other format whose extent is not reliable; a lon/lat layer spanning more than 180
+    degrees (it may hold bodies across 180). Memory: the ids (a pyarrow string or a number
+    each) and 16 bytes a body while they are checked, besides one chunk. It refuses what
+    :func:`read_waterbodies` refuses for the whole layer, with the same messages: no
+    features, the CRS, the id field, null and duplicate ids, a missing area field, and,
+    where the geometry is scanned, line features and points without ``area_field``.
+    Per-row refusals (collections without polygons, MultiPoints of several locations,
+    unusable area values, and points or lines in a layer declared as polygons) come from
+    :func:`read_waterbody_rows`, counted over the rows it reads.
 
     Parameters are those of :func:`read_waterbodies`.
 
