@@ -10,6 +10,10 @@ divides between them. Geometry collections keep
 their polygonal parts, flagged ``collection_polygons_kept``; a null geometry becomes an empty
 polygon, flagged ``geometry_null``. Longitude/latitude polygons that cross 180 degrees are
 made contiguous (longitudes beyond 180) so that they land whole on the grid.
+
+A layer too large to hold is read a partition at a time: :func:`survey_waterbodies` checks
+the whole layer without its geometry, then :func:`read_waterbody_rows` reads any run of
+rows, giving exactly those rows of :func:`read_waterbodies`.
 """
 
 from __future__ import annotations
