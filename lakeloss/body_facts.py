@@ -83,7 +83,7 @@ class BodyFacts:
             area_before_repair_m2=first.area_before_repair_m2,
             grid_coverage=first.grid_coverage,
             geometry_flags=first.flags,
-            layer_flags=inputs.layer.flags,
+            layer_flags=inputs.bodies.flags,
             latitude=latitude[0],
             elevation=_elevation(config, inputs, weights),
         )
@@ -111,5 +111,5 @@ def _elevation(
         return np.where(np.isfinite(mean[0]), mean[0], fallback)
     field_name = config.waterbodies.elevation_field
     if field_name:
-        return elevations(inputs.layer.frame, field_name)
+        return elevations(inputs.bodies.frame, field_name)
     return None

@@ -7,7 +7,7 @@ with the same one-line errors.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -18,7 +18,6 @@ from lakeloss.config import RunConfig
 from lakeloss.errors import ConfigError, GeometryError, GridError, MissingInputError, NoResultError
 from lakeloss.inputs import Inputs
 from lakeloss.io import climate as climate_io
-from lakeloss.io import vector as vector_io
 from lakeloss.physics import registry
 
 
@@ -37,8 +36,9 @@ def check_methods(config: RunConfig) -> None:
             )
 
 
-def check_attributes(config: RunConfig, layer: vector_io.WaterBodyLayer) -> None:
-    columns = list(layer.frame.columns)
+def check_attributes(config: RunConfig, columns: Sequence[str]) -> None:
+    """Refuse attributes the configuration names (group_by, elevation) that the layer lacks."""
+    columns = list(columns)
     wanted = list(config.waterbodies.group_by)
     if config.waterbodies.elevation_field:
         wanted.append(config.waterbodies.elevation_field)
@@ -48,8 +48,6 @@ def check_attributes(config: RunConfig, layer: vector_io.WaterBodyLayer) -> None
                 f"[waterbodies] names attribute '{name}', which the layer does not have "
                 f"(attributes: {', '.join(c for c in columns if c != 'geometry')})"
             )
-    if config.waterbodies.elevation_field:
-        elevations(layer.frame, config.waterbodies.elevation_field)  # refuse before computing
 
 
 def elevations(frame: pd.DataFrame, field_name: str) -> np.ndarray:
@@ -78,16 +76,16 @@ def check_overlap(inputs: Inputs) -> None:
     Run by ``check`` and by the run itself, before the weights are built, so both refuse
     with the same message.
     """
-    frame = inputs.layer.frame
-    nonempty = frame.geometry[~frame.geometry.is_empty]
-    if nonempty.empty:
+    survey = inputs.survey
+    assert survey is not None  # load_inputs surveys the layer
+    bounds = survey.bounds
+    if not np.isfinite(bounds).all():
         raise GeometryError(
-            f"all {len(frame)} water-body geometries are empty; expected at least one "
+            f"all {survey.n_rows} water-body geometries are empty; expected at least one "
             "polygon with area; check the layer"
         )
-    bounds = nonempty.total_bounds
     for grid in inputs.grids.values():
-        transformer = pyproj.Transformer.from_crs(frame.crs, grid.crs, always_xy=True)
+        transformer = pyproj.Transformer.from_crs(survey.crs, grid.crs, always_xy=True)
         left, bottom, right, top = (float(v) for v in bounds)
         x0, y0, x1, y1 = transformer.transform_bounds(left, bottom, right, top, densify_pts=21)
         gx0, gx1 = float(np.min(grid.x_edges)), float(np.max(grid.x_edges))

@@ -180,14 +180,16 @@ def run(
     quiet: bool,
 ) -> None:
     """Compute evaporation for every water body and write the outputs."""
-    from lakeloss.io.atomic import OutputDirectory
-    from lakeloss.pipeline import run_stages
+    from lakeloss.pipeline import run_to_directory
     from lakeloss.report import flag_notes, no_total_message, summary_line
 
     config = _load(config_path, strict, workers, scheduler, chunk_steps)
-    OutputDirectory(config.output.dir, overwrite=overwrite).check()  # fail before computing
-    result = run_stages(config, progress=_progress(quiet))
-    target = result.write(config.output.dir, overwrite=overwrite, progress=_progress(quiet))
+    # The output directory is checked before computing; each partition is written as it
+    # is done, and the outputs appear only when the run is complete.
+    result = run_to_directory(
+        config, config.output.dir, overwrite=overwrite, progress=_progress(quiet)
+    )
+    target = config.output.dir
     if not quiet:
         for note in flag_notes(result):
             click.echo(f"note: {note}", err=True)

@@ -21,8 +21,8 @@ in flight, so finished partitions never pile up; a worker writes its partition's
 into the output's staging directory when the run streams its outputs, and only the small
 outcome comes back. A partition lost with a worker is recomputed by dask on another worker
 (retries); one that cannot be computed becomes :class:`ClusterError`, naming the
-partition's first water body, raised before anything is written. The zonal weights of a
-large layer are built in spatial blocks on the cluster too (:func:`cluster_map`).
+partition's first water body, raised before anything is written. Each partition builds (or
+loads) its own zonal weights where it runs.
 """
 
 from __future__ import annotations
@@ -46,10 +46,8 @@ if TYPE_CHECKING:
     from distributed import Client
 
     from lakeloss.blocks import BlockContext, BlockResult, Extracted, RunState
-    from lakeloss.partition_run import PartitionDone, PartitionTask
-    from lakeloss.progress import ProgressBar
+    from lakeloss.partition_run import PartitionBars, PartitionDone, PartitionTask
     from lakeloss.zonal import ZonalWeights
-    from lakeloss.zonal.partition import MapBlocks
 
 log = logging.getLogger(__name__)
 
@@ -268,48 +266,24 @@ def run_blocks(
     yield from _run_local(context, weights, static, blocks, state)
 
 
-@contextlib.contextmanager
-def cluster_map(compute: ComputeConfig) -> Iterator[MapBlocks | None]:
-    """A ``map(func, *iterables)`` that runs on the configured cluster, or None locally.
-
-    Used for the spatial blocks of a large layer's weights build; results come back in
-    input order, so the weights are the same as a local build's.
-    """
-    if not (compute.workers or compute.scheduler):
-        yield None
-        return
-    with _client(compute) as client:
-
-        def mapper(func: Any, *iterables: Any) -> list[Any]:
-            futures = client.map(func, *iterables, pure=False, retries=2)
-            try:
-                return client.gather(futures)
-            except Exception as err:
-                raise ClusterError(
-                    f"the cluster failed while building zonal weights ({_one_line(err)}); "
-                    "check worker memory limits and rerun"
-                ) from err
-
-        yield mapper
-
-
 def map_partitions(
     compute: ComputeConfig,
     tasks: Iterable[PartitionTask],
-    bar: ProgressBar | None = None,
+    bars: PartitionBars | None = None,
     staging: Path | None = None,
 ) -> Iterator[PartitionDone]:
     """Compute every partition and yield them in partition order.
 
     Locally one after another in this process (each one's blocks on the thread pool);
     on a cluster each partition is one task on a worker, at most ``2 x workers`` in flight,
-    writing its part files into ``staging``. ``bar`` advances by time steps.
+    writing its part files into ``staging``. ``bars`` advance per partition (weights) and
+    by time steps (evaporation).
     """
     from lakeloss.partition_run import run_partition, run_partition_on_worker
 
     if not (compute.workers or compute.scheduler):
         for task in tasks:
-            yield run_partition(task, bar)
+            yield run_partition(task, bars)
         return
     from distributed.client import FutureCancelledError
     from distributed.scheduler import KilledWorker
@@ -342,16 +316,31 @@ def map_partitions(
             except (KilledWorker, FutureCancelledError, OSError, TimeoutError) as err:
                 raise _lost_partition(task, err) from err
             submit()
-            if bar is not None:
-                bar.update(len(task.inputs.axis.days))
+            if bars is not None and bars.weights is not None:
+                bars.weights.update(1)
+            if bars is not None and bars.evaporation is not None:
+                bars.evaporation.update(len(task.inputs.axis.days))
             yield done
 
 
 def _lost_partition(task: PartitionTask, err: BaseException) -> ClusterError:
-    ids = task.inputs.layer.frame[task.inputs.layer.id_field]
-    first = ids.iloc[0] if len(ids) else "none"
+    first = _first_id(task)
     return ClusterError(
         f"the cluster lost partition {task.index + 1} (first water body {first}; "
         f"{_one_line(err)}); no outputs were written; check worker memory limits and logs, "
         "then rerun"
     )
+
+
+def _first_id(task: PartitionTask) -> object:
+    """The id of a partition's first water body (read from its file: the task has no ids)."""
+    from lakeloss.io.vector import read_waterbody_rows
+
+    survey = task.inputs.survey
+    if survey is None or not len(task.rows):
+        return "none"
+    try:
+        layer = read_waterbody_rows(survey, task.rows.start, task.rows.start + 1)
+    except (LakelossError, OSError):
+        return f"row {task.rows.start + 1}"
+    return layer.frame[layer.id_field].iloc[0]

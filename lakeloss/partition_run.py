@@ -11,17 +11,19 @@ to the client.
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Mapping
+import time
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-import numpy as np
-
 from lakeloss.body_facts import BodyFacts
 from lakeloss.config import ComputeConfig, RunConfig
+from lakeloss.errors import GeometryRepairedWarning
 from lakeloss.inputs import Inputs
+from lakeloss.io.vector import read_waterbody_rows
 from lakeloss.partitions import PartitionOutcome
+from lakeloss.run_warnings import repair_counts
 from lakeloss.series_stream import SeriesSettings, SeriesStream, temporary_directory
 from lakeloss.zonal import ZonalWeights
 
@@ -29,17 +31,19 @@ if TYPE_CHECKING:
     import geopandas as gpd
     import pandas as pd
 
-    from lakeloss.progress import ProgressBar
+    from lakeloss.progress import ProgressBar, ProgressFactory
 
 
 @dataclass(frozen=True)
 class PartitionTask:
-    """Everything one partition needs; light enough to send to a cluster worker."""
+    """Everything one partition needs; light enough to send to a cluster worker.
+
+    ``inputs`` are the run's (the lazy climate, the survey of the layer without its ids);
+    the partition reads its own rows of the layer and builds (or loads) its own weights.
+    """
 
     config: RunConfig
     inputs: Inputs
-    weights: Mapping[str, ZonalWeights]
-    facts: BodyFacts
     index: int
     rows: range
     series: SeriesSettings | None = None
@@ -59,36 +63,51 @@ class PartitionDone:
     """Where the partition's part files are (:mod:`lakeloss.io.parts`), when written."""
 
 
-def slice_partition(
-    inputs: Inputs, weights: Mapping[str, ZonalWeights], facts: BodyFacts, rows: range
-) -> tuple[Inputs, dict[str, ZonalWeights], BodyFacts]:
-    """The inputs, weights and facts of the bodies ``rows`` only (the same objects for all)."""
-    if rows.start == 0 and rows.stop == inputs.n_waterbodies:
-        return inputs, dict(weights), facts
-    index = np.arange(rows.start, rows.stop)
-    cut = slice(rows.start, rows.stop)
-    layer = inputs.layer
-    part_layer = dataclasses.replace(
-        layer,
-        frame=layer.frame.iloc[cut],
-        flags=layer.flags[cut],
-        stated_area_m2=None if layer.stated_area_m2 is None else layer.stated_area_m2[cut],
-        field_area_m2=None if layer.field_area_m2 is None else layer.field_area_m2[cut],
-    )
-    part_facts = dataclasses.replace(
-        facts,
-        **{
-            f.name: getattr(facts, f.name)[cut]
-            for f in dataclasses.fields(facts)
-            if getattr(facts, f.name) is not None
-        },
-    )
-    part_weights = {key: w.take_rows(index) for key, w in weights.items()}
-    return dataclasses.replace(inputs, layer=part_layer), part_weights, part_facts
+@dataclass
+class PartitionBars:
+    """The progress bars of a run's partitions: weights (per partition), evaporation (steps)."""
+
+    weights: ProgressBar | None = None
+    evaporation: ProgressBar | None = None
+
+    @classmethod
+    def open(
+        cls, progress: ProgressFactory | None, n_partitions: int, n_steps: int
+    ) -> PartitionBars:
+        if progress is None:
+            return cls()
+        return cls(
+            progress(n_partitions, "weights"), progress(n_steps * n_partitions, "evaporation")
+        )
+
+    def close(self) -> None:
+        for bar in (self.weights, self.evaporation):
+            if bar is not None:
+                bar.close()
+
+
+def read_partition(
+    task: PartitionTask,
+) -> tuple[Inputs, dict[str, ZonalWeights], BodyFacts, bool, int, int]:
+    """The partition's rows, weights and facts; whether every weight came from the cache;
+    and how many of its polygons were repaired and how many are empty."""
+    from lakeloss.pipeline import build_weights
+
+    survey = task.inputs.survey
+    assert survey is not None  # load_inputs surveys the layer
+    layer = read_waterbody_rows(survey, task.rows.start, task.rows.stop)
+    inputs = dataclasses.replace(task.inputs, layer=layer)
+    with warnings.catch_warnings():
+        # The run says once how many polygons were repaired, from every partition's count.
+        warnings.simplefilter("ignore", GeometryRepairedWarning)
+        weights, cached = build_weights(task.config, inputs, bounds=survey.bounds)
+    facts = BodyFacts.gather(task.config, inputs, weights)
+    repaired, empty = repair_counts(facts)
+    return inputs, weights, facts, cached, repaired, empty
 
 
 def run_partition(
-    task: PartitionTask, bar: ProgressBar | None = None, series_dir: Path | None = None
+    task: PartitionTask, bars: PartitionBars | None = None, series_dir: Path | None = None
 ) -> PartitionDone:
     """Compute one partition through the whole time axis; its tables stay in memory.
 
@@ -99,18 +118,26 @@ def run_partition(
     from lakeloss.results import partition_tables
 
     config = task.config
+    bars = bars or PartitionBars()
+    started = time.perf_counter()
+    inputs, weights, facts, cached, repaired, empty = read_partition(task)
+    if bars.weights is not None:
+        bars.weights.update(1)
+    read = time.perf_counter()
     collector = None
     if task.series is not None:
         directory = series_dir or temporary_directory()
         path = directory / f"series-{task.index:06d}.nc"
-        collector = SeriesStream(config, task.inputs, path, task.series)
+        collector = SeriesStream(config, inputs, path, task.series)
     sink = collector.add if collector else None
-    totals = compute_totals(config, task.inputs, task.weights, task.facts, bar, sink)
+    totals = compute_totals(config, inputs, weights, facts, bars.evaporation, sink)
     assert totals.gaps is not None  # compute_totals always tallies the gaps
     bodies, by_period, outcome = partition_tables(
-        config, task.inputs, task.facts, totals, totals.gaps.filled_per_body, task.index, task.rows
+        config, inputs, facts, totals, totals.gaps.filled_per_body, task.index, task.rows
     )
     series_file = collector.close() if collector else None
+    outcome.seconds = {"weights": read - started, "evaporate": time.perf_counter() - read}
+    outcome.weights_cached, outcome.repaired, outcome.empty = cached, repaired, empty
     return PartitionDone(outcome, bodies, by_period, series_file)
 
 

@@ -202,6 +202,18 @@ class PartitionOutcome:
     gaps: PartitionGaps
     periods: pd.DataFrame | None = None
     """The period columns of the period table (the first partition's)."""
+    seconds: dict[str, float] = field(default_factory=dict)
+    """Wall time of the partition's stages (weights, evaporate)."""
+    weights_cached: bool = False
+    repaired: int = 0
+    """Polygons of the partition repaired by the zonal engine."""
+    empty: int = 0
+    """Polygons of the partition that are empty."""
+    flag_examples: dict[str, list[Any]] = field(default_factory=dict)
+    """The first few ids of the partition's bodies with each qa flag."""
+    volumes: dict[str, float] = field(default_factory=dict)
+    """Whole-run volumes summed over the partition's bodies with a result. [m3]"""
+    has_rain: bool = False
 
 
 _SUMMED_COUNTS = (
@@ -242,3 +254,29 @@ def in_order(outcomes: Iterator[PartitionOutcome]) -> Iterator[PartitionOutcome]
         while expected in waiting:
             yield waiting.pop(expected)
             expected += 1
+
+
+def merged_examples(
+    outcomes: Sequence[PartitionOutcome], flags: Sequence[str], at_most: int = 5
+) -> dict[str, list[Any]]:
+    """The first ``at_most`` ids with each flag over the run (partitions in layer order)."""
+    out: dict[str, list[Any]] = {}
+    for flag in flags:
+        ids: list[Any] = []
+        for outcome in outcomes:
+            ids.extend(outcome.flag_examples.get(flag, [])[: at_most - len(ids)])
+            if len(ids) >= at_most:
+                break
+        out[flag] = ids
+    return out
+
+
+def flag_examples(flags: pd.Series, ids: pd.Series, at_most: int = 5) -> dict[str, list[Any]]:
+    """The first ``at_most`` ids of the bodies with each flag (``;``-joined tokens)."""
+    out: dict[str, list[Any]] = {}
+    flagged = flags[flags != ""].astype(str)
+    for position, text in zip(flagged.index, flagged.tolist(), strict=True):
+        for token in text.split(";"):
+            if token and len(out.setdefault(token, [])) < at_most:
+                out[token].append(ids.loc[position])
+    return out

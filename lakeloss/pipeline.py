@@ -17,7 +17,6 @@ series in :mod:`lakeloss.series_stream`, and the warnings a run records in
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 import functools
 import logging
@@ -31,6 +30,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
+import pandas as pd
 
 from lakeloss import timeaxis
 from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of this API
@@ -53,12 +53,12 @@ from lakeloss.checks import (
     check_overlap,
     check_values,
     check_wind_grids,
+    elevations,
     refuse_empty,
 )
 from lakeloss.config import ClimateInput, RunConfig, load_config
 from lakeloss.errors import (
     ConfigError,
-    GeometryRepairedWarning,
     ImplausibleValuesWarning,
     LakelossWarning,
     TimeAlignedWarning,
@@ -73,7 +73,7 @@ from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
 from lakeloss.io.run_record import inputs_provenance, run_record
-from lakeloss.partition_run import PartitionDone, PartitionTask, slice_partition
+from lakeloss.partition_run import PartitionBars, PartitionDone, PartitionTask
 from lakeloss.partitions import (
     PartitionOutcome,
     merge_counts,
@@ -81,12 +81,11 @@ from lakeloss.partitions import (
     partition_size,
 )
 from lakeloss.progress import ProgressBar, ProgressFactory
-from lakeloss.run_warnings import gap_warnings, negative_warning, repairs_from_cache, replay
+from lakeloss.run_warnings import gap_warnings, negative_warning, repair_warning, replay
 from lakeloss.series_stream import SeriesSettings, open_series, temporary_directory
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
 from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
 from lakeloss.zonal.cache import geometry_digest
-from lakeloss.zonal.partition import MapBlocks
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -139,16 +138,26 @@ def _with_record(
 ) -> RunResult:
     # Hashing the inputs for run.json reads every file once more (GBs for a big run):
     # do it in the background, beside the stages; hashlib releases the GIL.
-    with ThreadPoolExecutor(max_workers=1) as hasher:
+    with ThreadPoolExecutor(max_workers=1) as hasher, tables:
         record = hasher.submit(inputs_provenance, config)
         return _stages(config, progress, series, record, tables)
 
 
 class PartitionTables(Protocol):
-    """Where each partition's tables go: gathered in memory, or written as they come."""
+    """Where each partition's tables go: gathered in memory, or written as they come.
 
-    staging: Path
-    """Where cluster workers write their partitions' part files."""
+    Used as a context manager around the run: leaving it with an exception discards what
+    was written.
+    """
+
+    def __enter__(self) -> PartitionTables: ...
+
+    def __exit__(self, *exc: Any) -> None: ...
+
+    @property
+    def staging(self) -> Path:
+        """Where cluster workers write their partitions' part files."""
+        ...
 
     def add(self, done: PartitionDone) -> None: ...
 
@@ -176,6 +185,12 @@ class GatheredTables:
         if self._staging is None:
             self._staging = temporary_directory()
         return self._staging
+
+    def __enter__(self) -> GatheredTables:
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        return None
 
     def add(self, done: PartitionDone) -> None:
         if done.part_dir is not None:
@@ -209,12 +224,66 @@ class GatheredTables:
         return gathered(config, self.parts, rank, outcomes, provenance, id_field, series)
 
 
-class StreamedTables(GatheredTables):
-    """Tables written into the output directory (for now gathered, then written)."""
+class StreamedTables:
+    """Each partition's tables written into the output's staging directory as it comes.
+
+    A context manager around :class:`lakeloss.io.atomic.OutputDirectory`: the outputs
+    appear in ``target`` only when the run finishes; a failure leaves the previous outputs
+    as they were. Memory holds one partition's tables at a time.
+    """
 
     def __init__(self, config: RunConfig, target: Path, overwrite: bool) -> None:
-        super().__init__()
-        self.target, self.overwrite = target, overwrite
+        from lakeloss.io.atomic import OutputDirectory
+
+        self.config = config
+        self.directory = OutputDirectory(target, overwrite=overwrite)
+        self.directory.check()
+        self._staging: Path | None = None
+        self._stream: Any = None
+        self.series_files: list[Path] = []
+
+    def __enter__(self) -> StreamedTables:
+        self._staging = self.directory.__enter__()
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        self.directory.__exit__(*exc)
+
+    @property
+    def staging(self) -> Path:
+        assert self._staging is not None  # entered
+        return self._staging
+
+    def _open(self, id_field: str, layer_geometry: Any) -> Any:
+        from lakeloss.io.write_run import OutputStream
+        from lakeloss.results import field_info
+
+        if self._stream is None:
+            self._stream = OutputStream(
+                self.staging,
+                id_field=id_field,
+                field_info=field_info(self.config, id_field),
+                layer_geometry=layer_geometry,
+                layer_format=self.config.output.format,
+            )
+        return self._stream
+
+    def add(self, done: PartitionDone) -> None:
+        from lakeloss.io.parts import part_directory, write_part
+
+        if done.part_dir is None and self.config.output.format == "geoparquet":
+            # the GeoParquet dataset is made of the part files
+            assert done.bodies is not None and done.by_period is not None
+            done.part_dir = part_directory(self.staging, done.outcome.index)
+            write_part(done.part_dir, done.bodies, done.by_period)
+        stream = self._open(done.outcome.id_field, done.outcome.layer_geometry)
+        if done.part_dir is not None:
+            stream.add_part(done.part_dir)
+        else:
+            assert done.bodies is not None and done.by_period is not None
+            stream.add_tables(done.bodies, done.by_period)
+        if done.series_file is not None:
+            self.series_files.append(done.series_file)
 
     def finish(
         self,
@@ -224,9 +293,22 @@ class StreamedTables(GatheredTables):
         provenance: dict[str, Any],
         id_field: str,
     ) -> RunResult:
-        result = super().finish(config, rank, outcomes, provenance, id_field)
-        result.write(self.target, overwrite=self.overwrite)
-        return result
+        from lakeloss.results import summaries, summary_result
+
+        summary_period, summary_group = summaries(config, outcomes)
+        series = None
+        if self.series_files:
+            from lakeloss.io.series_join import join_series
+
+            join_series(self.series_files, self.staging / "series.nc")
+        self._stream.finish(
+            loss_rank=rank,
+            summary_by_period=summary_period,
+            summary_by_group=summary_group,
+            series=series,
+            provenance=provenance,
+        )
+        return summary_result(config, summary_period, summary_group, outcomes, provenance, id_field)
 
 
 def _stages(
@@ -247,33 +329,33 @@ def _stages(
     replay(inputs.recorded)
     for reason in value_warnings:
         warnings.warn(reason, ImplausibleValuesWarning, stacklevel=2)
-    with timer.stage("weights"), warnings.catch_warnings(record=True) as seen:
-        warnings.simplefilter("always", LakelossWarning)
-        weights, cached = build_weights(config, inputs, progress)
-        facts = BodyFacts.gather(config, inputs, weights)
-    weight_warnings = replay(seen)
-    if not any(issubclass(w.category, GeometryRepairedWarning) for w in seen):
-        weight_warnings += repairs_from_cache(facts)
     keep_series = config.output.series if series is None else series
     settings = SeriesSettings.of(config, inputs) if keep_series else None
     n = inputs.n_waterbodies
     size = partition_size(config.compute.partition_bodies, n, config.compute.workers)
     ranges = partition_ranges(n, size)
     outcomes: list[PartitionOutcome] = []
-    bar = progress(len(inputs.axis.days) * len(ranges), "evaporation") if progress else None
+    bars = PartitionBars.open(progress, len(ranges), len(inputs.axis.days))
+    client_inputs = dataclasses.replace(inputs, survey=_for_workers(inputs.survey))
     tasks = (
-        PartitionTask(config, *slice_partition(inputs, weights, facts, rows), index, rows, settings)
+        PartitionTask(config, client_inputs, index, rows, settings)
         for index, rows in enumerate(ranges)
     )
     with timer.stage("evaporate"):
         on_cluster = bool(config.compute.workers or config.compute.scheduler)
         staging = tables.staging if on_cluster else None
-        for done in map_partitions(config.compute, tasks, bar, staging):
+        for done in map_partitions(config.compute, tasks, bars, staging):
             tables.add(done)
             outcomes.append(done.outcome)
             del done
-    if bar is not None:
-        bar.close()
+    bars.close()
+    for stage in ("weights", "evaporate"):
+        # the partitions' own stage times; "evaporate" above also counted their weights
+        timer.seconds[stage] = sum(o.seconds.get(stage, 0.0) for o in outcomes)
+    weight_warnings = repair_warning(
+        sum(o.repaired for o in outcomes), sum(o.empty for o in outcomes)
+    )
+    cached = all(o.weights_cached for o in outcomes)
     with timer.stage("aggregate"):
         run_warnings = [*inputs.warnings, *value_warnings, *weight_warnings]
         negatives: dict[str, int] = {}
@@ -303,8 +385,14 @@ def _stages(
         log.warning(note)
     refuse_empty(provenance["counts"])
     volume = np.concatenate([o.volume for o in outcomes]) if outcomes else np.zeros(0)
-    rank = loss_rank(volume, inputs.layer.frame[inputs.layer.id_field])
-    return tables.finish(config, rank, outcomes, provenance, inputs.layer.id_field)
+    assert inputs.survey is not None  # load_inputs surveys the layer
+    rank = loss_rank(volume, pd.Series(inputs.survey.body_ids(0, n)))
+    return tables.finish(config, rank, outcomes, provenance, inputs.survey.id_field)
+
+
+def _for_workers(survey: vector_io.LayerSurvey | None) -> vector_io.LayerSurvey | None:
+    """The survey a partition needs (without the ids, which only the rank reads)."""
+    return None if survey is None else survey.without_ids()
 
 
 # --------------------------------------------------------------------------- load
@@ -338,11 +426,16 @@ def _grid_of(item: climate_io.ClimateField) -> GridSpec:
     return GridSpec.from_centres(item.x, item.y, item.crs)
 
 
-def load_inputs(config: RunConfig) -> Inputs:
-    """Read the layer, open every climate field lazily, and join their time axes."""
+def load_inputs(config: RunConfig, whole_layer: bool = False) -> Inputs:
+    """Survey the layer, open every climate field lazily, and join their time axes.
+
+    The layer is surveyed without its geometry (:func:`lakeloss.io.vector.survey_waterbodies`);
+    a run's partitions read their own rows. ``whole_layer`` also reads every row
+    (``lakeloss check``, and callers that build the weights of the whole layer).
+    """
     check_methods(config)
     wb = config.waterbodies
-    layer = vector_io.read_waterbodies(
+    survey = vector_io.survey_waterbodies(
         wb.path,
         layer=wb.layer,
         id_field=wb.id_field,
@@ -351,7 +444,10 @@ def load_inputs(config: RunConfig) -> Inputs:
         area_units=wb.area_units,
         area_source=wb.area_source,
     )
-    check_attributes(config, layer)
+    check_attributes(config, survey.columns)
+    layer = vector_io.read_waterbody_rows(survey, 0, survey.n_rows) if whole_layer else None
+    if layer is not None and config.waterbodies.elevation_field:
+        elevations(layer.frame, config.waterbodies.elevation_field)  # refuse before computing
     caught: list[str] = []
     fields: dict[str, climate_io.ClimateField] = {}
     with warnings.catch_warnings(record=True) as seen:
@@ -391,6 +487,7 @@ def load_inputs(config: RunConfig) -> Inputs:
             static_fields["elevation"] = (raster, grid.key())
     return Inputs(
         layer=layer,
+        survey=survey,
         fields=fields,
         axis=axis,
         periods=periods,
@@ -446,65 +543,39 @@ def default_cache_dir() -> Path:
 
 
 def build_weights(
-    config: RunConfig, inputs: Inputs, progress: ProgressFactory | None = None
+    config: RunConfig,
+    inputs: Inputs,
+    *,
+    bounds: tuple[float, float, float, float] | None = None,
 ) -> tuple[dict[str, ZonalWeights], bool]:
-    """One weight matrix per distinct climate grid, from the cache where possible.
+    """One weight matrix per distinct climate grid for ``inputs.layer``, cached.
 
-    ``progress`` gets a bar over the spatial blocks to build (none when all are cached).
+    ``bounds`` are the whole layer's (:attr:`lakeloss.io.vector.LayerSurvey.bounds`): with
+    them a partition's weights are those its bodies get in a build of the whole layer
+    (the equal-area projection is centred on the layer, not on the partition), so results do
+    not depend on the partitions; they enter the cache key. Also says whether every matrix
+    came from the cache.
     """
-    from lakeloss.execution import cluster_map
-
     cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
-    frame = inputs.layer.frame
+    layer = inputs.bodies
+    frame = layer.frame
     out: dict[str, ZonalWeights] = {}
     geometry = geometry_digest(frame)  # every vertex once, whatever the number of grids
-    keys = {key: layer_key(frame, grid, geometry=geometry) for key, grid in inputs.grids.items()}
+    keys = {
+        key: layer_key(frame, grid, geometry=geometry, bounds=bounds)
+        for key, grid in inputs.grids.items()
+    }
     missing = [key for key in inputs.grids if not cache.path_for(keys[key]).exists()]
-    # Large layers are built in spatial blocks, on the cluster when one is configured; the
-    # cluster is only started when there is something to build.
-    use_cluster = bool(missing) and len(frame) > partition.BLOCK_SIZE
-    blocks_per_grid = max(1, -(-len(frame) // partition.BLOCK_SIZE))
-    bar = progress(len(missing) * blocks_per_grid, "weights") if progress and missing else None
-    with cluster_map(config.compute) if use_cluster else contextlib.nullcontext() as mapper:
-        builder = functools.partial(
-            partition.build_weights_in_blocks, map_blocks=_counting(mapper, bar)
-        )
-        for key, grid in inputs.grids.items():
-            out[key], _ = cache.get_or_build(frame, grid, builder=builder, key=keys[key])
-            if bar is not None and key in missing:  # a one-block build bypasses the mapper
-                done = (missing.index(key) + 1) * blocks_per_grid
-                bar.update(max(0, done - bar.n))
-    if bar is not None:
-        bar.close()
-    layer = inputs.layer
+    builder = functools.partial(
+        partition.build_weights_in_blocks, bounds=bounds, require_overlap=bounds is None
+    )
+    for key, grid in inputs.grids.items():
+        out[key], _ = cache.get_or_build(frame, grid, builder=builder, key=keys[key])
     if layer.stated_area_m2 is not None and layer.field_area_m2 is not None:
         # the cache keeps geometry only; the stated areas join every run afresh
         stated, field = layer.stated_area_m2, layer.field_area_m2
         out = {key: w.with_stated_areas(stated, field) for key, w in out.items()}
     return out, not missing
-
-
-def _counting(mapper: MapBlocks | None, bar: ProgressBar | None) -> MapBlocks | None:
-    """A block mapper (the cluster's, or one after another here) that advances ``bar``."""
-    if bar is None:
-        return mapper
-
-    def counted(
-        func: Callable[..., ZonalWeights],
-        frames: Sequence[gpd.GeoDataFrame],
-        grids: Sequence[GridSpec],
-    ) -> list[ZonalWeights]:
-        if mapper is not None:
-            parts = list(mapper(func, frames, grids))
-            bar.update(len(parts))
-            return parts
-        parts = []
-        for frame, grid in zip(frames, grids, strict=True):
-            parts.append(func(frame, grid))
-            bar.update(1)
-        return parts
-
-    return counted
 
 
 # --------------------------------------------------------------------------- extract + evaporate

@@ -52,7 +52,7 @@ class Plan:
         inputs, config = self.inputs, self.config
         lines = [
             f"water bodies : {inputs.n_waterbodies} from {config.waterbodies.path} "
-            f"(id field '{inputs.layer.id_field}', CRS {crs_label(inputs.layer.frame.crs)})",
+            f"(id field '{inputs.bodies.id_field}', CRS {crs_label(inputs.bodies.frame.crs)})",
             f"time axis    : {inputs.axis.describe()}",
             f"periods      : {len(inputs.periods.rows)} x {config.output.period}",
             f"method       : {config.method.name}"
@@ -120,7 +120,7 @@ def estimate_columns(config: RunConfig, inputs: Inputs) -> int:
     every other body counts alone. A per-body input that splits groups (an elevation
     attribute, or the area for a method that reads it) makes every body count.
     """
-    frame = inputs.layer.frame
+    frame = inputs.bodies.frame
     used = inputs_used(config.method.all)
     splitting = bool(config.waterbodies.elevation_field) and "elevation" in used
     if splitting or "area_m2" in used:
@@ -184,7 +184,7 @@ def grid_gaps(config: RunConfig, inputs: Inputs) -> list[str]:
 
 def make_plan(config: RunConfig) -> Plan:
     """Check every input of ``config`` and return the plan (raises the run's errors)."""
-    inputs = load_inputs(config)
+    inputs = load_inputs(config, whole_layer=True)
     check_overlap(inputs)
     value_warnings = check_values(config, inputs)
     columns = estimate_columns(config, inputs)

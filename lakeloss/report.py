@@ -34,15 +34,14 @@ def summary_line(result: RunResult, target: Path) -> str:
     named, and a run of more than a year gives the volume per year as well.
     """
     counts = result.provenance["counts"]
-    bodies = result.waterbodies
     n_periods = int(counts["periods"])
-    periods = result.by_period.iloc[:n_periods]
+    periods = result.summary_by_period.iloc[:n_periods]
     # The whole-run volume covers every day of the run, also those between the periods of
     # a custom period table: its span and days are the run's (the time axis').
     days = int(counts.get("days", periods["days"].sum()))
     years = days / 365.2425
-    with_result = int(bodies["evap_mm"].notna().sum())
-    total = float(bodies["evap_m3"].sum(skipna=True))
+    with_result = int(counts["waterbodies"]) - int(counts["without_result"])
+    total = float(result.totals.get("evaporation", 0.0))
     # Dates are Timestamps or cftime dates in the API; the line names the calendar days.
     first, last = periods["period_start"].iloc[0], periods["period_end"].iloc[-1]
     span = str(result.provenance.get("time_axis", "")).split(",")[0] or (
@@ -70,12 +69,9 @@ def without_result(counts: Mapping[str, Any]) -> str:
 
 def flag_notes(result: RunResult, examples: int = 5) -> list[str]:
     """One note per qa flag that occurs: how many bodies, and the first ids."""
-    flags = result.waterbodies["qa_flags"].astype(str)
-    ids = result.waterbodies[result.id_field]
     notes = []
-    tokens = flags[flags != ""].str.split(";")
     for flag, count in result.provenance["counts"]["qa_flags"].items():
-        first = ids.loc[tokens.index[tokens.map(lambda t, f=flag: f in t)]].head(examples)
+        first = result.flag_examples.get(flag, [])[:examples]
         more = ", ..." if count > examples else ""
         shown = ", ".join(str(v) for v in first)
         notes.append(

@@ -22,7 +22,14 @@ from lakeloss.config import VOLUME_UNITS, RunConfig
 from lakeloss.errors import ConfigError
 from lakeloss.gaps import PartitionGaps
 from lakeloss.io.gpkg import FieldInfo
-from lakeloss.partitions import ChunkSums, PartitionOutcome, SummaryMerger, chunk_sums
+from lakeloss.partitions import (
+    ChunkSums,
+    PartitionOutcome,
+    SummaryMerger,
+    chunk_sums,
+    flag_examples,
+    merged_examples,
+)
 from lakeloss.progress import ProgressBar, ProgressFactory
 
 if TYPE_CHECKING:
@@ -121,12 +128,14 @@ class RunResult:
 
     Attributes
     ----------
-    waterbodies : geopandas.GeoDataFrame
-        The layer with its original attributes plus the result columns (see README).
-    by_period : pandas.DataFrame
+    waterbodies : geopandas.GeoDataFrame or None
+        The layer with its original attributes plus the result columns (see README); None
+        for a run written as it went (:func:`lakeloss.pipeline.run_to_directory`).
+    by_period : pandas.DataFrame or None
         One row per water body and period (table ``evaporation_by_period``), indexed by the
         water-body id; ``period_start`` / ``period_end`` as datetime64 (cftime dates for
-        calendar days the Gregorian calendar lacks, see :func:`period_dates`).
+        calendar days the Gregorian calendar lacks, see :func:`period_dates`); None for a
+        run written as it went.
     summary_by_period : pandas.DataFrame
         Totals over all water bodies per period.
     summary_by_group : pandas.DataFrame or None
@@ -139,8 +148,8 @@ class RunResult:
         Directory of the last :meth:`write`, None before.
     """
 
-    waterbodies: gpd.GeoDataFrame
-    by_period: pd.DataFrame
+    waterbodies: gpd.GeoDataFrame | None
+    by_period: pd.DataFrame | None
     summary_by_period: pd.DataFrame
     summary_by_group: pd.DataFrame | None
     series: xr.Dataset | None
@@ -149,6 +158,11 @@ class RunResult:
     id_field: str
     field_info: dict[str, dict[str, FieldInfo]] = field(default_factory=dict)
     written_to: Path | None = None
+    totals: dict[str, float] = field(default_factory=dict)
+    """Whole-run volumes over the bodies with a result: ``evaporation``, and ``rain`` and
+    ``net loss`` when the run has rain. [m3]"""
+    flag_examples: dict[str, list[Any]] = field(default_factory=dict)
+    """The first ids of the bodies with each qa flag."""
 
     def write(
         self,
@@ -159,11 +173,16 @@ class RunResult:
     ) -> Path:
         """Write every output file into ``directory`` (default ``[output] dir``), atomically.
 
+        Only for a result held in memory (:func:`lakeloss.run`); a run written as it went is
+        in its directory already.
+
         ``progress``: True for progress bars (tqdm), or ``progress(total, label)`` returning
         a tqdm-like bar, advanced per file written.
         """
         from lakeloss.io.write_run import write_result
 
+        if self.waterbodies is None or self.by_period is None:
+            raise ValueError("this result was written as it was computed; its tables are there")
         target = Path(directory) if directory is not None else self.config.output.dir
         self.written_to = write_result(
             self, target, overwrite=overwrite, progress=progress_bars(progress)
@@ -175,17 +194,12 @@ class RunResult:
         counts = self.provenance.get("counts", {})
         method = self.provenance.get("method", {})
         compare = ", ".join(method.get("compare", [])) or "none"
-        layer = self.waterbodies
-        area = layer["area_m2"].to_numpy(dtype=float)
-        rain = layer["precip_mm"].to_numpy(dtype=float) * area / 1000.0
-        totals = {"evaporation": np.nansum(layer["evap_m3"].to_numpy(dtype=float))}
-        if not np.isnan(rain).all():  # without precipitation there is no rain or net total
-            totals["rain"] = np.nansum(rain)
-            totals["net loss"] = np.nansum(layer["net_m3"].to_numpy(dtype=float))
+        totals = self.totals
         written = "not yet (call .write())" if self.written_to is None else str(self.written_to)
         return "\n".join(
             [
-                f"<lakeloss RunResult: {len(layer):,} water bodies ({self.id_field}), "
+                f"<lakeloss RunResult: {counts.get('waterbodies', 0):,} water bodies "
+                f"({self.id_field}), "
                 f"{counts.get('periods', 0)} periods ({self.config.output.period})",
                 f"  time axis   : {self.provenance.get('time_axis', '')}",
                 f"  method      : {method.get('primary', '')} (compare: {compare})",
@@ -292,7 +306,7 @@ def _body_table(
     totals: PeriodTotals,
     filled_steps: np.ndarray,
 ) -> gpd.GeoDataFrame:
-    frame = inputs.layer.frame.copy()
+    frame = inputs.bodies.frame.copy()
     area = facts.area_m2
     primary = config.method.name
     evap = totals.depth[primary].sum(axis=0)
@@ -358,7 +372,7 @@ def _period_table(
     # Segments between the periods of a custom table are summed but not reported.
     kept = periods.rows
     n_periods, n = len(kept), totals.depth[config.method.name].shape[1]
-    ids = inputs.layer.frame[inputs.layer.id_field]
+    ids = inputs.bodies.frame[inputs.bodies.id_field]
     body_of_row = np.repeat(np.arange(n), n_periods)
     period_of_row = np.tile(np.arange(n_periods), n)
     evap = totals.depth[config.method.name][kept].T
@@ -380,7 +394,7 @@ def _period_table(
     np.divide(np.multiply(block[3], area, out=block[4]), 1000.0, out=block[4])
     for i, name in enumerate(compared, start=len(_PERIOD_NUMBERS)):
         block[i] = totals.depth[name][kept].T
-    index = pd.Index(_repeat_rows(ids, body_of_row), name=inputs.layer.id_field)
+    index = pd.Index(_repeat_rows(ids, body_of_row), name=inputs.bodies.id_field)
     table = pd.DataFrame(block.reshape(len(names), -1).T, columns=names, index=index, copy=False)
     starts, ends = period_dates(
         [periods.starts[k] for k in kept], [periods.ends[k] for k in kept], inputs.axis.calendar
@@ -508,7 +522,17 @@ def partition_tables(
     n_periods = len(inputs.periods.rows)
     summed, grouped = _summary_chunks(config, bodies, by_period, n_periods)
     assert totals.gaps is not None  # compute_totals always tallies the gaps
+    area = bodies["area_m2"].to_numpy(dtype=float)
+    rain = bodies["precip_mm"].to_numpy(dtype=float) * area / 1000.0
+    has_rain = not np.isnan(rain).all()
     outcome = PartitionOutcome(
+        volumes={
+            "evaporation": float(np.nansum(bodies["evap_m3"].to_numpy(dtype=float))),
+            "rain": float(np.nansum(rain)),
+            "net loss": float(np.nansum(bodies["net_m3"].to_numpy(dtype=float))),
+        },
+        has_rain=has_rain,
+        flag_examples=flag_examples(bodies["qa_flags"], bodies[inputs.bodies.id_field]),
         index=index,
         rows=rows,
         volume=bodies["evap_m3"].to_numpy(dtype=float),
@@ -543,6 +567,41 @@ def summaries(
     return by_period, by_group
 
 
+def run_totals(outcomes: Sequence[PartitionOutcome]) -> dict[str, float]:
+    """Whole-run volumes summed over the bodies with a result, partition by partition. [m3]"""
+    sums = {"evaporation": 0.0, "rain": 0.0, "net loss": 0.0}
+    rain = False
+    for outcome in outcomes:
+        for name, value in outcome.volumes.items():
+            sums[name] += value
+        rain = rain or outcome.has_rain
+    return sums if rain else {"evaporation": sums["evaporation"]}
+
+
+def summary_result(
+    config: RunConfig,
+    summary_period: pd.DataFrame,
+    summary_group: pd.DataFrame | None,
+    outcomes: Sequence[PartitionOutcome],
+    provenance: dict[str, Any],
+    id_field: str,
+) -> RunResult:
+    """The :class:`RunResult` of a run written as it went: summaries, no per-body tables."""
+    return RunResult(
+        waterbodies=None,
+        by_period=None,
+        summary_by_period=summary_period,
+        summary_by_group=summary_group,
+        series=None,
+        provenance=provenance,
+        config=config,
+        id_field=id_field,
+        field_info=field_info(config, id_field),
+        totals=run_totals(outcomes),
+        flag_examples=merged_examples(outcomes, list(provenance["counts"]["qa_flags"])),
+    )
+
+
 def field_info(config: RunConfig, id_field: str) -> dict[str, dict[str, FieldInfo]]:
     """Titles, descriptions and units of the columns of the layer and the period table."""
     return _field_info(config, id_field)
@@ -566,6 +625,8 @@ def gathered(
     by_period = pd.concat([p[1] for p in parts])
     summary_period, summary_group = summaries(config, outcomes)
     return RunResult(
+        totals=run_totals(outcomes),
+        flag_examples=merged_examples(outcomes, list(provenance["counts"]["qa_flags"])),
         waterbodies=bodies,
         by_period=by_period,
         summary_by_period=summary_period,

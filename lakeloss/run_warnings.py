@@ -63,16 +63,12 @@ def gap_warnings(gaps: GapReport) -> list[str]:
     return messages
 
 
-def repairs_from_cache(facts: BodyFacts) -> list[str]:
-    """The repair warning for weights that came from the cache.
+def repair_warning(n_repaired: int, n_empty: int) -> list[str]:
+    """The warning about repaired and empty polygons of the run (none when there are none).
 
-    The zonal engine warns about repaired and empty polygons when it builds the weights, so
-    a run served from the cache would otherwise print and record nothing: say the same
-    from the flags the weights keep (same wording as ``zonal.weights``).
+    Said once for the whole run from the counts of its partitions, whether their weights
+    were built or came from the cache.
     """
-    tokens = [set(str(f).split(";")) for f in facts.geometry_flags]
-    n_repaired = sum("geometry_repaired" in t for t in tokens)
-    n_empty = sum("geometry_empty" in t for t in tokens)
     if not (n_repaired or n_empty):
         return []
     message = (
@@ -81,3 +77,12 @@ def repairs_from_cache(facts: BodyFacts) -> list[str]:
     )
     warnings.warn(message, GeometryRepairedWarning, stacklevel=3)
     return [message]
+
+
+def repair_counts(facts: BodyFacts) -> tuple[int, int]:
+    """Polygons repaired and polygons empty, from the flags the weights keep."""
+    tokens = [set(str(f).split(";")) for f in facts.geometry_flags]
+    return (
+        sum("geometry_repaired" in t for t in tokens),
+        sum("geometry_empty" in t for t in tokens),
+    )

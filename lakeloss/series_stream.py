@@ -74,10 +74,10 @@ class SeriesStream:
         names = ["evaporation_rate"] + (
             ["precipitation_rate"] if "precipitation" in inputs.fields else []
         )
-        longitude, latitude = body_locations(inputs.layer.frame.geometry)
+        longitude, latitude = body_locations(inputs.bodies.frame.geometry)
         self.writer = SeriesWriter(
             self.path,
-            waterbody_ids=inputs.layer.frame[inputs.layer.id_field].to_numpy(),
+            waterbody_ids=inputs.bodies.frame[inputs.bodies.id_field].to_numpy(),
             times=inputs.axis.times,
             calendar=inputs.axis.calendar,
             variables={name: SERIES_VARIABLES[name] for name in names},
