@@ -352,15 +352,21 @@ def _check_fields(name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]
 
 
 def _write_layer(
-    path: Path, name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]
+    path: Path,
+    name: str,
+    frame: pd.DataFrame,
+    infos: Mapping[str, FieldInfo],
+    *,
+    append: bool = False,
 ) -> None:
     """Write one layer through GDAL with GDAL-visible layer metadata.
 
     No GDAL *dataset* metadata: GDAL then writes a ``.aux.xml`` sidecar beside the file every
     time a reader opens it. The provenance is in ``gpkg_metadata`` as JSON instead, which
     GDAL shows as the dataset metadata item ``GPKG_METADATA_ITEM_1``.
+    ``append``: add the rows to the layer written before (its fields and metadata stay).
     """
-    layer_metadata = _layer_metadata(infos) or None
+    layer_metadata = None if append else _layer_metadata(infos) or None
     # The version is chosen when GDAL creates the file (with the first layer).
     creation = None if path.exists() else {"VERSION": GPKG_VERSION}
     try:
@@ -373,6 +379,7 @@ def _write_layer(
                 layer_metadata=layer_metadata,
                 use_arrow=_arrow_safe(frame),
                 dataset_options=creation,
+                append=append,
             )
     except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
         raise _write_error(exc, f"GDAL could not write layer {name!r} to {path}") from exc
