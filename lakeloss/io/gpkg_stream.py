@@ -26,13 +26,13 @@ import shapely
 from lakeloss.io import bulk_table
 from lakeloss.io.gpkg import (
     _BLOCK_ROWS,
+    FieldInfo,
     _check_layers,
     _encode_table,
     _key_columns,
     _write_error,
     _write_layer,
     _write_tables,
-    FieldInfo,
 )
 from lakeloss.io.tables import to_jsonable
 
@@ -78,6 +78,7 @@ class GeoPackageStream:
         self.features = 0
         self._schema: tuple | None = None
         self._keys: tuple[str, ...] = ()
+        self._first_rows = 0
 
     def append(
         self,
@@ -110,6 +111,7 @@ class GeoPackageStream:
                 self.path.unlink()
             self._schema = (schema, features.crs)
             self._keys = tuple(str(s.name) for s in _key_columns(rows))
+            self._first_rows = len(features)
         else:
             self._check_like_first(schema, features)
         table = dataclasses.replace(table, indexed=(), append=not first)
@@ -168,7 +170,7 @@ class GeoPackageStream:
                 try:
                     if self._keys:
                         bulk_table.create_index(con, self.table, self._keys)
-                    _fill_column(con, self.layer, column, values)
+                    _finish_layer(con, self.layer, column, values, self._first_rows)
                     _write_tables(con, [(self.table, None)], self.fields, provenance)  # type: ignore[list-item]
                 except BaseException:
                     if con.in_transaction:
@@ -181,10 +183,18 @@ class GeoPackageStream:
             ) from exc
 
 
-def _fill_column(
-    con: sqlite3.Connection, layer: str, column: str, values: pd.arrays.IntegerArray
+def _finish_layer(
+    con: sqlite3.Connection,
+    layer: str,
+    column: str,
+    values: pd.arrays.IntegerArray,
+    first_rows: int,
 ) -> None:
-    """Set ``column`` of every feature to ``values[fid - 1]`` in one UPDATE."""
+    """Set ``column`` of every feature to ``values[fid - 1]`` in one UPDATE.
+
+    The same UPDATE gives the date-times of appended features the form of the first part's
+    (see :func:`_milliseconds_to_add`).
+    """
     count, low, high = con.execute(
         f"SELECT count(*), min(fid), max(fid) FROM {bulk_table.quote_name(layer)}"
     ).fetchone()
@@ -198,8 +208,47 @@ def _fill_column(
     for i in np.flatnonzero(missing).tolist():
         numbers[i] = None
     con.create_function("lakeloss_value_of", 1, lambda fid: numbers[fid - 1], deterministic=True)
+    settings = [f"{bulk_table.quote_name(column)} = lakeloss_value_of(fid)"]
+    settings += [_with_milliseconds(name) for name in _milliseconds_to_add(con, layer, first_rows)]
+    con.execute(f"UPDATE {bulk_table.quote_name(layer)} SET {', '.join(settings)}")
+
+
+def _milliseconds_to_add(con: sqlite3.Connection, layer: str, first_rows: int) -> list[str]:
+    """DATETIME columns whose appended values lack the milliseconds of the first part's.
+
+    GDAL 3.12 writes a GeoPackage 1.2 DATETIME with milliseconds (``...T10:00:00.000``) into
+    the layer it creates, but into a layer it appends to only when they are not zero
+    (``...T10:00:00``). The first part's form is taken as the file's.
+    """
+    quoted = bulk_table.quote_name(layer)
+    columns = [
+        row[1] for row in con.execute(f"PRAGMA table_info({quoted})") if row[2] == "DATETIME"
+    ]
+    out = []
+    for column in columns:
+        name = bulk_table.quote_name(column)
+        first = con.execute(
+            f"SELECT {name} FROM {quoted} WHERE fid <= ? AND {name} IS NOT NULL LIMIT 1",
+            (first_rows,),
+        ).fetchone()
+        if first is None or _has_fraction(str(first[0])):
+            out.append(column)
+    return out
+
+
+def _has_fraction(text: str) -> bool:
+    time = text.find("T")
+    return time >= 0 and text[time + 9 : time + 10] == "."
+
+
+def _with_milliseconds(column: str) -> str:
+    """SQL assignment adding ``.000`` after the seconds of values written without a fraction."""
     name = bulk_table.quote_name(column)
-    con.execute(f"UPDATE {bulk_table.quote_name(layer)} SET {name} = lakeloss_value_of(fid)")
+    time = f"instr({name}, 'T')"
+    return (
+        f"{name} = CASE WHEN {time} = 0 OR substr({name}, {time} + 9, 1) = '.' THEN {name} "
+        f"ELSE substr({name}, 1, {time} + 8) || '.000' || substr({name}, {time} + 9) END"
+    )
 
 
 def _add_geometry_functions(con: sqlite3.Connection) -> None:

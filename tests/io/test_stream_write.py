@@ -1,0 +1,353 @@
+"""The streamed writer: any number of partitions gives the files of the whole-table writer.
+
+Fixtures are real small runs (``builders.small_runs``: monthly standard calendar with a
+compared method, group_by, extra volume units, series and a layer with dates, times, gaps
+and awkward text, one pond outside the grid without a rank; daily 360-day calendar with
+cftime period dates). Their whole-run tables are cut into 1, 2, 3 and 7 partitions at
+arbitrary rows (one partition of a single row), written as part files and streamed. The
+reference is what the writer did before partitions, built from the whole-table writers
+(:func:`~lakeloss.io.gpkg.write_geopackage` and :func:`~lakeloss.io.tables.write_csv`).
+"""
+
+from __future__ import annotations
+
+import pickle
+import sqlite3
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import psutil
+import pyogrio
+import pytest
+from builders import small_runs, split_tables
+
+import lakeloss.io.gpkg as gpkg
+from lakeloss.errors import OutputError
+from lakeloss.io import bulk_table, write_run
+from lakeloss.io.atomic import OutputDirectory
+from lakeloss.io.gpkg import read_field_descriptions, read_metadata, write_geopackage
+from lakeloss.io.parts import part_directory, read_part, write_part
+from lakeloss.io.tables import to_jsonable, write_csv, write_json
+
+CUTS = {1: [], 2: [7], 3: [2, 3], 7: [1, 2, 4, 6, 9, 13]}  # [2, 3): a one-row partition
+CSV_FILES = ["summary_by_waterbody.csv", "summary_by_period.csv", "summary_by_group.csv"]
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    return small_runs(tmp_path_factory.mktemp("runs"))
+
+
+def _whole_table_outputs(result, target):
+    """The files as the writer wrote them before partitions: every table at once."""
+    with OutputDirectory(target, overwrite=False) as staging:
+        write_geopackage(
+            staging / "waterbodies.gpkg",
+            [("waterbodies", result.waterbodies), ("evaporation_by_period", result.by_period)],
+            fields=result.field_info,
+            metadata=result.provenance,
+        )
+        table = result.waterbodies.drop(columns="geometry")
+        table = table[[result.id_field] + [c for c in table.columns if c != result.id_field]]
+        body = table.sort_values(["loss_rank"], kind="stable")
+        write_csv(staging / CSV_FILES[0], body, decimals=write_run._decimals(body.columns))
+        for name, frame in (
+            (CSV_FILES[1], result.summary_by_period),
+            (CSV_FILES[2], result.summary_by_group),
+        ):
+            write_csv(staging / name, frame, decimals=write_run._decimals(frame.columns))
+        write_run._write_series(result.series, staging / "series.nc") if result.series else None
+        write_json(staging / "run.json", result.provenance)
+    return target
+
+
+def _streamed_outputs(result, target, cuts):
+    """The files written from part files of the partitions cut before rows ``cuts``."""
+    with OutputDirectory(target, overwrite=False) as staging:
+        stream = write_run.OutputStream(
+            staging, id_field=result.id_field, field_info=result.field_info
+        )
+        for k, (bodies, periods) in enumerate(
+            split_tables(result.waterbodies, result.by_period, cuts)
+        ):
+            write_part(part_directory(staging, k), bodies, periods)
+            stream.add_part(part_directory(staging, k))
+        stream.finish(
+            loss_rank=result.waterbodies["loss_rank"].array,
+            summary_by_period=result.summary_by_period,
+            summary_by_group=result.summary_by_group,
+            series=result.series,
+            provenance=result.provenance,
+        )
+    return target
+
+
+def _gpkg_content(path) -> dict:
+    """Everything the GeoPackage holds, but for its time stamps, with SQL types and fids."""
+    con = sqlite3.connect(path)
+    try:
+        out = {
+            "pragma": [
+                con.execute(f"PRAGMA {p}").fetchone()
+                for p in ("application_id", "user_version", "page_size")
+            ],
+            "schema": con.execute(
+                "SELECT type, name, tbl_name, sql FROM sqlite_master ORDER BY type, name"
+            ).fetchall(),
+        }
+        stamps = {"gpkg_contents": "last_change", "gpkg_metadata_reference": "timestamp"}
+        for (name,) in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'"):
+            columns = [
+                f'"{row[1]}", typeof("{row[1]}")'
+                for row in con.execute(f"PRAGMA table_info('{name}')")
+                if row[1] != stamps.get(name)
+            ]
+            order = "" if name.startswith("rtree_") else " ORDER BY rowid"
+            rows = con.execute(f'SELECT {", ".join(columns)} FROM "{name}"{order}').fetchall()
+            out[name] = sorted(rows) if name.startswith("rtree_") else rows
+    finally:
+        con.close()
+    return out
+
+
+def _assert_same_outputs(streamed, reference, result):
+    names = sorted(p.name for p in reference.iterdir())
+    assert sorted(p.name for p in streamed.iterdir()) == names  # no _parts, no scratch
+    for name in CSV_FILES:
+        if (reference / name).exists():
+            assert (streamed / name).read_bytes() == (reference / name).read_bytes(), name
+    assert (streamed / "run.json").read_bytes() == (reference / "run.json").read_bytes()
+    if "series.nc" in names:
+        assert (streamed / "series.nc").read_bytes() == (reference / "series.nc").read_bytes()
+    new, old = streamed / "waterbodies.gpkg", reference / "waterbodies.gpkg"
+    assert _gpkg_content(new) == _gpkg_content(old)
+    # As GIS software reads them: types, descriptions, metadata, fid order.
+    for layer in ("waterbodies", "evaporation_by_period"):
+        new_info, old_info = (
+            pyogrio.read_info(new, layer=layer),
+            pyogrio.read_info(old, layer=layer),
+        )
+        for key in ("fields", "dtypes", "crs", "geometry_type", "features", "layer_metadata"):
+            assert (
+                np.array_equal(new_info[key], old_info[key])
+                if key in ("fields", "dtypes")
+                else (new_info[key] == old_info[key])
+            ), (layer, key)
+        pd.testing.assert_frame_equal(
+            pyogrio.read_dataframe(new, layer=layer, fid_as_index=True),
+            pyogrio.read_dataframe(old, layer=layer, fid_as_index=True),
+        )
+        assert read_field_descriptions(new, layer) == read_field_descriptions(old, layer)
+    assert read_metadata(new) == read_metadata(old) == to_jsonable(result.provenance)
+
+
+@pytest.mark.parametrize("name", ["monthly", "daily_360"])
+@pytest.mark.parametrize("parts", [1, 2, 3, 7])
+def test_any_number_of_parts_gives_the_whole_table_files(runs, tmp_path, name, parts):
+    result = runs[name]
+    reference = _whole_table_outputs(result, tmp_path / "whole")
+    streamed = _streamed_outputs(result, tmp_path / "streamed", CUTS[parts])
+    _assert_same_outputs(streamed, reference, result)
+    ranks = pd.read_csv(streamed / "summary_by_waterbody.csv")["loss_rank"]
+    assert ranks.isna().tolist()[-1] and ranks.dropna().is_monotonic_increasing
+
+
+@pytest.mark.parametrize("name", ["monthly", "daily_360"])
+def test_write_result_gives_the_whole_table_files(runs, tmp_path, name):
+    result = runs[name]
+    reference = _whole_table_outputs(result, tmp_path / "whole")
+    written = write_run.write_result(result, tmp_path / "written", overwrite=False)
+    _assert_same_outputs(written, reference, result)
+
+
+def test_child_process_parts_give_the_same_file(runs, tmp_path, monkeypatch):
+    # Every part's table through a child process (threshold 0), in small blocks.
+    result = runs["monthly"]
+    reference = _whole_table_outputs(result, tmp_path / "whole")
+    monkeypatch.setattr(gpkg, "_CHILD_MIN_ROWS", 0)
+    monkeypatch.setattr(bulk_table, "_MAX_VARIABLES", 60)
+    streamed = _streamed_outputs(result, tmp_path / "streamed", CUTS[3])
+    _assert_same_outputs(streamed, reference, result)
+    assert _children() == []
+
+
+def _children() -> list[psutil.Process]:
+    return [p for p in psutil.Process().children(recursive=True) if p.is_running()]
+
+
+def _stream_parts(result, target, cuts, *, before_part=None):
+    """Write the partitions cut before ``cuts`` through the stream; ``before_part(k, dir)``
+    runs after partition k's part files are written and before the writer reads them."""
+    with OutputDirectory(target, overwrite=False) as staging:
+        stream = write_run.OutputStream(
+            staging, id_field=result.id_field, field_info=result.field_info
+        )
+        for k, (bodies, periods) in enumerate(
+            split_tables(result.waterbodies, result.by_period, cuts)
+        ):
+            write_part(part_directory(staging, k), bodies, periods)
+            if before_part is not None:
+                before_part(k, part_directory(staging, k))
+            stream.add_part(part_directory(staging, k))
+        stream.finish(
+            loss_rank=result.waterbodies["loss_rank"].array,
+            summary_by_period=result.summary_by_period,
+            summary_by_group=result.summary_by_group,
+            series=result.series,
+            provenance=result.provenance,
+        )
+
+
+def _truncate(k, directory):
+    if k == 2:
+        path = directory / "by_period.parquet"
+        path.write_bytes(path.read_bytes()[:100])
+
+
+def _drop_column(k, directory):
+    if k == 1:
+        bodies, periods = read_part(directory)
+        write_part(directory, bodies.drop(columns="owner"), periods)
+
+
+@pytest.mark.parametrize(
+    ("damage", "words"),
+    [
+        pytest.param(_truncate, ("cannot read the part files in", "000002"), id="truncated"),
+        pytest.param(_drop_column, ("does not fit the earlier parts", "owner"), id="columns"),
+    ],
+)
+def test_bad_part_gives_one_line_error_and_no_outputs(runs, tmp_path, damage, words):
+    with pytest.raises(OutputError) as caught:
+        _stream_parts(runs["monthly"], tmp_path / "out", CUTS[7], before_part=damage)
+    message = str(caught.value)
+    assert "\n" not in message
+    for word in words:
+        assert word in message
+    assert list(tmp_path.iterdir()) == []  # no output directory, no staging left
+
+
+def _failing_start_on_part(part: int, script: str):
+    """``bulk_table.start`` whose child for the ``part``-th table (from 0) runs ``script``."""
+    real_start = bulk_table.start
+    started = []
+
+    def start(directory):
+        started.append(directory)
+        if len(started) - 1 != part:
+            return real_start(directory)
+        return subprocess.Popen(
+            [sys.executable, "-c", script],
+            stdin=subprocess.PIPE,
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.PIPE,
+        )
+
+    return start
+
+
+@pytest.mark.parametrize(
+    ("script", "words"),
+    [
+        pytest.param(
+            "import os, signal, sys; sys.stdin.readline(); os.kill(os.getpid(), signal.SIGKILL)",
+            ("cannot write table", "killed by signal 9"),
+            id="killed",
+        ),
+        pytest.param(
+            "import json, sys; sys.stdin.readline(); "
+            "sys.stderr.write(json.dumps({'type': 'OperationalError', "
+            "'message': 'database or disk is full', 'sqlite_errorcode': 13}) + chr(10)); "
+            "sys.exit(1)",
+            ("disk full", "earlier outputs were left untouched"),
+            id="disk-full",
+        ),
+    ],
+)
+def test_child_failing_on_a_later_part_leaves_no_outputs(
+    runs, tmp_path, monkeypatch, script, words
+):
+    # Earlier outputs exist: they must survive a failed run untouched.
+    previous = write_run.write_result(runs["daily_360"], tmp_path / "out", overwrite=False)
+    before = {p.name: p.read_bytes() for p in previous.iterdir()}
+    monkeypatch.setattr(gpkg, "_CHILD_MIN_ROWS", 0)
+    monkeypatch.setattr(bulk_table, "start", _failing_start_on_part(2, script))
+    with pytest.raises(OutputError) as caught:
+        with OutputDirectory(tmp_path / "out", overwrite=True) as staging:
+            stream = write_run.OutputStream(
+                staging, id_field="pond_id", field_info=runs["monthly"].field_info
+            )
+            result = runs["monthly"]
+            for bodies, periods in split_tables(result.waterbodies, result.by_period, [2, 3, 9]):
+                stream.add_tables(bodies, periods)
+    message = str(caught.value)
+    assert "\n" not in message
+    for word in words:
+        assert word in message
+    assert {p.name: p.read_bytes() for p in previous.iterdir()} == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert _children() == []
+
+
+_KILLED_STREAM = """
+import sys, time
+sys.path.insert(0, {tests!r})
+import pickle
+from pathlib import Path
+import lakeloss.io.gpkg as gpkg
+from lakeloss.io import write_run
+from lakeloss.io.atomic import OutputDirectory
+from lakeloss.io.parts import part_directory, read_part, write_part
+from builders import split_tables
+gpkg._CHILD_MIN_ROWS = 0
+result = pickle.loads(Path(sys.argv[2]).read_bytes())
+with OutputDirectory(sys.argv[1], overwrite=True) as staging:
+    stream = write_run.OutputStream(staging, id_field="pond_id", field_info=result["fields"])
+    for k, (bodies, periods) in enumerate(split_tables(result["bodies"], result["periods"], [4, 9])):
+        write_part(part_directory(staging, k), bodies, periods)
+        stream.add_part(part_directory(staging, k))
+        print(staging, flush=True)
+        if k == 1:
+            time.sleep(60)
+"""
+
+
+def test_sigkill_between_parts_leaves_previous_outputs_and_no_child(runs, tmp_path):
+    previous = write_run.write_result(runs["daily_360"], tmp_path / "out", overwrite=False)
+    before = {p.name: p.read_bytes() for p in previous.iterdir()}
+    result = runs["monthly"]
+    frames = tmp_path.parent / f"{tmp_path.name}-frames.pickle"
+    frames.write_bytes(
+        pickle.dumps(
+            {"bodies": result.waterbodies, "periods": result.by_period, "fields": result.field_info}
+        )
+    )
+    tests = str(Path(__file__).resolve().parents[1])
+    proc = subprocess.Popen(
+        [sys.executable, "-c", _KILLED_STREAM.format(tests=tests), str(previous), str(frames)],
+        stdout=subprocess.PIPE,
+        text=True,
+    )
+    try:
+        staging = Path(proc.stdout.readline().strip())
+        assert proc.stdout.readline().strip() == str(staging)  # two parts are in
+        assert (staging / "waterbodies.gpkg").is_file()
+    finally:
+        proc.kill()
+        proc.wait(timeout=30)
+        proc.stdout.close()
+        frames.unlink()
+    assert {p.name: p.read_bytes() for p in previous.iterdir()} == before
+    assert not [
+        p
+        for p in psutil.process_iter(["cmdline"])
+        if str(staging) in " ".join(p.info["cmdline"] or [])
+    ]
+    # The next run removes what the killed one left and writes its outputs.
+    written = write_run.write_result(result, tmp_path / "out", overwrite=True)
+    assert not staging.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert (written / "series.nc").is_file()
