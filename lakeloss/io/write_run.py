@@ -16,10 +16,8 @@ from typing import TYPE_CHECKING, Any, Protocol
 import pyarrow
 
 from lakeloss.errors import OutputError
-from lakeloss.io import gpkg
 from lakeloss.io.atomic import OutputDirectory
-from lakeloss.io.gpkg import FieldInfo
-from lakeloss.io.gpkg_stream import GeoPackageStream
+from lakeloss.io.gpkg import FieldInfo, GeoPackageStream
 from lakeloss.io.parts import PARTS_DIRECTORY, read_part
 from lakeloss.io.ranked_csv import RankedCsv
 from lakeloss.io.tables import write_csv, write_json
@@ -162,7 +160,6 @@ class OutputStream:
             layer=LAYER,
             table=TABLE,
             fields=field_info,
-            child_min_rows=gpkg._CHILD_MIN_ROWS,
         )
         self._summary: RankedCsv | None = None
 

@@ -254,7 +254,7 @@ def _failing_start_on_part(part: int, script: str):
     [
         pytest.param(
             "import os, signal, sys; sys.stdin.readline(); os.kill(os.getpid(), signal.SIGKILL)",
-            ("cannot write table", "killed by signal 9"),
+            ("cannot write attribute tables", "killed by signal 9"),
             id="killed",
         ),
         pytest.param(
