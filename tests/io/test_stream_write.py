@@ -17,16 +17,19 @@ import subprocess
 import sys
 from pathlib import Path
 
+import cftime
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 import psutil
 import pyogrio
 import pytest
+import shapely
 from builders import small_runs, split_tables
 
 import lakeloss.io.gpkg as gpkg
 from lakeloss.errors import OutputError
-from lakeloss.io import bulk_table, write_run
+from lakeloss.io import bulk_table, gpkg_geometry, ranked_csv, tables, write_run
 from lakeloss.io.atomic import OutputDirectory
 from lakeloss.io.gpkg import read_field_descriptions, read_metadata, write_geopackage
 from lakeloss.io.parts import part_directory, read_part, write_part
@@ -351,3 +354,102 @@ def test_sigkill_between_parts_leaves_previous_outputs_and_no_child(runs, tmp_pa
     assert not staging.exists()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
     assert (written / "series.nc").is_file()
+
+
+def _survey_table(n: int, seed: int) -> pd.DataFrame:
+    """An invented summary table: ids, ranks with gaps, dates, times, text, cftime dates.
+
+    Times of day appear only in the last rows, so only a part holding them knows that the
+    column is written with its times.
+    """
+    rng = np.random.default_rng(seed)
+    rank = rng.permutation(n) + 1
+    missing = rng.random(n) < 0.2
+    days = pd.Timestamp("2031-01-01") + pd.to_timedelta(rng.integers(0, 400, n), unit="D")
+    inspected = days + pd.to_timedelta(np.where(np.arange(n) >= n - 3, 7.25, 0.0), unit="h")
+    calendar = [cftime.datetime(2031, 2, 1 + i % 30, calendar="360_day") for i in range(n)]
+    return pd.DataFrame(
+        {
+            "pond_code": pd.array([f"D{i:04d}" for i in range(n)], dtype="str"),
+            "surveyed": days.where(rng.random(n) > 0.1).astype("datetime64[s]"),
+            "inspected": inspected.astype("datetime64[ms]"),
+            "filled_on": pd.Series(calendar, dtype=object),
+            "note": pd.array([None if i % 3 else f'a "b", {i}' for i in range(n)], dtype="str"),
+            "evap_m3": rng.uniform(-1.0, 5.0, n),
+            "loss_rank": pd.arrays.IntegerArray(rank, missing),
+            "qa_flags": pd.array(["" if i % 4 else "climate_gaps" for i in range(n)], dtype="str"),
+        }
+    )
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_ranked_summary_from_parts_is_write_csv_of_the_sorted_table(tmp_path, monkeypatch, seed):
+    # Small merge chunks, so rows of many parts interleave across several chunks.
+    monkeypatch.setattr(ranked_csv, "_CHUNK_ROWS", 4)
+    table = _survey_table(61, seed)
+    decimals = {"evap_m3": 3}
+    expected = tmp_path / "expected.csv"
+    write_csv(expected, table.sort_values(["loss_rank"], kind="stable"), decimals=decimals)
+    summary = ranked_csv.RankedCsv(
+        tmp_path / "summary.csv", tmp_path / "scratch", rank="loss_rank", decimals=decimals
+    )
+    bounds = [0, 1, 9, 10, 30, 58, 61]
+    for start, stop in zip(bounds[:-1], bounds[1:], strict=True):
+        part = table.iloc[start:stop].copy()
+        part["loss_rank"] = pd.array([None] * len(part), dtype="Int64")
+        summary.add(part)
+    summary.finish(table["loss_rank"].array)
+    assert (tmp_path / "summary.csv").read_bytes() == expected.read_bytes()
+    assert not (tmp_path / "scratch").exists()
+    text = (tmp_path / "summary.csv").read_text()
+    assert "T07:15:00" in text and "T00:00:00" in text  # inspected: with times throughout
+    assert ",2031-02-30," in text  # 360-day dates as dates
+
+
+def test_time_of_day_late_in_a_long_column_gives_one_form_for_the_column(tmp_path, monkeypatch):
+    # write_csv formats blocks of rows; whether dates carry their time of day is decided for
+    # the whole column, not per block (a block of midnights wrote dates only before).
+    monkeypatch.setattr(tables, "_BLOCK_ROWS", 2)
+    frame = pd.DataFrame(
+        {
+            "seen": pd.to_datetime(
+                ["2031-01-01", "2031-01-02", "2031-01-03T06:00"], format="ISO8601"
+            ).as_unit("s")
+        }
+    )
+    write_csv(tmp_path / "t.csv", frame)
+    assert (tmp_path / "t.csv").read_text().splitlines() == [
+        "seen",
+        "2031-01-01T00:00:00",
+        "2031-01-02T00:00:00",
+        "2031-01-03T06:00:00",
+    ]
+
+
+@pytest.mark.parametrize(
+    "geometry",
+    [
+        shapely.box(10.0, -5.0, 12.5, 3.0),
+        shapely.Point(4.0, 2.0),
+        shapely.LineString([(0, 0), (3, -2)]),
+        shapely.Polygon(),
+    ],
+)
+def test_trigger_functions_read_geopackage_blobs_as_gdal_writes_them(tmp_path, geometry):
+    # GDAL writes the blobs (with an envelope for polygons and lines, none for points, the
+    # empty flag for an empty polygon); the functions must give the geometry's bounds.
+    frame = gpd.GeoDataFrame({"a": [1]}, geometry=[geometry], crs="EPSG:32755")
+    pyogrio.write_dataframe(frame, tmp_path / "g.gpkg", layer="g", driver="GPKG")
+    con = sqlite3.connect(tmp_path / "g.gpkg")
+    try:
+        gpkg_geometry.add_geometry_functions(con)
+        row = con.execute(
+            "SELECT ST_IsEmpty(geom), ST_MinX(geom), ST_MinY(geom), ST_MaxX(geom), "
+            "ST_MaxY(geom) FROM g"
+        ).fetchone()
+    finally:
+        con.close()
+    if geometry.is_empty:
+        assert row == (1, None, None, None, None)
+    else:
+        assert row == (0, *geometry.bounds)
