@@ -453,3 +453,35 @@ def test_trigger_functions_read_geopackage_blobs_as_gdal_writes_them(tmp_path, g
         assert row == (1, None, None, None, None)
     else:
         assert row == (0, *geometry.bounds)
+
+
+def test_nullable_columns_through_gdal_arrow_give_the_row_by_row_layer(tmp_path):
+    # A partition's all-null loss_rank (Int64), nullable booleans and counts go through
+    # GDAL's Arrow path; the layer must be the one the row-by-row path writes.
+    frame = gpd.GeoDataFrame(
+        {
+            "pond_code": pd.array(["A", None, "C", "D"], dtype="str"),
+            "loss_rank": pd.array([None] * 4, dtype="Int64"),
+            "visits": pd.array([3, None, 1, 2], dtype="Int32"),
+            "fenced": pd.array([True, None, False, True], dtype="boolean"),
+            "dry": np.array([False, True, False, False]),
+            "depth_m": [1.5, np.nan, 2.0, 0.5],
+        },
+        geometry=[shapely.box(i, 0, i + 0.5, 0.5) for i in range(4)],
+        crs="EPSG:32755",
+    )
+    assert gpkg._arrow_safe(frame)
+    contents = []
+    for arrow in (True, False):
+        path = tmp_path / f"arrow_{arrow}.gpkg"
+        pyogrio.write_dataframe(
+            frame,
+            path,
+            layer="w",
+            driver="GPKG",
+            use_arrow=arrow,
+            dataset_options={"VERSION": "1.2"},
+        )
+        content = _gpkg_content(path)
+        contents.append(content)
+    assert contents[0] == contents[1]
