@@ -357,6 +357,10 @@ class GeoPackageStream:
         try:
             with closing(sqlite3.connect(os.fspath(self.path), isolation_level=None)) as con:
                 bulk_table.fast_bulk_settings(con)
+                # The UPDATE rewrites every feature: a journal in memory would hold the
+                # whole layer. Without one a failure leaves a broken file, which the
+                # staging directory it lives in is removed with.
+                con.execute("PRAGMA journal_mode = OFF")
                 gpkg_geometry.add_geometry_functions(con)
                 con.execute("BEGIN")
                 try:
@@ -395,11 +399,14 @@ def _finish_layer(
             f"layer {layer!r} has {count} features with ids {low}..{high}; expected ids "
             f"1..{len(values)}, one per rank"
         )
-    numbers = np.asarray(values.to_numpy(dtype=np.int64, na_value=0)).tolist()
-    missing = np.asarray(values.isna())
-    for i in np.flatnonzero(missing).tolist():
-        numbers[i] = None
-    con.create_function("lakeloss_value_of", 1, lambda fid: numbers[fid - 1], deterministic=True)
+    # Eight bytes per feature; a list of Python ints would take 36.
+    numbers = np.asarray(values.to_numpy(dtype=np.int64, na_value=0))
+    present = ~np.asarray(values.isna())
+
+    def value_of(fid: int) -> int | None:
+        return int(numbers[fid - 1]) if present[fid - 1] else None
+
+    con.create_function("lakeloss_value_of", 1, value_of, deterministic=True)
     settings = [f"{bulk_table.quote_name(column)} = lakeloss_value_of(fid)"]
     settings += [_with_milliseconds(name) for name in _milliseconds_to_add(con, layer, first_rows)]
     con.execute(f"UPDATE {bulk_table.quote_name(layer)} SET {', '.join(settings)}")
