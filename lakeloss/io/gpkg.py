@@ -218,7 +218,7 @@ def write_geopackage(
             bulk_table.fast_bulk_settings(con)
             con.execute("BEGIN")
             try:
-                _write_tables(con, attributes, fields, provenance)
+                _write_tables(con, [name for name, _ in attributes], fields, provenance)
             except BaseException:
                 if con.in_transaction:
                     con.execute("ROLLBACK")
@@ -367,7 +367,7 @@ class GeoPackageStream:
                     if self._keys:
                         bulk_table.create_index(con, self.table, self._keys)
                     _finish_layer(con, self.layer, column, values, self._first_rows)
-                    _write_tables(con, [(self.table, None)], self.fields, provenance)  # type: ignore[list-item]
+                    _write_tables(con, [self.table], self.fields, provenance)
                 except BaseException:
                     if con.in_transaction:
                         con.execute("ROLLBACK")
@@ -452,12 +452,13 @@ def _with_milliseconds(column: str) -> str:
 
 def _write_tables(
     con: sqlite3.Connection,
-    attributes: Sequence[tuple[str, pd.DataFrame]],
+    attributes: Sequence[str],
     fields: Mapping[str, Mapping[str, FieldInfo]],
     provenance: object,
 ) -> None:
-    """Registration, field descriptions and provenance, in the caller's single transaction."""
-    for name, _ in attributes:
+    """Registration of the attribute tables ``attributes`` (names), field descriptions and
+    provenance, in the caller's single transaction."""
+    for name in attributes:
         con.execute(
             "INSERT INTO gpkg_contents (table_name, data_type, identifier, description, srs_id) "
             "VALUES (?, 'attributes', ?, '', 0)",
