@@ -99,10 +99,9 @@ def _encoded(frame: pd.DataFrame) -> pd.DataFrame:
         column = frame[name]
         if column.dtype != object:
             continue
-        calendar = _cftime_calendar(column)
-        if calendar is not None:
-            dates[str(name)] = calendar
-            replaced[name] = _iso_text(column)
+        encoded = _cftime_text(column)
+        if encoded is not None:
+            dates[str(name)], replaced[name] = encoded
     if not (dates or python_strings or seconds):
         return frame
     out = frame.copy(deep=False)
@@ -136,35 +135,37 @@ def _decoded(frame: pd.DataFrame) -> Any:
     return frame
 
 
-def _cftime_calendar(column: pd.Series) -> dict[str, Any] | None:
-    """Calendar of an object column of cftime dates (missing values allowed), else None."""
-    present = column.dropna()
-    if present.empty or not isinstance(present.iloc[0], cftime.datetime):
+def _cftime_text(column: pd.Series) -> tuple[dict[str, Any], pd.Series] | None:
+    """Calendar and ISO 8601 text of an object column of cftime dates, else None.
+
+    Each distinct date is checked and formatted once (a period table repeats a few dates
+    over millions of rows). Missing values stay missing.
+    """
+    present = column.notna().to_numpy()
+    if not present.any() or not isinstance(column.iloc[int(present.argmax())], cftime.datetime):
         return None
-    first = present.iloc[0]
+    first = column.iloc[int(present.argmax())]
     calendar = {"calendar": first.calendar, "has_year_zero": bool(first.has_year_zero)}
-    distinct = pd.unique(present.to_numpy())
-    if not all(
-        isinstance(d, cftime.datetime)
-        and (d.calendar, d.has_year_zero) == (calendar["calendar"], calendar["has_year_zero"])
-        for d in distinct
-    ):
+    try:
+        codes, distinct = pd.factorize(column.to_numpy(dtype=object), use_na_sentinel=True)
+        same = all(
+            isinstance(d, cftime.datetime)
+            and (d.calendar, bool(d.has_year_zero)) == tuple(calendar.values())
+            for d in distinct
+        )
+    except TypeError:  # dates of different calendars do not compare
+        same = False
+    if not same:
         raise ValueError(
             f"column {column.name!r} mixes cftime dates of different calendars with other "
             "values; expected dates of one calendar"
         )
-    return calendar
-
-
-def _iso_text(column: pd.Series) -> pd.Series:
-    """ISO 8601 text of cftime dates, formatting each distinct date once."""
-    codes, distinct = pd.factorize(column.to_numpy(dtype=object), use_na_sentinel=True)
     texts = pd.array([d.isoformat() for d in distinct], dtype="string").take(codes, allow_fill=True)
-    return pd.Series(texts, index=column.index, name=column.name)
+    return calendar, pd.Series(texts, index=column.index, name=column.name)
 
 
 def _cftime_dates(texts: pd.Series, calendar: dict[str, Any]) -> pd.Series:
-    """The cftime dates of :func:`_iso_text`, parsing each distinct text once."""
+    """The cftime dates of :func:`_cftime_text`, parsing each distinct text once."""
     codes, distinct = pd.factorize(
         texts.to_numpy(dtype=object, na_value=None), use_na_sentinel=True
     )

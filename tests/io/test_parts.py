@@ -84,3 +84,17 @@ def test_every_kind_of_column_reads_back_equal(runs, tmp_path):
     _assert_same(back_periods, periods)
     assert back_bodies["filled_on"].iloc[0].microsecond == 250
     assert back_bodies["filled_on"].iloc[0].calendar == "all_leap"
+
+
+def test_dates_of_two_calendars_in_one_column_are_refused(runs, tmp_path):
+    bodies = runs["monthly"].waterbodies.iloc[:2].copy()
+    bodies["filled_on"] = pd.Series(
+        [
+            cftime.datetime(2031, 2, 30, calendar="360_day"),
+            cftime.datetime(2031, 2, 28, calendar="noleap"),
+        ],
+        index=bodies.index,
+        dtype=object,
+    )
+    with pytest.raises(ValueError, match="different calendars"):
+        write_part(tmp_path, bodies, runs["monthly"].by_period.iloc[:4])
