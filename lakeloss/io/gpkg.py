@@ -242,6 +242,9 @@ class GeoPackageStream:
     fields : mapping
         ``fields[name][column] -> FieldInfo`` for the layer and the table (see
         :func:`~lakeloss.io.gpkg.write_geopackage`).
+    late_column : str, optional
+        A layer column whose values are known only once every part is in (null in the
+        parts), set by :meth:`finish`.
     child_min_rows : int, optional
         Parts whose table has at least this many rows are written by a child process;
         by default the threshold :func:`write_geopackage` uses.
@@ -259,6 +262,7 @@ class GeoPackageStream:
         layer: str,
         table: str,
         fields: Mapping[str, Mapping[str, FieldInfo]],
+        late_column: str | None = None,
         child_min_rows: int | None = None,
     ) -> None:
         self.path = Path(path)
@@ -270,6 +274,10 @@ class GeoPackageStream:
         self._schema: tuple | None = None
         self._keys: tuple[str, ...] = ()
         self._first_rows = 0
+        self.late_column = late_column
+        # The late column's values as the parts brought them, while all parts had some: a
+        # caller with the whole tables (write_result) needs no UPDATE. [float64, NaN: null]
+        self._late_values: list[np.ndarray] | None = [] if late_column else None
 
     def append(
         self,
@@ -326,6 +334,12 @@ class GeoPackageStream:
                     exc, f"cannot write attribute tables {[self.table]} to {self.path}"
                 ) from exc
         self.features += len(features)
+        if self.late_column is not None and self._late_values is not None:
+            values = features[self.late_column]
+            if len(values) and values.isna().all():
+                self._late_values = None
+            else:
+                self._late_values.append(values.to_numpy(dtype=float, na_value=np.nan))
 
     def _check_like_first(self, schema: tuple, features: geopandas.GeoDataFrame) -> None:
         assert self._schema is not None
@@ -337,22 +351,32 @@ class GeoPackageStream:
             )
 
     def finish(
-        self, *, metadata: Mapping[str, object], ranks: tuple[str, pd.arrays.IntegerArray]
+        self, *, metadata: Mapping[str, object], late_values: pd.arrays.IntegerArray | None = None
     ) -> None:
-        """Index the table, fill the layer's rank column, add descriptions and provenance.
+        """Index the table, fill the late column, add descriptions and provenance.
 
         Parameters
         ----------
         metadata : mapping
             JSON-serialisable provenance of the run.
-        ranks : (str, IntegerArray)
-            Column of the layer and its values for every feature in the order appended.
+        late_values : IntegerArray, optional
+            Values of ``late_column`` for every feature in the order appended.
         """
         if self._schema is None:
             raise ValueError("no part was appended; expected at least one")
-        column, values = ranks
-        if len(values) != self.features:
-            raise ValueError(f"{len(values)} ranks for {self.features} features; expected one each")
+        column = self.late_column
+        if column is not None:
+            if late_values is None or len(late_values) != self.features:
+                raise ValueError(
+                    f"values of {column!r} for {self.features} features expected, got "
+                    f"{None if late_values is None else len(late_values)}"
+                )
+            if self._late_values is not None and np.array_equal(
+                np.concatenate(self._late_values),
+                late_values.to_numpy(dtype=float, na_value=np.nan),
+                equal_nan=True,
+            ):
+                column = None  # the parts had them all already
         provenance = to_jsonable(dict(metadata))
         try:
             with closing(sqlite3.connect(os.fspath(self.path), isolation_level=None)) as con:
@@ -366,7 +390,7 @@ class GeoPackageStream:
                 try:
                     if self._keys:
                         bulk_table.create_index(con, self.table, self._keys)
-                    _finish_layer(con, self.layer, column, values, self._first_rows)
+                    _finish_layer(con, self.layer, column, late_values, self._first_rows)
                     _write_tables(con, [self.table], self.fields, provenance)
                 except BaseException:
                     if con.in_transaction:
@@ -382,22 +406,33 @@ class GeoPackageStream:
 def _finish_layer(
     con: sqlite3.Connection,
     layer: str,
-    column: str,
-    values: pd.arrays.IntegerArray,
+    column: str | None,
+    values: pd.arrays.IntegerArray | None,
     first_rows: int,
 ) -> None:
     """Set ``column`` of every feature to ``values[fid - 1]`` in one UPDATE.
 
     The same UPDATE gives the date-times of appended features the form of the first part's
-    (see :func:`_milliseconds_to_add`).
+    (see :func:`_milliseconds_to_add`). Nothing is written when there is nothing to do.
     """
+    settings = [_with_milliseconds(name) for name in _milliseconds_to_add(con, layer, first_rows)]
+    if column is not None and values is not None:
+        settings.insert(0, _numbered_values(con, layer, column, values))
+    if settings:
+        con.execute(f"UPDATE {bulk_table.quote_name(layer)} SET {', '.join(settings)}")
+
+
+def _numbered_values(
+    con: sqlite3.Connection, layer: str, column: str, values: pd.arrays.IntegerArray
+) -> str:
+    """SQL assignment of ``values[fid - 1]`` to ``column``, through a function it defines."""
     count, low, high = con.execute(
         f"SELECT count(*), min(fid), max(fid) FROM {bulk_table.quote_name(layer)}"
     ).fetchone()
     if count != len(values) or (count and (low, high) != (1, count)):
         raise ValueError(
             f"layer {layer!r} has {count} features with ids {low}..{high}; expected ids "
-            f"1..{len(values)}, one per rank"
+            f"1..{len(values)}, one per value"
         )
     # Eight bytes per feature; a list of Python ints would take 36.
     numbers = np.asarray(values.to_numpy(dtype=np.int64, na_value=0))
@@ -407,9 +442,7 @@ def _finish_layer(
         return int(numbers[fid - 1]) if present[fid - 1] else None
 
     con.create_function("lakeloss_value_of", 1, value_of, deterministic=True)
-    settings = [f"{bulk_table.quote_name(column)} = lakeloss_value_of(fid)"]
-    settings += [_with_milliseconds(name) for name in _milliseconds_to_add(con, layer, first_rows)]
-    con.execute(f"UPDATE {bulk_table.quote_name(layer)} SET {', '.join(settings)}")
+    return f"{bulk_table.quote_name(column)} = lakeloss_value_of(fid)"
 
 
 def _milliseconds_to_add(con: sqlite3.Connection, layer: str, first_rows: int) -> list[str]:

@@ -160,6 +160,7 @@ class OutputStream:
             layer=LAYER,
             table=TABLE,
             fields=field_info,
+            late_column=RANK,
         )
         self._summary: RankedCsv | None = None
 
@@ -220,7 +221,7 @@ class OutputStream:
         """
         if self._summary is None:
             raise ValueError("no partition was added; expected at least one")
-        self._geopackage.finish(metadata=provenance, ranks=(RANK, loss_rank))
+        self._geopackage.finish(metadata=provenance, late_values=loss_rank)
         self._tick()
         self._summary.finish(loss_rank)
         self._tick()

@@ -485,3 +485,32 @@ def test_nullable_columns_through_gdal_arrow_give_the_row_by_row_layer(tmp_path)
         content = _gpkg_content(path)
         contents.append(content)
     assert contents[0] == contents[1]
+
+
+def test_ranks_given_at_the_end_replace_those_the_parts_brought(runs, tmp_path):
+    # Parts that carry ranks already (write_result's one part) need no UPDATE, unless the
+    # ranks given at the end differ: those are the ones written.
+    result = runs["monthly"]
+    final = pd.array(result.waterbodies["loss_rank"].to_numpy()[::-1], dtype="Int64")
+    with OutputDirectory(tmp_path / "out", overwrite=False) as staging:
+        stream = write_run.OutputStream(
+            staging, id_field=result.id_field, field_info=result.field_info
+        )
+        stream.add_tables(result.waterbodies.iloc[:6], result.by_period.iloc[:12])
+        stream.add_tables(result.waterbodies.iloc[6:], result.by_period.iloc[12:])
+        stream.finish(
+            loss_rank=final,
+            summary_by_period=result.summary_by_period,
+            summary_by_group=None,
+            series=None,
+            provenance=result.provenance,
+        )
+    layer = pyogrio.read_dataframe(tmp_path / "out" / "waterbodies.gpkg", layer="waterbodies")
+    assert layer["loss_rank"].astype("Int64").tolist() == final.tolist()
+    summary = pd.read_csv(tmp_path / "out" / "summary_by_waterbody.csv")
+    assert (
+        summary["pond_id"].tolist()
+        == result.waterbodies["pond_id"]
+        .take(np.argsort(final.to_numpy(dtype=float, na_value=np.inf), kind="stable"))
+        .tolist()
+    )
