@@ -99,13 +99,9 @@ def date_form(series: pd.Series) -> bool | None:
 
 def _at_midnight(value: object) -> bool:
     if not hasattr(value, "hour"):
-        return True
-    return (value.hour, value.minute, value.second, getattr(value, "microsecond", 0)) == (  # type: ignore[attr-defined]
-        0,
-        0,
-        0,
-        0,
-    )
+        return True  # a date without a time of day
+    clock = (value.hour, value.minute, value.second, getattr(value, "microsecond", 0))  # type: ignore[attr-defined]
+    return clock == (0, 0, 0, 0)
 
 
 def write_json(path: str | Path, obj: object) -> None:
