@@ -173,8 +173,8 @@ def attribute_rich_layer(n_ponds: int = 12, seed: int = 3) -> gpd.GeoDataFrame:
     """:func:`pond_layer` plus attributes of every kind a surveyed layer carries.
 
     A survey date (DATE), an inspection time (DATETIME, some at midnight), a nullable
-    count, a float and owner text with commas, quotes and a line break, with gaps; and a
-    sixth pond outside the climate grid (no result, no rank).
+    count, a float and owner text with commas, quotes and a line break, with gaps; a sixth
+    pond outside the climate grid (no result, no rank); the eleventh in two parts.
     """
     layer = pond_layer(n_ponds, seed)
     # One more pond far east of the climate grid: no result, so no loss_rank.
@@ -185,6 +185,11 @@ def attribute_rich_layer(n_ponds: int = 12, seed: int = 3) -> gpd.GeoDataFrame:
         crs=LAYER_CRS,
     )
     layer = pd.concat([layer.iloc[:5], outside, layer.iloc[5:]], ignore_index=True)
+    # A pond in two parts late in the layer: the GeoPackage layer becomes MultiPolygon.
+    first = layer.geometry.iloc[10]
+    layer.loc[10, "geometry"] = shapely.MultiPolygon(
+        [first, shapely.affinity.translate(first, 600.0, 0.0)]
+    )
     n = len(layer)
     surveyed = pd.to_datetime([f"2030-{1 + i % 12:02d}-{1 + i % 28:02d}" for i in range(n)])
     layer["surveyed"] = surveyed.where(np.arange(n) % 5 != 3)
@@ -201,7 +206,8 @@ def small_runs(tmp: Path) -> dict[str, object]:
     """Two real small runs (:func:`lakeloss.run`) whose results exercise every output column.
 
     ``"monthly"``: standard calendar, 59 days, a compared method, ``group_by``, two extra
-    volume units, the series file and the attributes of :func:`attribute_rich_layer`.
+    volume units, the series file and the attributes of :func:`attribute_rich_layer`, read
+    from GeoParquet (polygons and a multipolygon).
     ``"daily_360"``: a 360-day calendar (period dates are cftime dates, 2031-02-30 exists),
     daily periods.
     """
@@ -209,8 +215,9 @@ def small_runs(tmp: Path) -> dict[str, object]:
 
     import lakeloss
 
-    layer_path = tmp / "ponds.gpkg"
-    attribute_rich_layer().to_file(layer_path, layer="ponds", driver="GPKG")
+    layer = attribute_rich_layer()
+    layer.to_file(tmp / "ponds.gpkg", layer="ponds", driver="GPKG")
+    layer.to_parquet(tmp / "ponds.parquet")
     standard = pd.date_range("2031-01-01", periods=59, freq="D")
     days_360 = np.array([cftime.Datetime360Day(2031, 1 + d // 30, 1 + d % 30) for d in range(60)])
     runs = {}
@@ -226,6 +233,9 @@ def small_runs(tmp: Path) -> dict[str, object]:
         ("daily_360", days_360, {"output": {"period": "day"}}),
     ]:
         climate = write_netcdf(climate_dataset(times, CHOW_FIELDS), tmp / f"climate_{name}.nc")
+        # GeoParquet keeps each feature's own type (polygons beside the multipolygon) and
+        # the nullable count; the GeoPackage layer has one type and reads counts as floats.
+        layer_path = tmp / ("ponds.parquet" if name == "monthly" else "ponds.gpkg")
         config = case_config(
             layer_path, climate, tmp / f"out_{name}", "energy_balance", CHOW_CLIMATE
         )

@@ -139,6 +139,51 @@ class FieldInfo:
         return self.title if self.unit is None else f"{self.title} [{self.unit}]"
 
 
+@dataclass(frozen=True)
+class LayerGeometry:
+    """Geometry type of a GeoPackage feature layer, decided over all of its features.
+
+    A layer written in parts must be declared as the whole would be: with polygons and
+    multipolygons mixed, every feature is written as a multipolygon (a GeoPackage layer has
+    one geometry type), also those of a part that holds only polygons.
+
+    Attributes
+    ----------
+    type_name : str
+        Geometry type as GDAL names it, e.g. ``"MultiPolygon"``, ``"Polygon Z"`` or
+        ``"Unknown"`` (mixed types).
+    promote_to_multi : bool
+        Write single geometries as one-part multi-geometries.
+    """
+
+    type_name: str
+    promote_to_multi: bool
+
+    @classmethod
+    def of(cls, geometry: geopandas.GeoSeries) -> LayerGeometry:
+        """The type pyogrio's GeoPackage writer gives a layer of these geometries.
+
+        The rule is that of :func:`pyogrio.write_dataframe` for the GPKG driver: one type
+        as it is; a single type with its multi type (Polygon and MultiPolygon) as the multi
+        type, singles promoted; other mixtures ``"Unknown"``; ``" Z"`` appended when a
+        non-empty geometry has z. Missing and empty geometries count by their type.
+        """
+        types = {str(t) for t in pd.unique(geometry.geom_type.dropna())}
+        present = geometry[~(geometry.isna().to_numpy() | geometry.is_empty.to_numpy())]
+        has_z = bool(present.has_z.any())
+        promote = False
+        name = "Unknown"
+        if len(types) == 1:
+            (name,) = types
+        elif len(types) == 2:
+            for single in ("Point", "LineString", "Polygon"):
+                if types == {single, f"Multi{single}"}:
+                    name, promote = f"Multi{single}", True
+        if has_z and name != "Unknown":
+            name = f"{name} Z"
+        return cls(name, promote)
+
+
 def write_geopackage(
     path: str | Path,
     layers: Sequence[tuple[str, geopandas.GeoDataFrame | pd.DataFrame]],
@@ -245,6 +290,9 @@ class GeoPackageStream:
     late_column : str, optional
         A layer column whose values are known only once every part is in (null in the
         parts), set by :meth:`finish`.
+    geometry : LayerGeometry, optional
+        The layer's geometry type over all parts (:meth:`LayerGeometry.of` of the whole
+        layer's geometries); by default that of the first part, right for one part only.
     child_min_rows : int, optional
         Parts whose table has at least this many rows are written by a child process;
         by default the threshold :func:`write_geopackage` uses.
@@ -263,6 +311,7 @@ class GeoPackageStream:
         table: str,
         fields: Mapping[str, Mapping[str, FieldInfo]],
         late_column: str | None = None,
+        geometry: LayerGeometry | None = None,
         child_min_rows: int | None = None,
     ) -> None:
         self.path = Path(path)
@@ -275,6 +324,7 @@ class GeoPackageStream:
         self._keys: tuple[str, ...] = ()
         self._first_rows = 0
         self.late_column = late_column
+        self.geometry = geometry
         # The late column's values as the parts brought them, while all parts had some: a
         # caller with the whole tables (write_result) needs no UPDATE. [float64, NaN: null]
         self._late_values: list[np.ndarray] | None = [] if late_column else None
@@ -311,6 +361,8 @@ class GeoPackageStream:
             self._schema = (schema, features.crs)
             self._keys = tuple(str(s.name) for s in _key_columns(rows))
             self._first_rows = len(features)
+            if self.geometry is None:
+                self.geometry = LayerGeometry.of(features.geometry)
         else:
             self._check_like_first(schema, features)
         table = replace(table, indexed=(), append=not first)
@@ -322,7 +374,12 @@ class GeoPackageStream:
             >= (_CHILD_MIN_ROWS if self.child_min_rows is None else self.child_min_rows),
         ) as table_writer:
             _write_layer(
-                self.path, self.layer, features, self.fields.get(self.layer, {}), append=not first
+                self.path,
+                self.layer,
+                features,
+                self.fields.get(self.layer, {}),
+                append=not first,
+                geometry=self.geometry,
             )
             try:
                 table_writer.start()
@@ -617,6 +674,7 @@ def _write_layer(
     infos: Mapping[str, FieldInfo],
     *,
     append: bool = False,
+    geometry: LayerGeometry | None = None,
 ) -> None:
     """Write one layer through GDAL with GDAL-visible layer metadata.
 
@@ -624,7 +682,17 @@ def _write_layer(
     time a reader opens it. The provenance is in ``gpkg_metadata`` as JSON instead, which
     GDAL shows as the dataset metadata item ``GPKG_METADATA_ITEM_1``.
     ``append``: add the rows to the layer written before (its fields and metadata stay).
+    ``geometry``: the layer's geometry type, decided over all its features (by default over
+    ``frame``'s, as GDAL's writer decides).
     """
+    kind = (
+        {}
+        if geometry is None
+        else {
+            "geometry_type": geometry.type_name,
+            "promote_to_multi": geometry.promote_to_multi,
+        }
+    )
     layer_metadata = None if append else _layer_metadata(infos) or None
     # The version is chosen when GDAL creates the file (with the first layer).
     creation = None if path.exists() else {"VERSION": GPKG_VERSION}
@@ -639,6 +707,7 @@ def _write_layer(
                 use_arrow=_arrow_safe(frame),
                 dataset_options=creation,
                 append=append,
+                **kind,
             )
     except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
         raise _write_error(exc, f"GDAL could not write layer {name!r} to {path}") from exc

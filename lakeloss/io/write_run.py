@@ -17,7 +17,7 @@ import pyarrow
 
 from lakeloss.errors import OutputError
 from lakeloss.io.atomic import OutputDirectory
-from lakeloss.io.gpkg import FieldInfo, GeoPackageStream
+from lakeloss.io.gpkg import FieldInfo, GeoPackageStream, LayerGeometry
 from lakeloss.io.parts import PARTS_DIRECTORY, read_part
 from lakeloss.io.ranked_csv import RankedCsv
 from lakeloss.io.tables import write_csv, write_json
@@ -140,6 +140,10 @@ class OutputStream:
         Water-body id column (first column of ``summary_by_waterbody.csv``).
     field_info : mapping
         ``field_info[layer][column] -> FieldInfo`` for the GeoPackage.
+    layer_geometry : LayerGeometry, optional
+        Geometry type of the whole layer, ``LayerGeometry.of(layer.geometry)``: needed with
+        more than one partition, since one partition's geometries may not show it (only
+        polygons where others have multipolygons).
     tick : callable, optional
         Called after each file is complete (for a progress bar).
     """
@@ -150,6 +154,7 @@ class OutputStream:
         *,
         id_field: str,
         field_info: Mapping[str, Mapping[str, FieldInfo]],
+        layer_geometry: LayerGeometry | None = None,
         tick: Callable[[], None] | None = None,
     ) -> None:
         self.staging = Path(staging)
@@ -161,6 +166,7 @@ class OutputStream:
             table=TABLE,
             fields=field_info,
             late_column=RANK,
+            geometry=layer_geometry,
         )
         self._summary: RankedCsv | None = None
 

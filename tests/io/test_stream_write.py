@@ -31,7 +31,12 @@ import lakeloss.io.gpkg as gpkg
 from lakeloss.errors import OutputError
 from lakeloss.io import bulk_table, gpkg_geometry, ranked_csv, tables, write_run
 from lakeloss.io.atomic import OutputDirectory
-from lakeloss.io.gpkg import read_field_descriptions, read_metadata, write_geopackage
+from lakeloss.io.gpkg import (
+    LayerGeometry,
+    read_field_descriptions,
+    read_metadata,
+    write_geopackage,
+)
 from lakeloss.io.parts import part_directory, read_part, write_part
 from lakeloss.io.tables import to_jsonable, write_csv, write_json
 
@@ -71,7 +76,10 @@ def _streamed_outputs(result, target, cuts):
     """The files written from part files of the partitions cut before rows ``cuts``."""
     with OutputDirectory(target, overwrite=False) as staging:
         stream = write_run.OutputStream(
-            staging, id_field=result.id_field, field_info=result.field_info
+            staging,
+            id_field=result.id_field,
+            field_info=result.field_info,
+            layer_geometry=LayerGeometry.of(result.waterbodies.geometry),
         )
         for k, (bodies, periods) in enumerate(
             split_tables(result.waterbodies, result.by_period, cuts)
@@ -494,7 +502,10 @@ def test_ranks_given_at_the_end_replace_those_the_parts_brought(runs, tmp_path):
     final = pd.array(result.waterbodies["loss_rank"].to_numpy()[::-1], dtype="Int64")
     with OutputDirectory(tmp_path / "out", overwrite=False) as staging:
         stream = write_run.OutputStream(
-            staging, id_field=result.id_field, field_info=result.field_info
+            staging,
+            id_field=result.id_field,
+            field_info=result.field_info,
+            layer_geometry=LayerGeometry.of(result.waterbodies.geometry),
         )
         stream.add_tables(result.waterbodies.iloc[:6], result.by_period.iloc[:12])
         stream.add_tables(result.waterbodies.iloc[6:], result.by_period.iloc[12:])
@@ -514,3 +525,51 @@ def test_ranks_given_at_the_end_replace_those_the_parts_brought(runs, tmp_path):
         .take(np.argsort(final.to_numpy(dtype=float, na_value=np.inf), kind="stable"))
         .tolist()
     )
+
+
+@pytest.mark.parametrize(
+    "geometries",
+    [
+        [shapely.box(0, 0, 1, 1), shapely.box(2, 0, 3, 1)],
+        [shapely.box(0, 0, 1, 1), shapely.MultiPolygon([shapely.box(2, 0, 3, 1)])],
+        [shapely.Point(0, 0), shapely.box(2, 0, 3, 1)],
+        [shapely.box(0, 0, 1, 1), shapely.Polygon()],
+        [shapely.Polygon([(0, 0, 1), (1, 0, 1), (1, 1, 2)]), shapely.box(2, 0, 3, 1)],
+        [shapely.LineString([(0, 0), (1, 1)]), shapely.MultiLineString([[(0, 0), (2, 1)]])],
+        [shapely.Point(0, 0), shapely.MultiPoint([(1, 1), (2, 2)]), None],
+    ],
+    ids=[
+        "polygons",
+        "with-multi",
+        "points-and-polygons",
+        "with-empty",
+        "with-z",
+        "lines",
+        "points",
+    ],
+)
+def test_layer_geometry_is_the_type_gdal_writes_for_the_whole_layer(tmp_path, geometries):
+    # The type a partitioned layer is declared with must be the whole layer's, as pyogrio
+    # decides it when given all the features at once.
+    frame = gpd.GeoDataFrame({"a": range(len(geometries))}, geometry=geometries, crs="EPSG:32755")
+    pyogrio.write_dataframe(frame, tmp_path / "w.gpkg", layer="w", driver="GPKG")
+    kind = LayerGeometry.of(frame.geometry)
+    assert pyogrio.read_info(tmp_path / "w.gpkg", layer="w")["geometry_type"] == kind.type_name
+    written = pyogrio.read_dataframe(tmp_path / "w.gpkg", layer="w").geometry
+    assert set(written.dropna().geom_type) <= {kind.type_name.removesuffix(" Z"), "Polygon"} or (
+        kind.type_name == "Unknown"
+    )
+
+
+def test_partitions_without_the_whole_layer_geometry_would_differ(runs, tmp_path):
+    # The first partition of CUTS[7] holds one polygon; the whole layer has a multipolygon.
+    # Told the whole layer's type the stream matches the whole-table file (tests above);
+    # left to infer it from the first part, the layer would be declared Polygon.
+    result = runs["monthly"]
+    assert LayerGeometry.of(result.waterbodies.geometry) == LayerGeometry("MultiPolygon", True)
+    assert LayerGeometry.of(result.waterbodies.geometry.iloc[:1]).type_name == "Polygon"
+    written = pyogrio.read_info(
+        _streamed_outputs(result, tmp_path / "out", CUTS[7]) / "waterbodies.gpkg",
+        layer="waterbodies",
+    )
+    assert written["geometry_type"] == "MultiPolygon"
