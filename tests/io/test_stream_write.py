@@ -561,7 +561,7 @@ def test_layer_geometry_is_the_type_gdal_writes_for_the_whole_layer(tmp_path, ge
     )
 
 
-def test_partitions_without_the_whole_layer_geometry_would_differ(runs, tmp_path):
+def test_first_partition_alone_does_not_show_the_layer_geometry(runs, tmp_path):
     # The first partition of CUTS[7] holds one polygon; the whole layer has a multipolygon.
     # Told the whole layer's type the stream matches the whole-table file (tests above);
     # left to infer it from the first part, the layer would be declared Polygon.
