@@ -167,3 +167,98 @@ def write_geotiff(
 def temperature_stack(path: Path, bands: int, crs: str | None = "EPSG:4326") -> Path:
     """A uniform 298.15 K GeoTIFF stack of ``bands`` steps."""
     return write_geotiff(path, np.full((bands, len(LAT), len(LON)), 298.15), "K", crs)
+
+
+def attribute_rich_layer(n_ponds: int = 12, seed: int = 3) -> gpd.GeoDataFrame:
+    """:func:`pond_layer` plus attributes of every kind a surveyed layer carries.
+
+    A survey date (DATE), an inspection time (DATETIME, some at midnight), a nullable
+    count, a float and owner text with commas, quotes and a line break, with gaps; a sixth
+    pond outside the climate grid (no result, no rank); the eleventh in two parts.
+    """
+    layer = pond_layer(n_ponds, seed)
+    # One more pond far east of the climate grid: no result, so no loss_rank.
+    x, y = Transformer.from_crs("EPSG:4326", LAYER_CRS, always_xy=True).transform(147.5, -30.1)
+    outside = gpd.GeoDataFrame(
+        {"pond_id": [99], "name": ["far pond"], "zone": ["east"]},
+        geometry=[shapely.Point(x, y).buffer(80.0)],
+        crs=LAYER_CRS,
+    )
+    layer = pd.concat([layer.iloc[:5], outside, layer.iloc[5:]], ignore_index=True)
+    # A pond in two parts late in the layer: the GeoPackage layer becomes MultiPolygon.
+    first = layer.geometry.iloc[10]
+    layer.loc[10, "geometry"] = shapely.MultiPolygon(
+        [first, shapely.affinity.translate(first, 600.0, 0.0)]
+    )
+    n = len(layer)
+    surveyed = pd.to_datetime([f"2030-{1 + i % 12:02d}-{1 + i % 28:02d}" for i in range(n)])
+    layer["surveyed"] = surveyed.where(np.arange(n) % 5 != 3)
+    layer["inspected"] = surveyed + pd.to_timedelta((np.arange(n) % 3) * 5.5, unit="h")
+    layer["licences"] = pd.array([None if i % 4 == 1 else i % 3 for i in range(n)], dtype="Int64")
+    layer["wall_height_m"] = np.round(np.linspace(1.0, 9.0, n), 2)
+    owners = ['Creek, "Upper"', "Hill\nfarm", None, "Flat"]
+    layer["owner"] = [owners[i % 4] for i in range(n)]
+    geometry = layer.geometry.name
+    return layer[[c for c in layer.columns if c != geometry] + [geometry]]
+
+
+def small_runs(tmp: Path) -> dict[str, object]:
+    """Two real small runs (:func:`lakeloss.run`) whose results exercise every output column.
+
+    ``"monthly"``: standard calendar, 59 days, a compared method, ``group_by``, two extra
+    volume units, the series file and the attributes of :func:`attribute_rich_layer`, read
+    from GeoParquet (polygons and a multipolygon).
+    ``"daily_360"``: a 360-day calendar (period dates are cftime dates, 2031-02-30 exists),
+    daily periods.
+    """
+    import cftime
+
+    import lakeloss
+
+    layer = attribute_rich_layer()
+    layer.to_file(tmp / "ponds.gpkg", layer="ponds", driver="GPKG")
+    layer.to_parquet(tmp / "ponds.parquet")
+    standard = pd.date_range("2031-01-01", periods=59, freq="D")
+    days_360 = np.array([cftime.Datetime360Day(2031, 1 + d // 30, 1 + d % 30) for d in range(60)])
+    runs = {}
+    for name, times, sections in [
+        (
+            "monthly",
+            standard,
+            {
+                "method": {"compare": ["priestley_taylor"]},
+                "output": {"extra_volume_units": ["ML", "acre_ft"], "series": True},
+            },
+        ),
+        ("daily_360", days_360, {"output": {"period": "day"}}),
+    ]:
+        climate = write_netcdf(climate_dataset(times, CHOW_FIELDS), tmp / f"climate_{name}.nc")
+        # GeoParquet keeps each feature's own type (polygons beside the multipolygon) and
+        # the nullable count; the GeoPackage layer has one type and reads counts as floats.
+        layer_path = tmp / ("ponds.parquet" if name == "monthly" else "ponds.gpkg")
+        config = case_config(
+            layer_path, climate, tmp / f"out_{name}", "energy_balance", CHOW_CLIMATE
+        )
+        for section, table in sections.items():
+            config[section].update(table)
+        runs[name] = lakeloss.run(config)
+    return runs
+
+
+def split_tables(
+    waterbodies: gpd.GeoDataFrame, by_period: pd.DataFrame, cuts: list[int]
+) -> list[tuple[gpd.GeoDataFrame, pd.DataFrame]]:
+    """Whole-run tables cut into partitions before the layer rows ``cuts``.
+
+    Each partition holds what a partition's computer hands over: its rows of both tables
+    (the period table has the same number of rows for every body), with ``loss_rank`` an
+    all-null ``Int64`` column, since the rank is only known once every partition is done.
+    """
+    per_body = len(by_period) // len(waterbodies)
+    bounds = [0, *cuts, len(waterbodies)]
+    parts = []
+    for start, stop in zip(bounds[:-1], bounds[1:], strict=True):
+        bodies = waterbodies.iloc[start:stop].copy()
+        bodies["loss_rank"] = pd.array([None] * len(bodies), dtype="Int64")
+        parts.append((bodies, by_period.iloc[start * per_body : stop * per_body]))
+    return parts

@@ -80,12 +80,14 @@ class Table:
     """An attribute table to create and fill: name, columns, row count and indexed columns.
 
     ``indexed`` names the columns of one SQL index built after the rows are in (empty: none).
+    ``append``: the table exists already (created by an earlier part); only insert the rows.
     """
 
     name: str
     columns: tuple[Column, ...]
     rows: int
     indexed: tuple[str, ...] = ()
+    append: bool = False
 
 
 def fast_bulk_settings(con: sqlite3.Connection) -> None:
@@ -122,7 +124,7 @@ def create_and_fill(
     variables: int | None = None,
     blocks: Iterator[tuple[int, np.ndarray]] | None = None,
 ) -> None:
-    """Create ``table`` (with the GeoPackage row id ``fid``) and insert its rows.
+    """Create ``table`` (with the GeoPackage row id ``fid``) unless it exists, insert its rows.
 
     Parameters
     ----------
@@ -138,18 +140,27 @@ def create_and_fill(
         The blocks of :func:`converted_blocks` for this table when they are already being
         converted (the child starts before the file is free).
     """
-    definition = ", ".join(f"{quote_name(c.name)} {c.sql_type}" for c in table.columns)
-    con.execute(
-        f"CREATE TABLE {quote_name(table.name)} "
-        f'("fid" INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL, {definition})'
-    )
+    if not table.append:
+        definition = ", ".join(f"{quote_name(c.name)} {c.sql_type}" for c in table.columns)
+        con.execute(
+            f"CREATE TABLE {quote_name(table.name)} "
+            f'("fid" INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL, {definition})'
+        )
     plan = _Plan(table, variables or variable_limit())
     for start, block in blocks if blocks is not None else _blocks(table, plan, block_rows):
         plan.insert(con, start, block)
-    if table.indexed:  # built once the rows are in: one sort instead of 10^7 tree inserts
-        columns = ", ".join(quote_name(c) for c in table.indexed)
-        index_name = quote_name(f"idx_{table.name}_{'_'.join(table.indexed)}")
-        con.execute(f"CREATE INDEX {index_name} ON {quote_name(table.name)} ({columns})")
+    if table.indexed:
+        create_index(con, table.name, table.indexed)
+
+
+def create_index(con: sqlite3.Connection, table: str, columns: Sequence[str]) -> None:
+    """The SQL index over ``columns`` of ``table``, built once the rows are in.
+
+    One sort of the finished table instead of 10^7 tree inserts as the rows arrive.
+    """
+    names = ", ".join(quote_name(c) for c in columns)
+    index_name = quote_name(f"idx_{table}_{'_'.join(columns)}")
+    con.execute(f"CREATE INDEX {index_name} ON {quote_name(table)} ({names})")
 
 
 def converted_blocks(
@@ -313,6 +324,7 @@ def dump(directory: Path, target: Path, tables: Sequence[Table], *, block_rows: 
                 "rows": table.rows,
                 "columns": columns,
                 "indexed": list(table.indexed),
+                "append": table.append,
             }
         )
     manifest = {
@@ -339,7 +351,15 @@ def load(directory: Path) -> tuple[Path, list[Table], int, int]:
             columns.append(
                 Column(c["name"], c["sql_type"], values=c["values"], cycle=c["cycle"], **arrays)
             )
-        tables.append(Table(entry["name"], tuple(columns), entry["rows"], tuple(entry["indexed"])))
+        tables.append(
+            Table(
+                entry["name"],
+                tuple(columns),
+                entry["rows"],
+                tuple(entry["indexed"]),
+                bool(entry["append"]),
+            )
+        )
     return (
         Path(manifest["target"]),
         tables,

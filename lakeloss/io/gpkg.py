@@ -24,6 +24,11 @@ became a dependency, GDAL with ``use_arrow=True`` measured the same within noise
 against 5.6-6.3 s under load from parallel jobs) but writes dates as DATETIME and holds the
 whole table as Arrow at once, so the SQLite path stayed. GDAL reads the result like its own
 (types INTEGER, REAL, TEXT, DATE, DATETIME, BOOLEAN).
+
+:class:`GeoPackageStream` writes the same file for a run's two tables from parts that
+arrive one after another (partitions of water bodies): each part's features are appended
+to the layer and its rows to the table, so only one part is held at a time, and values
+known only once every part is in (the rank of each water body) are set by one UPDATE.
 """
 
 from __future__ import annotations
@@ -35,7 +40,7 @@ import re
 import sqlite3
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import closing, contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
@@ -47,7 +52,7 @@ import pyogrio
 import pyogrio.errors
 
 from lakeloss.errors import CRSError, InputDataError, OutputError
-from lakeloss.io import bulk_table
+from lakeloss.io import bulk_table, gpkg_geometry
 from lakeloss.io.tables import is_date, iso_dates, to_jsonable
 
 PROVENANCE_URI = "urn:lakeloss:run-provenance"
@@ -134,6 +139,51 @@ class FieldInfo:
         return self.title if self.unit is None else f"{self.title} [{self.unit}]"
 
 
+@dataclass(frozen=True)
+class LayerGeometry:
+    """Geometry type of a GeoPackage feature layer, decided over all of its features.
+
+    A layer written in parts must be declared as the whole would be: with polygons and
+    multipolygons mixed, every feature is written as a multipolygon (a GeoPackage layer has
+    one geometry type), also those of a part that holds only polygons.
+
+    Attributes
+    ----------
+    type_name : str
+        Geometry type as GDAL names it, e.g. ``"MultiPolygon"``, ``"Polygon Z"`` or
+        ``"Unknown"`` (mixed types).
+    promote_to_multi : bool
+        Write single geometries as one-part multi-geometries.
+    """
+
+    type_name: str
+    promote_to_multi: bool
+
+    @classmethod
+    def of(cls, geometry: geopandas.GeoSeries) -> LayerGeometry:
+        """The type pyogrio's GeoPackage writer gives a layer of these geometries.
+
+        The rule is that of :func:`pyogrio.write_dataframe` for the GPKG driver: one type
+        as it is; a single type with its multi type (Polygon and MultiPolygon) as the multi
+        type, singles promoted; other mixtures ``"Unknown"``; ``" Z"`` appended when a
+        non-empty geometry has z. Missing and empty geometries count by their type.
+        """
+        types = {str(t) for t in pd.unique(geometry.geom_type.dropna())}
+        present = geometry[~(geometry.isna().to_numpy() | geometry.is_empty.to_numpy())]
+        has_z = bool(present.has_z.any())
+        promote = False
+        name = "Unknown"
+        if len(types) == 1:
+            (name,) = types
+        elif len(types) == 2:
+            for single in ("Point", "LineString", "Polygon"):
+                if types == {single, f"Multi{single}"}:
+                    name, promote = f"Multi{single}", True
+        if has_z and name != "Unknown":
+            name = f"{name} Z"
+        return cls(name, promote)
+
+
 def write_geopackage(
     path: str | Path,
     layers: Sequence[tuple[str, geopandas.GeoDataFrame | pd.DataFrame]],
@@ -213,7 +263,7 @@ def write_geopackage(
             bulk_table.fast_bulk_settings(con)
             con.execute("BEGIN")
             try:
-                _write_tables(con, attributes, fields, provenance)
+                _write_tables(con, [name for name, _ in attributes], fields, provenance)
             except BaseException:
                 if con.in_transaction:
                     con.execute("ROLLBACK")
@@ -225,14 +275,280 @@ def write_geopackage(
         ) from exc
 
 
+class GeoPackageStream:
+    """Append parts to a GeoPackage feature layer and attribute table, then finish it.
+
+    Parameters
+    ----------
+    path : Path
+        GeoPackage to create (an existing file is replaced).
+    layer, table : str
+        Names of the feature layer and of the attribute table.
+    fields : mapping
+        ``fields[name][column] -> FieldInfo`` for the layer and the table (see
+        :func:`~lakeloss.io.gpkg.write_geopackage`).
+    late_column : str, optional
+        A layer column whose values are known only once every part is in (null in the
+        parts), set by :meth:`finish`.
+    geometry : LayerGeometry, optional
+        The layer's geometry type over all parts (:meth:`LayerGeometry.of` of the whole
+        layer's geometries); by default that of the first part, right for one part only.
+    child_min_rows : int, optional
+        Parts whose table has at least this many rows are written by a child process;
+        by default the threshold :func:`write_geopackage` uses.
+
+    Notes
+    -----
+    Every part must have the columns and dtypes of the first. The feature ids (``fid``) are
+    1, 2, ... in the order rows were appended, which :meth:`finish` relies on.
+    """
+
+    def __init__(
+        self,
+        path: Path,
+        *,
+        layer: str,
+        table: str,
+        fields: Mapping[str, Mapping[str, FieldInfo]],
+        late_column: str | None = None,
+        geometry: LayerGeometry | None = None,
+        child_min_rows: int | None = None,
+    ) -> None:
+        self.path = Path(path)
+        self.layer = layer
+        self.table = table
+        self.fields = fields
+        self.child_min_rows = child_min_rows
+        self.features = 0
+        self._schema: tuple | None = None
+        self._keys: tuple[str, ...] = ()
+        self._first_rows = 0
+        self.late_column = late_column
+        self.geometry = geometry
+        # The late column's values as the parts brought them, while all parts had some: a
+        # caller with the whole tables (write_result) needs no UPDATE. [float64, NaN: null]
+        self._late_values: list[np.ndarray] | None = [] if late_column else None
+
+    def append(
+        self,
+        features: geopandas.GeoDataFrame,
+        rows: pd.DataFrame,
+        *,
+        alongside: Callable[[], object] | None = None,
+    ) -> None:
+        """Append one part: ``features`` to the layer, ``rows`` to the table.
+
+        ``alongside`` is called while the table rows are inserted (by a child process for
+        large parts), as in :func:`~lakeloss.io.gpkg.write_geopackage`.
+
+        Raises
+        ------
+        ValueError
+            If the part's columns or types differ from the first part's.
+        OutputError
+            If GDAL or SQLite cannot write the file (``OSError(ENOSPC)`` when the disk is full).
+        """
+        first = self._schema is None
+        table = _encode_table(self.table, rows)
+        schema = (
+            [(str(c), str(features[c].dtype)) for c in features.columns],
+            [(c.name, c.sql_type) for c in table.columns],
+        )
+        if first:
+            _check_layers([(self.layer, features), (self.table, rows)], self.fields)
+            if self.path.exists():
+                self.path.unlink()
+            self._schema = (schema, features.crs)
+            self._keys = tuple(str(s.name) for s in _key_columns(rows))
+            self._first_rows = len(features)
+            if self.geometry is None:
+                self.geometry = LayerGeometry.of(features.geometry)
+        else:
+            self._check_like_first(schema, features)
+        table = replace(table, indexed=(), append=not first)
+        with bulk_table.TableWriter(
+            self.path,
+            [table],
+            block_rows=_BLOCK_ROWS,
+            in_child=table.rows
+            >= (_CHILD_MIN_ROWS if self.child_min_rows is None else self.child_min_rows),
+        ) as table_writer:
+            _write_layer(
+                self.path,
+                self.layer,
+                features,
+                self.fields.get(self.layer, {}),
+                append=not first,
+                geometry=self.geometry,
+            )
+            try:
+                table_writer.start()
+                if alongside is not None:
+                    alongside()
+                table_writer.wait()
+            except (sqlite3.Error, bulk_table.ChildFailed) as exc:
+                raise _write_error(
+                    exc, f"cannot write attribute tables {[self.table]} to {self.path}"
+                ) from exc
+        self.features += len(features)
+        if self.late_column is not None and self._late_values is not None:
+            values = features[self.late_column]
+            if len(values) and values.isna().all():
+                self._late_values = None
+            else:
+                self._late_values.append(values.to_numpy(dtype=float, na_value=np.nan))
+
+    def _check_like_first(self, schema: tuple, features: geopandas.GeoDataFrame) -> None:
+        assert self._schema is not None
+        expected, crs = self._schema
+        if schema != expected or features.crs != crs:
+            raise ValueError(
+                f"a part's columns, types or CRS differ from the first part's: "
+                f"{schema} against {expected}; expected every part laid out alike"
+            )
+
+    def finish(
+        self, *, metadata: Mapping[str, object], late_values: pd.arrays.IntegerArray | None = None
+    ) -> None:
+        """Index the table, fill the late column, add descriptions and provenance.
+
+        Parameters
+        ----------
+        metadata : mapping
+            JSON-serialisable provenance of the run.
+        late_values : IntegerArray, optional
+            Values of ``late_column`` for every feature in the order appended.
+        """
+        if self._schema is None:
+            raise ValueError("no part was appended; expected at least one")
+        column = self.late_column
+        if column is not None:
+            if late_values is None or len(late_values) != self.features:
+                raise ValueError(
+                    f"values of {column!r} for {self.features} features expected, got "
+                    f"{None if late_values is None else len(late_values)}"
+                )
+            if self._late_values is not None and np.array_equal(
+                np.concatenate(self._late_values),
+                late_values.to_numpy(dtype=float, na_value=np.nan),
+                equal_nan=True,
+            ):
+                column = None  # the parts had them all already
+        provenance = to_jsonable(dict(metadata))
+        try:
+            with closing(sqlite3.connect(os.fspath(self.path), isolation_level=None)) as con:
+                bulk_table.fast_bulk_settings(con)
+                # The UPDATE rewrites every feature: a journal in memory would hold the
+                # whole layer. Without one a failure leaves a broken file, which the
+                # staging directory it lives in is removed with.
+                con.execute("PRAGMA journal_mode = OFF")
+                gpkg_geometry.add_geometry_functions(con)
+                con.execute("BEGIN")
+                try:
+                    if self._keys:
+                        bulk_table.create_index(con, self.table, self._keys)
+                    _finish_layer(con, self.layer, column, late_values, self._first_rows)
+                    _write_tables(con, [self.table], self.fields, provenance)
+                except BaseException:
+                    if con.in_transaction:
+                        con.execute("ROLLBACK")
+                    raise
+                con.execute("COMMIT")
+        except sqlite3.Error as exc:
+            raise _write_error(
+                exc, f"cannot add ranks, field descriptions or provenance to {self.path}"
+            ) from exc
+
+
+def _finish_layer(
+    con: sqlite3.Connection,
+    layer: str,
+    column: str | None,
+    values: pd.arrays.IntegerArray | None,
+    first_rows: int,
+) -> None:
+    """Set ``column`` of every feature to ``values[fid - 1]`` in one UPDATE.
+
+    The same UPDATE gives the date-times of appended features the form of the first part's
+    (see :func:`_milliseconds_to_add`). Nothing is written when there is nothing to do.
+    """
+    settings = [_with_milliseconds(name) for name in _milliseconds_to_add(con, layer, first_rows)]
+    if column is not None and values is not None:
+        settings.insert(0, _numbered_values(con, layer, column, values))
+    if settings:
+        con.execute(f"UPDATE {bulk_table.quote_name(layer)} SET {', '.join(settings)}")
+
+
+def _numbered_values(
+    con: sqlite3.Connection, layer: str, column: str, values: pd.arrays.IntegerArray
+) -> str:
+    """SQL assignment of ``values[fid - 1]`` to ``column``, through a function it defines."""
+    count, low, high = con.execute(
+        f"SELECT count(*), min(fid), max(fid) FROM {bulk_table.quote_name(layer)}"
+    ).fetchone()
+    if count != len(values) or (count and (low, high) != (1, count)):
+        raise ValueError(
+            f"layer {layer!r} has {count} features with ids {low}..{high}; expected ids "
+            f"1..{len(values)}, one per value"
+        )
+    # Eight bytes per feature; a list of Python ints would take 36.
+    numbers = np.asarray(values.to_numpy(dtype=np.int64, na_value=0))
+    present = ~np.asarray(values.isna())
+
+    def value_of(fid: int) -> int | None:
+        return int(numbers[fid - 1]) if present[fid - 1] else None
+
+    con.create_function("lakeloss_value_of", 1, value_of, deterministic=True)
+    return f"{bulk_table.quote_name(column)} = lakeloss_value_of(fid)"
+
+
+def _milliseconds_to_add(con: sqlite3.Connection, layer: str, first_rows: int) -> list[str]:
+    """DATETIME columns whose appended values lack the milliseconds of the first part's.
+
+    GDAL 3.12 writes a GeoPackage 1.2 DATETIME with milliseconds (``...T10:00:00.000``) into
+    the layer it creates, but into a layer it appends to only when they are not zero
+    (``...T10:00:00``). The first part's form is taken as the file's.
+    """
+    quoted = bulk_table.quote_name(layer)
+    columns = [
+        row[1] for row in con.execute(f"PRAGMA table_info({quoted})") if row[2] == "DATETIME"
+    ]
+    out = []
+    for column in columns:
+        name = bulk_table.quote_name(column)
+        first = con.execute(
+            f"SELECT {name} FROM {quoted} WHERE fid <= ? AND {name} IS NOT NULL LIMIT 1",
+            (first_rows,),
+        ).fetchone()
+        if first is None or _has_fraction(str(first[0])):
+            out.append(column)
+    return out
+
+
+def _has_fraction(text: str) -> bool:
+    time = text.find("T")
+    return time >= 0 and text[time + 9 : time + 10] == "."
+
+
+def _with_milliseconds(column: str) -> str:
+    """SQL assignment adding ``.000`` after the seconds of values written without a fraction."""
+    name = bulk_table.quote_name(column)
+    time = f"instr({name}, 'T')"
+    return (
+        f"{name} = CASE WHEN {time} = 0 OR substr({name}, {time} + 9, 1) = '.' THEN {name} "
+        f"ELSE substr({name}, 1, {time} + 8) || '.000' || substr({name}, {time} + 9) END"
+    )
+
+
 def _write_tables(
     con: sqlite3.Connection,
-    attributes: Sequence[tuple[str, pd.DataFrame]],
+    attributes: Sequence[str],
     fields: Mapping[str, Mapping[str, FieldInfo]],
     provenance: object,
 ) -> None:
-    """Registration, field descriptions and provenance, in the caller's single transaction."""
-    for name, _ in attributes:
+    """Registration of the attribute tables ``attributes`` (names), field descriptions and
+    provenance, in the caller's single transaction."""
+    for name in attributes:
         con.execute(
             "INSERT INTO gpkg_contents (table_name, data_type, identifier, description, srs_id) "
             "VALUES (?, 'attributes', ?, '', 0)",
@@ -352,15 +668,32 @@ def _check_fields(name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]
 
 
 def _write_layer(
-    path: Path, name: str, frame: pd.DataFrame, infos: Mapping[str, FieldInfo]
+    path: Path,
+    name: str,
+    frame: pd.DataFrame,
+    infos: Mapping[str, FieldInfo],
+    *,
+    append: bool = False,
+    geometry: LayerGeometry | None = None,
 ) -> None:
     """Write one layer through GDAL with GDAL-visible layer metadata.
 
     No GDAL *dataset* metadata: GDAL then writes a ``.aux.xml`` sidecar beside the file every
     time a reader opens it. The provenance is in ``gpkg_metadata`` as JSON instead, which
     GDAL shows as the dataset metadata item ``GPKG_METADATA_ITEM_1``.
+    ``append``: add the rows to the layer written before (its fields and metadata stay).
+    ``geometry``: the layer's geometry type, decided over all its features (by default over
+    ``frame``'s, as GDAL's writer decides).
     """
-    layer_metadata = _layer_metadata(infos) or None
+    kind = (
+        {}
+        if geometry is None
+        else {
+            "geometry_type": geometry.type_name,
+            "promote_to_multi": geometry.promote_to_multi,
+        }
+    )
+    layer_metadata = None if append else _layer_metadata(infos) or None
     # The version is chosen when GDAL creates the file (with the first layer).
     creation = None if path.exists() else {"VERSION": GPKG_VERSION}
     try:
@@ -373,6 +706,8 @@ def _write_layer(
                 layer_metadata=layer_metadata,
                 use_arrow=_arrow_safe(frame),
                 dataset_options=creation,
+                append=append,
+                **kind,
             )
     except (pyogrio.errors.DataSourceError, pyogrio.errors.FieldError, RuntimeError) as exc:
         raise _write_error(exc, f"GDAL could not write layer {name!r} to {path}") from exc
@@ -402,13 +737,13 @@ def _arrow_safe(frame: geopandas.GeoDataFrame) -> bool:
     """Whether GDAL's Arrow path gives the same field types as its row-by-row path.
 
     Measured for 10^5 polygons: 0.8 s through Arrow against 1.1 s, with the same table
-    definition. Only for numeric and string columns: through Arrow, dates become DATETIME
-    and object columns of mixed types may not convert at all.
+    definition. Only for numeric, boolean and string columns, nullable ones included (a
+    partition's all-null ``loss_rank``): through Arrow, dates become DATETIME and object
+    columns of mixed types may not convert at all.
     """
     geometry = frame.geometry.name
     return all(
-        isinstance(frame[c].dtype, pd.StringDtype)
-        or (isinstance(frame[c].dtype, np.dtype) and frame[c].dtype.kind in "iuf")
+        isinstance(frame[c].dtype, pd.StringDtype) or frame[c].dtype.kind in "iufb"
         for c in frame.columns
         if c != geometry
     )

@@ -60,15 +60,48 @@ def write_csv(
     """
     decimals = dict(decimals or {})
     _check_decimals(frame, decimals)
+    # Decided over the whole column, so a column's form does not change from block to block.
+    forms = [date_form(frame.iloc[:, i]) for i in range(frame.shape[1])]
     with open(path, "w", encoding="utf-8", newline="") as fh:
-        fh.write(",".join(_quote(str(name)) for name in frame.columns) + "\n")
+        fh.write(csv_header(frame.columns) + "\n")
         for start in range(0, len(frame), _BLOCK_ROWS):
             block = frame.iloc[start : start + _BLOCK_ROWS]
             columns = [
-                _format_column(block.iloc[:, i], decimals.get(name))
+                format_column(block.iloc[:, i], decimals.get(name), date_only=forms[i])
                 for i, name in enumerate(frame.columns)
             ]
             fh.write("\n".join(map(",".join, zip(*columns, strict=True))) + "\n")
+
+
+def csv_header(columns: Iterable[object]) -> str:
+    """The header line of :func:`write_csv` (without its line end)."""
+    return ",".join(_quote(str(name)) for name in columns)
+
+
+def date_form(series: pd.Series) -> bool | None:
+    """How :func:`write_csv` writes a column's dates: True as dates, False with the time.
+
+    True when every date of the column falls on midnight, False when one has a time of
+    day, None for a column without dates.
+    """
+    kind = series.dtype.kind
+    if kind == "M" and getattr(series.dtype, "tz", None) is None:
+        values = series.to_numpy(dtype="datetime64[s]")
+        present = values[~np.isnat(values)]
+        return bool(np.all(present == present.astype("datetime64[D]")))
+    if series.dtype != object and kind != "M":
+        return None
+    dates = [v for v in series.to_numpy(dtype=object, na_value=None).tolist() if is_date(v)]
+    if not dates:
+        return None
+    return all(_at_midnight(v) for v in dates)
+
+
+def _at_midnight(value: object) -> bool:
+    if not hasattr(value, "hour"):
+        return True  # a date without a time of day
+    clock = (value.hour, value.minute, value.second, getattr(value, "microsecond", 0))  # type: ignore[attr-defined]
+    return clock == (0, 0, 0, 0)
 
 
 def write_json(path: str | Path, obj: object) -> None:
@@ -136,8 +169,14 @@ def _check_decimals(frame: pd.DataFrame, decimals: Mapping[str, int]) -> None:
         raise ValueError(f"negative decimals for columns {negative}; expected counts >= 0")
 
 
-def _format_column(series: pd.Series, decimals: int | None) -> list[str]:
-    """Text of each value of one column, missing values as empty strings."""
+def format_column(
+    series: pd.Series, decimals: int | None, *, date_only: bool | None = None
+) -> list[str]:
+    """Text of each value of one column as :func:`write_csv` writes it, missing as empty.
+
+    ``date_only`` (see :func:`date_form`): dates without (True) or with (False) their time of
+    day; None decides from the values given.
+    """
     kind = series.dtype.kind
     if kind == "f" and decimals is None and series.dtype.itemsize == 4:
         # Shortest text of the float32 value itself, not of its float64 widening.
@@ -152,10 +191,10 @@ def _format_column(series: pd.Series, decimals: int | None) -> list[str]:
     if isinstance(series.dtype, pd.StringDtype):
         return _format_strings(series)
     if kind == "M" and getattr(series.dtype, "tz", None) is None:
-        return _format_datetime64(series.to_numpy(dtype="datetime64[s]"))
+        return _format_datetime64(series.to_numpy(dtype="datetime64[s]"), date_only)
     values = series.to_numpy(dtype=object, na_value=None).tolist()
     if any(is_date(v) for v in values):
-        return iso_dates(values)
+        return iso_dates(values, date_only=date_only)
     return [_format_scalar(v, decimals) for v in values]
 
 
@@ -201,35 +240,35 @@ def _format_scalar(value: object, decimals: int | None) -> str:
     return _quote(str(value))
 
 
-def _format_datetime64(values: np.ndarray) -> list[str]:
-    """Vectorised form of :func:`_format_dates` for naive numpy datetimes."""
-    present = values[~np.isnat(values)]
-    date_only = bool(np.all(present == present.astype("datetime64[D]")))
+def _format_datetime64(values: np.ndarray, date_only: bool | None = None) -> list[str]:
+    """Vectorised form of :func:`iso_dates` for naive numpy datetimes."""
+    if date_only is None:
+        present = values[~np.isnat(values)]
+        date_only = bool(np.all(present == present.astype("datetime64[D]")))
     texts = np.datetime_as_string(values, unit="D" if date_only else "s").tolist()
     return ["" if t == "NaT" else t for t in texts]
 
 
-def iso_dates(values: Iterable[object]) -> list[str]:
+def iso_dates(values: Iterable[object], *, date_only: bool | None = None) -> list[str]:
     """ISO 8601 text of dates of any calendar, missing values as empty strings.
 
     Parameters
     ----------
     values : iterable
         ``datetime``, pandas ``Timestamp`` or cftime dates, or None / NaT.
+    date_only : bool, optional
+        Write ``YYYY-MM-DD`` (True) or ``YYYY-MM-DDTHH:MM:SS`` (False); by default the
+        first if every value falls on midnight.
 
     Returns
     -------
     list of str
-        ``YYYY-MM-DD`` for every value if all fall on midnight, else ``YYYY-MM-DDTHH:MM:SS``.
+        The text of each value.
     """
     values = list(values)
-    present = [v for v in values if v is not None and v is not pd.NaT]
-    date_only = all(
-        (v.hour, v.minute, v.second, getattr(v, "microsecond", 0)) == (0, 0, 0, 0)  # type: ignore[attr-defined]
-        if hasattr(v, "hour")
-        else True
-        for v in present
-    )
+    if date_only is None:
+        present = [v for v in values if v is not None and v is not pd.NaT]
+        date_only = all(_at_midnight(v) for v in present)
     pattern = "%Y-%m-%d" if date_only else "%Y-%m-%dT%H:%M:%S"
     return [
         "" if v is None or v is pd.NaT else v.strftime(pattern)  # type: ignore[attr-defined]

@@ -16,7 +16,7 @@ from bad_inputs.corpus import assert_refused
 
 import lakeloss
 from lakeloss.errors import OutputError
-from lakeloss.io import atomic, write_run
+from lakeloss.io import atomic, gpkg, write_run
 
 
 def test_existing_output_directory_without_overwrite(case):
@@ -71,19 +71,21 @@ def _fails_on_call(real, failing_call: int):
 
 
 @pytest.mark.parametrize(
-    ("writer", "failing_call"),
+    ("module", "writer", "failing_call"),
     [
-        pytest.param("write_csv", 2, id="second-csv"),
-        pytest.param("write_geopackage", 1, id="geopackage"),
-        pytest.param("write_json", 1, id="run-json"),
+        pytest.param(write_run, "write_csv", 2, id="second-csv"),
+        pytest.param(gpkg, "_write_layer", 1, id="geopackage"),
+        pytest.param(write_run, "write_json", 1, id="run-json"),
     ],
 )
-def test_disk_full_during_the_write_leaves_earlier_outputs(case, monkeypatch, writer, failing_call):
+def test_disk_full_during_the_write_leaves_earlier_outputs(
+    case, monkeypatch, module, writer, failing_call
+):
     first = case.invoke("run")
     assert first.code == 0, first.stderr
     before = case.snapshot()
     assert "waterbodies.gpkg" in before
-    monkeypatch.setattr(write_run, writer, _fails_on_call(getattr(write_run, writer), failing_call))
+    monkeypatch.setattr(module, writer, _fails_on_call(getattr(module, writer), failing_call))
     assert_refused(case.invoke("run"), "disk full", "earlier outputs were left untouched")
     assert case.snapshot() == before
     assert case.leftovers() == []
