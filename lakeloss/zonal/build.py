@@ -15,6 +15,7 @@ from lakeloss.errors import GeometryError, GeometryRepairedWarning, GridError
 from lakeloss.zonal.clip import clipped_areas
 from lakeloss.zonal.geometry import (
     REPAIR_ATTRS,
+    EqualAreaGeometry,
     check_layer,
     repair_geometry,
     repeat_repair,
@@ -109,6 +110,25 @@ def _grid_axes(grid: GridSpec) -> tuple[_Axis, _Axis]:
 
 
 @dataclass(frozen=True)
+class _Centring:
+    """Where the build's equal-area projections are centred.
+
+    With the layer's total ``bounds`` (in the layer's ``crs``) every projection of the build
+    is centred on the whole layer, so a body gets the same numbers in any subset of the
+    layer; without them each projection is centred on the geometries it is given.
+    """
+
+    crs: CRS
+    bounds: tuple[float, float, float, float] | None
+
+    def equal_area(self, geometry: np.ndarray, crs: CRS | None = None) -> EqualAreaGeometry:
+        """``geometry`` (in ``crs``, default the layer's) in an equal-area CRS."""
+        if self.bounds is None:
+            return to_equal_area(geometry, crs or self.crs)
+        return to_equal_area(geometry, crs or self.crs, self.bounds, bounds_crs=self.crs)
+
+
+@dataclass(frozen=True)
 class _LayerAreas:
     """True-area facts about the repaired polygons, from an equal-area CRS."""
 
@@ -134,15 +154,15 @@ def _repair_layer(original: np.ndarray, reprojected: gpd.GeoSeries | None):
     return repair_geometry(original)
 
 
-def _layer_areas(polygons: gpd.GeoDataFrame, crs: CRS, reprojected) -> _LayerAreas:
+def _layer_areas(polygons: gpd.GeoDataFrame, centring: _Centring, reprojected) -> _LayerAreas:
     original = np.asarray(polygons.geometry.array, dtype=object)
     repaired = _repair_layer(original, reprojected)
-    equal_area = to_equal_area(repaired.geometry, crs)
+    equal_area = centring.equal_area(repaired.geometry)
     area = equal_area.area()
     area[repaired.empty] = 0.0
     before = np.full(area.size, np.nan)
     if repaired.repaired.any():
-        before[repaired.repaired] = to_equal_area(original[repaired.repaired], crs).area()
+        before[repaired.repaired] = centring.equal_area(original[repaired.repaired]).area()
     lon, lat = equal_area.centroid_lonlat()
     lon[repaired.empty] = np.nan
     lat[repaired.empty] = np.nan
@@ -239,7 +259,7 @@ def _point_pairs(in_grid: np.ndarray, x: _Axis, y: _Axis, point: np.ndarray):
     return pairs, share
 
 
-def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, areas: _LayerAreas):
+def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, areas: _LayerAreas, centring: _Centring):
     """All (body, cell) pairs and the share of each body's true area inside the grid."""
     x, y = _grid_axes(grid)
     present = ~areas.empty & ~areas.point
@@ -276,7 +296,8 @@ def _cell_pairs(in_grid: np.ndarray, grid: GridSpec, areas: _LayerAreas):
     if crossing.size:
         clipped, inside_planar = _clipped_pairs(in_grid[crossing], x, y, bounds[crossing])
         partial = crossing[~within[crossing] & (inside_planar > 0)]
-        inside = _true_area_inside(in_grid[partial], grid, x, y) / polygon_area[partial]
+        inside_area = _true_area_inside(in_grid[partial], grid, (x, y), centring)
+        inside = inside_area / polygon_area[partial]
         # below the tolerance the difference is the two area computations, not real overhang
         share[partial] = np.where(inside > 1.0 - _OUTSIDE_TOLERANCE, 1.0, inside)
         clipped.body = crossing[clipped.body]
@@ -293,7 +314,9 @@ def _concat(first: _Pairs, second: _Pairs) -> _Pairs:
     )
 
 
-def _true_area_inside(geometry: np.ndarray, grid: GridSpec, x: _Axis, y: _Axis) -> np.ndarray:
+def _true_area_inside(
+    geometry: np.ndarray, grid: GridSpec, axes: tuple[_Axis, _Axis], centring: _Centring
+) -> np.ndarray:
     """True area of each polygon's part inside the grid's outline. [m2]
 
     Only the few polygons that hang over the grid's edge come here. The cut edge runs along
@@ -302,11 +325,12 @@ def _true_area_inside(geometry: np.ndarray, grid: GridSpec, x: _Axis, y: _Axis) 
     corners. On a grid that wraps in longitude the outline is the axes' widened x range, so
     only the north and south edges cut.
     """
+    x, y = axes
     outline = shapely.box(x.edges[0], y.edges[0], x.edges[-1], y.edges[-1])
     part = shapely.intersection(_valid_for_clipping(geometry), outline)
     step = 0.25 * min(np.abs(np.diff(grid.x_edges)).min(), np.abs(np.diff(grid.y_edges)).min())
     part = shapely.segmentize(part, step)
-    return to_equal_area(part, grid.crs).area()
+    return centring.equal_area(part, grid.crs).area()
 
 
 def _flags(areas: _LayerAreas, share: np.ndarray) -> np.ndarray:
@@ -339,6 +363,7 @@ def build_weights(
     *,
     reprojected: gpd.GeoSeries | None = None,
     require_overlap: bool = True,
+    bounds: tuple[float, float, float, float] | None = None,
 ) -> ZonalWeights:
     """Build the exact (water body x cell) area weights.
 
@@ -355,6 +380,14 @@ def build_weights(
         Refuse a layer that is all empty or misses the grid (default). A spatial block of a
         partitioned build (:mod:`lakeloss.zonal.partition`) passes False; the whole layer is
         checked once its blocks are combined.
+    bounds : tuple of float, optional
+        (xmin, ymin, xmax, ymax) of the whole layer in its CRS
+        (:attr:`lakeloss.io.vector.LayerSurvey.bounds`) when ``polygons`` are some of its
+        rows. Every equal-area projection of the build (true areas, areas before repair,
+        parts inside the grid's edge, centroids) is then centred on the layer, so each
+        body's weights, areas, centroid, coverage and flags are the same to the last bit
+        whichever rows are built together. When None, the projections are centred on
+        ``polygons`` themselves.
 
     Returns
     -------
@@ -389,14 +422,15 @@ def build_weights(
             f"reprojected layer has {len(reprojected)} rows but the layer {len(polygons)}; "
             "expected reproject_to_grid(polygons, grid) of the same layer"
         )
-    areas = _layer_areas(polygons, crs, reprojected)
+    centring = _Centring(crs, bounds)
+    areas = _layer_areas(polygons, centring, reprojected)
     if areas.empty.all() and require_overlap:
         raise GeometryError(
             f"all {areas.empty.size} water-body geometries are empty; expected at least one "
             "polygon with area; check the layer"
         )
     in_grid = np.asarray(reprojected.array, dtype=object)
-    pairs, share, _ = _cell_pairs(in_grid, grid, areas)
+    pairs, share, _ = _cell_pairs(in_grid, grid, areas, centring)
     if not pairs.body.size and require_overlap:
         raise GridError(
             f"none of the {int((~areas.empty).sum())} water bodies overlaps the climate grid "

@@ -41,8 +41,14 @@ def geometry_digest(polygons: gpd.GeoDataFrame) -> str:
     return digest.hexdigest()
 
 
-def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec, *, geometry: str | None = None) -> str:
-    """sha256 of the layer's geometries (WKB, in order), its CRS and the grid key.
+def layer_key(
+    polygons: gpd.GeoDataFrame,
+    grid: GridSpec,
+    *,
+    geometry: str | None = None,
+    bounds: tuple[float, float, float, float] | None = None,
+) -> str:
+    """sha256 of the layer's geometries (WKB, in order), its CRS, the grid key and bounds.
 
     Parameters
     ----------
@@ -52,11 +58,15 @@ def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec, *, geometry: str | Non
         Climate grid.
     geometry : str, optional
         :func:`geometry_digest` of ``polygons``, when the caller already has it.
+    bounds : tuple of float, optional
+        The whole layer's bounds the weights are built with (see
+        :func:`lakeloss.zonal.build_weights`); they enter the key as float64 bytes, since
+        the same rows built with other bounds may differ in the last bits.
 
     Returns
     -------
     str
-        Hex digest; equal for the same geometries, CRS, grid and save format.
+        Hex digest; equal for the same geometries, CRS, grid, bounds and save format.
     """
     crs = check_layer(polygons)
     digest = hashlib.sha256()
@@ -64,6 +74,8 @@ def layer_key(polygons: gpd.GeoDataFrame, grid: GridSpec, *, geometry: str | Non
     digest.update(crs.to_wkt().encode())
     digest.update(grid.key().encode())
     digest.update((geometry or geometry_digest(polygons)).encode())
+    if bounds is not None:
+        digest.update(b"|bounds|" + np.asarray(bounds, dtype="<f8").tobytes())
     return digest.hexdigest()
 
 
@@ -91,6 +103,7 @@ class WeightsCache:
         reprojected=None,
         builder=None,
         key: str | None = None,
+        bounds: tuple[float, float, float, float] | None = None,
     ) -> tuple[_weights.ZonalWeights, bool]:
         """Load the weights of this layer and grid, or build and store them.
 
@@ -107,7 +120,11 @@ class WeightsCache:
             :func:`lakeloss.zonal.build_weights` (e.g. the partitioned build of
             :mod:`lakeloss.zonal.partition` for very large layers).
         key : str, optional
-            :func:`layer_key` of ``polygons`` and ``grid``, when the caller already has it.
+            :func:`layer_key` of ``polygons``, ``grid`` and ``bounds``, when the caller
+            already has it.
+        bounds : tuple of float, optional
+            The whole layer's bounds when ``polygons`` are some of its rows: part of the
+            key, and passed on to the build (to ``builder`` as ``bounds=`` when given).
 
         Returns
         -------
@@ -117,15 +134,16 @@ class WeightsCache:
             True when they came from the cache. An unreadable or mismatching entry is
             rebuilt and overwritten, never trusted.
         """
-        path = self.path_for(key or layer_key(polygons, grid))
+        path = self.path_for(key or layer_key(polygons, grid, bounds=bounds))
         if path.exists():
             cached = self._read(path, grid, len(polygons))
             if cached is not None:
                 return cached, True
+        extent = {} if bounds is None else {"bounds": bounds}
         if builder is not None:
-            built = builder(polygons, grid)
+            built = builder(polygons, grid, **extent)
         else:
-            built = _build.build_weights(polygons, grid, reprojected=reprojected)
+            built = _build.build_weights(polygons, grid, reprojected=reprojected, **extent)
         built.save(path)
         return built, False
 

@@ -232,7 +232,13 @@ def _compact(crs: CRS, total_bounds: np.ndarray) -> bool:
     )
 
 
-def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
+def to_equal_area(
+    geometry: np.ndarray,
+    crs: CRS,
+    bounds: tuple[float, float, float, float] | None = None,
+    *,
+    bounds_crs: CRS | None = None,
+) -> EqualAreaGeometry:
     """Geometries in a CRS where planar area is true area (the input itself if it is one).
 
     The azimuthal projection is centred on the layer. Near the antipode of that centre it
@@ -240,6 +246,28 @@ def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
     0°), and straight edges between vertices no longer follow the polygon: geometries more
     than a quarter turn away go to a second projection centred on the antipode, so every
     geometry is within 90° of its projection's centre (scale distortion at most a factor 2).
+
+    Parameters
+    ----------
+    geometry : numpy.ndarray of shapely geometries
+        Geometries in ``crs`` (empty ones allowed).
+    crs : pyproj.CRS
+        Their CRS.
+    bounds : tuple of float, optional
+        (xmin, ymin, xmax, ymax) of the whole layer in ``bounds_crs``, as
+        :func:`lakeloss.io.vector.survey_waterbodies` gives them (xmax may pass 180 on a
+        lon/lat layer across 180°). The projection's centre and whether geometries are
+        checked against its antipode then come from the layer, not from ``geometry``, so a
+        geometry gets the same projected coordinates, to the last bit, whichever other
+        geometries are projected with it. When None, the centre is the middle of
+        ``geometry``'s own bounds.
+    bounds_crs : pyproj.CRS, optional
+        The CRS of ``bounds`` (default ``crs``): the layer's CRS when ``geometry`` has been
+        reprojected to a grid.
+
+    Returns
+    -------
+    EqualAreaGeometry
     """
     none_far = np.zeros(geometry.size, dtype=bool)
     if is_equal_area(crs):
@@ -248,11 +276,14 @@ def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
     present = ~shapely.is_empty(geometry)
     if not present.any():
         return EqualAreaGeometry(geometry, crs, none_far, None, 1.0)
-    total_bounds = shapely.total_bounds(geometry[present])
-    lon0, lat0 = _layer_centre(crs, total_bounds)
+    if bounds is None:
+        extent_crs, total_bounds = crs, shapely.total_bounds(geometry[present])
+    else:
+        extent_crs, total_bounds = bounds_crs or crs, _layer_bounds(bounds)
+    lon0, lat0 = _layer_centre(extent_crs, total_bounds)
     target = _azimuthal_equal_area(crs, lon0, lat0)
     far = np.zeros(geometry.size, dtype=bool)
-    if not _compact(crs, total_bounds):
+    if not _compact(extent_crs, total_bounds):
         far = present & _quarter_turn_away(geometry, crs, lon0, lat0)
     projected = transform_geometry(geometry, crs, target)
     if not far.any():
@@ -260,6 +291,21 @@ def to_equal_area(geometry: np.ndarray, crs: CRS) -> EqualAreaGeometry:
     antipode = _azimuthal_equal_area(crs, (lon0 + 360.0) % 360.0 - 180.0, -lat0)
     projected[far] = transform_geometry(geometry[far], crs, antipode)
     return EqualAreaGeometry(projected, target, far, antipode, 1.0)
+
+
+def _layer_bounds(bounds) -> np.ndarray:
+    """The layer's (xmin, ymin, xmax, ymax) as float64; refused when not four finite values.
+
+    Only a layer whose every geometry is empty has no bounds, and then nothing is projected.
+    """
+    values = np.asarray(bounds, dtype=np.float64)
+    if values.shape != (4,) or not np.isfinite(values).all() or (values[2:] < values[:2]).any():
+        raise GeometryError(
+            f"layer bounds {tuple(values.ravel().tolist())} are not an extent of the "
+            "geometries being projected; expected (xmin, ymin, xmax, ymax), finite, of the "
+            "layer's non-empty geometries (survey_waterbodies(...).bounds)"
+        )
+    return values
 
 
 def transform_geometry(geometry: np.ndarray, source: CRS, target: CRS) -> np.ndarray:

@@ -4,7 +4,9 @@ The layer is cut into bands of similar size along the grid's y axis (by the cent
 polygon's bounding box in grid coordinates), each band's weights are built on its own —
 in this process, or on a dask.distributed cluster through the ``map_blocks`` callable — and
 the rows are put back in layer order. A band is independent of the others because a
-polygon's weights depend only on that polygon and the grid.
+polygon's weights depend only on that polygon, the grid and where the equal-area
+projections are centred: given the layer's bounds, on the layer, so the blocks reproduce the
+whole build to the last bit.
 
 The block size depends only on the number of polygons, never on the scheduler, so a layer
 gets the same blocks — and the same weights, to the last bit — wherever it is built.
@@ -12,33 +14,24 @@ gets the same blocks — and the same weights, to the last bit — wherever it i
 
 from __future__ import annotations
 
+import dataclasses
+import functools
 import math
 from collections.abc import Callable, Iterable, Sequence
 
 import geopandas as gpd
 import numpy as np
-import scipy.sparse as sp
 import shapely
 from pyproj import Transformer
 
 from lakeloss.errors import GeometryError, GridError
 from lakeloss.zonal.build import build_weights
 from lakeloss.zonal.grid import GridSpec
-from lakeloss.zonal.weights import ZonalWeights
+from lakeloss.zonal.weights import ZonalWeights, concat_rows
 
 BLOCK_SIZE = 250_000
 """Water bodies per spatial block. Our own choice: big enough that per-block overhead is
 small, small enough that a block's build stays well under 1 GB."""
-
-_ROW_FIELDS = (
-    "polygon_area_m2",
-    "grid_area_m2",
-    "grid_coverage",
-    "area_before_repair_m2",
-    "flags",
-    "centroid_lon",
-    "centroid_lat",
-)
 
 MapBlocks = Callable[
     [Callable[..., ZonalWeights], Sequence[gpd.GeoDataFrame], Sequence[GridSpec]],
@@ -68,8 +61,13 @@ def spatial_blocks(
     return [np.sort(part) for part in np.array_split(order, count)]
 
 
-def _build_block(block: gpd.GeoDataFrame, grid: GridSpec) -> ZonalWeights:
-    return build_weights(block, grid, require_overlap=False)
+def _build_block(
+    block: gpd.GeoDataFrame,
+    grid: GridSpec,
+    *,
+    bounds: tuple[float, float, float, float] | None = None,
+) -> ZonalWeights:
+    return build_weights(block, grid, require_overlap=False, bounds=bounds)
 
 
 def combine_blocks(
@@ -79,20 +77,19 @@ def combine_blocks(
     index = np.concatenate(blocks)
     order = np.empty_like(index)
     order[index] = np.arange(index.size)
-    matrix = sp.vstack([p.matrix for p in parts], format="csr")[order]
-    rows = {name: np.concatenate([getattr(p, name) for p in parts])[order] for name in _ROW_FIELDS}
-    if all("geometry_empty" in str(flag).split(";") for flag in rows["flags"]):
+    combined = concat_rows(parts).take_rows(order)
+    if all("geometry_empty" in str(flag).split(";") for flag in combined.flags):
         raise GeometryError(
             f"all {index.size} water-body geometries are empty; expected at least one polygon "
             "with area; check the layer"
         )
-    if matrix.nnz == 0:
+    if combined.matrix.nnz == 0:
         raise GridError(
             f"none of the {index.size} water bodies overlaps the climate grid (grid bounds "
             f"{tuple(round(b, 4) for b in grid.bounds)} in {grid.crs.name}); check the "
             "climate file's extent and CRS"
         )
-    return ZonalWeights(matrix=matrix.tocsr(), grid_key=grid.key(), grid=grid, **rows)
+    return dataclasses.replace(combined, grid_key=grid.key(), grid=grid)
 
 
 def build_weights_in_blocks(
@@ -101,13 +98,21 @@ def build_weights_in_blocks(
     *,
     block_size: int = BLOCK_SIZE,
     map_blocks: MapBlocks | None = None,
+    bounds: tuple[float, float, float, float] | None = None,
 ) -> ZonalWeights:
     """Build the weights block by block; ``map_blocks(func, frames, grids)`` may run them
-    anywhere (default: one after another in this process)."""
+    anywhere (default: one after another in this process).
+
+    With ``bounds``, the whole layer's bounds in its CRS (see
+    :func:`lakeloss.zonal.build_weights`), every block centres its equal-area projections on
+    the layer, and the result equals ``build_weights(polygons, grid, bounds=bounds)`` to the
+    last bit; without them each block is centred on its own bodies.
+    """
     blocks = spatial_blocks(polygons, grid, block_size)
     if len(blocks) == 1:
-        return build_weights(polygons, grid)
+        return build_weights(polygons, grid, bounds=bounds)
     frames = [polygons.iloc[rows].reset_index(drop=True) for rows in blocks]
     mapper = map_blocks or map
-    parts = list(mapper(_build_block, frames, [grid] * len(frames)))
+    build_block = functools.partial(_build_block, bounds=bounds)
+    parts = list(mapper(build_block, frames, [grid] * len(frames)))
     return combine_blocks(blocks, parts, grid)

@@ -6,6 +6,7 @@ import dataclasses
 import os
 import tempfile
 import zipfile
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -329,6 +330,49 @@ class ZonalWeights:
                 f"weights file {path} is unreadable ({type(exc).__name__}); expected a file "
                 "written by ZonalWeights.save; delete it so it is rebuilt"
             ) from exc
+
+
+_ROW_FIELDS = (
+    "polygon_area_m2",
+    "grid_area_m2",
+    "grid_coverage",
+    "area_before_repair_m2",
+    "flags",
+    "centroid_lon",
+    "centroid_lat",
+)
+
+
+def concat_rows(parts: Sequence[ZonalWeights]) -> ZonalWeights:
+    """The weights of several runs of water bodies, stacked in the order given.
+
+    The inverse of :meth:`ZonalWeights.take_rows` over consecutive row ranges: the weights
+    of a layer's partitions, each built with the layer's bounds, concatenate to the whole
+    layer's weights bit for bit.
+
+    Parameters
+    ----------
+    parts : sequence of ZonalWeights
+        At least one; all built for the same grid.
+
+    Returns
+    -------
+    ZonalWeights
+        ``sum(part.n_waterbodies)`` rows: the first part's, then the second's, and so on.
+    """
+    if not parts:
+        raise ValueError("concat_rows needs at least one ZonalWeights")
+    first = parts[0]
+    for part in parts[1:]:
+        if part.grid_key != first.grid_key or part.matrix.shape[1] != first.matrix.shape[1]:
+            raise ValueError(
+                f"weights built for grid {part.grid_key!r} cannot be stacked under weights "
+                f"built for grid {first.grid_key!r}; expected one grid for every part"
+            )
+    rows = {name: np.concatenate([getattr(p, name) for p in parts]) for name in _ROW_FIELDS}
+    rows["flags"] = rows["flags"].astype(object)
+    matrix = sp.csr_matrix(sp.vstack([p.matrix for p in parts], format="csr"))
+    return ZonalWeights(matrix=matrix, grid_key=first.grid_key, grid=first.grid, **rows)
 
 
 @dataclass(frozen=True)
