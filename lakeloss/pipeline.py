@@ -154,6 +154,9 @@ class PartitionTables(Protocol):
 
     def __exit__(self, *exc: Any) -> None: ...
 
+    def start(self, survey: vector_io.LayerSurvey) -> None:
+        """Called once the layer is surveyed, before the first partition."""
+
     @property
     def staging(self) -> Path:
         """Where cluster workers write their partitions' part files."""
@@ -190,6 +193,9 @@ class GatheredTables:
         return self
 
     def __exit__(self, *exc: Any) -> None:
+        return None
+
+    def start(self, survey: vector_io.LayerSurvey) -> None:
         return None
 
     def add(self, done: PartitionDone) -> None:
@@ -254,19 +260,18 @@ class StreamedTables:
         assert self._staging is not None  # entered
         return self._staging
 
-    def _open(self, id_field: str, layer_geometry: Any) -> Any:
+    def start(self, survey: vector_io.LayerSurvey) -> None:
+        from lakeloss.io.gpkg import LayerGeometry
         from lakeloss.io.write_run import OutputStream
         from lakeloss.results import field_info
 
-        if self._stream is None:
-            self._stream = OutputStream(
-                self.staging,
-                id_field=id_field,
-                field_info=field_info(self.config, id_field),
-                layer_geometry=layer_geometry,
-                layer_format=self.config.output.format,
-            )
-        return self._stream
+        self._stream = OutputStream(
+            self.staging,
+            id_field=survey.id_field,
+            field_info=field_info(self.config, survey.id_field),
+            layer_geometry=LayerGeometry.of_types(survey.geometry_types),
+            layer_format=self.config.output.format,
+        )
 
     def add(self, done: PartitionDone) -> None:
         from lakeloss.io.parts import part_directory, write_part
@@ -276,12 +281,11 @@ class StreamedTables:
             assert done.bodies is not None and done.by_period is not None
             done.part_dir = part_directory(self.staging, done.outcome.index)
             write_part(done.part_dir, done.bodies, done.by_period)
-        stream = self._open(done.outcome.id_field, done.outcome.layer_geometry)
         if done.part_dir is not None:
-            stream.add_part(done.part_dir)
+            self._stream.add_part(done.part_dir)
         else:
             assert done.bodies is not None and done.by_period is not None
-            stream.add_tables(done.bodies, done.by_period)
+            self._stream.add_tables(done.bodies, done.by_period)
         if done.series_file is not None:
             self.series_files.append(done.series_file)
 
@@ -336,6 +340,8 @@ def _stages(
     ranges = partition_ranges(n, size)
     outcomes: list[PartitionOutcome] = []
     bars = PartitionBars.open(progress, len(ranges), len(inputs.axis.days))
+    assert inputs.survey is not None  # load_inputs surveys the layer
+    tables.start(inputs.survey)
     client_inputs = dataclasses.replace(inputs, survey=_for_workers(inputs.survey))
     tasks = (
         PartitionTask(config, client_inputs, index, rows, settings)

@@ -38,7 +38,7 @@ import json
 import os
 import re
 import sqlite3
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import closing, contextmanager
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -158,6 +158,26 @@ class LayerGeometry:
 
     type_name: str
     promote_to_multi: bool
+
+    @classmethod
+    def of_types(cls, types: Iterable[str]) -> LayerGeometry | None:
+        """The type of a layer whose features are of ``types`` (as a survey of the input
+        layer names them), after lakeloss has read them: collections become their polygons,
+        missing geometries empty polygons, MultiPoints of one place points. None when the
+        types do not settle it (``"Unknown"``, mixtures of kinds)."""
+        names = {str(t) for t in types}
+        has_z = any(name.endswith(" Z") for name in names)
+        names = {name.removesuffix(" Z") for name in names}
+        if "GeometryCollection" in names:
+            names = (names - {"GeometryCollection"}) | {"Polygon", "MultiPolygon"}
+        suffix = " Z" if has_z else ""
+        if names and names <= {"Polygon", "MultiPolygon"}:
+            if "MultiPolygon" in names:
+                return cls("MultiPolygon" + suffix, True)
+            return cls("Polygon" + suffix, False)
+        if names and names <= {"Point", "MultiPoint"}:
+            return cls("Point" + suffix, False)
+        return None
 
     @classmethod
     def of(cls, geometry: geopandas.GeoSeries) -> LayerGeometry:

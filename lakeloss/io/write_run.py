@@ -17,6 +17,7 @@ import pyarrow
 
 from lakeloss.errors import OutputError
 from lakeloss.io.atomic import OutputDirectory
+from lakeloss.io.geoparquet import finish_dataset
 from lakeloss.io.gpkg import FieldInfo, GeoPackageStream, LayerGeometry
 from lakeloss.io.parts import PARTS_DIRECTORY, read_part
 from lakeloss.io.ranked_csv import RankedCsv
@@ -146,6 +147,10 @@ class OutputStream:
         polygons where others have multipolygons).
     tick : callable, optional
         Called after each file is complete (for a progress bar).
+    layer_format : str, optional
+        ``"geopackage"`` (default): ``waterbodies.gpkg``; ``"geoparquet"``: the
+        GeoParquet datasets of :func:`lakeloss.io.geoparquet.finish_dataset` made from the
+        part files (every partition must come through :meth:`add_part`).
     """
 
     def __init__(
@@ -156,18 +161,24 @@ class OutputStream:
         field_info: Mapping[str, Mapping[str, FieldInfo]],
         layer_geometry: LayerGeometry | None = None,
         tick: Callable[[], None] | None = None,
+        layer_format: str = "geopackage",
     ) -> None:
         self.staging = Path(staging)
         self.id_field = id_field
         self._tick = tick or (lambda: None)
-        self._geopackage = GeoPackageStream(
-            self.staging / "waterbodies.gpkg",
-            layer=LAYER,
-            table=TABLE,
-            fields=field_info,
-            late_column=RANK,
-            geometry=layer_geometry,
-        )
+        self._field_info = field_info
+        # GeoParquet: the dataset is made of the partitions' part files, at the end.
+        self._parts: list[Path] | None = [] if layer_format == "geoparquet" else None
+        self._geopackage = None
+        if self._parts is None:
+            self._geopackage = GeoPackageStream(
+                self.staging / "waterbodies.gpkg",
+                layer=LAYER,
+                table=TABLE,
+                fields=field_info,
+                late_column=RANK,
+                geometry=layer_geometry,
+            )
         self._summary: RankedCsv | None = None
 
     def add_part(self, directory: Path) -> None:
@@ -189,6 +200,8 @@ class OutputStream:
             self.add_tables(waterbodies, by_period)
         except ValueError as exc:
             raise OutputError(f"part {directory} does not fit the earlier parts: {exc}") from exc
+        if self._parts is not None:
+            self._parts.append(Path(directory))
 
     def add_tables(self, waterbodies: gpd.GeoDataFrame, by_period: pd.DataFrame) -> None:
         """Append one partition's tables (``loss_rank`` may be null; see :meth:`finish`)."""
@@ -201,6 +214,9 @@ class OutputStream:
                 decimals=_decimals(body.columns),
             )
         summary = self._summary
+        if self._geopackage is None:
+            summary.add(body)
+            return
         self._geopackage.append(waterbodies, by_period, alongside=lambda: summary.add(body))
 
     def finish(
@@ -227,7 +243,17 @@ class OutputStream:
         """
         if self._summary is None:
             raise ValueError("no partition was added; expected at least one")
-        self._geopackage.finish(metadata=provenance, late_values=loss_rank)
+        if self._geopackage is not None:
+            self._geopackage.finish(metadata=provenance, late_values=loss_rank)
+        else:
+            assert self._parts is not None
+            finish_dataset(
+                self._parts,
+                self.staging,
+                loss_rank=loss_rank,
+                field_info=self._field_info,
+                provenance=dict(provenance),
+            )
         self._tick()
         self._summary.finish(loss_rank)
         self._tick()

@@ -71,13 +71,19 @@ def _build_block(
 
 
 def combine_blocks(
-    blocks: Sequence[np.ndarray], parts: Sequence[ZonalWeights], grid: GridSpec
+    blocks: Sequence[np.ndarray],
+    parts: Sequence[ZonalWeights],
+    grid: GridSpec,
+    *,
+    require_overlap: bool = True,
 ) -> ZonalWeights:
     """Stack the blocks' weights and put their rows back in layer order."""
     index = np.concatenate(blocks)
     order = np.empty_like(index)
     order[index] = np.arange(index.size)
     combined = concat_rows(parts).take_rows(order)
+    if not require_overlap:
+        return dataclasses.replace(combined, grid_key=grid.key(), grid=grid)
     if all("geometry_empty" in str(flag).split(";") for flag in combined.flags):
         raise GeometryError(
             f"all {index.size} water-body geometries are empty; expected at least one polygon "
@@ -99,9 +105,13 @@ def build_weights_in_blocks(
     block_size: int = BLOCK_SIZE,
     map_blocks: MapBlocks | None = None,
     bounds: tuple[float, float, float, float] | None = None,
+    require_overlap: bool = True,
 ) -> ZonalWeights:
     """Build the weights block by block; ``map_blocks(func, frames, grids)`` may run them
     anywhere (default: one after another in this process).
+
+    ``require_overlap`` False accepts a set of bodies all empty or off the grid (a
+    partition of a layer whose overlap with the grid is checked as a whole).
 
     With ``bounds``, the whole layer's bounds in its CRS (see
     :func:`lakeloss.zonal.build_weights`), every block centres its equal-area projections on
@@ -110,9 +120,9 @@ def build_weights_in_blocks(
     """
     blocks = spatial_blocks(polygons, grid, block_size)
     if len(blocks) == 1:
-        return build_weights(polygons, grid, bounds=bounds)
+        return build_weights(polygons, grid, bounds=bounds, require_overlap=require_overlap)
     frames = [polygons.iloc[rows].reset_index(drop=True) for rows in blocks]
     mapper = map_blocks or map
     build_block = functools.partial(_build_block, bounds=bounds)
     parts = list(mapper(build_block, frames, [grid] * len(frames)))
-    return combine_blocks(blocks, parts, grid)
+    return combine_blocks(blocks, parts, grid, require_overlap=require_overlap)
