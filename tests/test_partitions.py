@@ -147,3 +147,27 @@ def test_the_series_of_partitions_join_into_the_series_of_one(varied):
     np.testing.assert_array_equal(parts["waterbody_id"].values, whole["waterbody_id"].values)
     differs = {k for k in whole.attrs if parts.attrs.get(k) != whole.attrs[k]}
     assert differs <= {"history"}  # the time the run was made
+
+
+def test_geoparquet_output_holds_one_file_per_partition_and_the_same_numbers(varied, tmp_path):
+    import geopandas as gpd
+    import pyogrio
+
+    config = varied(partition_bodies=64)
+    gpkg = _cli_run(tmp_path, config, "gpkg")
+    config["output"]["format"] = "geoparquet"
+    parquet = _cli_run(tmp_path, config, "parquet")
+    files = sorted((parquet / "waterbodies").glob("*.parquet"))
+    assert len(files) == 21
+    assert not (parquet / "waterbodies.gpkg").exists() and not (parquet / "_parts").exists()
+    layer = gpd.read_parquet(parquet / "waterbodies")
+    expected = pyogrio.read_dataframe(gpkg / "waterbodies.gpkg", layer="waterbodies")
+    for column in ("pond_id", "evap_mm", "evap_m3", "net_m3", "loss_rank", "qa_flags"):
+        np.testing.assert_array_equal(
+            layer[column].to_numpy(), expected[column].to_numpy(), err_msg=column
+        )
+    assert layer.crs == expected.crs
+    periods = pd.read_parquet(parquet / "evaporation_by_period")
+    assert len(periods) == len(layer) * 2
+    for name in ("summary_by_waterbody.csv", "summary_by_period.csv", "summary_by_group.csv"):
+        assert (parquet / name).read_bytes() == (gpkg / name).read_bytes(), name
