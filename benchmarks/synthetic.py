@@ -8,7 +8,9 @@ out in an Albers equal-area CRS centred on the box; nothing refers to a real pla
 Layers are cached under ``benchmarks/_cache/`` as shapely ragged arrays in ``.npz`` files, so
 the end-to-end benchmark can reuse them without regenerating.
 
-Usage: ``python benchmarks/synthetic.py 100000`` writes (or reuses) the 10^5-pond layer.
+Usage: ``python benchmarks/synthetic.py 100000`` writes (or reuses) the 10^5-pond layer;
+``python benchmarks/synthetic.py 10000000 --geoparquet`` writes (or reuses) a 10^7-pond layer
+as GeoParquet, generated in chunks of 10^6 ponds (:func:`layer_chunks`).
 """
 
 from __future__ import annotations
@@ -16,6 +18,7 @@ from __future__ import annotations
 import argparse
 import os
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 
 import geopandas as gpd
@@ -134,11 +137,92 @@ def cached_layer(n_ponds: int, seed: int = 0) -> gpd.GeoDataFrame:
     return layer
 
 
+def layer_chunks(
+    n_ponds: int, chunk_ponds: int = 1_000_000, seed: int = 0
+) -> Iterator[gpd.GeoDataFrame]:
+    """The layer of ``n_ponds`` ponds as :func:`make_layer` frames of ``chunk_ponds`` ponds.
+
+    Each chunk is generated on its own (its own seed, derived from ``seed`` and the chunk's
+    index), so memory stays that of one chunk whatever ``n_ponds`` is. The reservoirs
+    (``max(3, n_ponds // 20000)`` over the whole layer) are shared out over the chunks, and
+    the ids ``P0``, ``P1``, ... run on from chunk to chunk, so they are unique. Every chunk
+    covers the whole :data:`REGION` box.
+    """
+    n_chunks = -(-n_ponds // chunk_ponds)
+    n_res = max(3, n_ponds // 20000)
+    offset = 0
+    for k in range(n_chunks):
+        ponds = min(chunk_ponds, n_ponds - k * chunk_ponds)
+        reservoirs = n_res // n_chunks + (k < n_res % n_chunks)
+        chunk = make_layer(ponds, seed=1_000_003 * (seed + 1) + k, n_reservoirs=reservoirs)
+        chunk["pond_id"] = np.char.add("P", np.arange(offset, offset + len(chunk)).astype(str))
+        offset += len(chunk)
+        yield chunk
+
+
+def cached_geoparquet(
+    n_ponds: int, seed: int = 0, row_group: int = 65_536, chunk_ponds: int = 1_000_000
+) -> Path:
+    """The layer of :func:`layer_chunks` as one GeoParquet file in ``benchmarks/_cache``.
+
+    Written chunk by chunk (row groups of ``row_group`` rows), so generating 10^7 ponds needs
+    the memory of one chunk. The file's GeoParquet metadata is the first chunk's without its
+    ``bbox`` (optional in the GeoParquet specification, and a chunk's box is not the file's).
+    """
+    import json
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    from geopandas.io.arrow import _geopandas_to_arrow
+
+    path = CACHE / f"ponds-{n_ponds}-seed{seed}-rg{row_group}.parquet"
+    if path.exists():
+        return path
+    CACHE.mkdir(parents=True, exist_ok=True)
+    handle, temp = tempfile.mkstemp(dir=CACHE, suffix=".part")
+    os.close(handle)
+    writer = None
+    rest = None  # rows of the last chunk that did not fill a row group
+    try:
+        for chunk in layer_chunks(n_ponds, chunk_ponds, seed):
+            table = _geopandas_to_arrow(chunk, index=False, write_covering_bbox=False)
+            del chunk
+            if writer is None:
+                geo = json.loads(table.schema.metadata[b"geo"])
+                for column in geo["columns"].values():
+                    column.pop("bbox", None)
+                schema = table.schema.with_metadata({b"geo": json.dumps(geo).encode()})
+                writer = pq.ParquetWriter(temp, schema)
+            table = table.cast(schema)
+            if rest is not None:
+                table = pa.concat_tables([rest, table])
+            full = len(table) // row_group * row_group
+            writer.write_table(table.slice(0, full), row_group_size=row_group)
+            rest = table.slice(full)
+        if writer is not None:
+            if rest is not None and len(rest):
+                writer.write_table(rest, row_group_size=row_group)
+            writer.close()
+        os.replace(temp, path)
+    finally:
+        if os.path.exists(temp):
+            os.unlink(temp)
+    return path
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("n_ponds", type=int)
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument(
+        "--geoparquet",
+        action="store_true",
+        help="write the layer chunk by chunk as GeoParquet (row groups of 65 536) and stop",
+    )
     args = parser.parse_args()
+    if args.geoparquet:
+        print(cached_geoparquet(args.n_ponds, args.seed))
+        return
     layer = cached_layer(args.n_ponds, args.seed)
     area_ha = layer.area.to_numpy() / 1e4
     print(
