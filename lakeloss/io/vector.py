@@ -978,6 +978,9 @@ class _GeometryScan:
     point_rows: list = field(default_factory=list)
     lines: dict = field(default_factory=dict)
     line_rows: list = field(default_factory=list)
+    scattered: int = 0
+    """MultiPoints of several locations (refused as the whole read refuses them)."""
+    scattered_rows: list = field(default_factory=list)
 
 
 def _finished_bounds(geometries: np.ndarray, geographic: bool) -> np.ndarray:
@@ -1026,6 +1029,11 @@ def _scan_geometry(access: _RowAccess, count: int, geographic: bool) -> _Geometr
             name = geometries[row].geom_type
             scan.lines[name] = scan.lines.get(name, 0) + 1
         scan.line_rows.extend((lines[: _EXAMPLES + 1] + start).tolist())
+        for row in np.flatnonzero((kinds == shapely.GeometryType.MULTIPOINT) & ~empty):
+            if len(np.unique(shapely.get_coordinates(geometries[row]), axis=0)) > 1:
+                scan.scattered += 1
+                if len(scan.scattered_rows) < _EXAMPLES:
+                    scan.scattered_rows.append(int(row) + start)
     return scan
 
 
@@ -1043,6 +1051,13 @@ def _refuse_misfits(scan: _GeometryScan, ids: pd.Series | None, area_field: str 
             f"water-body layer has {summary} features (ids {_examples(shown)}); "
             "expected polygons or multipolygons, or points with an area attribute; buffer "
             "or remove the lines"
+        )
+    if scan.scattered:
+        shown = _ids_of(scan.scattered_rows, ids)
+        raise GeometryError(
+            f"water-body layer has {scan.scattered} MultiPoint features of several locations "
+            f"(ids {_examples(shown)}); expected one point per water body; split them into "
+            "single points, each with its own area"
         )
     if scan.points and area_field is None:
         shown = _ids_of(scan.point_rows[:_EXAMPLES], ids)
