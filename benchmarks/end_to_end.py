@@ -48,7 +48,7 @@ from synthetic import CACHE, REGION, cached_layer  # noqa: E402
 
 VENV_BIN = Path(sys.executable).parent
 LAKELOSS = VENV_BIN / "lakeloss"
-CELL_DEG = 0.05
+GRID_CELLS = 400  # cells along each side of the climate grid, by default
 YEAR = 2031
 N_DAYS = 365
 POLL_S = 0.2
@@ -71,11 +71,12 @@ def layer_path(n_ponds: int) -> Path:
     return path
 
 
-def _grid() -> tuple[np.ndarray, np.ndarray]:
-    """Cell centres: longitudes ascending, latitudes descending (north-up). [degrees]"""
+def _grid(cells: int) -> tuple[np.ndarray, np.ndarray]:
+    """Centres of ``cells`` x ``cells`` cells over REGION: longitudes ascending, latitudes
+    descending (north-up). [degrees]"""
     west, south, east, north = REGION
-    lon = west + CELL_DEG * (np.arange(round((east - west) / CELL_DEG)) + 0.5)
-    lat = north - CELL_DEG * (np.arange(round((north - south) / CELL_DEG)) + 0.5)
+    lon = west + (east - west) / cells * (np.arange(cells) + 0.5)
+    lat = north - (north - south) / cells * (np.arange(cells) + 0.5)
     return lon, lat
 
 
@@ -104,9 +105,9 @@ _VARIABLES = {
 }
 
 
-def climate_path() -> Path:
-    """One year of daily invented climate on the 400 x 400 grid, cached."""
-    lon, lat = _grid()
+def climate_path(cells: int = GRID_CELLS) -> Path:
+    """One year of daily invented climate on the ``cells`` x ``cells`` grid, cached."""
+    lon, lat = _grid(cells)
     path = CACHE / f"e2e-climate-{lat.size}x{lon.size}-{YEAR}.nc"
     if path.exists():
         return path
@@ -150,8 +151,8 @@ def climate_path() -> Path:
     return path
 
 
-def write_config(n_ponds: int, out_dir: Path, cache_dir: Path) -> Path:
-    climate = climate_path()
+def write_config(n_ponds: int, out_dir: Path, cache_dir: Path, cells: int = GRID_CELLS) -> Path:
+    climate = climate_path(cells)
     keys = {
         "air_temperature": "tas",
         "relative_humidity": "hurs",
@@ -168,7 +169,11 @@ def write_config(n_ponds: int, out_dir: Path, cache_dir: Path) -> Path:
         "compute": {"cache_dir": str(cache_dir)},
     }
     config["climate"]["wind_speed"]["height_m"] = 10.0
-    path = CACHE / f"e2e-{n_ponds}.toml"
+    path = (
+        CACHE / f"e2e-{n_ponds}.toml"
+        if cells == GRID_CELLS
+        else CACHE / f"e2e-{n_ponds}-{cells}.toml"
+    )
     path.write_text(tomli_w.dumps(config))
     return path
 
