@@ -40,6 +40,7 @@ import json
 import os
 import platform
 import pstats
+import resource
 import shutil
 import subprocess
 import sys
@@ -205,8 +206,10 @@ def _tree_rss(process: psutil.Process) -> int:
     return total
 
 
-def measure(command: list[str]) -> tuple[float, int]:
-    """Run ``command``; return wall time [s] and the process tree's peak RSS [bytes]."""
+def measure(command: list[str]) -> tuple[float, int, float]:
+    """Run ``command``; return wall time [s], the process tree's peak RSS [bytes] and the CPU
+    time (user + system) of the process and the children it waited for [s]."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
     child = subprocess.Popen(command, stderr=subprocess.PIPE, text=True)
     process = psutil.Process(child.pid)
@@ -218,7 +221,9 @@ def measure(command: list[str]) -> tuple[float, int]:
     stderr = child.stderr.read() if child.stderr else ""
     if child.returncode != 0:
         raise SystemExit(f"{' '.join(command)} failed ({child.returncode}):\n{stderr}")
-    return wall, peak
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime
+    return wall, peak, cpu
 
 
 def _run_dirs(n_ponds: int, cells: int) -> tuple[Path, Path]:
@@ -236,18 +241,20 @@ def run_once(
     config = write_config(n_ponds, out_dir, cache_dir, cells)
     command = [str(LAKELOSS), "run", str(config), "--overwrite", "-q", *extra]
     load = os.getloadavg()[0]
-    wall, peak = measure(command)
+    wall, peak, cpu = measure(command)
     timings = json.loads((out_dir / "run.json").read_text())["timings_s"]
     row = {
         "size": n_ponds,
         "run": label,
         "wall_s": wall,
+        "cpu_s": cpu,
         "peak_gib": peak / 2**30,
         "loadavg": load,
         **timings,
     }
     print(
-        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  peak {peak / 2**30:5.2f} GiB  "
+        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  cpu {cpu:6.1f} s  "
+        f"peak {peak / 2**30:5.2f} GiB  "
         f"load {load:4.1f}  " + "  ".join(f"{k} {v:.1f}" for k, v in timings.items()),
         flush=True,
     )
@@ -270,9 +277,10 @@ arrays = [xarray.open_dataset(path)[name].load() for name in names]
 
 def _timed(label: str, n_ponds: int, command: list[str]) -> dict:
     load = os.getloadavg()[0]
-    wall, peak = measure(command)
+    wall, peak, cpu = measure(command)
     print(
-        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  peak {peak / 2**30:5.2f} GiB  "
+        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  cpu {cpu:6.1f} s  "
+        f"peak {peak / 2**30:5.2f} GiB  "
         f"load {load:4.1f}",
         flush=True,
     )
@@ -280,6 +288,7 @@ def _timed(label: str, n_ponds: int, command: list[str]) -> dict:
         "size": n_ponds,
         "run": label,
         "wall_s": wall,
+        "cpu_s": cpu,
         "peak_gib": peak / 2**30,
         "loadavg": load,
     }
@@ -334,19 +343,23 @@ def _print_comparison(rounds: list[dict], n_ponds: int, cells: int) -> None:
 
     print(f"\n{n_ponds} ponds, {cells} x {cells} x {N_DAYS}, {len(rounds)} rounds: median")
     for label in ("cold", "warm", "reference", "xr-load"):
-        walls = [r[label]["wall_s"] for r in rounds]
+        runs = [r[label] for r in rounds]
+        walls = [run["wall_s"] for run in runs]
+        loads = [run["loadavg"] for run in runs]
         print(
             f"  {label:<10} wall {median(walls):6.1f} s (min {min(walls):.1f}, max "
-            f"{max(walls):.1f})  peak {median(r[label]['peak_gib'] for r in rounds):5.2f} GiB  "
-            f"load {min(r[label]['loadavg'] for r in rounds):.1f}-"
-            f"{max(r[label]['loadavg'] for r in rounds):.1f}"
+            f"{max(walls):.1f})  cpu {median(run['cpu_s'] for run in runs):6.1f} s  "
+            f"peak {median(run['peak_gib'] for run in runs):5.2f} GiB  "
+            f"load {min(loads):.1f}-{max(loads):.1f}"
         )
+    print("  ratios, each the median of the rounds' ratios (wall; cpu):")
     for run in ("cold", "warm"):
         for other in ("reference", "xr-load"):
-            ratios = [r[run]["wall_s"] / r[other]["wall_s"] for r in rounds]
+            walls = [r[run]["wall_s"] / r[other]["wall_s"] for r in rounds]
+            cpus = [r[run]["cpu_s"] / r[other]["cpu_s"] for r in rounds]
             print(
-                f"  lakeloss {run} / {other}: {median(ratios):.2f} "
-                f"(rounds: {', '.join(f'{x:.2f}' for x in ratios)})"
+                f"  lakeloss {run} / {other}: wall {median(walls):.2f} "
+                f"(rounds {', '.join(f'{x:.2f}' for x in walls)}); cpu {median(cpus):.2f}"
             )
 
 
