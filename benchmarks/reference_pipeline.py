@@ -130,7 +130,8 @@ def daily_rates(
     day_of_year = climate.time.dt.dayofyear.values
     evaporation = np.empty((n_days, inside.size))
     precipitation = np.empty((n_days, inside.size))
-    for _, days in pd.Series(np.arange(n_days)).groupby(climate.time.dt.month.values):
+    month = climate.time.dt.year.values * 100 + climate.time.dt.month.values  # e.g. 203101
+    for _, days in pd.Series(np.arange(n_days)).groupby(month):
         rows = days.to_numpy()
         means = {}
         for quantity, name in VARIABLES.items():
