@@ -3,16 +3,16 @@
 Inputs (generated once, cached under ``benchmarks/_cache/``, which git ignores):
 
 * the synthetic pond layer of ``benchmarks/synthetic.py`` written to a GeoPackage;
-* one year (2031, daily) of invented climate on a lat/lon grid of 400 x 400 cells of 0.05
-  degree (``--grid N``: N x N cells over the same box) covering the same box: air
-  temperature, relative humidity, 10 m wind, shortwave and precipitation, uncompressed
-  float32 NetCDF.
+* one year (2031, daily) of invented climate on a lat/lon grid covering the same box, 400 x
+  400 cells of 0.05 degree by default (``--grid N``: N x N cells): air temperature, relative
+  humidity, 10 m wind, shortwave and precipitation, uncompressed float32 NetCDF.
 
 Each size is run three times with ``penman_open_water``, monthly periods, writing the
 GeoPackage and CSVs: locally with an empty weights cache (``cold``), locally again with the
 weights cached (``warm``), and with ``--workers 2`` on a LocalCluster (weights cached). For
-every run the wall time and the peak resident memory of the whole process tree (sum of RSS
-over the process and its children, polled every 0.2 s) are printed, then the stage timings
+every run the wall time, the CPU time (user + system of the process and the children it
+waited for) and the peak resident memory of the whole process tree (sum of RSS over the
+process and its children, polled every 0.2 s) are printed, then the stage timings
 of the run's ``run.json`` and a cProfile top-10 of the smallest size.
 
 With ``--compare-reference`` (10^5 ponds on 200 x 200 cells unless ``--sizes``/``--grid``
