@@ -22,8 +22,8 @@ the configuration of ``benchmarks/end_to_end.py`` (``penman_open_water``, monthl
 
 The daily rates of the year are held whole (two (365, n) float64 arrays: 0.6 GB at 10^5
 bodies) for xarray's monthly sums; the means and the physics go month by month, which is what
-an analyst does once the whole year in one call runs out of memory (at 10^5 bodies the physics
-alone took 6.4 GB and four times as long as month by month).
+an analyst does once the whole year in one call runs out of memory (at 10^5 bodies the process
+then peaked at 6.4 GB and the physics took about four times as long as month by month).
 
 Differences from lakeloss that remain on purpose (see ``--check``):
 
@@ -124,7 +124,7 @@ def daily_rates(
     Month by month: each variable's month of grid values, converted to the physics' units,
     goes through one sparse product into the bodies' area-weighted means, and the means
     through the physics. (A whole year at once holds 0.3 GB per (365, 10^5) array; the
-    physics alone then took 6.4 GB and four times as long as month by month.)
+    process then peaked at 6.4 GB and the physics took about four times as long.)
     """
     n_days = climate.sizes["time"]
     day_of_year = climate.time.dt.dayofyear.values
