@@ -3,21 +3,31 @@
 Inputs (generated once, cached under ``benchmarks/_cache/``, which git ignores):
 
 * the synthetic pond layer of ``benchmarks/synthetic.py`` written to a GeoPackage;
-* one year (2031, daily) of invented climate on a 0.05 degree lat/lon grid of 400 x 400
-  cells covering the same box: air temperature, relative humidity, 10 m wind, shortwave and
-  precipitation, uncompressed float32 NetCDF.
+* one year (2031, daily) of invented climate on a lat/lon grid covering the same box, 400 x
+  400 cells of 0.05 degree by default (``--grid N``: N x N cells): air temperature, relative
+  humidity, 10 m wind, shortwave and precipitation, uncompressed float32 NetCDF.
 
 Each size is run three times with ``penman_open_water``, monthly periods, writing the
 GeoPackage and CSVs: locally with an empty weights cache (``cold``), locally again with the
 weights cached (``warm``), and with ``--workers 2`` on a LocalCluster (weights cached). For
-every run the wall time and the peak resident memory of the whole process tree (sum of RSS
-over the process and its children, polled every 0.2 s) are printed, then the stage timings
+every run the wall time, the CPU time (user + system of the process and the children it
+waited for) and the peak resident memory of the whole process tree (sum of RSS over the
+process and its children, polled every 0.2 s) are printed, then the stage timings
 of the run's ``run.json`` and a cProfile top-10 of the smallest size.
+
+With ``--compare-reference`` (10^5 ponds on 200 x 200 cells unless ``--sizes``/``--grid``
+say otherwise) it times instead, in alternated rounds, ``lakeloss run`` cold and warm, the
+general-purpose pipeline of ``benchmarks/reference_pipeline.py`` on the same inputs, and a
+plain ``xarray.open_dataset(...)[name].load()`` of the five variables, each as a subprocess
+measured the same way, with the 1-minute load average just before each run; then the median
+ratios lakeloss / reference and lakeloss / xarray load, and how far the reference's monthly
+depths are from lakeloss's.
 
 Usage::
 
     python benchmarks/end_to_end.py                      # 10^5 and 10^6
     python benchmarks/end_to_end.py --sizes 100000 --no-cluster --no-profile
+    python benchmarks/end_to_end.py --compare-reference --repeats 3
 
 Figures only; nothing here passes or fails.
 """
@@ -30,6 +40,7 @@ import json
 import os
 import platform
 import pstats
+import resource
 import shutil
 import subprocess
 import sys
@@ -48,7 +59,7 @@ from synthetic import CACHE, REGION, cached_layer  # noqa: E402
 
 VENV_BIN = Path(sys.executable).parent
 LAKELOSS = VENV_BIN / "lakeloss"
-CELL_DEG = 0.05
+GRID_CELLS = 400  # cells along each side of the climate grid, by default
 YEAR = 2031
 N_DAYS = 365
 POLL_S = 0.2
@@ -71,11 +82,12 @@ def layer_path(n_ponds: int) -> Path:
     return path
 
 
-def _grid() -> tuple[np.ndarray, np.ndarray]:
-    """Cell centres: longitudes ascending, latitudes descending (north-up). [degrees]"""
+def _grid(cells: int) -> tuple[np.ndarray, np.ndarray]:
+    """Centres of ``cells`` x ``cells`` cells over REGION: longitudes ascending, latitudes
+    descending (north-up). [degrees]"""
     west, south, east, north = REGION
-    lon = west + CELL_DEG * (np.arange(round((east - west) / CELL_DEG)) + 0.5)
-    lat = north - CELL_DEG * (np.arange(round((north - south) / CELL_DEG)) + 0.5)
+    lon = west + (east - west) / cells * (np.arange(cells) + 0.5)
+    lat = north - (north - south) / cells * (np.arange(cells) + 0.5)
     return lon, lat
 
 
@@ -104,9 +116,9 @@ _VARIABLES = {
 }
 
 
-def climate_path() -> Path:
-    """One year of daily invented climate on the 400 x 400 grid, cached."""
-    lon, lat = _grid()
+def climate_path(cells: int = GRID_CELLS) -> Path:
+    """One year of daily invented climate on the ``cells`` x ``cells`` grid, cached."""
+    lon, lat = _grid(cells)
     path = CACHE / f"e2e-climate-{lat.size}x{lon.size}-{YEAR}.nc"
     if path.exists():
         return path
@@ -150,8 +162,8 @@ def climate_path() -> Path:
     return path
 
 
-def write_config(n_ponds: int, out_dir: Path, cache_dir: Path) -> Path:
-    climate = climate_path()
+def write_config(n_ponds: int, out_dir: Path, cache_dir: Path, cells: int = GRID_CELLS) -> Path:
+    climate = climate_path(cells)
     keys = {
         "air_temperature": "tas",
         "relative_humidity": "hurs",
@@ -168,7 +180,11 @@ def write_config(n_ponds: int, out_dir: Path, cache_dir: Path) -> Path:
         "compute": {"cache_dir": str(cache_dir)},
     }
     config["climate"]["wind_speed"]["height_m"] = 10.0
-    path = CACHE / f"e2e-{n_ponds}.toml"
+    path = (
+        CACHE / f"e2e-{n_ponds}.toml"
+        if cells == GRID_CELLS
+        else CACHE / f"e2e-{n_ponds}-{cells}.toml"
+    )
     path.write_text(tomli_w.dumps(config))
     return path
 
@@ -190,8 +206,10 @@ def _tree_rss(process: psutil.Process) -> int:
     return total
 
 
-def measure(command: list[str]) -> tuple[float, int]:
-    """Run ``command``; return wall time [s] and the process tree's peak RSS [bytes]."""
+def measure(command: list[str]) -> tuple[float, int, float]:
+    """Run ``command``; return wall time [s], the process tree's peak RSS [bytes] and the CPU
+    time (user + system) of the process and the children it waited for [s]."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
     child = subprocess.Popen(command, stderr=subprocess.PIPE, text=True)
     process = psutil.Process(child.pid)
@@ -203,25 +221,146 @@ def measure(command: list[str]) -> tuple[float, int]:
     stderr = child.stderr.read() if child.stderr else ""
     if child.returncode != 0:
         raise SystemExit(f"{' '.join(command)} failed ({child.returncode}):\n{stderr}")
-    return wall, peak
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime
+    return wall, peak, cpu
 
 
-def run_once(n_ponds: int, label: str, extra: list[str], *, cold: bool) -> dict:
-    out_dir = CACHE / f"out-{n_ponds}"
-    cache_dir = CACHE / f"weights-{n_ponds}"
+def _run_dirs(n_ponds: int, cells: int) -> tuple[Path, Path]:
+    """Output and weights-cache directories of lakeloss runs on ``n_ponds`` and ``cells``."""
+    suffix = f"{n_ponds}" if cells == GRID_CELLS else f"{n_ponds}-{cells}"
+    return CACHE / f"out-{suffix}", CACHE / f"weights-{suffix}"
+
+
+def run_once(
+    n_ponds: int, label: str, extra: list[str], *, cold: bool, cells: int = GRID_CELLS
+) -> dict:
+    out_dir, cache_dir = _run_dirs(n_ponds, cells)
     if cold:
         shutil.rmtree(cache_dir, ignore_errors=True)
-    config = write_config(n_ponds, out_dir, cache_dir)
+    config = write_config(n_ponds, out_dir, cache_dir, cells)
     command = [str(LAKELOSS), "run", str(config), "--overwrite", "-q", *extra]
-    wall, peak = measure(command)
+    load = os.getloadavg()[0]
+    wall, peak, cpu = measure(command)
     timings = json.loads((out_dir / "run.json").read_text())["timings_s"]
-    row = {"size": n_ponds, "run": label, "wall_s": wall, "peak_gib": peak / 2**30, **timings}
+    row = {
+        "size": n_ponds,
+        "run": label,
+        "wall_s": wall,
+        "cpu_s": cpu,
+        "peak_gib": peak / 2**30,
+        "loadavg": load,
+        **timings,
+    }
     print(
-        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  peak {peak / 2**30:5.2f} GiB  "
-        + "  ".join(f"{k} {v:.1f}" for k, v in timings.items()),
+        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  cpu {cpu:6.1f} s  "
+        f"peak {peak / 2**30:5.2f} GiB  "
+        f"load {load:4.1f}  " + "  ".join(f"{k} {v:.1f}" for k, v in timings.items()),
         flush=True,
     )
     return row
+
+
+# --------------------------------------------------------------------------- reference
+
+
+REFERENCE = Path(__file__).resolve().parent / "reference_pipeline.py"
+
+# Just reading the five variables into memory, the floor of any pipeline over these files.
+_LOAD_DRIVER = """
+import sys
+import xarray
+path, names = sys.argv[1], sys.argv[2:]
+arrays = [xarray.open_dataset(path)[name].load() for name in names]
+"""
+
+
+def _timed(label: str, n_ponds: int, command: list[str]) -> dict:
+    load = os.getloadavg()[0]
+    wall, peak, cpu = measure(command)
+    print(
+        f"{n_ponds:>8} {label:<10} wall {wall:7.1f} s  cpu {cpu:6.1f} s  "
+        f"peak {peak / 2**30:5.2f} GiB  "
+        f"load {load:4.1f}",
+        flush=True,
+    )
+    return {
+        "size": n_ponds,
+        "run": label,
+        "wall_s": wall,
+        "cpu_s": cpu,
+        "peak_gib": peak / 2**30,
+        "loadavg": load,
+    }
+
+
+def compare_reference(n_ponds: int, cells: int, repeats: int) -> None:
+    """Time lakeloss (cold, warm), the reference pipeline and a plain xarray load, alternated.
+
+    Each round runs the three in a rotated order (lakeloss cold then warm stay together, as
+    warm needs cold's cache), so that a drift of the shared machine's speed falls on all
+    three; ratios are taken within each round and their median printed.
+    """
+    out_dir, _ = _run_dirs(n_ponds, cells)
+    reference_dir = CACHE / f"reference-{n_ponds}-{cells}"
+    climate = climate_path(cells)
+    reference = [
+        sys.executable,
+        str(REFERENCE),
+        str(layer_path(n_ponds)),
+        str(climate),
+        str(reference_dir),
+        "--quiet",
+    ]
+    xarray_load = [sys.executable, "-c", _LOAD_DRIVER, str(climate), *_VARIABLES]
+
+    def lakeloss() -> list[dict]:
+        cold = run_once(n_ponds, "cold", [], cold=True, cells=cells)
+        return [cold, run_once(n_ponds, "warm", [], cold=False, cells=cells)]
+
+    jobs = [
+        lakeloss,
+        lambda: [_timed("reference", n_ponds, reference)],
+        lambda: [_timed("xr-load", n_ponds, xarray_load)],
+    ]
+    rounds = []
+    for round_ in range(repeats):
+        print(f"round {round_ + 1} of {repeats}", flush=True)
+        rows = []
+        for job in jobs[round_ % 3 :] + jobs[: round_ % 3]:
+            rows.extend(job())
+        rounds.append({row["run"]: row for row in rows})
+    _print_comparison(rounds, n_ponds, cells)
+    sys.path.insert(0, str(REFERENCE.parent))
+    from reference_pipeline import check
+
+    check(reference_dir, out_dir, "pond_id")
+
+
+def _print_comparison(rounds: list[dict], n_ponds: int, cells: int) -> None:
+    def median(values) -> float:
+        return float(np.median(list(values)))
+
+    print(f"\n{n_ponds} ponds, {cells} x {cells} x {N_DAYS}, {len(rounds)} rounds: median")
+    for label in ("cold", "warm", "reference", "xr-load"):
+        runs = [r[label] for r in rounds]
+        walls = [run["wall_s"] for run in runs]
+        loads = [run["loadavg"] for run in runs]
+        print(
+            f"  {label:<10} wall {median(walls):6.1f} s (min {min(walls):.1f}, max "
+            f"{max(walls):.1f})  cpu {median(run['cpu_s'] for run in runs):6.1f} s  "
+            f"peak {median(run['peak_gib'] for run in runs):5.2f} GiB  "
+            f"load {min(loads):.1f}-{max(loads):.1f}"
+        )
+    print("  ratios, each the median of the rounds' ratios (wall; cpu):")
+    for run in ("cold", "warm"):
+        for other in ("reference", "xr-load"):
+            walls = [r[run]["wall_s"] / r[other]["wall_s"] for r in rounds]
+            cpus = [r[run]["cpu_s"] / r[other]["cpu_s"] for r in rounds]
+            print(
+                f"  lakeloss {run} / {other}: wall {median(walls):.2f} "
+                f"(rounds {', '.join(f'{x:.2f}' for x in walls)}); cpu {median(cpus):.2f}"
+            )
 
 
 # cProfile sees only the thread it runs in, so the profiled run computes its blocks in the
@@ -236,10 +375,10 @@ cProfile.run("cli.main(args=sys.argv[1:], prog_name='lakeloss', standalone_mode=
 """
 
 
-def profile(n_ponds: int, top: int = 10) -> None:
+def profile(n_ponds: int, top: int = 10, cells: int = GRID_CELLS) -> None:
     """cProfile of one warm local run, blocks in one thread: top functions by time."""
-    out_dir = CACHE / f"out-{n_ponds}"
-    config = write_config(n_ponds, out_dir, CACHE / f"weights-{n_ponds}")
+    out_dir, cache_dir = _run_dirs(n_ponds, cells)
+    config = write_config(n_ponds, out_dir, cache_dir, cells)
     with tempfile.TemporaryDirectory() as tmp:
         stats_path = Path(tmp) / "run.prof"
         command = [sys.executable, "-c", _PROFILE_DRIVER, str(stats_path)]
@@ -268,28 +407,51 @@ def machine() -> str:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--sizes", default="100000,1000000", help="comma-separated pond counts")
+    parser.add_argument(
+        "--sizes",
+        help="comma-separated pond counts (default 100000,1000000; 100000 with "
+        "--compare-reference)",
+    )
+    parser.add_argument(
+        "--grid",
+        type=int,
+        help=f"cells along each side of the climate grid (default {GRID_CELLS}; 200 with "
+        "--compare-reference)",
+    )
     parser.add_argument("--no-cluster", action="store_true", help="skip the --workers 2 runs")
     parser.add_argument("--no-profile", action="store_true", help="skip the cProfile run")
+    parser.add_argument(
+        "--compare-reference",
+        action="store_true",
+        help="time lakeloss beside benchmarks/reference_pipeline.py and a plain xarray load",
+    )
+    parser.add_argument("--repeats", type=int, default=3, help="rounds of --compare-reference")
     args = parser.parse_args()
-    sizes = [int(s) for s in args.sizes.split(",") if s.strip()]
-    print(machine(), flush=True)
+    compare = args.compare_reference
+    default_sizes = "100000" if compare else "100000,1000000"
+    sizes = [int(s) for s in (args.sizes or default_sizes).split(",") if s.strip()]
+    cells = args.grid or (200 if compare else GRID_CELLS)
+    print(machine(), dt.datetime.now(dt.UTC).strftime("%H:%M UTC"), flush=True)
     for n in sizes:  # inputs first, so their one-off cost is not in any timing
         layer_path(n)
-    climate_path()
+    climate_path(cells)
+    if compare:
+        for n in sizes:
+            compare_reference(n, cells, args.repeats)
+        return
     rows = []
     for n in sizes:
-        rows.append(run_once(n, "cold", [], cold=True))
-        warm = run_once(n, "warm", [], cold=False)
+        rows.append(run_once(n, "cold", [], cold=True, cells=cells))
+        warm = run_once(n, "warm", [], cold=False, cells=cells)
         rows.append(warm)
         if not args.no_cluster:
-            cluster = run_once(n, "workers=2", ["--workers", "2"], cold=False)
+            cluster = run_once(n, "workers=2", ["--workers", "2"], cold=False, cells=cells)
             rows.append(cluster)
             print(
                 f"{n:>8} workers=2 / warm local wall ratio {cluster['wall_s'] / warm['wall_s']:.2f}"
             )
     if not args.no_profile:
-        profile(min(sizes))
+        profile(min(sizes), cells=cells)
 
 
 if __name__ == "__main__":
