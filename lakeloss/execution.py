@@ -40,7 +40,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from lakeloss.config import ComputeConfig
-from lakeloss.errors import ClusterError, LakelossError
+from lakeloss.errors import ClusterError, InputDataError, LakelossError
 
 if TYPE_CHECKING:
     from distributed import Client
@@ -279,21 +279,46 @@ def map_partitions(
     writing its part files into ``staging``. ``bars`` advance per partition (weights) and
     by time steps (evaporation).
     """
-    from lakeloss.partition_run import run_partition, run_partition_on_worker
+    if compute.workers or compute.scheduler:
+        assert staging is not None  # workers write their part files there
+        yield from _on_cluster(compute, tasks, bars, staging)
+    else:
+        yield from _here(tasks, bars)
 
-    if not (compute.workers or compute.scheduler):
-        for task in tasks:
-            yield run_partition(task, bars)
-        return
+
+def _here(tasks: Iterable[PartitionTask], bars: PartitionBars | None) -> Iterator[PartitionDone]:
+    """The partitions one after another in this process."""
+    from lakeloss.partition_run import run_partition
+
+    for task in tasks:
+        try:
+            done = run_partition(task, bars)
+        except LakelossError as err:
+            if task.of == 1:
+                raise  # the run's own error: one partition needs no naming
+            raise _failed_partition(task, err) from err
+        except (OSError, RuntimeError) as err:  # a file unreadable halfway through
+            raise _failed_partition(task, err) from err
+        yield done
+
+
+def _on_cluster(
+    compute: ComputeConfig,
+    tasks: Iterable[PartitionTask],
+    bars: PartitionBars | None,
+    staging: Path,
+) -> Iterator[PartitionDone]:
+    """Each partition a task on the cluster's workers, results in partition order."""
     from distributed.client import FutureCancelledError
     from distributed.scheduler import KilledWorker
+
+    from lakeloss.partition_run import run_partition_on_worker
 
     with _client(compute) as client:
         n_workers = max(1, len(client.scheduler_info().get("workers", {})))
         log.info("dask cluster %s with %d workers", client.scheduler.address, n_workers)
         window = _IN_FLIGHT_PER_WORKER * n_workers
         pending: list[tuple[PartitionTask, Any]] = []
-        assert staging is not None  # workers write their part files there
         where = str(staging)
         iterator = iter(tasks)
 
@@ -311,8 +336,11 @@ def map_partitions(
             task, future = pending.pop(0)
             try:
                 done = future.result()
-            except LakelossError:
-                raise  # the partition's own error (bad input data), raised as on a local run
+            except LakelossError as err:
+                # the partition's own error (bad input data), raised as on a local run
+                if task.of == 1:
+                    raise
+                raise _failed_partition(task, err) from err
             except (KilledWorker, FutureCancelledError, OSError, TimeoutError) as err:
                 raise _lost_partition(task, err) from err
             submit()
@@ -329,6 +357,17 @@ def _lost_partition(task: PartitionTask, err: BaseException) -> ClusterError:
         f"the cluster lost partition {task.index + 1} (first water body {first}; "
         f"{_one_line(err)}); no outputs were written; check worker memory limits and logs, "
         "then rerun"
+    )
+
+
+def _failed_partition(task: PartitionTask, err: BaseException) -> LakelossError:
+    """``err`` of one partition as one line naming the partition and its first water body."""
+    where = f"partition {task.index + 1} of {task.of} (first water body {_first_id(task)})"
+    if isinstance(err, LakelossError):
+        return type(err)(f"{where}: {err}")
+    return InputDataError(
+        f"{where} could not be computed ({_one_line(err)}); no outputs were written; check "
+        "that the input files are whole and were not changed during the run, then rerun"
     )
 
 

@@ -48,6 +48,8 @@ class PartitionTask:
     rows: range
     series: SeriesSettings | None = None
     """Set when the run keeps the per-step series (``[output] series``)."""
+    of: int = 1
+    """How many partitions the run has."""
 
 
 @dataclass

@@ -344,7 +344,7 @@ def _stages(
     tables.start(inputs.survey)
     client_inputs = dataclasses.replace(inputs, survey=_for_workers(inputs.survey))
     tasks = (
-        PartitionTask(config, client_inputs, index, rows, settings)
+        PartitionTask(config, client_inputs, index, rows, settings, of=len(ranges))
         for index, rows in enumerate(ranges)
     )
     with timer.stage("evaporate"):

@@ -171,3 +171,30 @@ def test_geoparquet_output_holds_one_file_per_partition_and_the_same_numbers(var
     assert len(periods) == len(layer) * 2
     for name in ("summary_by_waterbody.csv", "summary_by_period.csv", "summary_by_group.csv"):
         assert (parquet / name).read_bytes() == (gpkg / name).read_bytes(), name
+
+
+def test_a_failing_partition_names_itself_and_leaves_the_previous_outputs(varied, tmp_path):
+    # A layer whose rows 150..151 hold a collection without polygons: the survey does not
+    # see it (the geometry is not scanned for a polygon layer), partition 3 of 21 meets it.
+    import shapely
+
+    from builders import pond_layer as ponds
+
+    config = varied(partition_bodies=64)
+    previous = _cli_run(tmp_path, config, "out")
+    before = {p.name: p.read_bytes() for p in previous.iterdir() if p.suffix == ".csv"}
+    frame = ponds(N_PONDS, seed=11)
+    frame.loc[150, "geometry"] = shapely.GeometryCollection([shapely.LineString([(0, 0), (1, 1)])])
+    frame.to_file(config["waterbodies"]["path"], layer="ponds", driver="GPKG")
+    path = tmp_path / "bad.toml"
+    config = dict(config, output={**config["output"], "dir": str(previous)})
+    path.write_text(tomli_w.dumps(config))
+    result = CliRunner().invoke(cli, ["run", str(path), "--overwrite", "-q"])
+    assert result.exit_code == 2, result.output
+    lines = [line for line in result.output.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("error: partition 3 of 21"), lines
+    assert f"first water body {frame['pond_id'].iloc[128]}" in lines[0]
+    assert "GeometryCollection" in lines[0] or "collection" in lines[0].lower()
+    after = {p.name: p.read_bytes() for p in previous.iterdir() if p.suffix == ".csv"}
+    assert after == before
+    assert sorted(p.name for p in tmp_path.iterdir() if "lakeloss" in p.name) == []
