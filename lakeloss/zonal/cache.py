@@ -139,11 +139,10 @@ class WeightsCache:
             cached = self._read(path, grid, len(polygons))
             if cached is not None:
                 return cached, True
-        extent = {} if bounds is None else {"bounds": bounds}
         if builder is not None:
-            built = builder(polygons, grid, **extent)
+            built = builder(polygons, grid, **({} if bounds is None else {"bounds": bounds}))
         else:
-            built = _build.build_weights(polygons, grid, reprojected=reprojected, **extent)
+            built = _build.build_weights(polygons, grid, reprojected=reprojected, bounds=bounds)
         built.save(path)
         return built, False
 
