@@ -1,11 +1,8 @@
 """Where a run is computed: partitions in this process, or on a dask.distributed cluster.
 
 The unit of work is a partition of water bodies (:mod:`lakeloss.partition_run`) taken through
-the whole time axis. Its blocks of time steps are computed by the same pure functions,
-:func:`lakeloss.blocks.compute_block` (read, average, physics, sums) or, when a method carries
-a state (:mod:`lakeloss.physics.stateful`), :func:`lakeloss.blocks.extract_filled` ahead on
-the thread pool and :func:`lakeloss.blocks.finish_block` in time order, each block starting
-from the state the one before it left. Sums are exact (fixed point), so every output file is
+the whole time axis; its blocks of time steps run in order on a small thread pool
+(:mod:`lakeloss.timeblocks`). Sums are exact (fixed point), so every output file is
 identical whichever scheduler ran the partitions and however the time axis was cut.
 
 * default: partitions one after another in this process, each one's blocks on a small
@@ -28,16 +25,12 @@ loads) its own zonal weights where it runs.
 from __future__ import annotations
 
 import contextlib
-import contextvars
 import logging
 import os
 import re
-from collections.abc import Iterable, Iterator, Mapping, Sequence
-from concurrent.futures import Future, ThreadPoolExecutor
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
-
-import numpy as np
 
 from lakeloss.config import ComputeConfig
 from lakeloss.errors import ClusterError, InputDataError, LakelossError
@@ -45,96 +38,18 @@ from lakeloss.errors import ClusterError, InputDataError, LakelossError
 if TYPE_CHECKING:
     from distributed import Client
 
-    from lakeloss.blocks import BlockContext, BlockResult, Extracted, RunState
     from lakeloss.partition_run import PartitionBars, PartitionDone, PartitionTask
-    from lakeloss.zonal import ZonalWeights
 
 log = logging.getLogger(__name__)
 
 CONNECT_TIMEOUT_S = 20.0
 """How long to try to reach a scheduler, and to wait for its first worker. [s]"""
 
-# Each block may be retried this often after its worker died or failed (besides dask's own
+# Each partition may be retried this often after its worker died or failed (besides dask's own
 # rescheduling of tasks lost with a worker, bounded by distributed.scheduler.allowed-failures).
 _RETRIES = 2
-# Blocks in flight per worker: one running, one queued, so a worker never idles between blocks.
+# Partitions in flight per worker: one running, one queued, so a worker never idles.
 _IN_FLIGHT_PER_WORKER = 2
-
-
-def _local_threads() -> int:
-    return max(1, min(2, os.cpu_count() or 1))
-
-
-def _run_local(
-    context: BlockContext,
-    weights: Mapping[str, ZonalWeights],
-    static: Mapping[str, np.ndarray],
-    blocks: Sequence[slice],
-    state: RunState | None = None,
-) -> Iterator[BlockResult]:
-    from lakeloss.blocks import compute_block
-
-    threads = _local_threads()
-    if context.stateful:
-        yield from _run_local_in_order(context, weights, static, blocks, state, threads)
-        return
-    if threads == 1 or len(blocks) == 1:
-        for block in blocks:
-            yield compute_block(context, weights, static, block)
-        return
-    with ThreadPoolExecutor(max_workers=threads) as pool:
-        pending: list[Future[BlockResult] | None] = [
-            pool.submit(compute_block, context, weights, static, b) for b in blocks[:threads]
-        ]
-        for i in range(len(blocks)):
-            future = pending[i]
-            assert future is not None
-            part = future.result()
-            pending[i] = None  # release the block once merged
-            nxt = i + threads
-            if nxt < len(blocks):
-                pending.append(pool.submit(compute_block, context, weights, static, blocks[nxt]))
-            yield part
-
-
-def _extract_owned(
-    context: BlockContext, weights: Mapping[str, ZonalWeights], block: slice
-) -> Extracted:
-    """:func:`lakeloss.blocks.extract_filled` with the means in memory of their own: the
-    thread's reusable buffer is overwritten by its next block while this one is stepped
-    on another thread."""
-    from lakeloss.blocks import extract_filled
-
-    means, valid, gaps = extract_filled(context, weights, block)
-    return {q: np.array(v) for q, v in means.items()}, np.array(valid), gaps
-
-
-def _run_local_in_order(
-    context: BlockContext,
-    weights: Mapping[str, ZonalWeights],
-    static: Mapping[str, np.ndarray],
-    blocks: Sequence[slice],
-    state: RunState | None,
-    threads: int,
-) -> Iterator[BlockResult]:
-    """Blocks read ahead on a thread pool, their physics stepped here in time order."""
-    from lakeloss.blocks import finish_block
-
-    with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
-        pending: list[Future[Extracted] | None] = [
-            pool.submit(_extract_owned, context, weights, b) for b in blocks[:threads]
-        ]
-        for i, block in enumerate(blocks):
-            future = pending[i]
-            assert future is not None
-            extracted = future.result()
-            pending[i] = None
-            nxt = i + threads
-            if nxt < len(blocks):
-                pending.append(pool.submit(_extract_owned, context, weights, blocks[nxt]))
-            part = finish_block(context, extracted, static, block, state)
-            state = part.state
-            yield part
 
 
 def _one_line(err: BaseException) -> str:
@@ -177,41 +92,8 @@ def _wait_for_workers(client: Client, target: str) -> None:
         ) from err
 
 
-_SESSION: contextvars.ContextVar[Client | None] = contextvars.ContextVar(
-    "lakeloss_cluster_session", default=None
-)
-
-
-@contextlib.contextmanager
-def cluster_session(compute: ComputeConfig) -> Iterator[None]:
-    """Keep one cluster client for everything run inside (every partition of a run).
-
-    Without a cluster configured, nothing happens.
-    """
-    if not (compute.workers or compute.scheduler) or _SESSION.get() is not None:
-        yield
-        return
-    with _new_client(compute) as client:
-        token = _SESSION.set(client)
-        try:
-            yield
-        finally:
-            _SESSION.reset(token)
-
-
 @contextlib.contextmanager
 def _client(compute: ComputeConfig) -> Iterator[Client]:
-    """The session's client (:func:`cluster_session`), or a new one for this call."""
-    session = _SESSION.get()
-    if session is not None:
-        yield session
-        return
-    with _new_client(compute) as client:
-        yield client
-
-
-@contextlib.contextmanager
-def _new_client(compute: ComputeConfig) -> Iterator[Client]:
     from distributed import Client, LocalCluster
 
     if compute.scheduler:
@@ -236,34 +118,6 @@ def _new_client(compute: ComputeConfig) -> Iterator[Client]:
         ) from err
     with cluster, Client(cluster) as client:
         yield client
-
-
-def run_blocks(
-    context: BlockContext,
-    weights: Mapping[str, ZonalWeights],
-    static: Mapping[str, np.ndarray],
-    blocks: Sequence[slice],
-    state: RunState | None = None,
-) -> Iterator[BlockResult]:
-    """Compute every block of one partition in this process and yield them in block order.
-
-    Parameters
-    ----------
-    context, weights, static
-        Arguments of :func:`lakeloss.blocks.compute_block` shared by every block.
-    blocks : sequence of slice
-        Time-step ranges, in order.
-    state : dict, optional
-        The initial state of the stateful methods (:func:`lakeloss.blocks.initial_states`);
-        required when ``context`` has one.
-
-    Yields
-    ------
-    lakeloss.blocks.BlockResult
-        One per block, in the order of ``blocks``, as soon as it (and every block before it)
-        is done.
-    """
-    yield from _run_local(context, weights, static, blocks, state)
 
 
 def map_partitions(

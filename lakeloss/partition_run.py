@@ -1,6 +1,8 @@
 """One partition of water bodies, computed through the whole time axis.
 
-:func:`run_partition` is what a partition costs: its blocks of time steps in order (read
+:func:`run_partition` is what a partition costs, stage by stage: its rows of the layer
+(:func:`read_partition`), its zonal weights (:func:`build_weights`, cached, centred on the
+whole layer) and facts, its blocks of time steps in order (:func:`compute_totals`: read
 ahead on threads, a stateful method stepped in time order), then its rows of the layer and
 of the period table (:func:`lakeloss.results.partition_tables`). It runs in this process, or
 on a dask worker, where it also writes the partition's part files into the output's staging
@@ -11,27 +13,47 @@ to the client.
 from __future__ import annotations
 
 import dataclasses
+import functools
+import os
 import time
 import warnings
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import numpy as np
+
+from lakeloss import timeaxis
+from lakeloss.blocks import (
+    BlockContext,
+    PeriodTotals,
+    add_block,
+    initial_states,
+    zero_totals,
+)
 from lakeloss.body_facts import BodyFacts
 from lakeloss.config import ComputeConfig, RunConfig
 from lakeloss.errors import GeometryRepairedWarning
+from lakeloss.gaps import DEFAULT_LIMIT
+from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io.vector import read_waterbody_rows
 from lakeloss.partitions import PartitionOutcome
 from lakeloss.run_warnings import repair_counts
 from lakeloss.series_stream import SeriesSettings, SeriesStream, temporary_directory
-from lakeloss.zonal import ZonalWeights
+from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
+from lakeloss.zonal import WeightsCache, ZonalWeights, layer_key, partition
+from lakeloss.zonal.cache import geometry_digest
 
 if TYPE_CHECKING:
     import geopandas as gpd
     import pandas as pd
 
     from lakeloss.progress import ProgressBar, ProgressFactory
+
+SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
+"""Where a partition's per-step series go, block by block: ``sink(block, values)``."""
 
 
 @dataclass(frozen=True)
@@ -93,8 +115,6 @@ def read_partition(
 ) -> tuple[Inputs, dict[str, ZonalWeights], BodyFacts, bool, int, int]:
     """The partition's rows, weights and facts; whether every weight came from the cache;
     and how many of its polygons were repaired and how many are empty."""
-    from lakeloss.pipeline import build_weights
-
     survey = task.inputs.survey
     assert survey is not None  # load_inputs surveys the layer
     layer = read_waterbody_rows(survey, task.rows.start, task.rows.stop)
@@ -116,7 +136,6 @@ def run_partition(
     Its series file, when the run keeps one, goes into ``series_dir`` (default: a
     temporary directory removed when the process exits).
     """
-    from lakeloss.pipeline import compute_totals
     from lakeloss.results import partition_tables
 
     config = task.config
@@ -169,3 +188,119 @@ def part_directory(staging: Path, index: int) -> Path:
 def _local(compute: ComputeConfig) -> ComputeConfig:
     """The compute settings of a worker's own partition: no cluster of its own."""
     return dataclasses.replace(compute, workers=0, scheduler=None)
+
+
+# --------------------------------------------------------------------------- weights
+
+
+def default_cache_dir() -> Path:
+    """Where zonal weights are cached: $LAKELOSS_CACHE_DIR, else the user cache directory."""
+    if os.environ.get("LAKELOSS_CACHE_DIR"):
+        return Path(os.environ["LAKELOSS_CACHE_DIR"])
+    root = os.environ.get("XDG_CACHE_HOME")
+    return (Path(root) if root else Path.home() / ".cache") / "lakeloss"
+
+
+def build_weights(
+    config: RunConfig,
+    inputs: Inputs,
+    *,
+    bounds: tuple[float, float, float, float] | None = None,
+) -> tuple[dict[str, ZonalWeights], bool]:
+    """One weight matrix per distinct climate grid for ``inputs.layer``, cached.
+
+    ``bounds`` are the whole layer's (:attr:`lakeloss.io.vector.LayerSurvey.bounds`): with
+    them a partition's weights are those its bodies get in a build of the whole layer
+    (the equal-area projection is centred on the layer, not on the partition), so results do
+    not depend on the partitions; they enter the cache key. Also says whether every matrix
+    came from the cache.
+    """
+    cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
+    layer = inputs.bodies
+    frame = layer.frame
+    out: dict[str, ZonalWeights] = {}
+    geometry = geometry_digest(frame)  # every vertex once, whatever the number of grids
+    keys = {
+        key: layer_key(frame, grid, geometry=geometry, bounds=bounds)
+        for key, grid in inputs.grids.items()
+    }
+    missing = [key for key in inputs.grids if not cache.path_for(keys[key]).exists()]
+    builder = functools.partial(
+        partition.build_weights_in_blocks, bounds=bounds, require_overlap=bounds is None
+    )
+    for key, grid in inputs.grids.items():
+        out[key], _ = cache.get_or_build(frame, grid, builder=builder, key=keys[key])
+    if layer.stated_area_m2 is not None and layer.field_area_m2 is not None:
+        # the cache keeps geometry only; the stated areas join every run afresh
+        stated, field = layer.stated_area_m2, layer.field_area_m2
+        out = {key: w.with_stated_areas(stated, field) for key, w in out.items()}
+    return out, not missing
+
+
+# --------------------------------------------------------------------------- extract + evaporate
+
+
+def block_context(
+    config: RunConfig,
+    inputs: Inputs,
+    keep_series: bool = False,
+    body_count: np.ndarray | None = None,
+) -> BlockContext:
+    return BlockContext(
+        fields=inputs.fields,
+        field_grid=dict(inputs.field_grid),
+        methods=config.method.all,
+        primary=config.method.name,
+        parameters=dict(config.parameters),
+        day_of_year=inputs.axis.day_of_year,
+        days=inputs.axis.days,
+        period_index=inputs.periods.index,
+        keep_series=keep_series,
+        body_count=body_count,
+        max_gap_steps=gap_limit(config, inputs.axis),
+        clip_negative=config.clip_negative,
+    )
+
+
+def gap_limit(config: RunConfig, axis: timeaxis.TimeAxis) -> int:
+    """Longest climate gap filled by interpolation [step]: ``[checks] max_gap_steps``, or
+    the default for the time step (:data:`lakeloss.gaps.DEFAULT_LIMIT`)."""
+    if config.max_gap_steps is not None:
+        return config.max_gap_steps
+    return DEFAULT_LIMIT[axis.step]
+
+
+def compute_totals(
+    config: RunConfig,
+    inputs: Inputs,
+    weights: Mapping[str, ZonalWeights],
+    facts: BodyFacts,
+    bar: ProgressBar | None = None,
+    series_sink: SeriesSink | None = None,
+) -> PeriodTotals:
+    """Run every block (locally or on a cluster) and merge the results in time order.
+
+    ``bar`` is advanced by the steps of each block done.
+
+    The blocks are computed for one representative of each group of bodies with identical
+    inputs (:func:`lakeloss.grouping.group_bodies`) and the sums copied to every member.
+    """
+    from lakeloss.timeblocks import run_blocks
+
+    static = facts.physics_inputs()
+    groups = group_bodies(weights, static, inputs_used(config.method.all))
+    context = block_context(config, inputs, series_sink is not None, groups.count)
+    n_steps = len(inputs.axis.days)
+    totals = zero_totals(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
+    steps = aligned(block_steps(config, inputs, groups.n_groups), read_steps(config))
+    blocks = list(iter_blocks(len(inputs.axis.days), steps))
+    shared = (groups.group_weights(weights), groups.group_values(static))
+    state = initial_states(context, shared[1], groups.n_groups)
+    for part in run_blocks(context, *shared, blocks, state):
+        add_block(totals, part)
+        if series_sink is not None and part.series is not None:
+            series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
+        if bar is not None:
+            bar.update(part.steps)
+    merged = totals.finish()
+    return merged if groups.one_body_each else merged.for_members(groups.member_of)

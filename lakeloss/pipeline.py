@@ -1,29 +1,30 @@
 """The batch run as named stages.
 
-    load -> weights -> extract -> evaporate -> aggregate -> (write, in results.py)
+    load -> partitions (weights -> blocks of time -> tables, each) -> aggregate -> finish
 
-``load`` asks ``io/`` for the water-body layer and lazy climate fields; ``weights`` builds
-(or loads from the cache) one sparse weight matrix per distinct climate grid; ``extract`` and
-``evaporate`` run block by block along time: each block of every variable is read, turned
-into (time, water body) area-weighted means, fed to the physics methods and summed into the
-reporting periods, so neither the (time, y, x) cube nor the (time, water body) result is ever
-held whole. ``aggregate`` turns the period sums into the result tables.
+``load`` surveys the water-body layer (no geometry) and opens the climate fields lazily;
+``partitions`` cuts the layer into runs of rows and hands each to
+:func:`lakeloss.execution.map_partitions`, which runs :mod:`lakeloss.partition_run` on it
+(here, or on a cluster's workers): its own rows, weights and blocks of time steps, in order,
+then its rows of the result tables, handed to a :class:`PartitionTables` sink as soon as it is
+done (gathered in memory for :func:`run_stages`, written for :func:`run_to_directory`).
+``aggregate`` merges what the partitions counted (warnings, gaps, run.json), and ``finish``
+ranks the bodies over the whole run and writes the summaries. Neither the (time, y, x) cube,
+nor the (time, water body) result, nor the per-body tables of the whole layer are ever held.
 
 This module only wires the stages, in the order they run. What a run refuses is in
-:mod:`lakeloss.checks`, how long a block is in :mod:`lakeloss.sizing`, the streamed per-step
-series in :mod:`lakeloss.series_stream`, and the warnings a run records in
-:mod:`lakeloss.run_warnings`.
+:mod:`lakeloss.checks`, what one partition does in :mod:`lakeloss.partition_run`, how the
+partitions' outcomes merge in :mod:`lakeloss.partitions`, the streamed per-step series in
+:mod:`lakeloss.series_stream`, and the warnings a run records in :mod:`lakeloss.run_warnings`.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import functools
 import logging
-import os
 import time
 import warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -46,7 +47,6 @@ from lakeloss.blocks import (  # noqa: F401 - compute_block & co. are part of th
     initial_states,
     zero_totals,
 )
-from lakeloss.body_facts import BodyFacts
 from lakeloss.checks import (
     check_attributes,
     check_methods,
@@ -64,28 +64,34 @@ from lakeloss.errors import (
     TimeAlignedWarning,
 )
 from lakeloss.execution import map_partitions
-from lakeloss.gaps import DEFAULT_LIMIT
 from lakeloss.gaps import merged_report as merged_gap_report
-from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io import climate as climate_io
 from lakeloss.io import static as static_io
 from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
 from lakeloss.io.run_record import inputs_provenance, run_record
-from lakeloss.partition_run import PartitionBars, PartitionDone, PartitionTask
+from lakeloss.partition_run import (  # noqa: F401 - build_weights & co. are part of this API
+    PartitionBars,
+    PartitionDone,
+    PartitionTask,
+    block_context,
+    build_weights,
+    compute_totals,
+    default_cache_dir,
+    gap_limit,
+)
 from lakeloss.partitions import (
     PartitionOutcome,
     merge_counts,
     partition_ranges,
     partition_size,
 )
-from lakeloss.progress import ProgressBar, ProgressFactory
+from lakeloss.progress import ProgressFactory
 from lakeloss.run_warnings import gap_warnings, negative_warning, repair_warning, replay
 from lakeloss.series_stream import SeriesSettings, open_series, temporary_directory
-from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
-from lakeloss.zonal import GridSpec, WeightsCache, ZonalWeights, layer_key, partition
-from lakeloss.zonal.cache import geometry_digest
+from lakeloss.sizing import read_steps
+from lakeloss.zonal import GridSpec
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -93,8 +99,6 @@ if TYPE_CHECKING:
     from lakeloss.results import RunResult
 
 log = logging.getLogger(__name__)
-
-SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 
 
 def run_stages(
@@ -535,122 +539,6 @@ def _periods(config: RunConfig, axis: timeaxis.TimeAxis) -> timeaxis.Periods:
         table=table,
         table_name=f"period table '{output.period_table}'",
     )
-
-
-# --------------------------------------------------------------------------- weights
-
-
-def default_cache_dir() -> Path:
-    """Where zonal weights are cached: $LAKELOSS_CACHE_DIR, else the user cache directory."""
-    if os.environ.get("LAKELOSS_CACHE_DIR"):
-        return Path(os.environ["LAKELOSS_CACHE_DIR"])
-    root = os.environ.get("XDG_CACHE_HOME")
-    return (Path(root) if root else Path.home() / ".cache") / "lakeloss"
-
-
-def build_weights(
-    config: RunConfig,
-    inputs: Inputs,
-    *,
-    bounds: tuple[float, float, float, float] | None = None,
-) -> tuple[dict[str, ZonalWeights], bool]:
-    """One weight matrix per distinct climate grid for ``inputs.layer``, cached.
-
-    ``bounds`` are the whole layer's (:attr:`lakeloss.io.vector.LayerSurvey.bounds`): with
-    them a partition's weights are those its bodies get in a build of the whole layer
-    (the equal-area projection is centred on the layer, not on the partition), so results do
-    not depend on the partitions; they enter the cache key. Also says whether every matrix
-    came from the cache.
-    """
-    cache = WeightsCache(config.compute.cache_dir or default_cache_dir())
-    layer = inputs.bodies
-    frame = layer.frame
-    out: dict[str, ZonalWeights] = {}
-    geometry = geometry_digest(frame)  # every vertex once, whatever the number of grids
-    keys = {
-        key: layer_key(frame, grid, geometry=geometry, bounds=bounds)
-        for key, grid in inputs.grids.items()
-    }
-    missing = [key for key in inputs.grids if not cache.path_for(keys[key]).exists()]
-    builder = functools.partial(
-        partition.build_weights_in_blocks, bounds=bounds, require_overlap=bounds is None
-    )
-    for key, grid in inputs.grids.items():
-        out[key], _ = cache.get_or_build(frame, grid, builder=builder, key=keys[key])
-    if layer.stated_area_m2 is not None and layer.field_area_m2 is not None:
-        # the cache keeps geometry only; the stated areas join every run afresh
-        stated, field = layer.stated_area_m2, layer.field_area_m2
-        out = {key: w.with_stated_areas(stated, field) for key, w in out.items()}
-    return out, not missing
-
-
-# --------------------------------------------------------------------------- extract + evaporate
-
-
-def block_context(
-    config: RunConfig,
-    inputs: Inputs,
-    keep_series: bool = False,
-    body_count: np.ndarray | None = None,
-) -> BlockContext:
-    return BlockContext(
-        fields=inputs.fields,
-        field_grid=dict(inputs.field_grid),
-        methods=config.method.all,
-        primary=config.method.name,
-        parameters=dict(config.parameters),
-        day_of_year=inputs.axis.day_of_year,
-        days=inputs.axis.days,
-        period_index=inputs.periods.index,
-        keep_series=keep_series,
-        body_count=body_count,
-        max_gap_steps=gap_limit(config, inputs.axis),
-        clip_negative=config.clip_negative,
-    )
-
-
-def gap_limit(config: RunConfig, axis: timeaxis.TimeAxis) -> int:
-    """Longest climate gap filled by interpolation [step]: ``[checks] max_gap_steps``, or
-    the default for the time step (:data:`lakeloss.gaps.DEFAULT_LIMIT`)."""
-    if config.max_gap_steps is not None:
-        return config.max_gap_steps
-    return DEFAULT_LIMIT[axis.step]
-
-
-def compute_totals(
-    config: RunConfig,
-    inputs: Inputs,
-    weights: Mapping[str, ZonalWeights],
-    facts: BodyFacts,
-    bar: ProgressBar | None = None,
-    series_sink: SeriesSink | None = None,
-) -> PeriodTotals:
-    """Run every block (locally or on a cluster) and merge the results in time order.
-
-    ``bar`` is advanced by the steps of each block done.
-
-    The blocks are computed for one representative of each group of bodies with identical
-    inputs (:func:`lakeloss.grouping.group_bodies`) and the sums copied to every member.
-    """
-    from lakeloss.execution import run_blocks
-
-    static = facts.physics_inputs()
-    groups = group_bodies(weights, static, inputs_used(config.method.all))
-    context = block_context(config, inputs, series_sink is not None, groups.count)
-    n_steps = len(inputs.axis.days)
-    totals = zero_totals(config.method.all, len(inputs.periods.starts), groups.n_groups, n_steps)
-    steps = aligned(block_steps(config, inputs, groups.n_groups), read_steps(config))
-    blocks = list(iter_blocks(len(inputs.axis.days), steps))
-    shared = (groups.group_weights(weights), groups.group_values(static))
-    state = initial_states(context, shared[1], groups.n_groups)
-    for part in run_blocks(context, *shared, blocks, state):
-        add_block(totals, part)
-        if series_sink is not None and part.series is not None:
-            series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
-        if bar is not None:
-            bar.update(part.steps)
-    merged = totals.finish()
-    return merged if groups.one_body_each else merged.for_members(groups.member_of)
 
 
 @dataclass

@@ -269,7 +269,7 @@ def test_a_step_has_the_same_zonal_means_in_any_block(runs):
 
     _, gappy, _ = runs
     config = load_config(gappy)
-    inputs = load_inputs(config)
+    inputs = load_inputs(config, whole_layer=True)
     weights, _ = build_weights(config, inputs)
     context = block_context(config, inputs)
     whole = extract_block(context, weights, slice(0, 40))[0]

@@ -83,7 +83,9 @@ def _same(result, reference):
 def test_any_partition_count_gives_the_same_tables(varied, partition_bodies):
     reference = run_stages(varied(partition_bodies=10**6))
     result = run_stages(varied(partition_bodies=partition_bodies, chunk_steps=7))
-    assert result.provenance["partitions"]["count"] == -(-len(result.waterbodies) // partition_bodies)
+    assert result.provenance["partitions"]["count"] == -(
+        -len(result.waterbodies) // partition_bodies
+    )
     assert reference.provenance["partitions"]["count"] == 1
     _same(result, reference)
     # the rank runs over every body of the run, not per partition
@@ -104,9 +106,7 @@ def test_summaries_count_every_group_including_a_missing_value(varied):
 def test_a_stateful_method_is_the_same_in_partitions_and_on_a_cluster(varied):
     reference = run_stages(varied("relaxation_check", partition_bodies=10**6, chunk_steps=59))
     local = run_stages(varied("relaxation_check", partition_bodies=64, chunk_steps=5))
-    cluster = run_stages(
-        varied("relaxation_check", partition_bodies=64, chunk_steps=9, workers=2)
-    )
+    cluster = run_stages(varied("relaxation_check", partition_bodies=64, chunk_steps=9, workers=2))
     _same(local, reference)
     _same(cluster, reference)
 
@@ -128,9 +128,10 @@ def test_written_files_are_byte_identical_for_any_partition_count(varied, tmp_pa
     for table in ("waterbodies", "evaporation_by_period"):
         import sqlite3
 
-        with sqlite3.connect(whole / "waterbodies.gpkg") as a, sqlite3.connect(
-            parts / "waterbodies.gpkg"
-        ) as b:
+        with (
+            sqlite3.connect(whole / "waterbodies.gpkg") as a,
+            sqlite3.connect(parts / "waterbodies.gpkg") as b,
+        ):
             rows_a = a.execute(f"SELECT * FROM {table} ORDER BY fid").fetchall()
             rows_b = b.execute(f"SELECT * FROM {table} ORDER BY fid").fetchall()
         assert rows_a == rows_b, table
@@ -177,7 +178,6 @@ def test_a_failing_partition_names_itself_and_leaves_the_previous_outputs(varied
     # A layer whose rows 150..151 hold a collection without polygons: the survey does not
     # see it (the geometry is not scanned for a polygon layer), partition 3 of 21 meets it.
     import shapely
-
     from builders import pond_layer as ponds
 
     config = varied(partition_bodies=64)
