@@ -12,6 +12,7 @@ to the client.
 
 from __future__ import annotations
 
+import ctypes
 import dataclasses
 import functools
 import os
@@ -169,7 +170,7 @@ def run_partition_on_worker(task: PartitionTask, staging: str) -> PartitionDone:
     (the output's staging directory, on storage the client sees), and only the outcome goes
     back to the client.
     """
-    from lakeloss.io.parts import write_part
+    from lakeloss.io.parts import part_directory, write_part
 
     part_dir = part_directory(Path(staging), task.index)
     part_dir.mkdir(parents=True, exist_ok=True)
@@ -177,12 +178,23 @@ def run_partition_on_worker(task: PartitionTask, staging: str) -> PartitionDone:
     done = run_partition(dataclasses.replace(task, config=local), series_dir=part_dir)
     assert done.bodies is not None and done.by_period is not None
     write_part(part_dir, done.bodies, done.by_period)
-    return PartitionDone(done.outcome, series_file=done.series_file, part_dir=part_dir)
+    outcome, series_file = done.outcome, done.series_file
+    del done
+    release_memory()
+    return PartitionDone(outcome, series_file=series_file, part_dir=part_dir)
 
 
-def part_directory(staging: Path, index: int) -> Path:
-    """Where partition ``index`` keeps its part files in a staging directory."""
-    return staging / "_parts" / f"{index:06d}"
+def release_memory() -> None:
+    """Hand memory freed by a finished partition back to the operating system.
+
+    glibc keeps freed blocks in its per-thread arenas, so a process that has computed one
+    partition would otherwise keep that partition's peak as its resident size; elsewhere
+    (no glibc) nothing happens.
+    """
+    try:
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):
+        pass
 
 
 def _local(compute: ComputeConfig) -> ComputeConfig:

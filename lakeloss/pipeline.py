@@ -20,6 +20,7 @@ partitions' outcomes merge in :mod:`lakeloss.partitions`, the streamed per-step 
 
 from __future__ import annotations
 
+import concurrent.futures
 import dataclasses
 import logging
 import time
@@ -80,6 +81,7 @@ from lakeloss.partition_run import (  # noqa: F401 - build_weights & co. are par
     compute_totals,
     default_cache_dir,
     gap_limit,
+    release_memory,
 )
 from lakeloss.partitions import (
     PartitionOutcome,
@@ -239,7 +241,9 @@ class StreamedTables:
 
     A context manager around :class:`lakeloss.io.atomic.OutputDirectory`: the outputs
     appear in ``target`` only when the run finishes; a failure leaves the previous outputs
-    as they were. Memory holds one partition's tables at a time.
+    as they were. A partition is written on a thread of its own while the next one is
+    computed, so memory holds at most two partitions' tables, and the writes stay in
+    partition order (each waits for the one before).
     """
 
     def __init__(self, config: RunConfig, target: Path, overwrite: bool) -> None:
@@ -251,13 +255,29 @@ class StreamedTables:
         self._staging: Path | None = None
         self._stream: Any = None
         self.series_files: list[Path] = []
+        self._writer = ThreadPoolExecutor(max_workers=1, thread_name_prefix="lakeloss-writer")
+        self._writing: Future[None] | None = None
 
     def __enter__(self) -> StreamedTables:
         self._staging = self.directory.__enter__()
         return self
 
     def __exit__(self, *exc: Any) -> None:
-        self.directory.__exit__(*exc)
+        try:
+            if self._writing is not None and exc[0] is not None:
+                # the run failed: let the write in flight end, its error is not the news
+                concurrent.futures.wait([self._writing])
+            else:
+                self._wait()
+        finally:
+            self._writer.shutdown(wait=True)
+            self.directory.__exit__(*exc)
+
+    def _wait(self) -> None:
+        """Wait for the partition being written; its error is raised here."""
+        if self._writing is not None:
+            writing, self._writing = self._writing, None
+            writing.result()
 
     @property
     def staging(self) -> Path:
@@ -278,6 +298,10 @@ class StreamedTables:
         )
 
     def add(self, done: PartitionDone) -> None:
+        self._wait()
+        self._writing = self._writer.submit(self._write, done)
+
+    def _write(self, done: PartitionDone) -> None:
         from lakeloss.io.parts import part_directory, write_part
 
         if done.part_dir is None and self.config.output.format == "geoparquet":
@@ -303,6 +327,7 @@ class StreamedTables:
     ) -> RunResult:
         from lakeloss.results import summaries, summary_result
 
+        self._wait()
         summary_period, summary_group = summaries(config, outcomes)
         series = None
         if self.series_files:
@@ -358,6 +383,7 @@ def _stages(
             tables.add(done)
             outcomes.append(done.outcome)
             del done
+            release_memory()
     bars.close()
     for stage in ("weights", "evaporate"):
         # the partitions' own stage times; "evaporate" above also counted their weights
