@@ -22,6 +22,7 @@ from lakeloss.gaps import date_ranges, fill_short_gaps, steps_text
 from lakeloss.grouping import inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io.climate import crs_label
+from lakeloss.partitions import partition_size
 from lakeloss.pipeline import gap_limit, load_inputs
 from lakeloss.sizing import block_steps
 
@@ -87,14 +88,18 @@ class Plan:
 
 
 def _memory(config: RunConfig, inputs: Inputs, steps: int, columns: int) -> float:
-    n = inputs.n_waterbodies
+    # One partition is in memory at a time (two partitions' tables while one is written),
+    # plus the ids and one number per body of the whole layer.
+    total = inputs.n_waterbodies
+    n = min(total, partition_size(config.compute.partition_bodies, total))
+    columns = min(columns, n)
     n_periods = len(inputs.periods.starts)
     cells = sum(int(np.prod(g.shape)) for g in inputs.grids.values())
-    layer = n * 1500.0  # geometries and attributes
+    layer = n * 1500.0 + total * 40.0  # the partition's geometries and attributes; ids
     weights = n * 1.5 * 12.0 * 3  # nnz ~ 1.5 per body; build overhead x3
     sums = n_periods * n * 8.0 * (len(config.method.all) + 2)
     block = steps * 8.0 * (columns * 24 + cells * len(inputs.fields))
-    tables = n_periods * n * 120.0  # evaporation_by_period in pandas
+    tables = 2 * n_periods * n * 120.0  # evaporation_by_period in pandas
     # Interpreter, numpy/GDAL/PROJ and open climate files: a fixed base read off the
     # end-to-end benchmark's peaks (benchmarks/README.md, "End to end", figures behind the code).
     base = 0.7 * 2**30
