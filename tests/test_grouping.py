@@ -5,6 +5,7 @@ from __future__ import annotations
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pytest
 import shapely
 from builders import LAT, LAYER_CRS, LON, case_config, climate_dataset, write_netcdf
 from pyproj import Transformer
@@ -104,26 +105,29 @@ def _climate(times: pd.DatetimeIndex) -> dict:
     }  # fmt: skip
 
 
-def _run(tmp_path, layer: gpd.GeoDataFrame, climate_path, name: str):
+def _run(tmp_path, layer: gpd.GeoDataFrame, climate_path, name: str, method="penman_open_water"):
     path = tmp_path / f"{name}.gpkg"
     layer.to_file(path, layer="ponds", driver="GPKG")
     config = case_config(
-        path, climate_path, tmp_path / f"out-{name}", "penman_open_water", _FIELDS_CLIMATE,
+        path, climate_path, tmp_path / f"out-{name}", method, _FIELDS_CLIMATE,
         waterbodies={"elevation_field": "elev"}, output={"series": True},
+        parameters={"relaxation_days": 4.0, "relaxation_start_fraction": 0.3},
     )  # fmt: skip
     return lakeloss.run(config)
 
 
-def test_grouped_run_gives_each_body_what_it_gets_alone(tmp_path):
+@pytest.mark.parametrize("method", ["penman_open_water", "relaxation_check"])
+def test_grouped_run_gives_each_body_what_it_gets_alone(tmp_path, method):
+    # relaxation_check carries a state from day to day: a group's state is its members'.
     times = pd.date_range("2031-01-01", periods=45, freq="D")
     climate_path = write_netcdf(climate_dataset(times, _climate(times)), tmp_path / "c.nc")
     layer = _layer().iloc[:6]  # the far pond's refusal is tested elsewhere
-    grouped = _run(tmp_path, layer, climate_path, "all")
+    grouped = _run(tmp_path, layer, climate_path, "all", method)
     together = grouped.by_period
     numbers = ["evap_mm", "evap_m3", "precip_mm", "net_mm", "net_m3"]
     assert together["evap_mm"].notna().all()
     for i in range(len(layer)):
-        alone = _run(tmp_path, layer.iloc[[i]], climate_path, f"p{i}")
+        alone = _run(tmp_path, layer.iloc[[i]], climate_path, f"p{i}", method)
         mine = together.loc[[layer["pond_id"].iloc[i]]]  # indexed by the id
         np.testing.assert_allclose(
             mine[numbers].to_numpy(), alone.by_period[numbers].to_numpy(), rtol=1e-12, atol=1e-9
