@@ -48,6 +48,7 @@ import time
 import tomllib
 from pathlib import Path
 
+import numpy as np
 import psutil
 import tomli_w
 
@@ -371,8 +372,8 @@ def _estimate(rows: list[dict]) -> list[str]:
     part_bytes = dataset / parquet["partitions"]["count"]
     if one["parts_seen"]:
         part_bytes_seen = one["parts_bytes"] / one["parts_seen"]
-    else:
-        part_bytes_seen = float("nan")
+    else:  # none caught by the poll: the dataset's files are the parts with the rank
+        part_bytes_seen = part_bytes
     big = 100_000_000
     parts_big = -(-big // size)
     scale = big / n
@@ -401,48 +402,70 @@ def _estimate(rows: list[dict]) -> list[str]:
         ),
         "",
         f"For 10^8 bodies ({parts_big} partitions of {size}), N workers of one core each, "
-        "scaling these figures linearly (the layer's survey, the rank and the writing by the "
-        "client are taken as proportional to the number of bodies):",
+        "scaling these figures linearly. The client's own part (cluster start, the layer's "
+        "survey, the rank, writing the GeoPackage and the CSVs, as in the `workers = 1` run) "
+        "is taken as proportional to the number of bodies and as not overlapping the "
+        "partitions, so the totals are upper bounds for this output:",
         "",
-        "| N workers | partition time, warm weights | partition time, cold | client's own part "
-        "| memory per worker | to shared storage (parts) | GeoParquet output |",
-        "|---|---|---|---|---|---|---|",
+        "| N workers | total, weights cached | total, weights built | of which client "
+        "| memory per worker | part files to shared storage | GeoParquet dataset "
+        "| summary CSV |",
+        "|---|---|---|---|---|---|---|---|",
     ]
+    csv_bytes = parquet["file_bytes"].get("summary_by_waterbody.csv", 0) * scale
+    client_h = serial_s * scale / 3600
     for workers in (1, 8, 32, 128):
         waves = -(-parts_big // workers)
-        warm_h = waves * part_s / 3600
-        cold_h = waves * part_cold_s / 3600
-        client_h = serial_s * scale / 3600
+        warm_h = waves * part_s / 3600 + client_h
+        cold_h = waves * part_cold_s / 3600 + client_h
         lines.append(
             f"| {workers} | {warm_h:.2f} h | {cold_h:.2f} h | {client_h:.2f} h "
-            f"| {worker_gib:.1f} GiB | {parts_big * part_bytes / 2**30:.0f} GiB "
-            f"| {parts_big * part_bytes / 2**30:.0f} GiB |"
+            f"| {worker_gib:.1f} GiB | {parts_big * part_bytes_seen / 2**30:.0f} GiB "
+            f"| {parts_big * part_bytes / 2**30:.0f} GiB | {csv_bytes / 2**30:.1f} GiB |"
         )
-    id_bytes = 10  # "P" and up to 8 digits, plus a 4-byte offset in an Arrow string array
-    per_body = id_bytes + 4 + 8 + 8 + 1  # id, offset, volume (float64), rank (int64 + mask)
+    ids = _id_bytes(n)
+    per_body = {kind: b + 8 + 9 for kind, b in ids.items()}  # + volume (f8), rank (i8 + mask)
     lines += [
         "",
-        f"What the client holds at 10^8: the ids (about {id_bytes + 4} bytes each as Arrow "
-        f"strings of this layer's ids), one float64 volume per body for the rank and the rank "
-        f"itself (8 + 9 bytes): about {per_body} bytes per body, "
-        f"{per_body * big / 2**30:.1f} GiB, plus the summaries by period and group (a few "
-        "thousand rows) and the partitions' small outcomes. Nothing else grows with the "
-        "number of bodies on the client.",
+        f"What the client holds at 10^8: the ids, one float64 volume per body for the rank "
+        f"and the rank itself (8 + 9 bytes). This layer's ids (`P0` ... `P99999999`) take "
+        f"{ids['object']:.0f} bytes each as Python strings in an object array (what "
+        f"`LayerSurvey.body_ids` hands the rank now) and {ids['arrow']:.0f} bytes as Arrow "
+        f"strings (pandas' `str` dtype): "
+        f"{per_body['object']:.0f} or {per_body['arrow']:.0f} bytes per body, "
+        f"{per_body['object'] * big / 2**30:.1f} or {per_body['arrow'] * big / 2**30:.1f} "
+        "GiB, plus the summaries by period and group (a few thousand rows) and the "
+        "partitions' small outcomes. The client's measured peak at 10^6 "
+        f"({one['client_peak_gib']:.2f} GiB with one worker) is mostly the interpreter, the "
+        "libraries, the scheduler and the writer's buffers, which do not grow with the "
+        "bodies.",
     ]
     return lines
+
+
+def _id_bytes(n: int) -> dict[str, float]:
+    """Bytes per id of ``P0`` ... ``P{n-1}`` held as Python strings and as Arrow strings."""
+    import pandas as pd
+
+    ids = pd.Series(np.char.add("P", np.arange(n).astype(str)), dtype=object)
+    arrow = ids.astype("string[pyarrow]")
+    return {
+        "object": ids.memory_usage(deep=True, index=False) / n,
+        "arrow": arrow.memory_usage(deep=True, index=False) / n,
+    }
 
 
 def report() -> None:
     rows = _rows()
     if not rows:
         raise SystemExit(f"no figures yet in {RESULTS}")
-    print("### Partitions (issue 15)\n")
+    print("## Partitions (issue 15)\n")
     print(f"Machine: {machine()}; {platform.platform()}.\n")
     for item in ("cold", "stateful", "cluster", "ten-million"):
         chosen = [r for r in rows if r["item"] == item]
         if not chosen:
             continue
-        print(f"#### {item}\n")
+        print(f"### {item}\n")
         print("\n".join(_table(chosen)))
         if item == "stateful":
             a = [r["wall_s"] for r in chosen if r["method"] == "relaxation_check"]
@@ -454,7 +477,7 @@ def report() -> None:
                     f" s / {statistics.median(b):.1f} s = {ratio:.2f}"
                 )
         print()
-    print("#### 10^8 bodies on N workers (estimate)\n")
+    print("### 10^8 bodies on N workers (estimate)\n")
     print("\n".join(_estimate(rows)))
 
 
