@@ -161,7 +161,7 @@ def test_weights_cache_survives_a_killed_run_and_is_reused(tmp_path):
 
 def test_reruns_are_byte_identical_whatever_the_block_size(tmp_path, monkeypatch):
     import lakeloss
-    import lakeloss.execution as execution
+    import lakeloss.timeblocks as timeblocks
 
     config = _demo_config(tmp_path)
     import tomllib
@@ -170,7 +170,7 @@ def test_reruns_are_byte_identical_whatever_the_block_size(tmp_path, monkeypatch
     first = lakeloss.run(raw)
     first.write(tmp_path / "a")
     raw["compute"]["chunk_steps"] = 97
-    monkeypatch.setattr(execution, "_local_threads", lambda: 1)  # one core vs two
+    monkeypatch.setattr(timeblocks, "_local_threads", lambda: 1)  # one core vs two
     second = lakeloss.run(raw)
     second.write(tmp_path / "b")
     for name in ("summary_by_waterbody.csv", "summary_by_period.csv", "summary_by_group.csv"):
