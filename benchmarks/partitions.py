@@ -214,6 +214,7 @@ def run(
     )
     command = [str(LAKELOSS), "run", str(config), "--overwrite", "-q"]
     when = dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
+    commit = _commit()
     figures = measure_tree(command, watch=out_parent)
     record = json.loads((out_dir / "run.json").read_text())
     row = {
@@ -221,6 +222,7 @@ def run(
         "label": label,
         "n": n_ponds,
         "when": when,
+        "commit": commit,
         "method": method,
         "format": output_format or "geopackage",
         "compute": compute or {},
@@ -243,6 +245,27 @@ def run(
         flush=True,
     )
     return row
+
+
+def _commit() -> str:
+    """The checked-out commit of the tree that is run, ``+`` when it has uncommitted changes."""
+    root = Path(__file__).resolve().parent.parent
+    try:
+        head = subprocess.run(
+            ["git", "-C", str(root), "rev-parse", "--short", "HEAD"],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+        dirty = subprocess.run(
+            ["git", "-C", str(root), "status", "--porcelain", "--", "lakeloss"],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return "?"
+    return head + ("+" if dirty else "")
 
 
 def _file_sizes(out_dir: Path) -> dict[str, int]:
@@ -321,7 +344,7 @@ def _n(n: int) -> str:
 
 def _table(rows: list[dict]) -> list[str]:
     lines = [
-        "| when | load avg before-after | ponds | run | partitions | wall s | peak GiB "
+        "| when, commit | load avg before-after | ponds | run | partitions | wall s | peak GiB "
         "| client GiB | largest child GiB | load s | weights s | evaporate s | aggregate s "
         "| write s | output MiB |",
         "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|",
@@ -330,7 +353,7 @@ def _table(rows: list[dict]) -> list[str]:
         t = r["timings_s"]
         part = r["partitions"]
         cells = [
-            r["when"],
+            r["when"] + (f", {r['commit']}" if "commit" in r else ""),
             f"{r['load_before']:.1f}-{r['load_after']:.1f}",
             _n(r["n"]),
             f"{r['label']}" + (f" ({r['format']})" if r["item"] == "ten-million" else ""),
