@@ -145,15 +145,19 @@ def _here(tasks: Iterable[PartitionTask], bars: PartitionBars | None) -> Iterato
     from lakeloss.partition_run import run_partition
 
     for task in tasks:
-        try:
-            done = run_partition(task, bars)
-        except LakelossError as err:
-            if task.of == 1:
-                raise  # the run's own error: one partition needs no naming
-            raise _failed_partition(task, err) from err
-        except (OSError, RuntimeError) as err:  # a file unreadable halfway through
-            raise _failed_partition(task, err) from err
-        yield done
+        pieces = run_partition(task, bars)
+        while True:
+            try:
+                done = next(pieces, None)
+            except LakelossError as err:
+                if task.of == 1:
+                    raise  # the run's own error: one partition needs no naming
+                raise _failed_partition(task, err) from err
+            except (OSError, RuntimeError) as err:  # a file unreadable halfway through
+                raise _failed_partition(task, err) from err
+            if done is None:
+                break
+            yield done
 
 
 def _on_cluster(
@@ -189,7 +193,7 @@ def _on_cluster(
         while pending:
             task, future = pending.pop(0)
             try:
-                done = future.result()
+                pieces = future.result()
             except LakelossError as err:
                 # the partition's own error (bad input data), raised as on a local run
                 if task.of == 1:
@@ -202,7 +206,7 @@ def _on_cluster(
                 bars.weights.update(1)
             if bars is not None and bars.evaporation is not None:
                 bars.evaporation.update(len(task.inputs.axis.days))
-            yield done
+            yield from pieces
 
 
 def _lost_partition(task: PartitionTask, err: BaseException) -> ClusterError:

@@ -18,7 +18,7 @@ import functools
 import os
 import time
 import warnings
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -40,7 +40,7 @@ from lakeloss.gaps import DEFAULT_LIMIT
 from lakeloss.grouping import group_bodies, inputs_used
 from lakeloss.inputs import Inputs
 from lakeloss.io.vector import read_waterbody_rows
-from lakeloss.partitions import PartitionOutcome
+from lakeloss.partitions import ALIGN, PartitionOutcome
 from lakeloss.run_warnings import repair_counts
 from lakeloss.series_stream import SeriesSettings, SeriesStream, temporary_directory
 from lakeloss.sizing import aligned, block_steps, iter_blocks, read_steps
@@ -55,6 +55,11 @@ if TYPE_CHECKING:
 
 SeriesSink = Callable[[slice, dict[str, np.ndarray]], None]
 """Where a partition's per-step series go, block by block: ``sink(block, values)``."""
+
+
+PIECE_BODIES = 4096 * ALIGN
+"""Bodies per piece of a partition's tables (262 144): a partition is computed whole, its
+result tables are made and written this many bodies at a time."""
 
 
 @dataclass(frozen=True)
@@ -73,6 +78,10 @@ class PartitionTask:
     """Set when the run keeps the per-step series (``[output] series``)."""
     of: int = 1
     """How many partitions the run has."""
+    piece_bodies: int = PIECE_BODIES
+    """Bodies per piece of the partition's tables (:func:`run_partition`)."""
+    first_piece: int = 0
+    """The number of the partition's first piece in the run (pieces are numbered in order)."""
 
 
 @dataclass
@@ -131,11 +140,14 @@ def read_partition(
 
 def run_partition(
     task: PartitionTask, bars: PartitionBars | None = None, series_dir: Path | None = None
-) -> PartitionDone:
-    """Compute one partition through the whole time axis; its tables stay in memory.
+) -> Iterator[PartitionDone]:
+    """Compute one partition through the whole time axis, then yield its tables in pieces.
 
-    Its series file, when the run keeps one, goes into ``series_dir`` (default: a
-    temporary directory removed when the process exits).
+    The partition is computed whole (its groups of identical bodies, its reads of the
+    climate); its tables are made and handed on :data:`PIECE_BODIES` bodies at a time, each
+    piece with its own outcome, so the tables in memory do not grow with the partition.
+    Its series file, when the run keeps one, goes into ``series_dir`` (default: a temporary
+    directory removed when the process exits) and comes with the first piece.
     """
     from lakeloss.results import partition_tables
 
@@ -153,35 +165,78 @@ def run_partition(
         collector = SeriesStream(config, inputs, path, task.series)
     sink = collector.add if collector else None
     totals = compute_totals(config, inputs, weights, facts, bars.evaporation, sink)
-    assert totals.gaps is not None  # compute_totals always tallies the gaps
-    bodies, by_period, outcome = partition_tables(
-        config, inputs, facts, totals, totals.gaps.filled_per_body, task.index, task.rows
-    )
+    del weights
     series_file = collector.close() if collector else None
-    outcome.seconds = {"weights": read - started, "evaporate": time.perf_counter() - read}
-    outcome.weights_cached, outcome.repaired, outcome.empty = cached, repaired, empty
-    return PartitionDone(outcome, bodies, by_period, series_file)
+    seconds = {"weights": read - started, "evaporate": time.perf_counter() - read}
+    size = len(task.rows)
+    for k, start in enumerate(range(0, max(size, 1), task.piece_bodies)):
+        rows = slice(start, min(start + task.piece_bodies, size))
+        part = totals.of_rows(rows)
+        assert part.gaps is not None  # compute_totals always tallies the gaps
+        piece = range(task.rows.start + rows.start, task.rows.start + rows.stop)
+        bodies, by_period, outcome = partition_tables(
+            config,
+            _rows_of(inputs, rows),
+            _facts_of(facts, rows),
+            part,
+            part.gaps.filled_per_body,
+            task.first_piece + k,
+            piece,
+        )
+        del part
+        if k == 0:
+            outcome.seconds = seconds
+            outcome.weights_cached, outcome.repaired, outcome.empty = cached, repaired, empty
+        yield PartitionDone(outcome, bodies, by_period, series_file if k == 0 else None)
+        del bodies, by_period
 
 
-def run_partition_on_worker(task: PartitionTask, staging: str) -> PartitionDone:
+def _rows_of(inputs: Inputs, rows: slice) -> Inputs:
+    """``inputs`` with the partition's bodies ``rows`` only."""
+    layer = inputs.bodies
+    if rows == slice(0, len(layer.frame)):
+        return inputs
+    piece = dataclasses.replace(
+        layer,
+        frame=layer.frame.iloc[rows],
+        flags=layer.flags[rows],
+        stated_area_m2=None if layer.stated_area_m2 is None else layer.stated_area_m2[rows],
+        field_area_m2=None if layer.field_area_m2 is None else layer.field_area_m2[rows],
+    )
+    return dataclasses.replace(inputs, layer=piece)
+
+
+def _facts_of(facts: BodyFacts, rows: slice) -> BodyFacts:
+    """``facts`` of the partition's bodies ``rows`` only."""
+    cut = {
+        f.name: getattr(facts, f.name)[rows]
+        for f in dataclasses.fields(facts)
+        if getattr(facts, f.name) is not None
+    }
+    return dataclasses.replace(facts, **cut)
+
+
+def run_partition_on_worker(task: PartitionTask, staging: str) -> list[PartitionDone]:
     """:func:`run_partition` on a cluster worker: blocks in this worker's process only.
 
-    The partition's part files (and series file) are written into ``staging``/_parts/NNNNNN
-    (the output's staging directory, on storage the client sees), and only the outcome goes
+    Each piece's part files (and the series file) are written into ``staging``/_parts/
+    (the output's staging directory, on storage the client sees), and only the outcomes go
     back to the client.
     """
     from lakeloss.io.parts import part_directory, write_part
 
-    part_dir = part_directory(Path(staging), task.index)
-    part_dir.mkdir(parents=True, exist_ok=True)
     local = dataclasses.replace(task.config, compute=_local(task.config.compute))
-    done = run_partition(dataclasses.replace(task, config=local), series_dir=part_dir)
-    assert done.bodies is not None and done.by_period is not None
-    write_part(part_dir, done.bodies, done.by_period)
-    outcome, series_file = done.outcome, done.series_file
-    del done
-    release_memory()
-    return PartitionDone(outcome, series_file=series_file, part_dir=part_dir)
+    series_dir = part_directory(Path(staging), task.first_piece)
+    series_dir.mkdir(parents=True, exist_ok=True)
+    out = []
+    for done in run_partition(dataclasses.replace(task, config=local), series_dir=series_dir):
+        part_dir = part_directory(Path(staging), done.outcome.index)
+        assert done.bodies is not None and done.by_period is not None
+        write_part(part_dir, done.bodies, done.by_period)
+        out.append(PartitionDone(done.outcome, series_file=done.series_file, part_dir=part_dir))
+        del done
+        release_memory()
+    return out
 
 
 def release_memory() -> None:
@@ -289,13 +344,14 @@ def compute_totals(
     facts: BodyFacts,
     bar: ProgressBar | None = None,
     series_sink: SeriesSink | None = None,
-) -> PeriodTotals:
-    """Run every block (locally or on a cluster) and merge the results in time order.
+) -> GroupTotals:
+    """Run every block in time order and merge the results.
 
     ``bar`` is advanced by the steps of each block done.
 
     The blocks are computed for one representative of each group of bodies with identical
-    inputs (:func:`lakeloss.grouping.group_bodies`) and the sums copied to every member.
+    inputs (:func:`lakeloss.grouping.group_bodies`); :meth:`GroupTotals.of_rows` copies the
+    sums to the members, a run of rows at a time.
     """
     from lakeloss.timeblocks import run_blocks
 
@@ -314,5 +370,19 @@ def compute_totals(
             series_sink(part.block, {k: groups.body_values(v) for k, v in part.series.items()})
         if bar is not None:
             bar.update(part.steps)
-    merged = totals.finish()
-    return merged if groups.one_body_each else merged.for_members(groups.member_of)
+    return GroupTotals(totals.finish(), groups.member_of, groups.one_body_each)
+
+
+@dataclass
+class GroupTotals:
+    """The period totals of a partition's groups of identical bodies, and who is in which."""
+
+    groups: PeriodTotals
+    member_of: np.ndarray
+    one_body_each: bool
+
+    def of_rows(self, rows: slice) -> PeriodTotals:
+        """The totals of the partition's bodies ``rows`` (positions in the partition)."""
+        if self.one_body_each and rows == slice(0, self.member_of.size):
+            return self.groups
+        return self.groups.for_members(self.member_of[rows])

@@ -30,10 +30,12 @@ from lakeloss.gaps import PartitionGaps
 ALIGN = 64
 """Partition sizes are multiples of this many bodies; the summaries sum chunks of it."""
 
-DEFAULT_PARTITION_BODIES = 4096 * ALIGN
-"""Bodies per partition when ``[compute] partition_bodies = 0`` (262 144): at 10^6 bodies a
-partition's period sums, tables and zonal means take a few hundred MB (benchmarks/README.md,
-"Partitions")."""
+DEFAULT_PARTITION_BODIES = 16384 * ALIGN
+"""Bodies per partition when ``[compute] partition_bodies = 0`` (1 048 576). A partition is
+computed whole: the bigger, the fewer times the climate is read and the more identical bodies
+are computed once (:mod:`lakeloss.grouping` groups within a partition); its tables are made
+in pieces (:data:`lakeloss.partition_run.PIECE_BODIES`), so they do not grow with it
+(benchmarks/README.md, "Partitions")."""
 
 
 def partition_size(requested: int, n: int, workers: int = 0) -> int:

@@ -73,6 +73,7 @@ from lakeloss.io import vector as vector_io
 from lakeloss.io.period_table import read_period_table
 from lakeloss.io.run_record import inputs_provenance, run_record
 from lakeloss.partition_run import (  # noqa: F401 - build_weights & co. are part of this API
+    PIECE_BODIES,
     PartitionBars,
     PartitionDone,
     PartitionTask,
@@ -367,13 +368,24 @@ def _stages(
     n = inputs.n_waterbodies
     size = partition_size(config.compute.partition_bodies, n, config.compute.workers)
     ranges = partition_ranges(n, size)
+    piece = min(size, PIECE_BODIES)
+    pieces_each = -(-size // piece)
     outcomes: list[PartitionOutcome] = []
     bars = PartitionBars.open(progress, len(ranges), len(inputs.axis.days))
     assert inputs.survey is not None  # load_inputs surveys the layer
     tables.start(inputs.survey)
     client_inputs = dataclasses.replace(inputs, survey=_for_workers(inputs.survey))
     tasks = (
-        PartitionTask(config, client_inputs, index, rows, settings, of=len(ranges))
+        PartitionTask(
+            config,
+            client_inputs,
+            index,
+            rows,
+            settings,
+            of=len(ranges),
+            piece_bodies=piece,
+            first_piece=index * pieces_each,
+        )  # fmt: skip
         for index, rows in enumerate(ranges)
     )
     with timer.stage("evaporate"):

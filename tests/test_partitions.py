@@ -28,7 +28,7 @@ N_PONDS = 20 * ALIGN + 50  # plus the reservoir of pond_layer: 1 331 bodies
 
 def test_partition_sizes_are_whole_chunks():
     assert ALIGN == 64
-    assert partition_size(0, 10**6) == 262_144
+    assert partition_size(0, 10**6) == 1_048_576
     assert partition_size(100, 10**6) == 2 * ALIGN
     assert partition_size(0, 10**5, workers=2) == 50_048  # every worker gets one
     assert [len(r) for r in partition_ranges(1331, 448)] == [448, 448, 435]
@@ -198,3 +198,21 @@ def test_a_failing_partition_names_itself_and_leaves_the_previous_outputs(varied
     after = {p.name: p.read_bytes() for p in previous.iterdir() if p.suffix == ".csv"}
     assert after == before
     assert sorted(p.name for p in tmp_path.iterdir() if "lakeloss" in p.name) == []
+
+
+@pytest.mark.parametrize("workers", [0, 2])
+def test_tables_in_pieces_of_a_partition_are_the_tables_of_the_whole(
+    varied, tmp_path, monkeypatch, workers
+):
+    # A partition is computed whole and its tables made a piece at a time: partitions of
+    # 192 bodies in pieces of 64, here and on a cluster (where workers write the pieces).
+    import lakeloss.pipeline as pipeline
+
+    reference = run_stages(varied(partition_bodies=10**6))
+    whole = _cli_run(tmp_path, varied(partition_bodies=10**6), "whole")
+    monkeypatch.setattr(pipeline, "PIECE_BODIES", 64)
+    config = varied(partition_bodies=192, workers=workers)
+    _same(run_stages(config), reference)
+    pieces = _cli_run(tmp_path, config, "pieces")
+    for name in ("summary_by_waterbody.csv", "summary_by_period.csv", "summary_by_group.csv"):
+        assert (pieces / name).read_bytes() == (whole / name).read_bytes(), name
