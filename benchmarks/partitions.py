@@ -345,9 +345,8 @@ def _n(n: int) -> str:
 def _table(rows: list[dict]) -> list[str]:
     lines = [
         "| when, commit | load avg before-after | ponds | run | partitions | wall s | peak GiB "
-        "| client GiB | largest child GiB | load s | weights s | evaporate s | aggregate s "
-        "| write s | output MiB |",
-        "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|",
+        "| client GiB | largest child GiB | load s | weights s | evaporate s | output MiB |",
+        "|---|---|---|---|---|---|---|---|---|---|---|---|---|",
     ]
     for r in rows:
         t = r["timings_s"]
@@ -356,14 +355,13 @@ def _table(rows: list[dict]) -> list[str]:
             r["when"] + (f", {r['commit']}" if "commit" in r else ""),
             f"{r['load_before']:.1f}-{r['load_after']:.1f}",
             _n(r["n"]),
-            f"{r['label']}" + (f" ({r['format']})" if r["item"] == "ten-million" else ""),
+            r["label"],
             f"{part.get('count', '?')} x {part.get('bodies_each', '?')}",
             f"{r['wall_s']:.1f}",
             f"{r['peak_gib']:.2f}",
             f"{r['client_peak_gib']:.2f}",
             f"{r['largest_child_peak_gib']:.2f}" if r["children"] else "-",
             *(f"{t[k]:.1f}" if k in t else "-" for k in ("load", "weights", "evaporate")),
-            *(f"{t[k]:.1f}" if k in t else "-" for k in ("aggregate", "write")),
             f"{r['output_bytes'] / 2**20:.0f}",
         ]
         lines.append("| " + " | ".join(cells) + " |")
