@@ -242,10 +242,14 @@ def run_partition_on_worker(task: PartitionTask, staging: str) -> list[Partition
 def release_memory() -> None:
     """Hand memory freed by a finished partition back to the operating system.
 
-    glibc keeps freed blocks in its per-thread arenas, so a process that has computed one
-    partition would otherwise keep that partition's peak as its resident size; elsewhere
-    (no glibc) nothing happens.
+    glibc keeps freed blocks in its per-thread arenas, and Arrow's allocator (the part files
+    and GeoParquet go through it) keeps its own, so a process that has computed one
+    partition would otherwise keep that partition's peak as its resident size; without
+    glibc only Arrow's is released.
     """
+    import pyarrow
+
+    pyarrow.default_memory_pool().release_unused()
     try:
         ctypes.CDLL("libc.so.6").malloc_trim(0)
     except (OSError, AttributeError):
