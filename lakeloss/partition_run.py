@@ -15,6 +15,7 @@ from __future__ import annotations
 import ctypes
 import dataclasses
 import functools
+import gc
 import os
 import time
 import warnings
@@ -249,6 +250,7 @@ def release_memory() -> None:
     """
     import pyarrow
 
+    gc.collect()  # arrays held in reference cycles would wait for a full collection
     pyarrow.default_memory_pool().release_unused()
     try:
         ctypes.CDLL("libc.so.6").malloc_trim(0)
