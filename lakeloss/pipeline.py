@@ -310,6 +310,7 @@ class StreamedTables:
             assert done.bodies is not None and done.by_period is not None
             done.part_dir = part_directory(self.staging, done.outcome.index)
             write_part(done.part_dir, done.bodies, done.by_period)
+            done.bodies = done.by_period = None  # read back from the part files below
         if done.part_dir is not None:
             self._stream.add_part(done.part_dir)
         else:
@@ -317,6 +318,8 @@ class StreamedTables:
             self._stream.add_tables(done.bodies, done.by_period)
         if done.series_file is not None:
             self.series_files.append(done.series_file)
+        done.bodies = done.by_period = None
+        release_memory()  # this thread's freed memory, too
 
     def finish(
         self,
