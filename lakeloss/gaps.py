@@ -198,46 +198,12 @@ class GapTally:
 class GapReport:
     """What the run says about its gaps (run.json, warnings, flags)."""
 
-    filled_steps_per_body: np.ndarray
-    """``(n,)`` time steps at which some variable was filled, per body."""
     filled: dict[str, dict[str, Any]]
     """Per variable: filled ``steps`` (time steps), ``values`` (body-steps), ``dates``."""
     long: dict[str, dict[str, Any]]
     """Per variable with gaps left missing: ``steps``, ``bodies``, ``dates``."""
     limit: int
     """The ``max_gap_steps`` of the run."""
-
-
-def report(tally: GapTally, starts: tuple[str, ...], limit: int) -> GapReport:
-    """Summarise a run's gaps (per body, after :meth:`GapTally.for_members`).
-
-    Bodies that never had a variable at all are left out of the gaps.
-
-    A body missing a variable at every step (outside the grid, or under cells that are
-    always nodata) has no gap but no climate; it is reported by its own flag, so its steps
-    are taken out of the per-step counts here (it was missing at every one of them).
-    """
-    filled = {}
-    for name, at_step in tally.filled_at_step.items():
-        if at_step.any():
-            filled[name] = {
-                "steps": int((at_step > 0).sum()),
-                "values": int(at_step.sum()),
-                "dates": date_ranges(starts, at_step > 0),
-            }
-    long = {}
-    for name, per_body in tally.missing_per_body.items():
-        never = per_body == tally.n_steps
-        some = (per_body > 0) & ~never
-        at_step = tally.missing_at_step[name] - int(never.sum())
-        bodies = int(some.sum())
-        if bodies:
-            long[name] = {
-                "steps": int((at_step > 0).sum()),
-                "bodies": bodies,
-                "dates": date_ranges(starts, at_step > 0),
-            }
-    return GapReport(tally.filled_per_body, filled, long, limit)
 
 
 def date_ranges(starts: tuple[str, ...], mask: np.ndarray, at_most: int = 5) -> str:
@@ -258,8 +224,7 @@ def steps_text(count: int) -> str:
 def merged_report(parts: Sequence[PartitionGaps], starts: tuple[str, ...], limit: int) -> GapReport:
     """:func:`report` of a run from the gap counts of its partitions (:class:`PartitionGaps`).
 
-    The per-body filled steps are the partitions' own (used for their flags), so the
-    merged report has none.
+    The per-body filled steps stay with the partitions (they flag their own bodies).
     """
     filled_at: dict[str, np.ndarray] = {}
     missing_at: dict[str, np.ndarray] = {}
@@ -291,7 +256,7 @@ def merged_report(parts: Sequence[PartitionGaps], starts: tuple[str, ...], limit
                 "bodies": bodies,
                 "dates": date_ranges(starts, at_step > 0),
             }
-    return GapReport(np.zeros(0, dtype=np.int64), filled, long, limit)
+    return GapReport(filled, long, limit)
 
 
 @dataclass(frozen=True)

@@ -18,7 +18,7 @@ sum, which numpy takes sequentially); partition boundaries fall on chunk boundar
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -105,16 +105,12 @@ def chunk_sums(
         keys: list[tuple[Any, ...]] = [()]
         codes = np.zeros(n, dtype=np.int64)
     else:
-        index: dict[tuple[Any, ...], int] = {}
-        first: list[int] = []
-        codes = np.empty(n, dtype=np.int64)
-        for row, key in enumerate(_key_values(groups)):
-            code = index.setdefault(key, len(index))
-            if code == len(first):
-                first.append(row)
-            codes[row] = code
-        keys = list(index) or [()]
+        # Groups numbered in order of their first body (a missing value is a group too).
+        grouped = groups.groupby(list(groups.columns), sort=False, dropna=False)
+        codes = grouped.ngroup().to_numpy(dtype=np.int64)
+        _, first = np.unique(codes, return_index=True)
         key_frame = groups.iloc[first].reset_index(drop=True)
+        keys = _key_values(key_frame) or [()]
     n_groups, n_chunks = len(keys), max(1, -(-n // ALIGN))
     chunk = np.arange(n) // ALIGN
     cell = ((chunk * n_groups + codes)[:, None] * n_periods + np.arange(n_periods)).ravel()
@@ -245,17 +241,6 @@ def merge_counts(parts: Sequence[Mapping[str, Any]], first: Mapping[str, Any]) -
     out["negative_rates"] = negatives
     out["negative_rates_clipped"] = sum(int(p["negative_rates_clipped"]) for p in parts)
     return out
-
-
-def in_order(outcomes: Iterator[PartitionOutcome]) -> Iterator[PartitionOutcome]:
-    """The outcomes in partition order, whatever order they arrive in."""
-    waiting: dict[int, PartitionOutcome] = {}
-    expected = 0
-    for outcome in outcomes:
-        waiting[outcome.index] = outcome
-        while expected in waiting:
-            yield waiting.pop(expected)
-            expected += 1
 
 
 def merged_examples(

@@ -481,7 +481,8 @@ def _summary_chunks(
     return totals, grouped
 
 
-def _field_info(config: RunConfig, id_field: str) -> dict[str, dict[str, FieldInfo]]:
+def field_info(config: RunConfig, id_field: str) -> dict[str, dict[str, FieldInfo]]:
+    """Titles, descriptions and units of the columns of the layer and the period table."""
     body = {k: FieldInfo(*v) for k, v in _BODY_FIELDS.items()}
     for name in config.method.all[1:]:
         body[f"evap_mm_{name}"] = FieldInfo(
@@ -600,11 +601,6 @@ def summary_result(
         totals=run_totals(outcomes),
         flag_examples=merged_examples(outcomes, list(provenance["counts"]["qa_flags"])),
     )
-
-
-def field_info(config: RunConfig, id_field: str) -> dict[str, dict[str, FieldInfo]]:
-    """Titles, descriptions and units of the columns of the layer and the period table."""
-    return _field_info(config, id_field)
 
 
 def gathered(

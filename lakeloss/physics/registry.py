@@ -807,14 +807,7 @@ def evaporate(
         A parameter is out of range, of the wrong type, or unknown.
     """
     spec = get(name)
-    checked = validate_parameters(name, params or {})
-    missing = missing_inputs(name, inputs)
-    if missing:
-        raise MissingInputError(
-            f"method {name!r} lacks inputs: {'; '.join(missing)}; "
-            "add them to the configuration or choose another method"
-        )
-    arrays = {key: np.asarray(value, dtype=float) for key, value in inputs.items()}
+    checked, arrays = _prepared(name, inputs, params)
     if spec.state is not None:
         return _evaporate_from_start(spec, arrays, checked)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
@@ -828,6 +821,20 @@ def evaporate(
     ):
         return rate  # already a fresh array of the full shape; a copy would only cost time
     return np.array(np.broadcast_to(rate, shape))
+
+
+def _prepared(
+    name: str, inputs: Mapping[str, ArrayLike], params: Mapping[str, object] | None
+) -> tuple[dict[str, object], dict[str, np.ndarray]]:
+    """The checked parameters and the inputs as float arrays; refuses missing inputs."""
+    checked = validate_parameters(name, params or {})
+    missing = missing_inputs(name, inputs)
+    if missing:
+        raise MissingInputError(
+            f"method {name!r} lacks inputs: {'; '.join(missing)}; "
+            "add them to the configuration or choose another method"
+        )
+    return checked, {key: np.asarray(value, dtype=float) for key, value in inputs.items()}
 
 
 def _evaporate_from_start(
@@ -891,14 +898,7 @@ def advance(
     spec = get(name)
     if spec.state is None:
         raise ValueError(f"method {name!r} carries no state")
-    checked = validate_parameters(name, params or {})
-    missing = missing_inputs(name, inputs)
-    if missing:
-        raise MissingInputError(
-            f"method {name!r} lacks inputs: {'; '.join(missing)}; "
-            "add them to the configuration or choose another method"
-        )
-    arrays = {key: np.asarray(value, dtype=float) for key, value in inputs.items()}
+    checked, arrays = _prepared(name, inputs, params)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         rates, new_state = spec.state.step(dict(state), arrays, checked)
     return np.asarray(rates, dtype=float), new_state
