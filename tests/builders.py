@@ -262,3 +262,36 @@ def split_tables(
         bodies["loss_rank"] = pd.array([None] * len(bodies), dtype="Int64")
         parts.append((bodies, by_period.iloc[start * per_body : stop * per_body]))
     return parts
+
+
+# --------------------------------------------------------------------------- CF checks
+
+
+def cf_report(path) -> dict:
+    """The IOOS compliance checker's CF-1.8 result for a file, as its JSON report.
+
+    Runs offline: the CF standard-name table is the one packaged with the checker and the
+    units come from cf_units' bundled UDUNITS-2.
+    """
+    import json
+    import warnings
+
+    from compliance_checker.runner import CheckSuite, ComplianceChecker
+
+    report = path.with_suffix(".cf.json")
+    with warnings.catch_warnings():  # the checker's own plugins announce deprecations
+        warnings.simplefilter("ignore", DeprecationWarning)
+        CheckSuite.load_all_available_checkers()
+        ComplianceChecker.run_checker(
+            str(path), ["cf:1.8"], 0, "normal", output_filename=str(report), output_format="json"
+        )
+    return json.loads(report.read_text())["cf:1.8"]
+
+
+def failed_cf_checks(report: dict) -> list:
+    return [
+        (item["name"], item["msgs"])
+        for priority in ("high_priorities", "medium_priorities", "low_priorities")
+        for item in report.get(priority, [])
+        if item["value"][0] < item["value"][1]
+    ]

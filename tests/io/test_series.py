@@ -8,13 +8,13 @@ chunk rows is exercised.
 from __future__ import annotations
 
 import datetime
-import warnings
 
 import cftime
 import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
+from builders import cf_report, failed_cf_checks
 
 from lakeloss.io.series import SeriesWriter
 
@@ -177,35 +177,6 @@ def test_datetime64_times_standard_calendar(tmp_path):
 # --- CF discrete sampling geometry: one time series per water body ------------------------
 
 
-def _cf_report(path) -> dict:
-    """The IOOS compliance checker's CF-1.8 result for a file, as its JSON report.
-
-    Runs offline: the CF standard-name table is the one packaged with the checker and the
-    units come from cf_units' bundled UDUNITS-2.
-    """
-    import json
-
-    from compliance_checker.runner import CheckSuite, ComplianceChecker
-
-    report = path.with_suffix(".cf.json")
-    with warnings.catch_warnings():  # the checker's own plugins announce deprecations
-        warnings.simplefilter("ignore", DeprecationWarning)
-        CheckSuite.load_all_available_checkers()
-        ComplianceChecker.run_checker(
-            str(path), ["cf:1.8"], 0, "normal", output_filename=str(report), output_format="json"
-        )
-    return json.loads(report.read_text())["cf:1.8"]
-
-
-def _failed_checks(report: dict) -> list:
-    return [
-        (item["name"], item["msgs"])
-        for priority in ("high_priorities", "medium_priorities", "low_priorities")
-        for item in report.get(priority, [])
-        if item["value"][0] < item["value"][1]
-    ]
-
-
 def _locate(path, ids, lon, lat):
     with SeriesWriter(
         path,
@@ -244,8 +215,8 @@ def test_time_series_feature_type_read_by_cf_xarray(tmp_path):
             ds.set_coords("waterbody_id").swap_dims(waterbody="waterbody_id").sel(waterbody_id=103)
         )
         np.testing.assert_array_equal(one["evap_mm"].values, _expected("evap_mm")[:, 2])
-    report = _cf_report(path)
-    assert _failed_checks(report) == []
+    report = cf_report(path)
+    assert failed_cf_checks(report) == []
     assert report["scored_points"] == report["possible_points"]
 
 
@@ -256,7 +227,7 @@ def test_ids_beyond_int32_and_text_ids_stored_as_text(tmp_path):
         assert ds["waterbody_id"].dtype is str
         assert ds["waterbody_id"][:].tolist() == ["1", "2", "3", "4", str(2**40)]
         assert ds["waterbody_id"].cf_role == "timeseries_id"
-    assert _failed_checks(_cf_report(path)) == []
+    assert failed_cf_checks(cf_report(path)) == []
     with pytest.raises(ValueError, match="go together"):
         _locate(tmp_path / "half.nc", big, LON, None)
 
@@ -305,6 +276,6 @@ def test_run_series_is_cf_time_series_with_standard_names(make_case, tmp_path):
         # The ponds of tests/builders.py lie within 146.05-146.35 E, 30.05-30.25 S.
         assert ((ds["lon"] > 146.0) & (ds["lon"] < 146.4)).all()
         assert ((ds["lat"] > -30.3) & (ds["lat"] < -30.0)).all()
-    report = _cf_report(path)
-    assert _failed_checks(report) == []
+    report = cf_report(path)
+    assert failed_cf_checks(report) == []
     assert report["scored_points"] == report["possible_points"]

@@ -11,15 +11,14 @@ from __future__ import annotations
 
 import datetime
 import itertools
-import json
 import tracemalloc
-import warnings
 
 import cftime
 import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
+from builders import cf_report, failed_cf_checks
 
 from lakeloss.io import series_join
 from lakeloss.io.series import SeriesWriter
@@ -242,8 +241,8 @@ def test_joined_file_is_cf_compliant(tmp_path):
     import cf_xarray  # noqa: F401  (registers the .cf accessor)
 
     join_series(_parts(tmp_path, [4, 7]), tmp_path / "series.nc")
-    report = _cf_report(tmp_path / "series.nc")
-    assert _failed_checks(report) == []
+    report = cf_report(tmp_path / "series.nc")
+    assert failed_cf_checks(report) == []
     assert report["scored_points"] == report["possible_points"]
     with xr.open_dataset(tmp_path / "series.nc") as ds:
         assert ds.attrs["featureType"] == "timeSeries"
@@ -287,26 +286,3 @@ def test_join_memory_does_not_grow_with_the_bodies(tmp_path, monkeypatch):
             np.testing.assert_array_equal(
                 ds["precipitation_rate"].values[10_000:15_000], third["precipitation_rate"].values
             )
-
-
-def _cf_report(path) -> dict:
-    """The IOOS compliance checker's CF-1.8 result for a file (offline), as its JSON report."""
-    from compliance_checker.runner import CheckSuite, ComplianceChecker
-
-    report = path.with_suffix(".cf.json")
-    with warnings.catch_warnings():  # the checker's own plugins announce deprecations
-        warnings.simplefilter("ignore", DeprecationWarning)
-        CheckSuite.load_all_available_checkers()
-        ComplianceChecker.run_checker(
-            str(path), ["cf:1.8"], 0, "normal", output_filename=str(report), output_format="json"
-        )
-    return json.loads(report.read_text())["cf:1.8"]
-
-
-def _failed_checks(report: dict) -> list:
-    return [
-        (item["name"], item["msgs"])
-        for priority in ("high_priorities", "medium_priorities", "low_priorities")
-        for item in report.get(priority, [])
-        if item["value"][0] < item["value"][1]
-    ]
